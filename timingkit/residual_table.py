@@ -11,11 +11,12 @@ nanosecond), ``residual_phase`` with 13 significant digits, ``freq_mhz`` and
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import math
 import os
 import re
-import tempfile
+import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -30,6 +31,28 @@ CORE_COLUMNS = ("mjd", "site", "freq_mhz", "err_us", "residual_us",
 # so no precision is lost between the TOA table and this file).
 _MJD_TEXT = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)$")
 _INTEGER_TEXT = re.compile(r"^[+-]?\d+$")
+
+
+@contextlib.contextmanager
+def atomic_output(path, binary: bool = False):
+    """Open a temporary file beside ``path`` for writing; rename it to ``path``
+    only when the block finishes without error (else delete it). The file gets
+    the usual permissions (0o666 minus the umask), like a plain open()."""
+    path = Path(path)
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
+    descriptor = os.open(temporary, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+    try:
+        if binary:
+            handle = os.fdopen(descriptor, "wb")
+        else:
+            handle = os.fdopen(descriptor, "w", newline="", encoding="utf-8")
+        with handle:
+            yield handle
+        os.replace(temporary, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(temporary)
+        raise
 
 
 def _text_array(values) -> np.ndarray:
@@ -132,32 +155,21 @@ class ResidualTable:
         if np.any(bad):
             raise ValueError(f"{int(np.sum(bad))} non-finite residual(s); "
                              f"first at row {int(np.argmax(bad))}")
-        handle = tempfile.NamedTemporaryFile("w", newline="", encoding="utf-8",
-                                             dir=path.parent or ".", prefix=path.name + ".",
-                                             suffix=".tmp", delete=False)
-        try:
-            with handle:
-                writer = csv.writer(handle, lineterminator="\n")
-                writer.writerow(self.columns)
-                flag_columns = list(self.flags.values())
-                for i in range(len(self)):
-                    writer.writerow([
-                        self.mjd_text[i],
-                        self.site[i],
-                        repr(float(self.freq_mhz[i])),
-                        repr(float(self.err_us[i])),
-                        "%.6f" % self.residual_us[i],
-                        "%.12e" % self.residual_phase[i],
-                        str(int(self.pulse_number[i])),
-                        *(column[i] for column in flag_columns),
-                    ])
-            os.replace(handle.name, path)
-        except BaseException:
-            try:
-                os.unlink(handle.name)
-            except FileNotFoundError:
-                pass
-            raise
+        with atomic_output(path) as handle:
+            writer = csv.writer(handle, lineterminator="\n")
+            writer.writerow(self.columns)
+            flag_columns = list(self.flags.values())
+            for i in range(len(self)):
+                writer.writerow([
+                    self.mjd_text[i],
+                    self.site[i],
+                    repr(float(self.freq_mhz[i])),
+                    repr(float(self.err_us[i])),
+                    "%.6f" % self.residual_us[i],
+                    "%.12e" % self.residual_phase[i],
+                    str(int(self.pulse_number[i])),
+                    *(column[i] for column in flag_columns),
+                ])
 
 
 def _parse_float(text: str, path, line: int, name: str, *, positive: bool = False,
