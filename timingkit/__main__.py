@@ -1,0 +1,3 @@
+from timingkit.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,238 @@
+"""The timing model: its components, parameters by dotted name, free flags,
+evaluation of pulse phase at each TOA and the analytic design matrix."""
+
+from __future__ import annotations
+
+import copy
+from decimal import Decimal
+
+import numpy as np
+
+from timingkit import ddmath
+from timingkit.errors import InputError
+from timingkit.model.astrometry import Astrometry
+from timingkit.model.base import Component, Evaluation
+from timingkit.model.dispersion import Dispersion
+from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
+from timingkit.model.spin import Spin
+from timingkit.modelfile import (Key, ModelDocument, read_model_document, take_section,
+                                 write_model_document)
+from timingkit.observations import Observations
+
+TOP_KEYS = {"name": Key("text", default="unnamed")}
+FIT_KEYS = {"free": Key("list_text", default=list)}
+SETTINGS_KEYS = {
+    "ephemeris": Key("text", default="builtin"),
+    "sites": Key("list_text", default=list),
+    "clock": Key("list_text", default=list),
+    "planet_shapiro": Key("bool", default=False),
+}
+PHASE_ZERO_KEYS = {
+    "mjd": Key("mjd", required=True),
+    "site": Key("text", default="ssb"),
+    "freq_mhz": Key("text", default="inf"),
+}
+
+# Optional components contributed by other modules: section name ->
+# builder(section_value, path, model) -> list[Component]. Modules that add a
+# component register it here (see timingkit.model.__init__).
+EXTRA_SECTIONS: dict[str, object] = {}
+
+CORE_SECTIONS = ("name", "position", "spin", "dispersion", "phase_zero", "fit", "settings")
+
+
+class TimingModel:
+    """A pulsar timing model built from a model document (TOML)."""
+
+    def __init__(self, document: ModelDocument):
+        data = dict(document.data)
+        path = document.path
+        self.path = path
+        self.base_dir = document.base_dir
+        if isinstance(data.get("settings", {}).get("sites"), str):
+            data["settings"] = dict(data["settings"])
+            data["settings"]["sites"] = [data["settings"]["sites"]]
+        legal = set(CORE_SECTIONS) | set(EXTRA_SECTIONS)
+        unknown = [k for k in data if k not in legal]
+        if unknown:
+            raise InputError(f"unknown section or key {', '.join(map(repr, unknown))}; legal: "
+                             f"{', '.join(sorted(legal))}", path=path, field=unknown[0])
+        top = take_section({k: v for k, v in data.items() if k == "name"}, "", TOP_KEYS, path,
+                           allow_uncertainty=False)
+        self.name = top["name"]
+        self.settings = take_section(data.get("settings"), "settings", SETTINGS_KEYS, path,
+                                     allow_uncertainty=False)
+        self.spin = Spin(data.get("spin"), path)
+        self.astrometry = Astrometry(data.get("position"), path, self.spin.epoch,
+                                     planet_shapiro=self.settings["planet_shapiro"])
+        self.dispersion = Dispersion(data.get("dispersion"), path, self.spin.epoch)
+        self.phase_zero = None
+        if "phase_zero" in data:
+            self.phase_zero = take_section(data["phase_zero"], "phase_zero", PHASE_ZERO_KEYS,
+                                           path, allow_uncertainty=False)
+        self.extra: list[Component] = []
+        for section, builder in EXTRA_SECTIONS.items():
+            if section in data:
+                self.extra.extend(builder(data[section], path, self))
+        fit = take_section(data.get("fit"), "fit", FIT_KEYS, path, allow_uncertainty=False)
+        self._by_name = {p.name: p for p in self.parameters()}
+        for name in fit["free"]:
+            self.parameter(name, path=path, field="fit.free").free = True
+
+    # ------------------------------------------------------------ construction
+    @classmethod
+    def from_file(cls, path: str) -> "TimingModel":
+        return cls(read_model_document(path))
+
+    @classmethod
+    def from_text(cls, text: str, path: str | None = None) -> "TimingModel":
+        from timingkit.modelfile import parse_model_text
+        return cls(parse_model_text(text, path))
+
+    def copy(self) -> "TimingModel":
+        new = copy.deepcopy(self)
+        new._by_name = {p.name: p for p in new.parameters()}
+        return new
+
+    # ------------------------------------------------------------- parameters
+    @property
+    def components(self) -> list[Component]:
+        return [self.astrometry, self.dispersion, *self.extra_delays(), *self.extra_binaries(),
+                self.spin, *self.extra_phases()]
+
+    def extra_delays(self):
+        return [c for c in self.extra if c.kind == "delay"]
+
+    def extra_binaries(self):
+        return [c for c in self.extra if c.kind == "binary"]
+
+    def extra_phases(self):
+        return [c for c in self.extra if c.kind == "phase"]
+
+    def parameters(self) -> list[Parameter]:
+        out = []
+        for comp in self.components:
+            out.extend(comp.parameters())
+        return out
+
+    def parameter_names(self) -> list[str]:
+        return [p.name for p in self.parameters()]
+
+    def parameter(self, name: str, path: str | None = None, field: str | None = None) -> Parameter:
+        self._by_name = {p.name: p for p in self.parameters()}
+        try:
+            return self._by_name[name]
+        except KeyError:
+            raise InputError(f"unknown parameter '{name}'; this model has: "
+                             f"{', '.join(self._by_name)}", path=path, field=field) from None
+
+    @property
+    def free_names(self) -> list[str]:
+        return [p.name for p in self.parameters() if p.free]
+
+    def set_free(self, names, free: bool = True) -> None:
+        for name in names:
+            self.parameter(name, field="--free" if free else "--fix").free = free
+
+    def owner(self, name: str) -> Component:
+        for comp in self.components:
+            if any(p.name == name for p in comp.parameters()):
+                return comp
+        raise KeyError(name)
+
+    # ------------------------------------------------------------- evaluation
+    def evaluate(self, obs: Observations, reference: Observations | None = None) -> Evaluation:
+        """Pulse phase (integer + fraction) at every TOA, with all delays."""
+        ev = Evaluation(obs)
+        self.astrometry.apply(ev)
+        ev.dispersion_s = ev.zeros()
+        ev.other_delay_s = ev.zeros()
+        ev.binary_s = ev.zeros()
+        self.dispersion.apply(ev)
+        for comp in self.extra_delays():
+            comp.apply(ev)
+        offset = ev.roemer_s - ev.shapiro_s - ev.dispersion_s - ev.other_delay_s
+        ev.t_bary = obs.tdb.add_seconds(offset)
+        for comp in self.extra_binaries():
+            comp.apply(ev)           # sets/extends ev.binary_s from ev.t_bary
+        ev.emit_offset_s = offset - ev.binary_s
+        ev.t_emit = obs.tdb.add_seconds(ev.emit_offset_s)
+        self.spin.apply(ev)
+        for comp in self.extra_phases():
+            comp.apply(ev)           # adds to ev.phase_frac / spin_frequency_hz
+        if reference is not None:
+            ref = self.evaluate(reference)
+            hi, lo = ddmath.dd_add(ev.phase_int, ev.phase_frac,
+                                   -ref.phase_int[0], -ref.phase_frac[0])
+            ev.phase_int, ev.phase_frac = ddmath.dd_frac_round(hi, lo)
+        else:
+            n, f = ddmath.dd_frac_round(ev.phase_int, ev.phase_frac)
+            ev.phase_int, ev.phase_frac = n, f
+        return ev
+
+    def design_matrix(self, ev: Evaluation, names: list[str]) -> np.ndarray:
+        """Columns d(phase)/d(parameter), cycles per parameter unit, (N, k)."""
+        out = np.zeros((len(ev.obs), len(names)))
+        by_comp: dict[int, list[str]] = {}
+        comps = self.components
+        for name in names:
+            comp = self.owner(name)
+            by_comp.setdefault(id(comp), []).append(name)
+        for comp in comps:
+            wanted = by_comp.get(id(comp))
+            if not wanted:
+                continue
+            cols = comp.partials(ev, wanted)
+            for name in wanted:
+                col = cols[name]
+                if comp.kind != "phase":
+                    col = col * ev.spin_frequency_hz
+                out[:, names.index(name)] = col
+        return out
+
+    # ---------------------------------------------------------------- writing
+    def to_document(self, include_uncertainty: bool = True) -> dict:
+        doc: dict = {"name": self.name}
+        for comp in [self.astrometry, self.spin, self.dispersion]:
+            doc[comp.section] = comp.to_section()
+        for comp in self.extra:
+            sec = comp.to_section()
+            if getattr(comp, "array_section", False):
+                doc.setdefault(comp.section, []).append(sec)
+            else:
+                doc.setdefault(comp.section, {}).update(sec)
+        if include_uncertainty:
+            self._add_uncertainties(doc)
+        if self.phase_zero is not None:
+            pz = dict(self.phase_zero)
+            doc["phase_zero"] = pz
+        doc["fit"] = {"free": self.free_names}
+        settings = {k: v for k, v in self.settings.items() if v not in (None, [], False)}
+        if settings:
+            doc["settings"] = settings
+        return doc
+
+    def _add_uncertainties(self, doc: dict) -> None:
+        for comp in self.components:
+            params = [p for p in comp.parameters() if p.uncertainty is not None]
+            if not params:
+                continue
+            sec = doc[comp.section]
+            if isinstance(sec, list):
+                sec = sec[getattr(comp, "array_index", len(sec) - 1)]
+            unc = sec.setdefault("uncertainty", {})
+            for p in params:
+                value = float(p.uncertainty) * p.file_scale
+                if p.index is None:
+                    unc[p.key] = value
+                else:
+                    lst = unc.setdefault(p.key, [])
+                    while len(lst) <= p.index:
+                        lst.append(float("nan"))
+                    lst[p.index] = value
+
+    def write(self, path: str, comment: str | None = None) -> None:
+        write_model_document(self.to_document(), path, comment)
+
+
+__all__ = ["TimingModel", "EXTRA_SECTIONS", "Decimal", "mjd_decimal", "mjd_parts"]

@@ -1,0 +1,126 @@
+"""Per-TOA geometry and time scales, computed once per data set.
+
+``prepare_observations`` carries every TOA from its site clock to TDB at the
+site and computes the observer's barycentric position and velocity and the
+Sun (and optional planets) -> observer vectors. The timing model then needs
+only cheap vector algebra per fit iteration. Everything here is independent
+of the timing-model parameters.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from timingkit import earth_orientation, timescales
+from timingkit.clock import ClockTable
+from timingkit.ephemeris import Ephemeris
+from timingkit.sites import SiteTable, site_gcrs_posvel
+from timingkit.timearray import SplitTime
+from timingkit.toas import Toas
+
+PLANETS = ("venus", "jupiter", "saturn", "uranus", "neptune")
+
+
+@dataclass
+class Observations:
+    toas: Toas
+    tdb: SplitTime                      # TDB at the observatory
+    observer_ssb_m: np.ndarray          # (N, 3)
+    observer_ssb_vel_m_per_s: np.ndarray
+    sun_to_observer_m: np.ndarray       # (N, 3)
+    planet_to_observer_m: dict[str, np.ndarray]
+    barycentric_input: np.ndarray       # bool: TOA given at the barycentre (site 'ssb')
+    site_names: np.ndarray              # canonical site name per TOA
+    ephemeris_label: str
+    clock_corrections: list[str]
+    warnings: list[str] = field(default_factory=list)
+
+    def __len__(self) -> int:
+        return len(self.toas)
+
+    def select(self, index) -> "Observations":
+        return Observations(
+            toas=self.toas.select(index), tdb=self.tdb[index],
+            observer_ssb_m=self.observer_ssb_m[index],
+            observer_ssb_vel_m_per_s=self.observer_ssb_vel_m_per_s[index],
+            sun_to_observer_m=self.sun_to_observer_m[index],
+            planet_to_observer_m={k: v[index] for k, v in self.planet_to_observer_m.items()},
+            barycentric_input=self.barycentric_input[index], site_names=self.site_names[index],
+            ephemeris_label=self.ephemeris_label, clock_corrections=list(self.clock_corrections),
+            warnings=list(self.warnings))
+
+
+def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
+                         clock_tables: list[ClockTable] | tuple = (),
+                         planets: bool = False) -> Observations:
+    """Time scales and geometry for every TOA (see module docstring)."""
+    n = len(toas)
+    unique_sites, site_index = sites.resolve_many(toas.site)
+    day = toas.mjd_day.copy()
+    frac = toas.mjd_frac.copy()
+    tdb_day = np.empty(n)
+    tdb_frac = np.empty(n)
+    site_pos = np.zeros((n, 3))
+    site_vel = np.zeros((n, 3))
+    bary = np.zeros(n, dtype=bool)
+    names = np.empty(n, dtype=object)
+    warnings: list[str] = []
+    used_clocks: list[str] = []
+    for k, site in enumerate(unique_sites):
+        idx = np.nonzero(site_index == k)[0]
+        names[idx] = site.name
+        given = SplitTime(day[idx], frac[idx], "utc")
+        if site.kind == "ssb":
+            bary[idx] = True
+            tdb = given.with_scale("tdb")
+        elif site.kind == "geocenter":
+            tt = given.with_scale("tt")
+            tdb = timescales.tt_to_tdb(tt, tt.frac)
+        else:
+            for table in clock_tables:
+                if table.applies_to(site.name):
+                    offset_s, warn = table.offset_s(given.mjd, site.name)
+                    given = given.add_seconds(offset_s).with_scale("utc")
+                    warnings.extend(warn)
+                    used_clocks.append(f"{table.converts} ({table.path})")
+            utc = given
+            tt = timescales.utc_to_tt(utc)
+            dut1 = earth_orientation.ut1_minus_utc_s(utc)
+            warnings.extend(earth_orientation.coverage_warnings(utc))
+            ut1_frac = np.mod(utc.frac + dut1 / 86400.0, 1.0)
+            tdb = timescales.tt_to_tdb(tt, ut1_frac, site.longitude_rad,
+                                       site.spin_axis_distance_km, site.equator_distance_km)
+            pos, vel = site_gcrs_posvel(site, utc, tt)
+            site_pos[idx] = pos
+            site_vel[idx] = vel
+        tdb_day[idx] = tdb.day
+        tdb_frac[idx] = tdb.frac
+    tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")
+    ephemeris.check_span(tdb_all, where=toas.path)
+    earth_pos, earth_vel = ephemeris.posvel("earth", tdb_all)
+    observer = np.where(bary[:, None], 0.0, earth_pos + site_pos)
+    observer_vel = np.where(bary[:, None], 0.0, earth_vel + site_vel)
+    sun = ephemeris.position("sun", tdb_all)
+    planet_vectors = {}
+    if planets:
+        for body in PLANETS:
+            planet_vectors[body] = observer - ephemeris.position(body, tdb_all)
+    if not clock_tables and not np.all(bary | (names == "geocenter")):
+        warnings.append("no observatory clock corrections applied: site clocks are taken as UTC "
+                        "(errors of up to µs possible; supply clock tables in settings.clock)")
+    return Observations(
+        toas=toas, tdb=tdb_all, observer_ssb_m=observer, observer_ssb_vel_m_per_s=observer_vel,
+        sun_to_observer_m=observer - sun, planet_to_observer_m=planet_vectors,
+        barycentric_input=bary, site_names=names.astype(str), ephemeris_label=ephemeris.label,
+        clock_corrections=sorted(set(used_clocks)), warnings=_unique(warnings))
+
+
+def _unique(items: list[str]) -> list[str]:
+    seen, out = set(), []
+    for item in items:
+        if item not in seen:
+            seen.add(item)
+            out.append(item)
+    return out
