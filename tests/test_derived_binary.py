@@ -28,13 +28,13 @@ def approx(expected, rel=1e-6, abs=0.0):
 
 # Hulse-Taylor binary PSR B1913+16 (Weisberg & Huang 2016, ApJ 829, 55),
 # values from memory.
-HT_PB_D, HT_X, HT_E = 0.322997448918, 2.341776, 0.6171334
-HT_OMDOT, HT_MP, HT_MC = 4.226598, 1.438, 1.390
+HT_ORBITAL_PERIOD_DAYS, HT_PROJECTED_AXIS_LT_S, HT_ECCENTRICITY = 0.322997448918, 2.341776, 0.6171334
+HT_PERIASTRON_ADVANCE_DEG_YR, HT_PULSAR_MASS, HT_COMPANION_MASS = 4.226598, 1.438, 1.390
 
 # Double pulsar PSR J0737-3039A/B (Kramer et al. 2006, Science 314, 97),
 # values from memory.
-DP_PB_D, DP_X, DP_E = 0.10225156248, 1.415032, 0.0877775
-DP_MA, DP_MB = 1.3381, 1.2489
+DP_ORBITAL_PERIOD_DAYS, DP_PROJECTED_AXIS_LT_S, DP_ECCENTRICITY = 0.10225156248, 1.415032, 0.0877775
+DP_PULSAR_MASS, DP_COMPANION_MASS = 1.3381, 1.2489
 
 
 def test_solar_mass_time_constant():
@@ -43,25 +43,25 @@ def test_solar_mass_time_constant():
 
 
 def test_hulse_taylor_mass_function():
-    f = mass_function(HT_X, HT_PB_D)
+    f = mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS)
     # Hulse-Taylor mass function ~0.1322 M_sun (from memory).
     assert f["value"] == approx(0.1322, abs=1e-4)
     assert f["unit"] == "M_sun" and f["uncertainty"] is None
     # Same from Kepler's third law with astropy's GM_sun, written out:
     # f = (2 pi / Pb)^2 (a sin i)^3 / G M_sun.
-    pb = HT_PB_D * u.day
-    a_sini = HT_X * u.s * const.c
+    pb = HT_ORBITAL_PERIOD_DAYS * u.day
+    a_sini = HT_PROJECTED_AXIS_LT_S * u.s * const.c
     kepler = ((2 * np.pi / pb) ** 2 * a_sini ** 3 / const.GM_sun).decompose()
     assert f["value"] == approx(float(kepler), rel=1e-9)
 
 
 def test_mass_function_uncertainty_finite_difference():
     sx, sp = 1e-4, 1e-6
-    f = mass_function(HT_X, HT_PB_D, projected_semi_major_axis_err_lt_s=sx,
+    f = mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS, projected_semi_major_axis_err_lt_s=sx,
                       orbital_period_err_days=sp)
     h = 1e-7
-    dfx = (mass_function(HT_X + h, HT_PB_D)["value"] - mass_function(HT_X - h, HT_PB_D)["value"]) / (2 * h)
-    dfp = (mass_function(HT_X, HT_PB_D + h)["value"] - mass_function(HT_X, HT_PB_D - h)["value"]) / (2 * h)
+    dfx = (mass_function(HT_PROJECTED_AXIS_LT_S + h, HT_ORBITAL_PERIOD_DAYS)["value"] - mass_function(HT_PROJECTED_AXIS_LT_S - h, HT_ORBITAL_PERIOD_DAYS)["value"]) / (2 * h)
+    dfp = (mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS + h)["value"] - mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS - h)["value"]) / (2 * h)
     assert f["uncertainty"] == approx(math.hypot(dfx * sx, dfp * sp), rel=1e-5)
 
 
@@ -79,13 +79,13 @@ def test_minimum_companion_mass_against_cubic_roots():
 
 def test_double_pulsar_companion_mass_from_shapiro_shape():
     # Kramer et al. 2006 (from memory): s = 0.99974 and m_B = 1.2489(7) M_sun.
-    f = mass_function(DP_X, DP_PB_D)["value"]
+    f = mass_function(DP_PROJECTED_AXIS_LT_S, DP_ORBITAL_PERIOD_DAYS)["value"]
     inc = math.degrees(math.asin(0.99974))
-    assert companion_mass(f, inclination_deg=inc, pulsar_mass_msun=DP_MA)["value"] == \
-        approx(DP_MB, abs=0.001)
+    assert companion_mass(f, inclination_deg=inc, pulsar_mass_msun=DP_PULSAR_MASS)["value"] == \
+        approx(DP_COMPANION_MASS, abs=0.001)
     # Inclinations i and 180 - i give the same mass.
-    assert companion_mass(f, inclination_deg=180 - inc, pulsar_mass_msun=DP_MA)["value"] == \
-        approx(companion_mass(f, inclination_deg=inc, pulsar_mass_msun=DP_MA)["value"], rel=1e-12)
+    assert companion_mass(f, inclination_deg=180 - inc, pulsar_mass_msun=DP_PULSAR_MASS)["value"] == \
+        approx(companion_mass(f, inclination_deg=inc, pulsar_mass_msun=DP_PULSAR_MASS)["value"], rel=1e-12)
 
 
 def test_companion_mass_uncertainty_against_finite_differences():
@@ -103,10 +103,10 @@ def test_companion_mass_uncertainty_against_finite_differences():
 
 
 def test_hulse_taylor_total_mass_and_decay():
-    m = total_mass_from_periastron_advance(HT_OMDOT, HT_PB_D, HT_E)
+    m = total_mass_from_periastron_advance(HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY)
     # Weisberg & Huang 2016: M = 2.828378(7) M_sun (from memory).
     assert m["value"] == approx(2.828378, abs=2e-5)
-    pbdot = orbital_decay_gr(HT_MP, HT_MC, HT_PB_D, HT_E)
+    pbdot = orbital_decay_gr(HT_PULSAR_MASS, HT_COMPANION_MASS, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY)
     # Weisberg & Huang 2016: GR prediction -2.40263(5)e-12 (from memory);
     # our masses are rounded to 1e-3, hence 0.1 %.
     assert pbdot["value"] == approx(-2.4026e-12, rel=1e-3)
@@ -114,18 +114,18 @@ def test_hulse_taylor_total_mass_and_decay():
 
 
 def test_hulse_taylor_einstein_delay():
-    pk = post_keplerian_gr(HT_MP, HT_MC, HT_PB_D, HT_E, HT_X)
+    pk = post_keplerian_gr(HT_PULSAR_MASS, HT_COMPANION_MASS, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY, HT_PROJECTED_AXIS_LT_S)
     # Weisberg & Huang 2016: measured gamma = 4.307(4) ms (from memory).
     assert pk["einstein_delay_amplitude_s"]["value"] == approx(4.307e-3, abs=1e-5)
     # Prediction of omega_dot from these masses returns the measured value
     # (Weisberg & Huang 2016, from memory) to the rounding of the masses.
-    assert pk["periastron_advance_deg_per_yr"]["value"] == approx(HT_OMDOT, rel=2e-4)
+    assert pk["periastron_advance_deg_per_yr"]["value"] == approx(HT_PERIASTRON_ADVANCE_DEG_YR, rel=2e-4)
     # s = sin i ~ 0.73 (i ~ 47 deg; Weisberg & Huang 2016, from memory).
     assert pk["shapiro_shape"]["value"] == approx(0.733, abs=0.003)
 
 
 def test_double_pulsar_post_keplerian():
-    pk = post_keplerian_gr(DP_MA, DP_MB, DP_PB_D, DP_E, DP_X)
+    pk = post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)
     assert list(pk) == ["periastron_advance_deg_per_yr", "einstein_delay_amplitude_s",
                         "orbital_period_derivative", "shapiro_range_s", "shapiro_shape"]
     # Kramer et al. 2006 measured values (from memory), within their 1 sigma:
@@ -141,24 +141,24 @@ def test_double_pulsar_post_keplerian():
 
 def test_post_keplerian_uncertainties_against_finite_differences():
     cov = np.array([[0.0007 ** 2, -0.9 * 0.0007 * 0.0007], [-0.9 * 0.0007 * 0.0007, 0.0007 ** 2]])
-    pk = post_keplerian_gr(DP_MA, DP_MB, DP_PB_D, DP_E, DP_X, mass_covariance=cov)
+    pk = post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S, mass_covariance=cov)
     h = 1e-7
     for key, q in pk.items():
         g = np.array([
-            (post_keplerian_gr(DP_MA + h, DP_MB, DP_PB_D, DP_E, DP_X)[key]["value"]
-             - post_keplerian_gr(DP_MA - h, DP_MB, DP_PB_D, DP_E, DP_X)[key]["value"]) / (2 * h),
-            (post_keplerian_gr(DP_MA, DP_MB + h, DP_PB_D, DP_E, DP_X)[key]["value"]
-             - post_keplerian_gr(DP_MA, DP_MB - h, DP_PB_D, DP_E, DP_X)[key]["value"]) / (2 * h)])
+            (post_keplerian_gr(DP_PULSAR_MASS + h, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]
+             - post_keplerian_gr(DP_PULSAR_MASS - h, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]) / (2 * h),
+            (post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS + h, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]
+             - post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS - h, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]) / (2 * h)])
         assert q["uncertainty"] == approx(math.sqrt(g @ cov @ g), rel=1e-4, abs=1e-30), key
     # Uncertainty of the total mass from omega_dot (finite differences, Pb and e).
-    m = total_mass_from_periastron_advance(HT_OMDOT, HT_PB_D, HT_E,
+    m = total_mass_from_periastron_advance(HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY,
                                            periastron_advance_err_deg_per_yr=7e-6,
                                            eccentricity_err=3e-7, orbital_period_err_days=1e-8)
-    def M(w=HT_OMDOT, pb=HT_PB_D, e=HT_E):
+    def M(w=HT_PERIASTRON_ADVANCE_DEG_YR, pb=HT_ORBITAL_PERIOD_DAYS, e=HT_ECCENTRICITY):
         return total_mass_from_periastron_advance(w, pb, e)["value"]
-    g = [(M(w=HT_OMDOT + 1e-6) - M(w=HT_OMDOT - 1e-6)) / 2e-6 * 7e-6,
-         (M(pb=HT_PB_D + 1e-8) - M(pb=HT_PB_D - 1e-8)) / 2e-8 * 1e-8,
-         (M(e=HT_E + 1e-7) - M(e=HT_E - 1e-7)) / 2e-7 * 3e-7]
+    g = [(M(w=HT_PERIASTRON_ADVANCE_DEG_YR + 1e-6) - M(w=HT_PERIASTRON_ADVANCE_DEG_YR - 1e-6)) / 2e-6 * 7e-6,
+         (M(pb=HT_ORBITAL_PERIOD_DAYS + 1e-8) - M(pb=HT_ORBITAL_PERIOD_DAYS - 1e-8)) / 2e-8 * 1e-8,
+         (M(e=HT_ECCENTRICITY + 1e-7) - M(e=HT_ECCENTRICITY - 1e-7)) / 2e-7 * 3e-7]
     assert m["uncertainty"] == approx(math.sqrt(sum(x * x for x in g)), rel=1e-4)
 
 
