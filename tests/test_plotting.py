@@ -373,6 +373,16 @@ def test_ppdot_skips_nonpositive_pdot_with_note():
     assert annotated == {"demo-mid"}
 
 
+def test_ppdot_with_nothing_to_draw(tmp_path):
+    # A batch where no source was fitted still gets a (labelled, empty) diagram.
+    figure = plotting.plot_ppdot([], [], [], path=tmp_path / "empty.png")
+    check_png(tmp_path / "empty.png", 750, 650)
+    assert len([ln for ln in figure.axes[0].lines if ln.get_gid()]) == 15
+    figure = plotting.plot_ppdot([1.0], [-1e-15], ["demo-spinup"])
+    [note] = [t for t in figure.texts if t.get_gid() == "skipped_sources_note"]
+    assert "demo-spinup" in note.get_text()
+
+
 def test_ppdot_without_skips_has_no_skip_note():
     figure = plotting.plot_ppdot([1.0], [1e-15], ["demo-one"])
     assert not [t for t in figure.texts if t.get_gid() == "skipped_sources_note"]

@@ -69,6 +69,12 @@ def test_round_trip_exact(tmp_path):
     assert again.read_bytes() == path.read_bytes()
 
 
+def test_classmethod_reader_is_the_same(tmp_path):
+    path = tmp_path / "residuals.csv"
+    make_table().write_csv(path)
+    assert list(ResidualTable.read_csv(path).mjd_text) == MJD_TEXT
+
+
 def test_sub_nanosecond_digits_printed(tmp_path):
     table = make_table()
     path = tmp_path / "r.csv"

@@ -119,6 +119,11 @@ class ResidualTable:
         return cls(mjd_text, mjd, site, freq_mhz, err_us, residual_us,
                    residual_phase, pulse_number, dict(flags or {}))
 
+    @classmethod
+    def read_csv(cls, path) -> "ResidualTable":
+        """Same as the module function :func:`read_csv`."""
+        return read_csv(path)
+
     def __len__(self) -> int:
         return len(self.mjd_text)
 
