@@ -56,12 +56,15 @@ def test_hulse_taylor_mass_function():
 
 
 def test_mass_function_uncertainty_finite_difference():
+    x0, pb0 = HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS
     sx, sp = 1e-4, 1e-6
-    f = mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS, projected_semi_major_axis_err_lt_s=sx,
-                      orbital_period_err_days=sp)
+    f = mass_function(x0, pb0, projected_semi_major_axis_err_lt_s=sx, orbital_period_err_days=sp)
+
+    def fm(x, pb):
+        return mass_function(x, pb)["value"]
     h = 1e-7
-    dfx = (mass_function(HT_PROJECTED_AXIS_LT_S + h, HT_ORBITAL_PERIOD_DAYS)["value"] - mass_function(HT_PROJECTED_AXIS_LT_S - h, HT_ORBITAL_PERIOD_DAYS)["value"]) / (2 * h)
-    dfp = (mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS + h)["value"] - mass_function(HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS - h)["value"]) / (2 * h)
+    dfx = (fm(x0 + h, pb0) - fm(x0 - h, pb0)) / (2 * h)
+    dfp = (fm(x0, pb0 + h) - fm(x0, pb0 - h)) / (2 * h)
     assert f["uncertainty"] == approx(math.hypot(dfx * sx, dfp * sp), rel=1e-5)
 
 
@@ -140,25 +143,29 @@ def test_double_pulsar_post_keplerian():
 
 
 def test_post_keplerian_uncertainties_against_finite_differences():
-    cov = np.array([[0.0007 ** 2, -0.9 * 0.0007 * 0.0007], [-0.9 * 0.0007 * 0.0007, 0.0007 ** 2]])
-    pk = post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S, mass_covariance=cov)
+    sig = 0.0007
+    cov = np.array([[sig ** 2, -0.9 * sig ** 2], [-0.9 * sig ** 2, sig ** 2]])
+    orbit = (DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)
+    pk = post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS, *orbit, mass_covariance=cov)
+
+    def value(key, mp, mc):
+        return post_keplerian_gr(mp, mc, *orbit)[key]["value"]
     h = 1e-7
     for key, q in pk.items():
-        g = np.array([
-            (post_keplerian_gr(DP_PULSAR_MASS + h, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]
-             - post_keplerian_gr(DP_PULSAR_MASS - h, DP_COMPANION_MASS, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]) / (2 * h),
-            (post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS + h, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]
-             - post_keplerian_gr(DP_PULSAR_MASS, DP_COMPANION_MASS - h, DP_ORBITAL_PERIOD_DAYS, DP_ECCENTRICITY, DP_PROJECTED_AXIS_LT_S)[key]["value"]) / (2 * h)])
+        mp, mc = DP_PULSAR_MASS, DP_COMPANION_MASS
+        g = np.array([(value(key, mp + h, mc) - value(key, mp - h, mc)) / (2 * h),
+                      (value(key, mp, mc + h) - value(key, mp, mc - h)) / (2 * h)])
         assert q["uncertainty"] == approx(math.sqrt(g @ cov @ g), rel=1e-4, abs=1e-30), key
     # Uncertainty of the total mass from omega_dot (finite differences, Pb and e).
-    m = total_mass_from_periastron_advance(HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY,
-                                           periastron_advance_err_deg_per_yr=7e-6,
+    w0, pb0, e0 = HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY
+    m = total_mass_from_periastron_advance(w0, pb0, e0, periastron_advance_err_deg_per_yr=7e-6,
                                            eccentricity_err=3e-7, orbital_period_err_days=1e-8)
-    def M(w=HT_PERIASTRON_ADVANCE_DEG_YR, pb=HT_ORBITAL_PERIOD_DAYS, e=HT_ECCENTRICITY):
+
+    def total(w=w0, pb=pb0, e=e0):
         return total_mass_from_periastron_advance(w, pb, e)["value"]
-    g = [(M(w=HT_PERIASTRON_ADVANCE_DEG_YR + 1e-6) - M(w=HT_PERIASTRON_ADVANCE_DEG_YR - 1e-6)) / 2e-6 * 7e-6,
-         (M(pb=HT_ORBITAL_PERIOD_DAYS + 1e-8) - M(pb=HT_ORBITAL_PERIOD_DAYS - 1e-8)) / 2e-8 * 1e-8,
-         (M(e=HT_ECCENTRICITY + 1e-7) - M(e=HT_ECCENTRICITY - 1e-7)) / 2e-7 * 3e-7]
+    g = [(total(w=w0 + 1e-6) - total(w=w0 - 1e-6)) / 2e-6 * 7e-6,
+         (total(pb=pb0 + 1e-8) - total(pb=pb0 - 1e-8)) / 2e-8 * 1e-8,
+         (total(e=e0 + 1e-7) - total(e=e0 - 1e-7)) / 2e-7 * 3e-7]
     assert m["uncertainty"] == approx(math.sqrt(sum(x * x for x in g)), rel=1e-4)
 
 
