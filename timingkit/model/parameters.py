@@ -62,5 +62,7 @@ def mjd_parts(value: Decimal) -> tuple[float, float]:
 
 
 def mjd_decimal(day: float, frac: float) -> Decimal:
-    """Decimal text of a two-part MJD (exact value of the pair, 20 places)."""
-    return (Decimal(int(day)) + Decimal(frac)).quantize(Decimal("1e-20")).normalize()
+    """Decimal of a two-part MJD (the pair's value to 20 places, no exponent)."""
+    value = (Decimal(int(day)) + Decimal(frac)).quantize(Decimal("1e-20"))
+    text = format(value, "f").rstrip("0").rstrip(".")
+    return Decimal(text or "0")

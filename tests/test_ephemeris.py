@@ -1,0 +1,61 @@
+"""Ephemeris reader against JPL's published test values and orbital facts."""
+
+import os
+
+import numpy as np
+import pytest
+
+from timingkit.ephemeris import load_ephemeris
+from timingkit.errors import InputError
+from timingkit.timearray import SplitTime
+
+AU_KM = 149597870.700  # IAU 2012 Resolution B2
+
+
+def test_jpl_de430_test_position():
+    # JPL's DE430 test file (testpo.430): JD 2457082.5, Earth relative to
+    # Mercury, x = -0.70753751970303600000 au. The DE430 excerpt ships with
+    # skyfield's test data.
+    skyfield = pytest.importorskip("skyfield")
+    path = os.path.join(os.path.dirname(skyfield.__file__), "tests", "data",
+                        "de430-2015-03-02.bsp")
+    if not os.path.exists(path):
+        pytest.skip("skyfield wheel without its DE430 test excerpt")
+    eph = load_ephemeris(path)
+    t = SplitTime([57082.0], [0.0], "tdb")  # JD 2457082.5
+    x = (eph.position("earth", t) - eph.position("mercury", t))[0, 0] / 1000.0
+    assert abs(x / AU_KM - (-0.70753751970303600000)) * AU_KM * 1e6 < 1.0  # < 1 mm
+
+
+def test_earth_sun_light_time_range_over_a_year():
+    # 1 au = 499.004784 s (IAU 2012 B2); eccentricity 0.0167 gives ~490.6-507.4 s.
+    eph = load_ephemeris()
+    days = np.arange(60000.0, 60366.0, 0.5)
+    t = SplitTime(days, np.zeros_like(days), "tdb")
+    d = np.linalg.norm(eph.position("earth", t) - eph.position("sun", t), axis=1)
+    light_s = d / 299792458.0
+    assert 490.4 < light_s.min() < 491.0
+    assert 507.0 < light_s.max() < 507.6
+
+
+def test_two_part_dates_keep_precision():
+    # Position at day + fraction must equal the same instant split differently.
+    eph = load_ephemeris()
+    a = eph.position("earth", SplitTime([59000.0], [0.75], "tdb"))
+    b = eph.position("earth", SplitTime([59000.5], [0.25], "tdb"))
+    assert np.max(np.abs(a - b)) < 1e-4  # 0.1 mm
+
+
+def test_outside_span_is_a_clear_error():
+    eph = load_ephemeris()
+    with pytest.raises(InputError, match="outside the ephemeris span"):
+        eph.check_span(SplitTime([80000.0], [0.0], "tdb"), where="x.toas")
+
+
+def test_missing_or_bad_file(tmp_path):
+    with pytest.raises(InputError, match="not found"):
+        load_ephemeris(str(tmp_path / "nope.bsp"))
+    bad = tmp_path / "bad.bsp"
+    bad.write_bytes(b"not an spk file" * 100)
+    with pytest.raises(InputError, match="SPK"):
+        load_ephemeris(str(bad))
