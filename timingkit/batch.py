@@ -512,35 +512,39 @@ def _run_on_pool(jobs: list[_Job], workers: int, outdir: Path, done: Callable[[d
                   "elapsed_s": float("nan"), "worker": "died"})
 
 
-def _dask_client(cluster: str, workers: int):
+def _require_dask():
     try:
-        from dask.distributed import Client, LocalCluster
+        from dask import distributed
     except ImportError:
         raise InputError(f"--cluster needs Dask, which is not installed; {CLUSTER_INSTALL_HINT}",
                          field="cluster") from None
+    return distributed
+
+
+def _dask_client(cluster: str, workers: int):
+    distributed = _require_dask()
     if cluster == "local":
         import logging
 
         with _one_numerical_thread():
-            local = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                 dashboard_address=None, silence_logs=logging.ERROR)
-        return Client(local), local
+            local = distributed.LocalCluster(n_workers=workers, threads_per_worker=1,
+                                             processes=True, dashboard_address=None,
+                                             silence_logs=logging.ERROR)
+        return distributed.Client(local), local
     try:
-        return Client(cluster, timeout="15s"), None
+        return distributed.Client(cluster, timeout="15s"), None
     except (OSError, TimeoutError, ValueError) as exc:
         raise InputError(f"cannot reach the Dask scheduler at {cluster} ({exc})",
                          field="cluster") from None
 
 
 def _run_on_dask(jobs: list[_Job], cluster: str, workers: int, done: Callable[[dict], None]) -> str:
-    from dask.distributed import as_completed as dask_as_completed
-
     client, local = _dask_client(cluster, workers)
     try:
         futures = {client.submit(process_source, job, pure=False,
                                  key=f"timingkit-fit-{job.source.name}-{os.urandom(4).hex()}"): job
                    for job in jobs}
-        for future in dask_as_completed(list(futures)):
+        for future in _require_dask().as_completed(list(futures)):
             job = futures[future]
             try:
                 done(future.result())
@@ -594,7 +598,8 @@ class BatchResult:
 
     @property
     def refitted(self) -> list[str]:
-        return [o.name for o in self.outcomes if not o.reused and o.worker not in ("", "died")]
+        """Sources handed to a worker in this run (not kept by resume, not unrunnable)."""
+        return [o.name for o in self.outcomes if not o.reused and o.worker]
 
     @property
     def exit_status(self) -> int:
@@ -658,19 +663,18 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
         raise InputError(f"unknown cluster '{cluster}'; use 'local' or a Dask scheduler address "
                          "such as tcp://HOST:PORT", field="cluster")
     if cluster is not None:
-        _dask_client_importable()
-    fit_function = fit_function or _default_fit_function()
+        _require_dask()
     outdir.mkdir(parents=True, exist_ok=True)
     _remove_leftovers(outdir)
 
     software = _software_fingerprint()
     outcomes: dict[str, SourceOutcome] = {}
-    jobs = []
+    pending, jobs = [], []
     bar = _progress_bar(len(sources), progress)
 
-    def done(result: dict) -> None:
+    def done(result: dict, reused: bool = False) -> None:
         outcomes[result["name"]] = SourceOutcome(result["name"], result["status"],
-                                                 result["message"],
+                                                 result["message"], reused=reused,
                                                  elapsed_s=result["elapsed_s"],
                                                  worker=result["worker"])
         bar.update(1)
@@ -687,10 +691,12 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
             digest = inputs_sha256(source, software)
             if resume and _reusable(outdir, source, digest):
                 done({"name": source.name, "status": STATUS_OK, "message": "", "elapsed_s": 0.0,
-                      "worker": ""})
-                outcomes[source.name].reused = True
+                      "worker": ""}, reused=True)
                 continue
-            jobs.append(_Job(source, str(outdir), digest, fit_function))
+            pending.append((source, digest))
+        if pending:
+            function = fit_function or _default_fit_function()
+            jobs = [_Job(source, str(outdir), digest, function) for source, digest in pending]
         if not jobs:
             engine = "none (nothing to fit)"
         elif cluster is None:
@@ -711,14 +717,6 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
                 for name, report in reports.items() if report}
     result.files = write_summaries(result, software, warnings)
     return result
-
-
-def _dask_client_importable() -> None:
-    try:
-        import dask.distributed  # noqa: F401
-    except ImportError:
-        raise InputError(f"--cluster needs Dask, which is not installed; {CLUSTER_INSTALL_HINT}",
-                         field="cluster") from None
 
 
 # --------------------------------------------------------------------------- summary
