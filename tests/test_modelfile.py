@@ -1,0 +1,111 @@
+"""Model file: exact decimals, defaults, strict keys, errors naming file and field."""
+
+from decimal import Decimal
+from fractions import Fraction
+
+import pytest
+
+from timingkit.errors import InputError
+from timingkit.modelfile import format_model_document, parse_model_text, read_model_document
+
+pytest.importorskip("timingkit.sites")
+from timingkit.model import TimingModel  # noqa: E402
+
+GOOD = '''
+name = "demo-young"
+
+[position]
+ra = "05h12m33.4567s"
+dec = "+21d02m11.234s"
+
+[spin]
+epoch_mjd = "59000.123456789012345"
+frequency_hz = "29.946923012345678901"
+frequency_derivatives = ["-3.77535e-10", 1.1147e-20]
+
+[fit]
+free = ["spin.frequency_hz", "dispersion.dm"]
+'''
+
+
+def test_high_precision_values_are_exact():
+    doc = parse_model_text(GOOD, "m.toml")
+    assert doc.data["spin"]["frequency_hz"] == "29.946923012345678901"
+    # TOML floats are read as exact decimals, never through a binary float
+    assert doc.data["spin"]["frequency_derivatives"][1] == Decimal("1.1147e-20")
+    m = TimingModel(doc)
+    f = m.parameter("spin.frequency_hz")
+    exact = Fraction(f.value) + Fraction(f.value_lo)
+    assert abs(exact - Fraction("29.946923012345678901")) < Fraction(1, 10 ** 30)
+    day, frac = m.spin.epoch_day, m.spin.epoch_frac
+    assert day == 59000 and abs(Fraction(frac) - Fraction("0.123456789012345")) < Fraction(1, 10 ** 17)
+
+
+def test_defaults_and_free_flags():
+    m = TimingModel.from_text(GOOD, "m.toml")
+    assert m.dispersion.dm.value == 0.0                 # [dispersion] missing -> default
+    assert m.settings["ephemeris"] == "builtin"
+    assert set(m.free_names) == {"spin.frequency_hz", "dispersion.dm"}
+    assert m.astrometry.parallax.value == 0.0
+
+
+def test_round_trip_through_writer(tmp_path):
+    m = TimingModel.from_text(GOOD, "m.toml")
+    path = tmp_path / "out.toml"
+    m.write(str(path))
+    m2 = TimingModel.from_file(str(path))
+    for p in m.parameters():
+        q = m2.parameter(p.name)
+        assert (q.value, q.value_lo) == pytest.approx((p.value, p.value_lo), rel=0, abs=1e-300) \
+            or abs(Fraction(q.value) + Fraction(q.value_lo) - Fraction(p.value) - Fraction(p.value_lo)) \
+            <= abs(Fraction(p.value)) * Fraction(1, 10 ** 28)
+    assert set(m2.free_names) == set(m.free_names)
+
+
+@pytest.mark.parametrize("text, field, message", [
+    (GOOD.replace('[fit]', '[fit]\ncolour = 1'), "fit.colour", "unknown key"),
+    (GOOD.replace('name = "demo-young"', 'name = "x"\n[telescope]\nx = 1'), "telescope",
+     "unknown section"),
+    (GOOD.replace('frequency_hz = "29.946923012345678901"', ''), "spin.frequency_hz",
+     "missing required key"),
+    (GOOD.replace('"29.946923012345678901"', '"29.9x"'), "spin.frequency_hz", "decimal"),
+    (GOOD.replace('"spin.frequency_hz", "dispersion.dm"', '"spin.frequency"'), "fit.free",
+     "unknown parameter"),
+    (GOOD.replace('ra = "05h12m33.4567s"', 'ra = "banana"'), "position.ra", "angle"),
+    (GOOD.replace('dec = "+21d02m11.234s"', ''), "position.dec", "missing required"),
+])
+def test_bad_model_files_name_the_field(text, field, message):
+    with pytest.raises(InputError) as info:
+        TimingModel.from_text(text, "bad.toml")
+    assert info.value.field == field
+    assert message in str(info.value)
+    assert str(info.value).startswith("bad.toml")
+
+
+def test_broken_toml_names_the_line(tmp_path):
+    p = tmp_path / "broken.toml"
+    p.write_text('name = "x"\n[spin\nfrequency_hz = "1"\n')
+    with pytest.raises(InputError) as info:
+        read_model_document(str(p))
+    assert info.value.line == 2
+    assert "not valid TOML" in str(info.value)
+
+
+def test_empty_binary_and_missing_files(tmp_path):
+    empty = tmp_path / "e.toml"
+    empty.write_text("")
+    with pytest.raises(InputError, match="empty"):
+        read_model_document(str(empty))
+    binary = tmp_path / "b.toml"
+    binary.write_bytes(b"\x00\x01\x02")
+    with pytest.raises(InputError, match="binary"):
+        read_model_document(str(binary))
+    with pytest.raises(InputError, match="not found"):
+        read_model_document(str(tmp_path / "none.toml"))
+
+
+def test_writer_keeps_decimals_as_strings():
+    text = format_model_document({"spin": {"frequency_hz": Decimal("700.1234567890123456789"),
+                                           "x": 1.5, "free": ["a"]}})
+    assert 'frequency_hz = "700.1234567890123456789"' in text
+    assert parse_model_text(text).data["spin"]["x"] == Decimal("1.5")
