@@ -82,18 +82,15 @@ class SplitTime:
         return self.day + self.frac
 
     def mjd_strings(self, decimals: int = 15) -> list[str]:
-        """Decimal MJD text, each fraction rounded to ``decimals`` places."""
-        out = []
+        """Decimal MJD text, each fraction rounded to ``decimals`` places (<= 15:
+        the float64 fraction resolves ~1e-16 day)."""
+        if not 0 < decimals <= 15:
+            raise ValueError("decimals must be 1..15")
         scale = 10 ** decimals
-        for d, f in zip(self.day, self.frac):
-            units = int(round(f * scale)) if decimals <= 15 else None
-            if units is None:
-                from fractions import Fraction
-                units = round(Fraction(float(f)) * scale)
-            dd = int(d)
-            if units >= scale:
-                dd, units = dd + 1, units - scale
-            elif units < 0:
-                dd, units = dd - 1, units + scale
-            out.append(f"{dd}.{units:0{decimals}d}")
-        return out
+        units = np.round(self.frac * scale).astype(np.int64)
+        day = self.day.astype(np.int64)
+        carry = units // scale          # handles fractions rounding to 1 or below 0
+        units = units - carry * scale
+        day = day + carry
+        frac_text = np.char.zfill(units.astype(str), decimals)
+        return np.char.add(np.char.add(day.astype(str), "."), frac_text).tolist()

@@ -1,0 +1,255 @@
+#!/usr/bin/env python
+"""Benchmarks named by the issues, printed (never asserted in tests).
+
+    python scripts/bench.py                 # everything
+    python scripts/bench.py barycenter read # some sections
+    python scripts/bench.py --quick         # smaller sizes, a quick look
+
+Each heavy measurement runs in a fresh child process so peak memory
+(ru_maxrss) and import costs are its own. Ratios are against a reference
+measured in the same run where one exists (astropy for barycentring).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import textwrap
+import time
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+SITES = os.path.join(ROOT, "timingkit", "sample_data", "sites.toml")
+sys.path.insert(0, ROOT)
+sys.path.insert(0, os.path.join(ROOT, "scripts"))
+
+MODEL = """name = "bench-msp"
+[position]
+ra = "17h53m20.1234567s"
+dec = "-07d41m12.345678s"
+epoch_mjd = "58000"
+pm_ra_cosdec_mas_per_yr = -3.1
+pm_dec_mas_per_yr = 4.7
+parallax_mas = 0.9
+[spin]
+epoch_mjd = "58000"
+frequency_hz = "287.45612387654321"
+frequency_derivatives = ["-6.1234e-16"]
+[dispersion]
+dm = 24.5631
+[fit]
+free = ["spin.frequency_hz", "spin.frequency_derivatives.0", "dispersion.dm"]
+[settings]
+sites = "%s"
+""" % SITES
+
+
+def child(code: str) -> dict:
+    """Run code in a fresh interpreter; it must print one JSON line last."""
+    prog = "import resource, json, time\n" + textwrap.dedent(code) + \
+        "\nout['peak_rss_mb'] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024\n" \
+        "print(json.dumps(out))\n"
+    res = subprocess.run([sys.executable, "-c", prog], capture_output=True, text=True, cwd=ROOT)
+    if res.returncode != 0:
+        raise RuntimeError(res.stderr[-3000:])
+    return json.loads(res.stdout.strip().splitlines()[-1])
+
+
+def write_table(path: str, n: int, start=51544.0, end=51544.0 + 40 * 365.25, seed=1) -> None:
+    import numpy as np
+    rng = np.random.default_rng(seed)
+    mjd = np.sort(rng.uniform(start, end, n))
+    day = np.floor(mjd).astype(np.int64)
+    frac = np.round((mjd - day) * 1e15).astype(np.int64)
+    sites = np.array(["desert-dish", "lake-array", "north-ridge"])[rng.integers(0, 3, n)]
+    freq = np.array(["820.0", "1400.0", "2300.0"])[rng.integers(0, 3, n)]
+    with open(path, "w") as fh:
+        fh.write("mjd err_us freq_mhz site\n")
+        for i in range(n):
+            fh.write(f"{day[i]}.{frac[i]:015d} 1.0 {freq[i]} {sites[i]}\n")
+
+
+def bench_barycenter(n: int, tmp: str) -> None:
+    toas = os.path.join(tmp, f"bary{n}.toas")
+    model = os.path.join(tmp, "model.toml")
+    write_table(toas, n)
+    with open(model, "w") as fh:
+        fh.write(MODEL)
+    ours = child(f"""
+        t0 = time.perf_counter()
+        from timingkit.pipeline import barycenter_files
+        barycenter_files({toas!r}, {model!r}, {os.path.join(tmp, 'ours.csv')!r})
+        out = dict(seconds=time.perf_counter() - t0)
+    """)
+    ref = child(f"""
+        t0 = time.perf_counter()
+        import numpy as np, csv
+        import astropy.units as u
+        from astropy.time import Time
+        from astropy.coordinates import EarthLocation, SkyCoord
+        from astropy.utils import iers
+        iers.conf.auto_download = False
+        from timingkit.toas import read_toas
+        from timingkit.sites import SiteTable
+        from timingkit.ephemeris import builtin_ephemeris_path
+        toas = read_toas({toas!r})
+        table = SiteTable.with_files([{SITES!r}])
+        c = SkyCoord("17h53m20.1234567s", "-07d41m12.345678s", frame="icrs")
+        tdb_day = np.empty(len(toas)); tdb_frac = np.empty(len(toas)); roemer = np.empty(len(toas))
+        for name in np.unique(toas.site):
+            idx = np.nonzero(toas.site == name)[0]
+            site = table.lookup(str(name))
+            loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
+            t = Time(toas.mjd_day[idx], toas.mjd_frac[idx], format="mjd", scale="utc", location=loc)
+            tdb = t.tdb
+            roemer[idx] = t.light_travel_time(c, kind="barycentric", location=loc,
+                                              ephemeris=builtin_ephemeris_path()).to_value(u.s)
+            tdb_day[idx] = tdb.jd1 - 2400000.5; tdb_frac[idx] = tdb.jd2
+        secs = time.perf_counter() - t0
+        # agreement with ours (TDB and plane-wave Roemer; ours includes parallax, so
+        # compare TDB only here and Roemer in the test suite)
+        rows = list(csv.DictReader(open({os.path.join(tmp, 'ours.csv')!r})))
+        from decimal import Decimal
+        ours_tdb = np.array([float(Decimal(r["tdb_mjd"]) - Decimal(int(d)))
+                             for r, d in zip(rows, np.floor(tdb_day + tdb_frac))])
+        theirs = (tdb_day - np.floor(tdb_day + tdb_frac)) + tdb_frac
+        out = dict(seconds=secs, max_tdb_diff_ns=float(np.max(np.abs(ours_tdb - theirs)) * 86400e9))
+    """)
+    print(f"barycentre {n:,} TOAs (table -> CSV): timingkit {ours['seconds']:.2f} s "
+          f"({ours['peak_rss_mb']:.0f} MB); astropy Time.tdb + light_travel_time "
+          f"{ref['seconds']:.2f} s; speed-up {ref['seconds'] / ours['seconds']:.1f}x "
+          f"(target >= 5x, aim 20x); TDB agreement {ref['max_tdb_diff_ns']:.3f} ns "
+          "(15-decimal CSV rounding included)")
+
+
+def bench_read(n: int, tmp: str) -> None:
+    toas = os.path.join(tmp, f"read{n}.toas")
+    write_table(toas, n)
+    r = child(f"""
+        from timingkit.toas import read_toas
+        t0 = time.perf_counter()
+        t = read_toas({toas!r})
+        out = dict(seconds=time.perf_counter() - t0, n=len(t))
+    """)
+    print(f"read {r['n']:,}-line TOA table: {r['seconds']:.2f} s, peak memory "
+          f"{r['peak_rss_mb']:.0f} MB (targets: < 5 s, < 1 GB)")
+
+
+def _fit_child(n: int, tmp: str) -> dict:
+    toas = os.path.join(tmp, f"fit{n}.toas")
+    model = os.path.join(tmp, "model.toml")
+    with open(model, "w") as fh:
+        fh.write(MODEL)
+    sim = child(f"""
+        t0 = time.perf_counter()
+        from timingkit.pipeline import load_context, load_model
+        from timingkit.simulate import simulate_toas
+        from timingkit.toas import write_toas
+        m = load_model({model!r})
+        sites, eph, clocks = load_context(m)
+        toas = simulate_toas(m, 55000, 60000, {n}, 1.0, sites, eph,
+                             site_names=["desert-dish", "lake-array"], freqs_mhz=[820, 1400, 2300],
+                             seed=1)
+        write_toas(toas, {toas!r})
+        out = dict(seconds=time.perf_counter() - t0)
+    """)
+    # perturb the start model slightly so the fit has work to do
+    start = os.path.join(tmp, "start.toml")
+    with open(start, "w") as fh:
+        fh.write(MODEL.replace("287.45612387654321", "287.456123876543").replace("24.5631",
+                                                                                    "24.5640"))
+    fit = child(f"""
+        t0 = time.perf_counter()
+        from timingkit.pipeline import fit_files
+        rep = fit_files({toas!r}, {start!r}, {os.path.join(tmp, f'fit{n}')!r}, make_plots=False)
+        out = dict(seconds=time.perf_counter() - t0, chi2=rep["reduced_chi2"])
+    """)
+    return dict(sim=sim, fit=fit)
+
+
+def bench_fit(sizes, tmp: str) -> None:
+    results = {n: _fit_child(n, tmp) for n in sizes}
+    for n, r in results.items():
+        print(f"simulate {n:,} TOAs: {r['sim']['seconds']:.1f} s (target < 60 s at 1e6); "
+              f"fit (spin + DM, whole command without plots): {r['fit']['seconds']:.1f} s, peak "
+              f"{r['fit']['peak_rss_mb']:.0f} MB, reduced chi2 {r['fit']['chi2']:.3f} "
+              "(target < 60 s, < 3 GB at 1e6)")
+    if len(sizes) == 2:
+        a, b = sizes
+        print(f"fit scaling {a:,} -> {b:,} TOAs: "
+              f"{results[b]['fit']['seconds'] / results[a]['fit']['seconds']:.1f}x "
+              f"for {b / a:.0f}x the TOAs (target <= 12x at 10x)")
+
+
+def bench_sites(n: int) -> None:
+    r = child(f"""
+        import numpy as np
+        import astropy.units as u
+        from astropy.time import Time
+        from astropy.coordinates import EarthLocation
+        from astropy.utils import iers
+        iers.conf.auto_download = False
+        from timingkit.sites import SiteTable, site_gcrs_posvel
+        from timingkit.timearray import SplitTime
+        from timingkit import timescales
+        site = SiteTable.with_files([{SITES!r}]).lookup("desert-dish")
+        rng = np.random.default_rng(0)
+        mjd = np.sort(rng.uniform(51544, 51544 + 25 * 365.25, {n}))
+        day = np.floor(mjd); utc = SplitTime(day, mjd - day, "utc")
+        tt = timescales.utc_to_tt(utc)
+        t0 = time.perf_counter(); pos, vel = site_gcrs_posvel(site, utc, tt)
+        ours = time.perf_counter() - t0
+        loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
+        t = Time(day, mjd - day, format="mjd", scale="utc")
+        t0 = time.perf_counter(); p, v = loc.get_gcrs_posvel(t); ref = time.perf_counter() - t0
+        dp = np.max(np.linalg.norm(pos - p.xyz.to_value(u.m).T, axis=1))
+        dv = np.max(np.linalg.norm(vel - v.xyz.to_value(u.m / u.s).T, axis=1))
+        out = dict(ours=ours, ref=ref, dp=float(dp), dv=float(dv))
+    """)
+    print(f"site GCRS posvel, {n:,} times: timingkit {r['ours']:.2f} s, astropy "
+          f"{r['ref']:.2f} s, speed-up {r['ref'] / r['ours']:.0f}x; max difference "
+          f"{r['dp'] * 100:.2f} cm, {r['dv'] * 1000:.3f} mm/s (limits 3 cm, 1 mm/s)")
+
+
+def bench_helpers(names) -> None:
+    for module, func in names:
+        try:
+            mod = __import__(module)
+        except ImportError as exc:
+            print(f"{module}: not available ({exc})")
+            continue
+        getattr(mod, func)()
+
+
+SECTIONS = ["barycenter", "read", "fit", "sites", "binary", "glitches", "noise", "batch"]
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__)
+    ap.add_argument("sections", nargs="*", choices=SECTIONS + [[]], default=[])
+    ap.add_argument("--quick", action="store_true", help="smaller sizes")
+    args = ap.parse_args()
+    wanted = args.sections or SECTIONS
+    quick = args.quick
+    with tempfile.TemporaryDirectory(prefix="timingkit-bench-") as tmp:
+        if "barycenter" in wanted:
+            bench_barycenter(20_000 if quick else 200_000, tmp)
+        if "read" in wanted:
+            bench_read(100_000 if quick else 1_000_000, tmp)
+        if "sites" in wanted:
+            bench_sites(20_000 if quick else 200_000)
+        if "fit" in wanted:
+            bench_fit([10_000, 100_000] if quick else [100_000, 1_000_000], tmp)
+        extra = {"binary": ("bench_binary", "bench_binary"),
+                 "glitches": ("bench_glitches", "bench_glitches"),
+                 "noise": ("bench_noise", "bench_noise"),
+                 "batch": ("bench_batch", "bench_batch")}
+        bench_helpers([extra[s] for s in wanted if s in extra])
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
