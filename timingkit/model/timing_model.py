@@ -109,9 +109,14 @@ class TimingModel:
     def extra_phases(self):
         return [c for c in self.extra if c.kind == "phase"]
 
+    def noise_components(self):
+        """Components of kind "noise" (white-noise scaling, red noise): they hold
+        parameters but add no delay or phase; the fitter reads them."""
+        return [c for c in self.extra if c.kind == "noise"]
+
     def parameters(self) -> list[Parameter]:
         out = []
-        for comp in self.components:
+        for comp in [*self.components, *self.noise_components()]:
             out.extend(comp.parameters())
         return out
 
@@ -135,7 +140,7 @@ class TimingModel:
             self.parameter(name, field="--free" if free else "--fix").free = free
 
     def owner(self, name: str) -> Component:
-        for comp in self.components:
+        for comp in [*self.components, *self.noise_components()]:
             if any(p.name == name for p in comp.parameters()):
                 return comp
         raise KeyError(name)
@@ -213,7 +218,7 @@ class TimingModel:
         return doc
 
     def _add_uncertainties(self, doc: dict) -> None:
-        for comp in self.components:
+        for comp in [*self.components, *self.noise_components()]:
             params = [p for p in comp.parameters() if p.uncertainty is not None]
             if not params:
                 continue
