@@ -68,8 +68,11 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
         flag_cols[name] = np.array([values[i % len(values)] for i in range(count)])
     for name in site_col[:len(site_names)]:
         sites.lookup(str(name))
+    blank = np.full(count, "", dtype="<U1")
     for _ in range(MAX_NEWTON_STEPS):
-        toas = Toas.from_arrays(day, frac, err_us, freq_col, site_col, flags=flag_cols)
+        # a bare table for the iterations (text is made once, at the end)
+        toas = Toas(mjd_text=blank, mjd_day=day, mjd_frac=frac, err_us=err_us,
+                    freq_mhz=freq_col, site=site_col, flags=flag_cols)
         obs = _observations(toas, sites, ephemeris, clocks, model.settings["planet_shapiro"])
         ev = model.evaluate(obs, reference)
         shift_s = -ev.phase_frac / ev.spin_frequency_hz
