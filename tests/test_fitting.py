@@ -133,6 +133,7 @@ def test_pulse_column_is_honoured(ephemeris):
     assert abs(res.phase[-1] + 1.0) < 1e-6 and np.max(np.abs(res.phase[:-1])) < 1e-6
     fitted = fit(truth, obs2, free=["spin.frequency_hz"])
     assert fitted.postfit.rms_us() > 100                 # the pinned turn cannot be fitted away
+    assert any("'pulse' column" in w for w in fitted.warnings)
 
 
 def test_unconstrained_and_degenerate_parameters_are_named(ephemeris):

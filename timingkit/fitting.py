@@ -22,7 +22,7 @@ from timingkit.model.timing_model import TimingModel
 from timingkit.observations import Observations
 
 OFFSET_NAME = "phase_offset_cycles"
-DEGENERACY_RCOND = 1e-11
+DEGENERACY_RCOND = 1e-10   # smallest/largest singular value of the scaled matrix
 
 
 @dataclass
@@ -123,7 +123,7 @@ def _solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray, names: 
                        "TOAs; fix them or add data that constrain them")
     a = a / norms
     u, s, vt = scipy.linalg.svd(a, full_matrices=False, lapack_driver="gesdd")
-    if s[-1] < DEGENERACY_RCOND * s[0] * max(a.shape):
+    if s[-1] < DEGENERACY_RCOND * s[0]:
         v = vt[-1]
         involved = [names[j] for j in np.argsort(-np.abs(v)) if abs(v[j]) > 0.2]
         raise FitError(f"degenerate fit: {', '.join(involved)} cannot be separated by these "
@@ -153,6 +153,9 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     if n < len(names) + 1:
         raise FitError(f"only {n} TOAs for {len(names)} free parameters plus the phase offset: "
                        "need at least one more TOA than fitted quantities")
+    problems = model.unconstrained(obs, names)
+    if problems:
+        raise FitError("unconstrained parameter(s): " + "; ".join(problems))
     ev0 = model.evaluate(obs, reference)
     pulse = pulse_numbers_from_table(obs, ev0)
     prefit = compute_residuals(model, obs, pulse, reference)
@@ -194,20 +197,27 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
                         pulse_number=pulse, err_s=err_s, evaluation=final.evaluation)
     chi2 = postfit.chi2()
     dof = n - len(columns)
-    _check_phase_connection(prefit, postfit, chi2, dof)
+    pinned = obs.toas.pulse is not None
+    warnings.extend(_check_phase_connection(prefit, postfit, chi2, dof, pinned))
     return FitResult(model=model, prefit_model=prefit_model, prefit=prefit, postfit=postfit,
                      free_names=names, covariance=cov, chi2=chi2, dof=dof,
                      iterations=iterations, converged=converged, warnings=warnings)
 
 
-def _check_phase_connection(prefit: Residuals, postfit: Residuals, chi2: float, dof: int):
+def _check_phase_connection(prefit: Residuals, postfit: Residuals, chi2: float, dof: int,
+                            pinned: bool = False) -> list[str]:
     """A starting model too far off leaves post-fit phases spread over the
-    whole turn; say so rather than report nonsense."""
+    whole turn; say so rather than report nonsense. With pulse numbers pinned
+    by the table, the user's numbering stands and a warning is returned."""
     typical_err_cycles = np.median(postfit.err_s * postfit.evaluation.spin_frequency_hz)
     rms_cycles = np.sqrt(np.mean(postfit.phase ** 2))
     if rms_cycles > 0.1 and rms_cycles > 3 * typical_err_cycles and dof > 0 and chi2 / dof > 9:
+        if pinned:
+            return [f"post-fit residuals spread over {rms_cycles:.2f} cycles rms with the pulse "
+                    "numbers of the table's 'pulse' column: check those numbers"]
         raise FitError(
             f"cannot number the pulses: post-fit residuals spread over {rms_cycles:.2f} cycles rms "
             "(the starting model is too far off for this span). Fit a shorter span first "
             "(a few days to weeks of TOAs), then extend it with the improved model, or add a "
             "'pulse' column that pins the pulse numbers")
+    return []

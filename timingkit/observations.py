@@ -87,6 +87,7 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
                     used_clocks.append(f"{table.converts} ({table.path})")
             utc = given
             tt = timescales.utc_to_tt(utc)
+            warnings.extend(timescales.leap_second_warnings(utc))
             dut1 = earth_orientation.ut1_minus_utc_s(utc)
             warnings.extend(earth_orientation.coverage_warnings(utc))
             ut1_frac = np.mod(utc.frac + dut1 / 86400.0, 1.0)

@@ -9,6 +9,8 @@ the series: a few ns over 1600-2200 (SOFA); agreement with astropy < 1 ns.
 
 from __future__ import annotations
 
+import warnings
+
 import erfa
 import numpy as np
 from astropy.time import Time
@@ -27,13 +29,19 @@ def _from_jd(jd1: np.ndarray, jd2: np.ndarray, scale: str) -> SplitTime:
 
 def utc_to_tt(utc: SplitTime) -> SplitTime:
     """UTC -> TT (= TAI + 32.184 s) with astropy's bundled leap seconds."""
-    t = Time(utc.jd1, utc.jd2, format="jd", scale="utc", precision=9).tt
-    return _from_jd(t.jd1, t.jd2, "tt")
+    # erfa warns "dubious year" beyond the leap-second table; the caller turns
+    # that into one clear warning for the report (see leap_second_warnings)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", erfa.ErfaWarning)
+        t = Time(utc.jd1, utc.jd2, format="jd", scale="utc", precision=9).tt
+        return _from_jd(t.jd1, t.jd2, "tt")
 
 
 def tt_to_utc(tt: SplitTime) -> SplitTime:
-    t = Time(tt.jd1, tt.jd2, format="jd", scale="tt").utc
-    return _from_jd(t.jd1, t.jd2, "utc")
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", erfa.ErfaWarning)
+        t = Time(tt.jd1, tt.jd2, format="jd", scale="tt").utc
+        return _from_jd(t.jd1, t.jd2, "utc")
 
 
 GRID_STEP_DAYS = 1.0      # spline nodes for the slowly varying parts of TDB-TT
@@ -103,3 +111,17 @@ def leap_second_table_end_mjd() -> float:
         return float(table.expires.mjd)
     except Exception:  # pragma: no cover - astropy internals vary
         return float("nan")
+
+
+def leap_second_warnings(utc: SplitTime) -> list[str]:
+    """A warning when TOAs lie past the bundled leap-second table's expiry:
+    a leap second announced later would shift them by 1 s."""
+    end = leap_second_table_end_mjd()
+    if not np.isfinite(end):
+        return []
+    beyond = utc.mjd > end
+    if not np.any(beyond):
+        return []
+    return [f"{int(beyond.sum())} TOA(s) lie after MJD {end:.0f}, where the bundled leap-second "
+            "table expires: UTC->TT there assumes no further leap seconds (update astropy / "
+            "astropy-iers-data for a newer table)"]

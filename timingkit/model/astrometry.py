@@ -1,9 +1,31 @@
-"""Sky position, proper motion and parallax (ICRS), and the delays they
-govern: Roemer (with the parallax term), solar and planetary Shapiro, and
-the barycentric observing frequency for dispersion."""
+"""Sky position, proper motion and parallax, and the delays they govern:
+Roemer (with the parallax term), solar and planetary Shapiro, and the
+barycentric observing frequency for dispersion.
+
+Two forms of the same parameters (``[position] frame = ...``):
+
+- ``"equatorial"`` (default): ICRS right ascension / declination (``ra``,
+  ``dec`` as sexagesimal text), ``pm_ra_cosdec_mas_per_yr``,
+  ``pm_dec_mas_per_yr``.
+- ``"ecliptic"``: ``ecliptic_longitude_deg``, ``ecliptic_latitude_deg``,
+  ``pm_longitude_coslat_mas_per_yr``, ``pm_latitude_mas_per_yr``.
+
+Ecliptic frame (our choice): the ICRS axes rotated about the ICRS x axis by
+the IAU 2006 obliquity of the ecliptic at J2000.0, eps0 = 84381.406 arcsec
+(IERS Conventions 2010, eq. 5.40). It is a fixed rotation, so the two forms
+describe exactly the same motion on the sky and convert both ways without
+loss. (It ignores the 23 mas frame bias between the ICRS and the dynamical
+J2000 equinox, i.e. it is *not* astropy's BarycentricMeanEcliptic, which
+includes the bias; for timing only the self-consistency matters.)
+
+Common keys: ``epoch_mjd`` (position epoch), ``parallax_mas``, and
+``distance_kpc`` (optional, only for derived physics such as the Shklovskii
+term; it does not enter the delays; the parallax does).
+"""
 
 from __future__ import annotations
 
+import math
 from decimal import Decimal
 
 import numpy as np
@@ -16,16 +38,42 @@ from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.modelfile import Key, take_section
 from timingkit.timearray import SECONDS_PER_DAY
 
-POSITION_KEYS = {
+FRAMES = ("equatorial", "ecliptic")
+COMMON_KEYS = {
+    "frame": Key("text", default="equatorial"),
+    "epoch_mjd": Key("mjd"),
+    "parallax_mas": Key("number", default=0.0),
+    "distance_kpc": Key("number"),
+}
+EQUATORIAL_KEYS = {
     "ra": Key("text", required=True),
     "dec": Key("text", required=True),
-    "epoch_mjd": Key("mjd"),
     "pm_ra_cosdec_mas_per_yr": Key("number", default=0.0),
     "pm_dec_mas_per_yr": Key("number", default=0.0),
-    "parallax_mas": Key("number", default=0.0),
+    **COMMON_KEYS,
 }
+ECLIPTIC_KEYS = {
+    "ecliptic_longitude_deg": Key("number", required=True),
+    "ecliptic_latitude_deg": Key("number", required=True),
+    "pm_longitude_coslat_mas_per_yr": Key("number", default=0.0),
+    "pm_latitude_mas_per_yr": Key("number", default=0.0),
+    **COMMON_KEYS,
+}
+POSITION_KEYS = EQUATORIAL_KEYS     # kept for callers of the old name
 
 RAD_TO_MAS = 180.0 / np.pi * 3600e3
+DEG_TO_MAS = 3600e3
+ARCSEC_TO_RAD = np.pi / (180.0 * 3600.0)
+
+# IAU 2006 obliquity of the ecliptic at J2000.0 (IERS Conventions 2010, eq. 5.40).
+ECLIPTIC_OBLIQUITY_ARCSEC = 84381.406
+ECLIPTIC_OBLIQUITY_RAD = ECLIPTIC_OBLIQUITY_ARCSEC * ARCSEC_TO_RAD
+ECLIPTIC_FRAME_NOTE = ("ecliptic = ICRS rotated about its x axis by the IAU 2006 obliquity at "
+                       "J2000.0, 84381.406 arcsec (IERS Conventions 2010, eq. 5.40)")
+_C, _S = math.cos(ECLIPTIC_OBLIQUITY_RAD), math.sin(ECLIPTIC_OBLIQUITY_RAD)
+# vectors: v_ecliptic = ICRS_TO_ECLIPTIC @ v_icrs
+ICRS_TO_ECLIPTIC = np.array([[1.0, 0.0, 0.0], [0.0, _C, _S], [0.0, -_S, _C]])
+FRAME_TO_ICRS = {"equatorial": np.eye(3), "ecliptic": ICRS_TO_ECLIPTIC.T.copy()}
 
 
 def parse_angle(text: str, unit: str, field: str, path: str | None) -> float:
@@ -48,6 +96,74 @@ def format_dec(dec_rad: float) -> str:
                                                 alwayssign=True, pad=True)
 
 
+def format_longitude_dms(lon_deg: float) -> str:
+    return Angle(lon_deg % 360.0, unit="deg").to_string(unit="deg", sep="dms", precision=8,
+                                                        pad=True)
+
+
+# ------------------------------------------------------------ frame conversion
+
+def sky_basis(lon_rad: float, lat_rad: float):
+    """Unit vector n and the local east / north unit vectors at (lon, lat)."""
+    n = delays.unit_vector(lon_rad, lat_rad)
+    east = np.array([-math.sin(lon_rad), math.cos(lon_rad), 0.0])
+    north = np.array([-math.sin(lat_rad) * math.cos(lon_rad),
+                      -math.sin(lat_rad) * math.sin(lon_rad), math.cos(lat_rad)])
+    return n, east, north
+
+
+def rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, matrix,
+                    lon_err_rad=None, lat_err_rad=None, pm_lon_err=None, pm_lat_err=None):
+    """Position and proper motion in the frame ``matrix @ v`` of a source at
+    (lon, lat) with proper motion (mu_lon cos lat, mu_lat) (any unit).
+
+    Returns a dict with ``lon_rad`` (in [0, 2 pi)), ``lat_rad``, ``pm_lon_coslat``,
+    ``pm_lat`` and, where input uncertainties are given, their converted
+    uncertainties (first order, inputs taken as uncorrelated; the on-sky
+    error ellipse is rotated by the angle between the two frames' north).
+    Exact for the linear-on-the-sky motion used by the timing model.
+    """
+    n, east, north = sky_basis(lon_rad, lat_rad)
+    n2 = matrix @ n
+    lon2 = math.atan2(n2[1], n2[0]) % (2 * math.pi)
+    lat2 = math.atan2(n2[2], math.hypot(n2[0], n2[1]))
+    _, east2, north2 = sky_basis(lon2, lat2)
+    e_rot, n_rot = matrix @ east, matrix @ north
+    c, s = float(e_rot @ east2), float(n_rot @ east2)       # cos/sin of the frame angle
+    velocity = matrix @ (pm_lon_coslat * east + pm_lat * north)
+    out = {"lon_rad": lon2, "lat_rad": lat2, "pm_lon_coslat": float(velocity @ east2),
+           "pm_lat": float(velocity @ north2)}
+
+    def turn(sig_e, sig_n):
+        if sig_e is None and sig_n is None:
+            return None, None
+        se, sn = sig_e or 0.0, sig_n or 0.0
+        return math.sqrt((c * se) ** 2 + (s * sn) ** 2), math.sqrt((s * se) ** 2 + (c * sn) ** 2)
+
+    sig_e = None if lon_err_rad is None else lon_err_rad * math.cos(lat_rad)
+    e2, n2e = turn(sig_e, lat_err_rad)
+    if e2 is not None:
+        cos_lat2 = math.cos(lat2)
+        out["lon_err_rad"] = e2 / cos_lat2 if cos_lat2 > 0 else float("inf")
+        out["lat_err_rad"] = n2e
+    pe, pn = turn(pm_lon_err, pm_lat_err)
+    if pe is not None:
+        out["pm_lon_coslat_err"], out["pm_lat_err"] = pe, pn
+    return out
+
+
+def equatorial_to_ecliptic(ra_rad, dec_rad, pm_ra_cosdec=0.0, pm_dec=0.0, **errors):
+    """ICRS (ra, dec, proper motion) -> ecliptic (see module docstring)."""
+    return rotate_position(ra_rad, dec_rad, pm_ra_cosdec, pm_dec, ICRS_TO_ECLIPTIC, **errors)
+
+
+def ecliptic_to_equatorial(lon_rad, lat_rad, pm_lon_coslat=0.0, pm_lat=0.0, **errors):
+    """Ecliptic (longitude, latitude, proper motion) -> ICRS."""
+    return rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, ICRS_TO_ECLIPTIC.T, **errors)
+
+
+# ------------------------------------------------------------------ component
+
 class Astrometry(Component):
     section = "position"
     kind = "geometry"
@@ -57,13 +173,15 @@ class Astrometry(Component):
         if section is None:
             raise InputError("missing required section [position] (ra, dec)", path=path,
                              field="position")
-        s = take_section(section, "position", POSITION_KEYS, path)
+        frame = section.get("frame", "equatorial") if isinstance(section, dict) else None
+        if frame not in FRAMES:
+            raise InputError(f"unknown frame {frame!r}; legal: {', '.join(FRAMES)}", path=path,
+                             field="position.frame")
+        spec = EQUATORIAL_KEYS if frame == "equatorial" else ECLIPTIC_KEYS
+        s = take_section(section, "position", spec, path)
         unc = s.get("uncertainty", {})
-        ra = parse_angle(s["ra"], "hourangle", "position.ra", path)
-        dec = parse_angle(s["dec"], "deg", "position.dec", path)
-        if not -np.pi / 2 <= dec <= np.pi / 2:
-            raise InputError("declination must lie within -90..+90 degrees", path=path,
-                             field="position.dec")
+        self.frame = frame
+        self.planet_shapiro = planet_shapiro
         epoch = s["epoch_mjd"] if s["epoch_mjd"] is not None else default_epoch
         if epoch is None:
             raise InputError("give position.epoch_mjd (or spin.epoch_mjd)", path=path,
@@ -71,23 +189,153 @@ class Astrometry(Component):
         self.epoch_day, self.epoch_frac = mjd_parts(epoch)
         if s["parallax_mas"] < 0:
             raise InputError("parallax must be >= 0", path=path, field="position.parallax_mas")
-        self.planet_shapiro = planet_shapiro
+        self.distance_kpc = s["distance_kpc"]
+        self.distance_uncertainty_kpc = unc.get("distance_kpc")
+        if self.distance_kpc is not None and not self.distance_kpc > 0:
+            raise InputError("distance must be > 0 kpc", path=path, field="position.distance_kpc")
+        self.parallax = Parameter("position.parallax_mas", s["parallax_mas"], "mas",
+                                  uncertainty=unc.get("parallax_mas"), description="parallax")
+        if frame == "equatorial":
+            ra = parse_angle(s["ra"], "hourangle", "position.ra", path)
+            dec = parse_angle(s["dec"], "deg", "position.dec", path)
+            lat_deg = math.degrees(dec)
+            self._set_equatorial(ra, dec, s["pm_ra_cosdec_mas_per_yr"], s["pm_dec_mas_per_yr"],
+                                 unc)
+        else:
+            lat_deg = s["ecliptic_latitude_deg"]
+            self._set_ecliptic(s["ecliptic_longitude_deg"] % 360.0, lat_deg,
+                               s["pm_longitude_coslat_mas_per_yr"], s["pm_latitude_mas_per_yr"],
+                               unc)
+        if not -90.0 <= lat_deg <= 90.0:
+            name = "dec" if frame == "equatorial" else "ecliptic_latitude_deg"
+            what = "declination" if frame == "equatorial" else "ecliptic latitude"
+            raise InputError(f"{what} must lie within -90..+90 degrees", path=path,
+                             field=f"position.{name}")
+
+    # parameters of the current frame ---------------------------------------
+    def _set_equatorial(self, ra_rad, dec_rad, pm_ra, pm_dec, unc):
         # uncertainties of ra and dec are written in mas of arc (ra: of the angle
         # itself, not multiplied by cos(dec))
-        self.ra = Parameter("position.ra", ra, "rad", description="right ascension (ICRS)",
-                            uncertainty=_mas_unc(unc.get("ra")), file_scale=RAD_TO_MAS)
-        self.dec = Parameter("position.dec", dec, "rad", description="declination (ICRS)",
-                             uncertainty=_mas_unc(unc.get("dec")), file_scale=RAD_TO_MAS)
-        self.pm_ra = Parameter("position.pm_ra_cosdec_mas_per_yr", s["pm_ra_cosdec_mas_per_yr"],
-                               "mas/yr", uncertainty=unc.get("pm_ra_cosdec_mas_per_yr"))
-        self.pm_dec = Parameter("position.pm_dec_mas_per_yr", s["pm_dec_mas_per_yr"], "mas/yr",
-                                uncertainty=unc.get("pm_dec_mas_per_yr"))
-        self.parallax = Parameter("position.parallax_mas", s["parallax_mas"], "mas",
-                                  uncertainty=unc.get("parallax_mas"))
+        self.frame = "equatorial"
+        self.longitude = Parameter("position.ra", ra_rad, "rad", description="right ascension (ICRS)",
+                                   uncertainty=_scaled(unc.get("ra"), 1 / RAD_TO_MAS),
+                                   file_scale=RAD_TO_MAS)
+        self.latitude = Parameter("position.dec", dec_rad, "rad", description="declination (ICRS)",
+                                  uncertainty=_scaled(unc.get("dec"), 1 / RAD_TO_MAS),
+                                  file_scale=RAD_TO_MAS)
+        self.pm_longitude = Parameter("position.pm_ra_cosdec_mas_per_yr", pm_ra, "mas/yr",
+                                      uncertainty=unc.get("pm_ra_cosdec_mas_per_yr"),
+                                      description="proper motion in ra times cos(dec)")
+        self.pm_latitude = Parameter("position.pm_dec_mas_per_yr", pm_dec, "mas/yr",
+                                     uncertainty=unc.get("pm_dec_mas_per_yr"),
+                                     description="proper motion in dec")
+        self.angle_unit_rad = 1.0
+
+    def _set_ecliptic(self, lon_deg, lat_deg, pm_lon, pm_lat, unc):
+        self.frame = "ecliptic"
+        self.longitude = Parameter("position.ecliptic_longitude_deg", lon_deg, "deg",
+                                   uncertainty=unc.get("ecliptic_longitude_deg"),
+                                   description="ecliptic longitude (IERS 2010 obliquity)")
+        self.latitude = Parameter("position.ecliptic_latitude_deg", lat_deg, "deg",
+                                  uncertainty=unc.get("ecliptic_latitude_deg"),
+                                  description="ecliptic latitude (IERS 2010 obliquity)")
+        self.pm_longitude = Parameter("position.pm_longitude_coslat_mas_per_yr", pm_lon, "mas/yr",
+                                      uncertainty=unc.get("pm_longitude_coslat_mas_per_yr"),
+                                      description="proper motion in ecliptic longitude "
+                                                  "times cos(latitude)")
+        self.pm_latitude = Parameter("position.pm_latitude_mas_per_yr", pm_lat, "mas/yr",
+                                     uncertainty=unc.get("pm_latitude_mas_per_yr"),
+                                     description="proper motion in ecliptic latitude")
+        self.angle_unit_rad = math.pi / 180.0
+
+    # equatorial names kept for callers
+    @property
+    def ra(self) -> Parameter:
+        return self._frame_parameter("equatorial", self.longitude)
+
+    @property
+    def dec(self) -> Parameter:
+        return self._frame_parameter("equatorial", self.latitude)
+
+    @property
+    def pm_ra(self) -> Parameter:
+        return self._frame_parameter("equatorial", self.pm_longitude)
+
+    @property
+    def pm_dec(self) -> Parameter:
+        return self._frame_parameter("equatorial", self.pm_latitude)
+
+    def _frame_parameter(self, frame, p):
+        if self.frame != frame:
+            raise AttributeError(f"the position is given in the {self.frame} frame; use "
+                                 "longitude/latitude or icrs_position()")
+        return p
 
     def parameters(self):
-        return [self.ra, self.dec, self.pm_ra, self.pm_dec, self.parallax]
+        return [self.longitude, self.latitude, self.pm_longitude, self.pm_latitude, self.parallax]
 
+    def frame_angles_rad(self) -> tuple[float, float]:
+        return (self.longitude.value * self.angle_unit_rad,
+                self.latitude.value * self.angle_unit_rad)
+
+    def icrs_position(self) -> dict:
+        """ICRS ra, dec (rad), proper motion (mas/yr) and their uncertainties
+        (rad, mas/yr; None where unknown) whatever the frame of the model."""
+        lon, lat = self.frame_angles_rad()
+        errs = {"lon_err_rad": _scaled(self.longitude.uncertainty, self.angle_unit_rad),
+                "lat_err_rad": _scaled(self.latitude.uncertainty, self.angle_unit_rad),
+                "pm_lon_err": self.pm_longitude.uncertainty,
+                "pm_lat_err": self.pm_latitude.uncertainty}
+        if self.frame == "equatorial":
+            out = {"lon_rad": lon, "lat_rad": lat, "pm_lon_coslat": self.pm_longitude.value,
+                   "pm_lat": self.pm_latitude.value}
+            if errs["lon_err_rad"] is not None or errs["lat_err_rad"] is not None:
+                out["lon_err_rad"], out["lat_err_rad"] = errs["lon_err_rad"], errs["lat_err_rad"]
+            if errs["pm_lon_err"] is not None or errs["pm_lat_err"] is not None:
+                out["pm_lon_coslat_err"], out["pm_lat_err"] = errs["pm_lon_err"], errs["pm_lat_err"]
+        else:
+            out = ecliptic_to_equatorial(lon, lat, self.pm_longitude.value,
+                                         self.pm_latitude.value,
+                                         **{k: v for k, v in errs.items()})
+        return out
+
+    def convert(self, frame: str) -> None:
+        """Re-express the position in ``frame`` ('equatorial' or 'ecliptic'),
+        in place; free flags carry over, uncertainties are converted to first
+        order (treated as uncorrelated)."""
+        if frame not in FRAMES:
+            raise InputError(f"unknown frame {frame!r}; legal: {', '.join(FRAMES)}",
+                             field="position.frame")
+        if frame == self.frame:
+            return
+        free = [p.free for p in (self.longitude, self.latitude, self.pm_longitude,
+                                 self.pm_latitude)]
+        lon, lat = self.frame_angles_rad()
+        errs = {"lon_err_rad": _scaled(self.longitude.uncertainty, self.angle_unit_rad),
+                "lat_err_rad": _scaled(self.latitude.uncertainty, self.angle_unit_rad),
+                "pm_lon_err": self.pm_longitude.uncertainty,
+                "pm_lat_err": self.pm_latitude.uncertainty}
+        matrix = ICRS_TO_ECLIPTIC if frame == "ecliptic" else ICRS_TO_ECLIPTIC.T
+        r = rotate_position(lon, lat, self.pm_longitude.value, self.pm_latitude.value, matrix,
+                            **errs)
+        if frame == "ecliptic":
+            unc = {"ecliptic_longitude_deg": _scaled(r.get("lon_err_rad"), 180 / math.pi),
+                   "ecliptic_latitude_deg": _scaled(r.get("lat_err_rad"), 180 / math.pi),
+                   "pm_longitude_coslat_mas_per_yr": r.get("pm_lon_coslat_err"),
+                   "pm_latitude_mas_per_yr": r.get("pm_lat_err")}
+            self._set_ecliptic(math.degrees(r["lon_rad"]), math.degrees(r["lat_rad"]),
+                               r["pm_lon_coslat"], r["pm_lat"], _present(unc))
+        else:
+            unc = {"ra": _scaled(r.get("lon_err_rad"), RAD_TO_MAS),
+                   "dec": _scaled(r.get("lat_err_rad"), RAD_TO_MAS),
+                   "pm_ra_cosdec_mas_per_yr": r.get("pm_lon_coslat_err"),
+                   "pm_dec_mas_per_yr": r.get("pm_lat_err")}
+            self._set_equatorial(r["lon_rad"], r["lat_rad"], r["pm_lon_coslat"], r["pm_lat"],
+                                 _present(unc))
+        for p, f in zip((self.longitude, self.latitude, self.pm_longitude, self.pm_latitude), free):
+            p.free = f
+
+    # evaluation -------------------------------------------------------------
     def _years(self, ev: Evaluation) -> np.ndarray:
         hi, lo = ev.obs.tdb.seconds_since(self.epoch_day, self.epoch_frac)
         return (hi + lo) / delays.JULIAN_YEAR_S
@@ -95,8 +343,12 @@ class Astrometry(Component):
     def apply(self, ev: Evaluation) -> None:
         obs = ev.obs
         years = self._years(ev)
+        lon, lat = self.frame_angles_rad()
         n, east, north = delays.direction_with_proper_motion(
-            self.ra.value, self.dec.value, self.pm_ra.value, self.pm_dec.value, years)
+            lon, lat, self.pm_longitude.value, self.pm_latitude.value, years)
+        to_icrs = FRAME_TO_ICRS[self.frame]
+        if self.frame != "equatorial":
+            n, east, north = n @ to_icrs.T, to_icrs @ east, to_icrs @ north
         distance = None
         if self.parallax.value > 0:
             distance = delays.AU_M / (self.parallax.value * delays.MAS_TO_RAD)
@@ -116,46 +368,155 @@ class Astrometry(Component):
         ev.extra["astrometry"] = (years, east, north)
 
     def partials(self, ev: Evaluation, names: list[str]) -> dict[str, np.ndarray]:
-        """d(t_emit)/d(param) in seconds per parameter unit; the Roemer delay
-        enters the emission time with a + sign."""
+        """d(t_emit)/d(param) in seconds per parameter unit (rad for ra/dec,
+        degrees for ecliptic angles, mas/yr, mas); the Roemer delay enters the
+        emission time with a + sign. East/north are those of the position
+        epoch (the proper-motion drift of the basis is a second-order effect)."""
         years, east, north = ev.extra["astrometry"]
         r = ev.obs.observer_ssb_m
         c = delays.SPEED_OF_LIGHT_M_PER_S
         out = {}
-        dec = self.dec.value
-        # dn/dra = cos(dec) * east, dn/ddec = north (at the position epoch);
+        _, lat = self.frame_angles_rad()
+        # dn/dlon = cos(lat) * east, dn/dlat = north (at the position epoch);
         # proper motion moves n along east/north by mu * t.
         r_east = r @ east
         r_north = r @ north
-        if "position.ra" in names:
-            out["position.ra"] = (r_east * np.cos(dec)) / c
-        if "position.dec" in names:
-            out["position.dec"] = r_north / c
-        if "position.pm_ra_cosdec_mas_per_yr" in names:
-            out["position.pm_ra_cosdec_mas_per_yr"] = (r_east * years * delays.MAS_TO_RAD) / c
-        if "position.pm_dec_mas_per_yr" in names:
-            out["position.pm_dec_mas_per_yr"] = (r_north * years * delays.MAS_TO_RAD) / c
-        if "position.parallax_mas" in names:
+        if self.longitude.name in names:
+            out[self.longitude.name] = r_east * math.cos(lat) * self.angle_unit_rad / c
+        if self.latitude.name in names:
+            out[self.latitude.name] = r_north * self.angle_unit_rad / c
+        if self.pm_longitude.name in names:
+            out[self.pm_longitude.name] = (r_east * years * delays.MAS_TO_RAD) / c
+        if self.pm_latitude.name in names:
+            out[self.pm_latitude.name] = (r_north * years * delays.MAS_TO_RAD) / c
+        if self.parallax.name in names:
             r_dot_n = np.einsum("ij,ij->i", r, ev.direction)
             perp2 = np.einsum("ij,ij->i", r, r) - r_dot_n ** 2
-            out["position.parallax_mas"] = -perp2 * delays.MAS_TO_RAD / (2 * c * delays.AU_M)
+            out[self.parallax.name] = -perp2 * delays.MAS_TO_RAD / (2 * c * delays.AU_M)
         bary = ev.obs.barycentric_input
         return {k: np.where(bary, 0.0, v) for k, v in out.items()}
 
     def to_section(self) -> dict:
-        sec = {
-            "ra": format_ra(self.ra.value),
-            "dec": format_dec(self.dec.value),
-            "epoch_mjd": mjd_decimal(self.epoch_day, self.epoch_frac),
-            "pm_ra_cosdec_mas_per_yr": self.pm_ra.value,
-            "pm_dec_mas_per_yr": self.pm_dec.value,
-            "parallax_mas": self.parallax.value,
-        }
+        if self.frame == "equatorial":
+            sec = {"ra": format_ra(self.longitude.value), "dec": format_dec(self.latitude.value)}
+        else:
+            sec = {"frame": "ecliptic",
+                   "ecliptic_longitude_deg": self.longitude.value,
+                   "ecliptic_latitude_deg": self.latitude.value}
+        sec["epoch_mjd"] = mjd_decimal(self.epoch_day, self.epoch_frac)
+        sec[self.pm_longitude.key] = self.pm_longitude.value
+        sec[self.pm_latitude.key] = self.pm_latitude.value
+        sec["parallax_mas"] = self.parallax.value
+        if self.distance_kpc is not None:
+            sec["distance_kpc"] = self.distance_kpc
+            if self.distance_uncertainty_kpc is not None:
+                sec["uncertainty"] = {"distance_kpc": self.distance_uncertainty_kpc}
         return sec
 
 
-def _mas_unc(value):
-    return None if value is None else value / RAD_TO_MAS
+# ------------------------------------------------------------------ reporting
+
+ANGLE_PARAMETERS = ("position.ra", "position.dec", "position.ecliptic_longitude_deg",
+                    "position.ecliptic_latitude_deg")
 
 
-__all__ = ["Astrometry", "format_ra", "format_dec", "parse_angle", "SECONDS_PER_DAY"]
+def _angle_text(name: str, value: float) -> str:
+    if name == "position.ra":
+        return format_ra(value)
+    if name == "position.dec":
+        return format_dec(value)
+    if name == "position.ecliptic_longitude_deg":
+        return format_longitude_dms(value)
+    return format_dec(math.radians(value))
+
+
+def angle_entry(p: Parameter, prefit: Parameter | None = None) -> dict | None:
+    """Report entry of a sky-angle parameter: sexagesimal ``value``,
+    ``degrees``, ``uncertainty`` in mas (of the angle itself) and
+    ``uncertainty_on_sky_mas`` is left to :func:`position_summary`; None for
+    other parameters."""
+    if p.name not in ANGLE_PARAMETERS:
+        return None
+    to_deg = 180.0 / math.pi if p.unit == "rad" else 1.0
+    unc_mas = None if p.uncertainty is None else float(p.uncertainty) * to_deg * DEG_TO_MAS
+    unit = "hms" if p.name == "position.ra" else "dms"
+    entry = {"value": _angle_text(p.name, p.value), "degrees": p.value * to_deg,
+             "unit": f"{unit} (uncertainty in mas)", "uncertainty": unc_mas}
+    if prefit is not None:
+        entry["prefit"] = _angle_text(prefit.name, prefit.value)
+    entry["free"] = bool(p.free)
+    return entry
+
+
+def position_summary(astrometry: Astrometry) -> dict:
+    """The position in both frames, sexagesimal and degrees, uncertainties in
+    mas (converted to first order between frames, correlations ignored)."""
+    lon, lat = astrometry.frame_angles_rad()
+    errs = {"lon_err_rad": _scaled(astrometry.longitude.uncertainty, astrometry.angle_unit_rad),
+            "lat_err_rad": _scaled(astrometry.latitude.uncertainty, astrometry.angle_unit_rad),
+            "pm_lon_err": astrometry.pm_longitude.uncertainty,
+            "pm_lat_err": astrometry.pm_latitude.uncertainty}
+    same = {"lon_rad": lon, "lat_rad": lat, "pm_lon_coslat": astrometry.pm_longitude.value,
+            "pm_lat": astrometry.pm_latitude.value,
+            "lon_err_rad": errs["lon_err_rad"], "lat_err_rad": errs["lat_err_rad"],
+            "pm_lon_coslat_err": errs["pm_lon_err"], "pm_lat_err": errs["pm_lat_err"]}
+    if astrometry.frame == "equatorial":
+        eq, ecl = same, equatorial_to_ecliptic(lon, lat, same["pm_lon_coslat"], same["pm_lat"],
+                                               **errs)
+    else:
+        ecl, eq = same, ecliptic_to_equatorial(lon, lat, same["pm_lon_coslat"], same["pm_lat"],
+                                               **errs)
+
+    def mas(x):
+        return None if x is None else float(x) * RAD_TO_MAS
+
+    def block(d, lon_name, lat_name, lon_text, lat_text, pm_lon, pm_lat):
+        return {
+            lon_name: lon_text, f"{lon_name}_deg": math.degrees(d["lon_rad"]),
+            f"{lon_name}_uncertainty_mas": mas(d.get("lon_err_rad")),
+            f"{lon_name}_uncertainty_on_sky_mas": (
+                None if d.get("lon_err_rad") is None else mas(d["lon_err_rad"]) * math.cos(d["lat_rad"])),
+            lat_name: lat_text, f"{lat_name}_deg": math.degrees(d["lat_rad"]),
+            f"{lat_name}_uncertainty_mas": mas(d.get("lat_err_rad")),
+            pm_lon: d["pm_lon_coslat"], f"{pm_lon}_uncertainty": d.get("pm_lon_coslat_err"),
+            pm_lat: d["pm_lat"], f"{pm_lat}_uncertainty": d.get("pm_lat_err"),
+        }
+
+    out = {
+        "frame_of_model": astrometry.frame,
+        "epoch_mjd": str(mjd_decimal(astrometry.epoch_day, astrometry.epoch_frac)),
+        "equatorial": block(eq, "ra", "dec", format_ra(eq["lon_rad"]), format_dec(eq["lat_rad"]),
+                            "pm_ra_cosdec_mas_per_yr", "pm_dec_mas_per_yr"),
+        "ecliptic": block(ecl, "ecliptic_longitude", "ecliptic_latitude",
+                          format_longitude_dms(math.degrees(ecl["lon_rad"])),
+                          format_dec(ecl["lat_rad"]), "pm_longitude_coslat_mas_per_yr",
+                          "pm_latitude_mas_per_yr"),
+        "parallax_mas": astrometry.parallax.value,
+        "parallax_uncertainty_mas": astrometry.parallax.uncertainty,
+        "ecliptic_frame": ECLIPTIC_FRAME_NOTE,
+        "note": "uncertainties converted between frames to first order, correlations ignored",
+    }
+    total_pm = math.hypot(eq["pm_lon_coslat"], eq["pm_lat"])
+    out["total_proper_motion_mas_per_yr"] = total_pm
+    return out
+
+
+def convert_model_frame(model, frame: str):
+    """A copy of ``model`` (a TimingModel) with its position in ``frame``."""
+    new = model.copy()
+    new.astrometry.convert(frame)
+    new._by_name = {p.name: p for p in new.parameters()}
+    return new
+
+
+def _scaled(value, factor):
+    return None if value is None else float(value) * factor
+
+
+def _present(d: dict) -> dict:
+    return {k: v for k, v in d.items() if v is not None}
+
+
+__all__ = ["Astrometry", "format_ra", "format_dec", "parse_angle", "SECONDS_PER_DAY",
+           "equatorial_to_ecliptic", "ecliptic_to_equatorial", "convert_model_frame",
+           "position_summary", "angle_entry", "ECLIPTIC_OBLIQUITY_ARCSEC", "ICRS_TO_ECLIPTIC"]

@@ -60,6 +60,10 @@ class Component:
         Phase components: d(phase, cycles)/d(parameter)."""
         return {}
 
+    def unconstrained(self, obs: Observations, names: list[str]) -> list[str]:
+        """Messages naming free parameters these TOAs cannot measure at all."""
+        return []
+
     def to_section(self) -> dict:
         return {}
 

@@ -68,6 +68,16 @@ class Dispersion(Component):
                 out[p.name] = unit * years ** k / factorial(k)
         return out
 
+    def unconstrained(self, obs, names: list[str]) -> list[str]:
+        mine = [p.name for p in self.parameters() if p.name in names]
+        if not mine:
+            return []
+        freqs = np.unique(obs.toas.freq_mhz[np.isfinite(obs.toas.freq_mhz)])
+        if len(freqs) < 2:
+            return [f"{', '.join(mine)} need TOAs at two or more observing frequencies "
+                    f"(these have {len(freqs)}); fix them or add multi-frequency TOAs"]
+        return []
+
     def to_section(self) -> dict:
         return {"dm": self.dm.value, "epoch_mjd": mjd_decimal(self.epoch_day, self.epoch_frac),
                 "derivatives": [p.value for p in self.derivatives]}

@@ -139,6 +139,14 @@ class TimingModel:
         for name in names:
             self.parameter(name, field="--free" if free else "--fix").free = free
 
+    def unconstrained(self, obs: Observations, names: list[str]) -> list[str]:
+        """Reasons, naming parameters, why some free parameters cannot be
+        measured from these TOAs at all (asked of each component)."""
+        out = []
+        for comp in self.components:
+            out.extend(comp.unconstrained(obs, names))
+        return out
+
     def owner(self, name: str) -> Component:
         for comp in [*self.components, *self.noise_components()]:
             if any(p.name == name for p in comp.parameters()):
