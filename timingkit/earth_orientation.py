@@ -88,7 +88,7 @@ def _require_utc(utc: SplitTime) -> None:
         raise ValueError(f"expected UTC times, got scale '{utc.scale}'")
 
 
-def _interp_rows(utc: SplitTime, columns, unwrap_leap_seconds=False):
+def _interp_rows(utc: SplitTime, columns, unwrap_leap_seconds):
     """astropy's IERS interpolation (astropy.utils.iers.IERS._interpolate),
     vectorised: returns the interpolated columns and masks (before, after)
     for times outside the table (values there are the first/last row)."""
@@ -102,16 +102,29 @@ def _interp_rows(utc: SplitTime, columns, unwrap_leap_seconds=False):
     step = (day - tab.mjd[i0] + frac) / (tab.mjd[i1] - tab.mjd[i0])
     before, after = i == 0, i == n
     out = []
-    for col in columns:
+    for col, unwrap in zip(columns, unwrap_leap_seconds):
         v0, v1 = col[i0], col[i1]
         dv = v1 - v0
-        if unwrap_leap_seconds:
+        if unwrap:
             dv = dv - np.round(dv)   # a leap second lands on the later row only
         val = v0 + step * dv
         val[before] = col[0]
         val[after] = col[-1]
         out.append(val)
     return out, before, after
+
+
+def eop_values(utc: SplitTime) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(UT1-UTC in s, xp in rad, yp in rad) at each UTC time, in one table
+    look-up; the same values as ``ut1_minus_utc_s`` and ``polar_motion_rad``."""
+    _require_utc(utc)
+    tab = eop_table()
+    (dut1, xp, yp), before, after = _interp_rows(
+        utc, [tab.ut1_minus_utc_s, tab.xp_rad, tab.yp_rad], (True, False, False))
+    outside = before | after
+    xp[outside] = MEAN_POLE_ARCSEC[0] * ARCSEC_TO_RAD
+    yp[outside] = MEAN_POLE_ARCSEC[1] * ARCSEC_TO_RAD
+    return dut1, xp, yp
 
 
 def ut1_minus_utc_s(utc: SplitTime) -> np.ndarray:
@@ -122,7 +135,7 @@ def ut1_minus_utc_s(utc: SplitTime) -> np.ndarray:
     """
     _require_utc(utc)
     tab = eop_table()
-    (val,), _, _ = _interp_rows(utc, [tab.ut1_minus_utc_s], unwrap_leap_seconds=True)
+    (val,), _, _ = _interp_rows(utc, [tab.ut1_minus_utc_s], (True,))
     return val
 
 
@@ -133,22 +146,18 @@ def polar_motion_rad(utc: SplitTime) -> tuple[np.ndarray, np.ndarray]:
     (as astropy). Outside: the IERS 50-year mean pole (0.035", 0.29"), as
     astropy; that may be off by a few tenths of an arcsec (~10 m at the site).
     """
-    _require_utc(utc)
-    tab = eop_table()
-    (xp, yp), before, after = _interp_rows(utc, [tab.xp_rad, tab.yp_rad])
-    outside = before | after
-    xp[outside] = MEAN_POLE_ARCSEC[0] * ARCSEC_TO_RAD
-    yp[outside] = MEAN_POLE_ARCSEC[1] * ARCSEC_TO_RAD
+    _, xp, yp = eop_values(utc)
     return xp, yp
 
 
-def ut1_jd(utc: SplitTime) -> tuple[np.ndarray, np.ndarray]:
-    """UT1 as a two-part Julian date, from UTC and the table's UT1-UTC.
+def ut1_jd(utc: SplitTime, ut1_minus_utc=None) -> tuple[np.ndarray, np.ndarray]:
+    """UT1 as a two-part Julian date, from UTC and UT1-UTC (seconds; looked
+    up in the table when not given).
 
     Uses ``erfa.utcut1`` (which astropy uses too), so leap-second days are
     handled as astropy handles them.
     """
-    dut1 = ut1_minus_utc_s(utc)
+    dut1 = ut1_minus_utc_s(utc) if ut1_minus_utc is None else np.asarray(ut1_minus_utc)
     with warnings.catch_warnings():
         # "dubious year" for dates past the leap-second table; the coverage
         # warning already tells the user about such dates.
@@ -202,19 +211,23 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
 # ---------------------------------------------------------------------------
 # Celestial intermediate pole, interpolated.
 #
-# Each scheme is (interval width in days, Chebyshev degree). The TT axis is cut
-# into intervals [k W, (k+1) W); in an interval holding more TOAs than the
-# degree + 1 nodes, erfa.xys06a is evaluated at the Chebyshev nodes of the
-# first kind and the TOAs are interpolated; otherwise the TOAs are evaluated
-# directly (exact). For each call we pick the scheme with the fewest series
-# evaluations, so sparse sessions use short intervals and dense data long ones.
-# Max error measured against erfa.xys06a at 20,000 random TT dates over
-# 2000-2040 (micro-arcsec, in X and Y; s is 1000x smaller):
+# A scheme is (maximum interval width W in days, Chebyshev degree d). The
+# sorted TT times are cut into clusters wherever two neighbours are W or more
+# apart; a cluster spanning L days is split into ceil(L/W) equal intervals
+# (each at most W wide), so a 3-hour session is one interval however it sits
+# on the clock. In an interval holding more TOAs than its d + 1 nodes,
+# erfa.xys06a is evaluated at the Chebyshev nodes (first kind) and the TOAs
+# are interpolated; otherwise they are evaluated directly (exact). Each call
+# takes the scheme needing the fewest series evaluations, so sparse sessions
+# get short intervals and dense data long ones.
+# Max error over full-width intervals, measured against erfa.xys06a at 20,000
+# random TT dates over 2000-2040 (micro-arcsec, X and Y; s is 1000x smaller):
 #   (0.25, 2) 1.6   (0.5, 3) 0.26   (1, 4) 0.14   (2, 5) 0.27
 #   (4, 6) 2.1      (8, 9) 2.7      (16, 15) 3.1  (32, 28) 2.4
-# 3.1 micro-arcsec = 1.5e-11 rad = 0.1 mm at 6400 km. Widths and degrees
-# cannot be coarser: the IAU 2000A series has terms of a few days' period at
-# the 0.1-1 mas level (a global 2-day grid of any order misses by ~0.3 mas).
+# 3.1 micro-arcsec = 1.5e-11 rad = 0.1 mm at 6400 km; narrower intervals do
+# better. Coarser schemes are not possible: the IAU 2000A series has terms of a
+# few days' period at the 0.1-1 mas level (a 2-day grid of any order misses by
+# ~0.3 mas), so about one evaluation per day is the floor for dense data.
 CIP_SCHEMES = ((0.25, 2), (0.5, 3), (1.0, 4), (2.0, 5), (4.0, 6),
                (8.0, 9), (16.0, 15), (32.0, 28))
 
@@ -243,16 +256,41 @@ def _chebyshev_setup(degree: int):
     return nodes, to_coeffs
 
 
-def _scheme_cost(sorted_t: np.ndarray, width: float, degree: int):
-    interval = np.floor(sorted_t / width)
-    starts = np.flatnonzero(np.r_[True, interval[1:] != interval[:-1]])
-    counts = np.diff(np.r_[starts, len(sorted_t)])
+@dataclass(frozen=True)
+class _Plan:
+    width: float            # scheme's maximum interval width, days
+    degree: int
+    cost: float             # in series evaluations
+    left: np.ndarray        # per interval: start (TT MJD)
+    span: np.ndarray        # per interval: width, days (> 0)
+    counts: np.ndarray      # per interval: TOAs in it (sorted order)
+
+
+def _plan(sorted_t: np.ndarray, width: float, degree: int) -> _Plan:
+    n = len(sorted_t)
+    gap_after = np.diff(sorted_t) >= width
+    c_start = np.flatnonzero(np.r_[True, gap_after])
+    c_end = np.r_[c_start[1:], n] - 1                       # index of last TOA
+    c_len = sorted_t[c_end] - sorted_t[c_start]
+    c_parts = np.maximum(1, np.ceil(c_len / width)).astype(np.intp)
+    # a one-point (or zero-length) cluster still gets a tiny interval
+    c_span = np.where(c_len > 0, c_len / c_parts, width * 1e-6)
+    cluster = np.repeat(np.arange(len(c_start)), np.diff(np.r_[c_start, n]))
+    part = np.minimum(np.floor((sorted_t - sorted_t[c_start][cluster]) / c_span[cluster]),
+                      c_parts[cluster] - 1).astype(np.intp)
+    first_part = np.r_[0, np.cumsum(c_parts)[:-1]]
+    ident = first_part[cluster] + part                       # non-decreasing
+    i_start = np.flatnonzero(np.r_[True, ident[1:] != ident[:-1]])
+    counts = np.diff(np.r_[i_start, n])
+    i_cluster = cluster[i_start]
+    span = c_span[i_cluster]
+    left = sorted_t[c_start][i_cluster] + part[i_start] * span
     nodes = degree + 1
     interp = counts > nodes
-    cost = (np.sum(np.minimum(counts, nodes))
-            + nodes * (_TERM_PER_TOA_COST * np.sum(counts[interp])
-                       + _TERM_PER_INTERVAL_COST * np.count_nonzero(interp)))
-    return cost, interval, starts, counts
+    cost = float(np.sum(np.minimum(counts, nodes))
+                 + nodes * (_TERM_PER_TOA_COST * np.sum(counts[interp])
+                            + _TERM_PER_INTERVAL_COST * np.count_nonzero(interp)))
+    return _Plan(width, degree, cost, left, span, counts)
 
 
 def _chebyshev_sum(coeffs: np.ndarray, counts: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -290,7 +328,7 @@ def cip_xys(tt: SplitTime, scheme: tuple[float, int] | None = None):
 
     IAU 2006/2000A (``erfa.xys06a``), interpolated as described above: error
     below 3.1 micro-arcsec (0.1 mm at the Earth's surface). ``scheme`` forces
-    one (width_days, degree) pair, for testing.
+    one (max_width_days, degree) pair, for testing.
     """
     if tt.scale != "tt":
         raise ValueError(f"expected TT times, got scale '{tt.scale}'")
@@ -300,30 +338,27 @@ def cip_xys(tt: SplitTime, scheme: tuple[float, int] | None = None):
         return np.empty(0), np.empty(0), np.empty(0)
     order = np.argsort(t, kind="stable")
     ts = t[order]
-    if scheme is None:
-        best = min((_scheme_cost(ts, w, d) + (w, d) for w, d in CIP_SCHEMES),
-                   key=lambda r: r[0])
-    else:
-        best = _scheme_cost(ts, *scheme) + tuple(scheme)
-    _, interval, starts, counts, width, degree = best
-    nodes = degree + 1
+    schemes = CIP_SCHEMES if scheme is None else (tuple(scheme),)
+    plan = min((_plan(ts, w, d) for w, d in schemes), key=lambda p: p.cost)
+    nodes = plan.degree + 1
 
-    group = np.repeat(np.arange(len(starts)), counts)      # interval number of each sorted TOA
-    dense_group = counts > nodes
-    dense = dense_group[group]
+    dense_interval = plan.counts > nodes
+    dense = np.repeat(dense_interval, plan.counts)
     result = np.empty((3, n))
-    sparse_idx = np.flatnonzero(~dense)
-    if len(sparse_idx):
+    if not np.all(dense):
+        sparse_idx = np.flatnonzero(~dense)
         result[:, sparse_idx] = _xys06a_mjd(ts[sparse_idx])
-    dense_idx = np.flatnonzero(dense)
-    if len(dense_idx):
-        xnode, to_coeffs = _chebyshev_setup(degree)
-        left = interval[starts[dense_group]] * width                     # (m,)
-        node_t = left[:, None] + (xnode[None, :] + 1.0) * (0.5 * width)  # (m, d+1)
+    if np.any(dense):
+        dense_idx = np.flatnonzero(dense)
+        left, span = plan.left[dense_interval], plan.span[dense_interval]
+        counts = plan.counts[dense_interval]
+        xnode, to_coeffs = _chebyshev_setup(plan.degree)
+        node_t = left[:, None] + (xnode[None, :] + 1.0) * (0.5 * span[:, None])
         vals = np.array(_xys06a_mjd(node_t.ravel())).reshape(3, len(left), nodes)
         coeffs = np.einsum("kj,cmj->kmc", to_coeffs, vals)               # (d+1, m, 3)
-        x = 2.0 * (ts[dense_idx] - np.repeat(left, counts[dense_group])) / width - 1.0
-        result[:, dense_idx] = _chebyshev_sum(coeffs, counts[dense_group], x)
+        x = (2.0 * (ts[dense_idx] - np.repeat(left, counts)) / np.repeat(span, counts)
+             - 1.0)
+        result[:, dense_idx] = _chebyshev_sum(coeffs, counts, np.clip(x, -1.0, 1.0))
     out = np.empty((3, n))
     out[:, order] = result
     return out[0], out[1], out[2]
