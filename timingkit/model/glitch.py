@@ -31,7 +31,7 @@ import numpy as np
 
 from timingkit.errors import FitError, InputError
 from timingkit.model.base import Component, Evaluation
-from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
+from timingkit.model.parameters import Parameter, mjd_parts
 from timingkit.modelfile import Key, take_section
 
 SECONDS_PER_DAY = 86400.0
@@ -212,7 +212,7 @@ class Glitch(Component):
     # ------------------------------------------------------------------ writing
     def to_section(self) -> dict:
         sec: dict = {
-            "epoch_mjd": mjd_decimal(self.epoch_day, self.epoch_frac),
+            "epoch_mjd": self.epoch,     # the exact decimal as read (never refitted)
             "phase_step": self.phase_step.value,
             "frequency_step_hz": self.frequency_step.value,
             "frequency_derivative_step": self.frequency_derivative_step.value,
