@@ -112,15 +112,17 @@ def sky_basis(lon_rad: float, lat_rad: float):
     return n, east, north
 
 
-def rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, matrix,
-                    lon_err_rad=None, lat_err_rad=None, pm_lon_err=None, pm_lat_err=None):
+def rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, matrix, covariance=None):
     """Position and proper motion in the frame ``matrix @ v`` of a source at
-    (lon, lat) with proper motion (mu_lon cos lat, mu_lat) (any unit).
+    (lon, lat) (rad) with proper motion (mu_lon cos lat, mu_lat) (any unit).
 
-    Returns a dict with ``lon_rad`` (in [0, 2 pi)), ``lat_rad``, ``pm_lon_coslat``,
-    ``pm_lat`` and, where input uncertainties are given, their converted
-    uncertainties (first order, inputs taken as uncorrelated; the on-sky
-    error ellipse is rotated by the angle between the two frames' north).
+    Returns a dict with ``lon_rad`` (in [0, 2 pi)), ``lat_rad``,
+    ``pm_lon_coslat``, ``pm_lat`` and ``jacobian``: the 4x4 matrix
+    d(new lon, lat, pm_lon, pm_lat)/d(old ...) (angles in rad). The on-sky
+    offsets and the proper-motion vector turn by the angle between the two
+    frames' north directions. With ``covariance`` (4x4 of the inputs, rad and
+    pm units) it also returns the converted ``covariance`` and the
+    uncertainties ``lon_err_rad, lat_err_rad, pm_lon_coslat_err, pm_lat_err``.
     Exact for the linear-on-the-sky motion used by the timing model.
     """
     n, east, north = sky_basis(lon_rad, lat_rad)
@@ -129,37 +131,34 @@ def rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, matrix,
     lat2 = math.atan2(n2[2], math.hypot(n2[0], n2[1]))
     _, east2, north2 = sky_basis(lon2, lat2)
     e_rot, n_rot = matrix @ east, matrix @ north
-    c, s = float(e_rot @ east2), float(n_rot @ east2)       # cos/sin of the frame angle
+    turn = np.array([[e_rot @ east2, n_rot @ east2], [e_rot @ north2, n_rot @ north2]])
     velocity = matrix @ (pm_lon_coslat * east + pm_lat * north)
+    jac = np.zeros((4, 4))
+    cos1, cos2 = math.cos(lat_rad), math.cos(lat2)
+    jac[:2, :2] = np.diag([1.0 / cos2 if cos2 > 0 else np.inf, 1.0]) @ turn @ np.diag([cos1, 1.0])
+    jac[2:, 2:] = turn
     out = {"lon_rad": lon2, "lat_rad": lat2, "pm_lon_coslat": float(velocity @ east2),
-           "pm_lat": float(velocity @ north2)}
-
-    def turn(sig_e, sig_n):
-        if sig_e is None and sig_n is None:
-            return None, None
-        se, sn = sig_e or 0.0, sig_n or 0.0
-        return math.sqrt((c * se) ** 2 + (s * sn) ** 2), math.sqrt((s * se) ** 2 + (c * sn) ** 2)
-
-    sig_e = None if lon_err_rad is None else lon_err_rad * math.cos(lat_rad)
-    e2, n2e = turn(sig_e, lat_err_rad)
-    if e2 is not None:
-        cos_lat2 = math.cos(lat2)
-        out["lon_err_rad"] = e2 / cos_lat2 if cos_lat2 > 0 else float("inf")
-        out["lat_err_rad"] = n2e
-    pe, pn = turn(pm_lon_err, pm_lat_err)
-    if pe is not None:
-        out["pm_lon_coslat_err"], out["pm_lat_err"] = pe, pn
+           "pm_lat": float(velocity @ north2), "jacobian": jac}
+    if covariance is not None:
+        cov = np.asarray(covariance, dtype=float)
+        cov = np.where(np.isfinite(cov), cov, 0.0)
+        new = jac @ cov @ jac.T
+        out["covariance"] = new
+        sig = np.sqrt(np.maximum(np.diag(new), 0.0))
+        out.update(lon_err_rad=float(sig[0]), lat_err_rad=float(sig[1]),
+                   pm_lon_coslat_err=float(sig[2]), pm_lat_err=float(sig[3]))
     return out
 
 
-def equatorial_to_ecliptic(ra_rad, dec_rad, pm_ra_cosdec=0.0, pm_dec=0.0, **errors):
+def equatorial_to_ecliptic(ra_rad, dec_rad, pm_ra_cosdec=0.0, pm_dec=0.0, covariance=None):
     """ICRS (ra, dec, proper motion) -> ecliptic (see module docstring)."""
-    return rotate_position(ra_rad, dec_rad, pm_ra_cosdec, pm_dec, ICRS_TO_ECLIPTIC, **errors)
+    return rotate_position(ra_rad, dec_rad, pm_ra_cosdec, pm_dec, ICRS_TO_ECLIPTIC, covariance)
 
 
-def ecliptic_to_equatorial(lon_rad, lat_rad, pm_lon_coslat=0.0, pm_lat=0.0, **errors):
+def ecliptic_to_equatorial(lon_rad, lat_rad, pm_lon_coslat=0.0, pm_lat=0.0, covariance=None):
     """Ecliptic (longitude, latitude, proper motion) -> ICRS."""
-    return rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, ICRS_TO_ECLIPTIC.T, **errors)
+    return rotate_position(lon_rad, lat_rad, pm_lon_coslat, pm_lat, ICRS_TO_ECLIPTIC.T,
+                           covariance)
 
 
 # ------------------------------------------------------------------ component
@@ -278,61 +277,74 @@ class Astrometry(Component):
         return (self.longitude.value * self.angle_unit_rad,
                 self.latitude.value * self.angle_unit_rad)
 
-    def icrs_position(self) -> dict:
-        """ICRS ra, dec (rad), proper motion (mas/yr) and their uncertainties
-        (rad, mas/yr; None where unknown) whatever the frame of the model."""
+    def _angle_parameters(self):
+        return [self.longitude, self.latitude, self.pm_longitude, self.pm_latitude]
+
+    def frame_covariance(self, result=None) -> np.ndarray | None:
+        """4x4 covariance of (longitude, latitude, pm_longitude, pm_latitude) in
+        rad, rad, mas/yr, mas/yr: from a FitResult's covariance where those
+        were fitted (correlations kept), else the parameters' uncertainties
+        (diagonal); None when none of them has an uncertainty."""
+        params = self._angle_parameters()
+        scale = np.array([self.angle_unit_rad, self.angle_unit_rad, 1.0, 1.0])
+        sig = [p.uncertainty for p in params]
+        if all(s is None for s in sig) and result is None:
+            return None
+        cov = np.diag([0.0 if s is None else float(s) ** 2 for s in sig])
+        if result is not None:
+            idx = [(i, result.free_names.index(p.name)) for i, p in enumerate(params)
+                   if p.name in result.free_names]
+            for i, a in idx:
+                for j, b in idx:
+                    cov[i, j] = result.covariance[a, b]
+        if not np.any(cov):
+            return None
+        return cov * np.outer(scale, scale)
+
+    def icrs_position(self, result=None) -> dict:
+        """ICRS ra, dec (``lon_rad``, ``lat_rad``), proper motion (mas/yr) and,
+        when known, their uncertainties (``lon_err_rad`` ...), whatever the
+        frame of the model (see :func:`rotate_position`)."""
         lon, lat = self.frame_angles_rad()
-        errs = {"lon_err_rad": _scaled(self.longitude.uncertainty, self.angle_unit_rad),
-                "lat_err_rad": _scaled(self.latitude.uncertainty, self.angle_unit_rad),
-                "pm_lon_err": self.pm_longitude.uncertainty,
-                "pm_lat_err": self.pm_latitude.uncertainty}
-        if self.frame == "equatorial":
-            out = {"lon_rad": lon, "lat_rad": lat, "pm_lon_coslat": self.pm_longitude.value,
-                   "pm_lat": self.pm_latitude.value}
-            if errs["lon_err_rad"] is not None or errs["lat_err_rad"] is not None:
-                out["lon_err_rad"], out["lat_err_rad"] = errs["lon_err_rad"], errs["lat_err_rad"]
-            if errs["pm_lon_err"] is not None or errs["pm_lat_err"] is not None:
-                out["pm_lon_coslat_err"], out["pm_lat_err"] = errs["pm_lon_err"], errs["pm_lat_err"]
-        else:
-            out = ecliptic_to_equatorial(lon, lat, self.pm_longitude.value,
-                                         self.pm_latitude.value,
-                                         **{k: v for k, v in errs.items()})
-        return out
+        cov = self.frame_covariance(result)
+        matrix = np.eye(3) if self.frame == "equatorial" else ICRS_TO_ECLIPTIC.T
+        return rotate_position(lon, lat, self.pm_longitude.value, self.pm_latitude.value, matrix,
+                               cov)
 
     def convert(self, frame: str) -> None:
         """Re-express the position in ``frame`` ('equatorial' or 'ecliptic'),
         in place; free flags carry over, uncertainties are converted to first
-        order (treated as uncorrelated)."""
+        order from the parameters' own uncertainties (as uncorrelated: the
+        model file keeps no correlations)."""
         if frame not in FRAMES:
             raise InputError(f"unknown frame {frame!r}; legal: {', '.join(FRAMES)}",
                              field="position.frame")
         if frame == self.frame:
             return
-        free = [p.free for p in (self.longitude, self.latitude, self.pm_longitude,
-                                 self.pm_latitude)]
+        params = self._angle_parameters()
+        free = [p.free for p in params]
+        have = [p.uncertainty is not None for p in params]
         lon, lat = self.frame_angles_rad()
-        errs = {"lon_err_rad": _scaled(self.longitude.uncertainty, self.angle_unit_rad),
-                "lat_err_rad": _scaled(self.latitude.uncertainty, self.angle_unit_rad),
-                "pm_lon_err": self.pm_longitude.uncertainty,
-                "pm_lat_err": self.pm_latitude.uncertainty}
         matrix = ICRS_TO_ECLIPTIC if frame == "ecliptic" else ICRS_TO_ECLIPTIC.T
         r = rotate_position(lon, lat, self.pm_longitude.value, self.pm_latitude.value, matrix,
-                            **errs)
+                            self.frame_covariance())
+        ang = any(have[:2])
+        pm = any(have[2:])
         if frame == "ecliptic":
             unc = {"ecliptic_longitude_deg": _scaled(r.get("lon_err_rad"), 180 / math.pi),
                    "ecliptic_latitude_deg": _scaled(r.get("lat_err_rad"), 180 / math.pi),
                    "pm_longitude_coslat_mas_per_yr": r.get("pm_lon_coslat_err"),
                    "pm_latitude_mas_per_yr": r.get("pm_lat_err")}
             self._set_ecliptic(math.degrees(r["lon_rad"]), math.degrees(r["lat_rad"]),
-                               r["pm_lon_coslat"], r["pm_lat"], _present(unc))
+                               r["pm_lon_coslat"], r["pm_lat"], _present(unc, ang, pm))
         else:
             unc = {"ra": _scaled(r.get("lon_err_rad"), RAD_TO_MAS),
                    "dec": _scaled(r.get("lat_err_rad"), RAD_TO_MAS),
                    "pm_ra_cosdec_mas_per_yr": r.get("pm_lon_coslat_err"),
                    "pm_dec_mas_per_yr": r.get("pm_lat_err")}
             self._set_equatorial(r["lon_rad"], r["lat_rad"], r["pm_lon_coslat"], r["pm_lat"],
-                                 _present(unc))
-        for p, f in zip((self.longitude, self.latitude, self.pm_longitude, self.pm_latitude), free):
+                                 _present(unc, ang, pm))
+        for p, f in zip(self._angle_parameters(), free):
             p.free = f
 
     # evaluation -------------------------------------------------------------
@@ -448,38 +460,33 @@ def angle_entry(p: Parameter, prefit: Parameter | None = None) -> dict | None:
     return entry
 
 
-def position_summary(astrometry: Astrometry) -> dict:
+def position_summary(astrometry: Astrometry, result=None) -> dict:
     """The position in both frames, sexagesimal and degrees, uncertainties in
-    mas (converted to first order between frames, correlations ignored)."""
+    mas. With a FitResult the fitted covariance (correlations included) is
+    carried between frames; else the parameters' own uncertainties."""
     lon, lat = astrometry.frame_angles_rad()
-    errs = {"lon_err_rad": _scaled(astrometry.longitude.uncertainty, astrometry.angle_unit_rad),
-            "lat_err_rad": _scaled(astrometry.latitude.uncertainty, astrometry.angle_unit_rad),
-            "pm_lon_err": astrometry.pm_longitude.uncertainty,
-            "pm_lat_err": astrometry.pm_latitude.uncertainty}
-    same = {"lon_rad": lon, "lat_rad": lat, "pm_lon_coslat": astrometry.pm_longitude.value,
-            "pm_lat": astrometry.pm_latitude.value,
-            "lon_err_rad": errs["lon_err_rad"], "lat_err_rad": errs["lat_err_rad"],
-            "pm_lon_coslat_err": errs["pm_lon_err"], "pm_lat_err": errs["pm_lat_err"]}
+    cov = astrometry.frame_covariance(result)
+    pm_lon, pm_lat = astrometry.pm_longitude.value, astrometry.pm_latitude.value
+    same = rotate_position(lon, lat, pm_lon, pm_lat, np.eye(3), cov)
     if astrometry.frame == "equatorial":
-        eq, ecl = same, equatorial_to_ecliptic(lon, lat, same["pm_lon_coslat"], same["pm_lat"],
-                                               **errs)
+        eq, ecl = same, equatorial_to_ecliptic(lon, lat, pm_lon, pm_lat, cov)
     else:
-        ecl, eq = same, ecliptic_to_equatorial(lon, lat, same["pm_lon_coslat"], same["pm_lat"],
-                                               **errs)
+        ecl, eq = same, ecliptic_to_equatorial(lon, lat, pm_lon, pm_lat, cov)
 
     def mas(x):
         return None if x is None else float(x) * RAD_TO_MAS
 
-    def block(d, lon_name, lat_name, lon_text, lat_text, pm_lon, pm_lat):
+    def block(d, lon_name, lat_name, lon_text, lat_text, pm_lon_key, pm_lat_key):
+        on_sky = None if d.get("lon_err_rad") is None else \
+            mas(d["lon_err_rad"]) * math.cos(d["lat_rad"])
         return {
             lon_name: lon_text, f"{lon_name}_deg": math.degrees(d["lon_rad"]),
             f"{lon_name}_uncertainty_mas": mas(d.get("lon_err_rad")),
-            f"{lon_name}_uncertainty_on_sky_mas": (
-                None if d.get("lon_err_rad") is None else mas(d["lon_err_rad"]) * math.cos(d["lat_rad"])),
+            f"{lon_name}_uncertainty_on_sky_mas": on_sky,
             lat_name: lat_text, f"{lat_name}_deg": math.degrees(d["lat_rad"]),
             f"{lat_name}_uncertainty_mas": mas(d.get("lat_err_rad")),
-            pm_lon: d["pm_lon_coslat"], f"{pm_lon}_uncertainty": d.get("pm_lon_coslat_err"),
-            pm_lat: d["pm_lat"], f"{pm_lat}_uncertainty": d.get("pm_lat_err"),
+            pm_lon_key: d["pm_lon_coslat"], f"{pm_lon_key}_uncertainty": d.get("pm_lon_coslat_err"),
+            pm_lat_key: d["pm_lat"], f"{pm_lat_key}_uncertainty": d.get("pm_lat_err"),
         }
 
     out = {
@@ -491,13 +498,15 @@ def position_summary(astrometry: Astrometry) -> dict:
                           format_longitude_dms(math.degrees(ecl["lon_rad"])),
                           format_dec(ecl["lat_rad"]), "pm_longitude_coslat_mas_per_yr",
                           "pm_latitude_mas_per_yr"),
+        "total_proper_motion_mas_per_yr": math.hypot(eq["pm_lon_coslat"], eq["pm_lat"]),
         "parallax_mas": astrometry.parallax.value,
         "parallax_uncertainty_mas": astrometry.parallax.uncertainty,
+        "distance_kpc": astrometry.distance_kpc,
         "ecliptic_frame": ECLIPTIC_FRAME_NOTE,
-        "note": "uncertainties converted between frames to first order, correlations ignored",
+        "note": ("uncertainties carried between frames to first order"
+                 + (" with the fitted correlations" if result is not None else
+                    " (parameters' own uncertainties, as uncorrelated)")),
     }
-    total_pm = math.hypot(eq["pm_lon_coslat"], eq["pm_lat"])
-    out["total_proper_motion_mas_per_yr"] = total_pm
     return out
 
 
@@ -513,8 +522,11 @@ def _scaled(value, factor):
     return None if value is None else float(value) * factor
 
 
-def _present(d: dict) -> dict:
-    return {k: v for k, v in d.items() if v is not None}
+def _present(unc: dict, angles: bool, motion: bool) -> dict:
+    keys = list(unc)
+    keep = keys[:2] if angles else []
+    keep += keys[2:] if motion else []
+    return {k: unc[k] for k in keep if unc[k] is not None}
 
 
 __all__ = ["Astrometry", "format_ra", "format_dec", "parse_angle", "SECONDS_PER_DAY",
