@@ -1,4 +1,5 @@
-"""Weighted least-squares fitting of a timing model to TOAs.
+"""Weighted (and, with a noise model, generalised) least-squares fitting of a
+timing model to TOAs.
 
 The model is linearised about its current parameters; the design-matrix
 columns are analytic (timingkit.model), converted to seconds, weighted by the
@@ -7,6 +8,15 @@ normal-equation inverse). A phase-offset column is always present. The fit
 iterates until every parameter changes by less than 1e-3 of its uncertainty.
 Pulse numbers are assigned once, from the starting model (or from the
 table's ``pulse`` column), and then held fixed.
+
+Noise (timingkit.model.noise): with [[white_noise]] groups the TOA
+uncertainties are scaled (sigma' = sqrt((scale sigma)^2 + added^2)); with
+[red_noise] each linear solve is the Fourier-basis GLS of timingkit.gls, and
+the covariance of the timing parameters is marginalised over the red noise.
+Free noise parameters are estimated by maximum marginal likelihood
+(timingkit.noise_fit) alternately with the timing parameters, until they
+move by less than 0.1 sigma. Without noise sections the fit is exactly the
+weighted least squares above.
 """
 
 from __future__ import annotations
@@ -17,11 +27,16 @@ import numpy as np
 import scipy.linalg
 
 from timingkit.errors import FitError
+from timingkit.gls import GlsSolution, gls_solve, marginal_log_likelihood
 from timingkit.model.base import Evaluation
+from timingkit.model.noise import NoiseModel, fourier_frequencies_hz, toa_times_s
 from timingkit.model.timing_model import TimingModel
+from timingkit.noise_fit import NoiseEstimate, fit_noise
 from timingkit.observations import Observations
 
 OFFSET_NAME = "phase_offset_cycles"
+MAX_NOISE_ROUNDS = 6            # alternations of timing fit and noise estimation
+NOISE_TOLERANCE_SIGMA = 0.1     # noise parameters settled when they move less than this
 DEGENERACY_RCOND = 1e-10   # smallest/largest singular value of the scaled matrix
 
 
@@ -64,6 +79,7 @@ class FitResult:
     iterations: int
     converged: bool
     warnings: list[str] = field(default_factory=list)
+    noise: "NoiseSummary | None" = None   # set when the model has noise sections
 
     @property
     def reduced_chi2(self) -> float:
@@ -136,6 +152,92 @@ def _solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray, names: 
     return delta, cov, post
 
 
+@dataclass
+class NoiseSummary:
+    """What the noise model did in a fit. With red noise, FitResult.chi2 is the
+    generalised chi-square r^T C^-1 r of the post-fit timing residual."""
+    method: str                                # "weighted least squares" | "generalised least squares"
+    err_s: np.ndarray                          # scaled white TOA uncertainties used (s)
+    group_index: np.ndarray                    # white-noise group of each TOA (-1: none)
+    group_counts: list[int]                    # TOAs per [[white_noise]] group
+    log_likelihood: float                      # ln marginal likelihood at the solution
+    red_realisation_s: np.ndarray | None = None  # ML red-noise realisation at each TOA (s)
+    red_frequencies_hz: np.ndarray | None = None
+    red_prior_var_s2: np.ndarray | None = None   # per Fourier coefficient (sin, cos per frequency)
+    red_span_s: float | None = None
+    times_s: np.ndarray | None = None          # Fourier-basis clock: TDB s since the first TOA
+    estimate: NoiseEstimate | None = None      # ML estimate of the free noise parameters
+    rounds: int = 0                            # noise-estimation rounds
+
+
+class _Solver:
+    """One linear solve with the current noise model: WLS with the (scaled)
+    white errors, or the Fourier-basis GLS when there is red noise."""
+
+    def __init__(self, noise: NoiseModel, obs: Observations, columns: list[str]):
+        self.noise, self.obs, self.columns = noise, obs, columns
+        self.group_index = noise.group_index(obs.toas)
+        self.times_s = self.basis = self.span_s = self.phi = None
+        if noise.red is not None:
+            self.times_s = toa_times_s(obs)
+            self.basis, self.span_s = noise.red_basis(self.times_s)
+        self.refresh()
+
+    def refresh(self) -> None:
+        """Re-read the noise parameters (after they were re-estimated)."""
+        self.err_s = self.noise.white_errors_us(self.obs.toas, self.group_index) * 1e-6
+        if self.basis is not None:
+            self.phi = self.noise.red_prior(self.span_s)
+
+    def __call__(self, design, resid):
+        if self.basis is None:
+            delta, cov, post = _solve(design, resid, self.err_s, self.columns)
+            return delta, cov, post, None
+        sol = gls_solve(design, resid, self.err_s, self.basis, self.phi, self.columns)
+        return sol.delta, sol.covariance, sol.postfit_s, sol
+
+
+def _timing_iterations(model, obs, pulse, reference, names, solver, max_iterations,
+                       tolerance_sigma, progress, done):
+    """Linearise and solve until the changes fall below tolerance_sigma."""
+    converged = False
+    iterations = 0
+    for iterations in range(1, max_iterations + 1):
+        res = compute_residuals(model, obs, pulse, reference, subtract_mean=False)
+        ev = res.evaluation
+        design = model.design_matrix(ev, names) / ev.spin_frequency_hz[:, None]
+        design = np.column_stack([design, 1.0 / ev.spin_frequency_hz])
+        # residual = model phase - pulse number: the fit moves the model so it vanishes
+        delta, cov, post, _ = solver(design, res.time_s)
+        delta = -delta
+        for name, d in zip(names, delta[:-1]):
+            model.parameter(name).add(d)
+        if progress is not None:
+            progress(done + iterations)
+        sig = np.sqrt(np.diag(cov))
+        # the phase offset (last) is not a model parameter: it is re-solved from
+        # the same residuals every time and never shrinks, so it is not tested
+        if np.all(np.abs(delta[:-1]) <= tolerance_sigma * sig[:-1]):
+            converged = True
+            break
+    return cov, iterations, converged, design, res.time_s
+
+
+def _apply_noise_estimate(model: TimingModel, estimate: NoiseEstimate) -> float:
+    """Store the estimate in the model; returns the largest move in sigma."""
+    moved = 0.0
+    for name in estimate.names:
+        p = model.parameter(name)
+        new = estimate.values[name]
+        sigma = estimate.uncertainties.get(name)
+        scale = sigma if sigma else 1e-3 * max(abs(p.value), 1.0)
+        moved = max(moved, abs(new - p.value) / scale)
+        p.value = float(new)
+        p.value_lo = 0.0
+        p.uncertainty = sigma
+    return moved
+
+
 def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
         max_iterations: int = 20, reference: Observations | None = None,
         tolerance_sigma: float = 1e-3, progress=None) -> FitResult:
@@ -145,9 +247,11 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     if free is not None:
         for p in model.parameters():
             p.free = p.name in free
-    names = model.free_names
+    noise = NoiseModel.from_timing_model(model)
+    noise_names = [name for name in model.free_names if noise.owns(name)]
+    names = [name for name in model.free_names if name not in noise_names]
     n = len(obs)
-    if not names:
+    if not names and not noise_names:
         raise FitError("no free parameters: list some in [fit] free or with --free "
                        f"(this model has: {', '.join(model.parameter_names())})")
     if n < len(names) + 1:
@@ -161,27 +265,31 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     prefit = compute_residuals(model, obs, pulse, reference)
     if pulse is None:
         pulse = prefit.pulse_number
-    err_s = obs.toas.err_us * 1e-6
     columns = names + [OFFSET_NAME]
-    converged = False
     warnings: list[str] = []
+    solver = _Solver(noise, obs, columns)
     iterations = 0
-    for iterations in range(1, max_iterations + 1):
-        res = compute_residuals(model, obs, pulse, reference, subtract_mean=False)
-        ev = res.evaluation
-        design = model.design_matrix(ev, names) / ev.spin_frequency_hz[:, None]
-        design = np.column_stack([design, 1.0 / ev.spin_frequency_hz])
-        # residual = model phase - pulse number: the fit moves the model so it vanishes
-        delta, cov, post = _solve(design, res.time_s, err_s, columns)
-        delta = -delta
-        for name, d in zip(names, delta[:-1]):
-            model.parameter(name).add(d)
-        if progress is not None:
-            progress(iterations)
-        sig = np.sqrt(np.diag(cov))
-        if np.all(np.abs(delta) <= tolerance_sigma * sig):
-            converged = True
+    estimate = None
+    noise_rounds = 0
+    settled = not noise_names
+    while True:
+        cov, its, converged, design, resid = _timing_iterations(
+            model, obs, pulse, reference, names, solver, max_iterations, tolerance_sigma,
+            progress, iterations)
+        iterations += its
+        if settled:
             break
+        if noise_rounds == MAX_NOISE_ROUNDS:
+            warnings.append(f"noise parameters still moving after {MAX_NOISE_ROUNDS} rounds of "
+                            "timing fit and noise estimation")
+            break
+        noise_rounds += 1
+        estimate = fit_noise(noise, obs.toas, design, resid, toa_times_s(obs), noise_names)
+        settled = _apply_noise_estimate(model, estimate) < NOISE_TOLERANCE_SIGMA
+        solver.refresh()
+    if estimate is not None:
+        warnings.extend(estimate.warnings)
+    err_s = solver.err_s
     if not converged:
         warnings.append(f"fit did not converge in {max_iterations} iterations "
                         "(parameter changes still above 1e-3 sigma)")
@@ -192,16 +300,39 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     # remove the fitted phase offset exactly as the last linear solve placed it
     design = model.design_matrix(final.evaluation, names) / final.evaluation.spin_frequency_hz[:, None]
     design = np.column_stack([design, 1.0 / final.evaluation.spin_frequency_hz])
-    _, _, post = _solve(design, final.time_s, err_s, columns)
+    _, _, post, gls = solver(design, final.time_s)
     postfit = Residuals(phase=post * final.evaluation.spin_frequency_hz, time_s=post,
                         pulse_number=pulse, err_s=err_s, evaluation=final.evaluation)
-    chi2 = postfit.chi2()
+    chi2 = postfit.chi2() if gls is None else gls.chi2
+    noise_summary = None
+    if not noise.empty:
+        noise_summary = _noise_summary(solver, gls, design, final.time_s, estimate, noise_rounds)
     dof = n - len(columns)
     pinned = obs.toas.pulse is not None
     warnings.extend(_check_phase_connection(prefit, postfit, chi2, dof, pinned))
     return FitResult(model=model, prefit_model=prefit_model, prefit=prefit, postfit=postfit,
                      free_names=names, covariance=cov, chi2=chi2, dof=dof,
-                     iterations=iterations, converged=converged, warnings=warnings)
+                     iterations=iterations, converged=converged, warnings=warnings,
+                     noise=noise_summary)
+
+
+def _noise_summary(solver: _Solver, gls: GlsSolution | None, design, resid, estimate,
+                   rounds) -> NoiseSummary:
+    noise = solver.noise
+    summary = NoiseSummary(
+        method="weighted least squares" if gls is None else "generalised least squares",
+        err_s=solver.err_s, group_index=solver.group_index,
+        group_counts=[int(np.sum(solver.group_index == g.array_index)) for g in noise.white],
+        log_likelihood=(gls.log_likelihood if gls is not None else
+                        marginal_log_likelihood(design, resid, solver.err_s)),
+        estimate=estimate, rounds=rounds)
+    if gls is not None:
+        summary.red_realisation_s = gls.red_realisation_s
+        summary.red_frequencies_hz = fourier_frequencies_hz(solver.span_s, noise.red.frequencies)
+        summary.red_prior_var_s2 = solver.phi
+        summary.red_span_s = solver.span_s
+        summary.times_s = solver.times_s
+    return summary
 
 
 def _check_phase_connection(prefit: Residuals, postfit: Residuals, chi2: float, dof: int,

@@ -1,4 +1,7 @@
-"""Simulated TOAs that a timing model predicts exactly, plus white noise.
+"""Simulated TOAs that a timing model predicts exactly, plus noise: white
+noise of the stated TOA errors (scaled per group when the noise model has
+[[white_noise]] groups) and, with [red_noise], a random realisation of the
+power-law red process on its Fourier basis (timingkit.model.noise).
 
 For each requested arrival the site-clock time is solved iteratively so that
 the model phase there is an integer (Newton steps with the instantaneous
@@ -14,6 +17,7 @@ import numpy as np
 from timingkit.clock import ClockTable
 from timingkit.ephemeris import Ephemeris
 from timingkit.errors import InputError
+from timingkit.model.noise import NoiseModel, toa_times_s
 from timingkit.model.timing_model import TimingModel
 from timingkit.observations import Observations, prepare_observations
 from timingkit.sites import SiteTable
@@ -48,9 +52,18 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
                   site_names=("geocenter",), freqs_mhz=(1400.0,), seed: int | None = None,
                   clocks: list[ClockTable] | tuple = (), flags: dict | None = None,
                   add_noise: bool = True, reference: Observations | None = None,
-                  times: tuple[np.ndarray, np.ndarray] | None = None) -> Toas:
+                  times: tuple[np.ndarray, np.ndarray] | None = None,
+                  noise: NoiseModel | None = None) -> Toas:
     """TOAs at which ``model`` predicts integer phase, with Gaussian noise of
-    ``error_us`` (1 sigma, also written as the TOA uncertainty)."""
+    ``error_us`` (1 sigma, also written as the TOA uncertainty).
+
+    ``noise``: the noise to inject (default: the model's own [[white_noise]] and
+    [red_noise] sections). White-noise groups draw the noise with
+    sqrt((scale * error)^2 + added^2) while the table keeps the stated error;
+    red noise adds one realisation of the power law on the Fourier basis of
+    the simulated span (the same basis the fitter uses). The white draws come
+    first from the seeded generator, so a seed gives the same white noise with
+    or without red noise."""
     rng = np.random.default_rng(seed)
     if times is None:
         day, frac = arrival_times(start_mjd, end_mjd, count, rng)
@@ -81,6 +94,11 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
         if np.max(np.abs(shift_s)) < CONVERGED_S:
             break
     if add_noise:
-        t = SplitTime(day, frac, "utc").add_seconds(rng.normal(0.0, 1.0, count) * err_us * 1e-6)
+        noise = NoiseModel.from_timing_model(model) if noise is None else noise
+        sigma_us = noise.white_errors_us(toas) if noise.white else err_us
+        offset_s = rng.normal(0.0, 1.0, count) * sigma_us * 1e-6
+        if noise.red is not None:
+            offset_s = offset_s + noise.red_realisation_s(toa_times_s(obs), rng)
+        t = SplitTime(day, frac, "utc").add_seconds(offset_s)
         day, frac = t.day, t.frac
     return Toas.from_arrays(day, frac, err_us, freq_col, site_col, flags=flag_cols)
