@@ -73,7 +73,7 @@ free = ["spin.frequency_hz", "spin.frequency_derivatives.0", "spin.frequency_der
 [settings]
 sites = "sites.toml"
 """, true=dict(f0="29.946923012345678901", f1="-3.77535e-10", f2="1.1147e-20", dm="56.77"),
-        start=dict(f0="29.9469230123", f1="-3.77530e-10", f2="1.0e-20", dm="56.70"),
+        start=dict(f0="29.9469230123", f1="-3.775345e-10", f2="1.10e-20", dm="56.70"),
         simulate=["--start", "58800", "--end", "59200", "--count", "240", "--error-us", "25",
                   "--site", "north-ridge", "--freq-mhz", "610", "1400"]),
     # a slow, old pulsar
