@@ -43,6 +43,14 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--fix", nargs="+", default=[], metavar="P", help="parameters to hold fixed")
     p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
     p.add_argument("--no-plot", action="store_true", help="skip residuals.png")
+    p.add_argument("--suggest", action="store_true",
+                   help="also try adding a frequency derivative, freeing fixed binary terms and "
+                        "glitches at --glitch-candidate epochs; list those the data support "
+                        "(F-test, delta AIC/BIC)")
+    p.add_argument("--suggest-level", type=float, default=0.01, metavar="P",
+                   help="F-test probability below which an addition is supported (default 0.01)")
+    p.add_argument("--glitch-candidate", action="append", default=[], metavar="MJD",
+                   help="with --suggest: also try a glitch at this epoch; may be repeated")
     p.set_defaults(func=cmd_fit)
 
     p = sub.add_parser("residuals", help="residuals of a model without fitting")
@@ -82,6 +90,19 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--flag", action="append", default=[], metavar="NAME=V1,V2",
                    help="add a flag column cycling through values, e.g. backend=wide-a,wide-b")
     p.add_argument("--no-noise", action="store_true", help="exact TOAs, no added noise")
+    p.add_argument("--error-scale", type=float, default=None, metavar="S",
+                   help="draw the white noise with S times the stated TOA error (all TOAs; "
+                        "replaces the model's [[white_noise]] groups)")
+    p.add_argument("--added-error-us", type=float, default=None, metavar="Q",
+                   help="white noise added in quadrature to the stated error, µs (all TOAs)")
+    p.add_argument("--red-amplitude-log10", type=float, default=None, metavar="A",
+                   help="inject power-law red noise with this log10 amplitude (replaces the "
+                        "model's [red_noise]); needs --red-spectral-index")
+    p.add_argument("--red-spectral-index", type=float, default=None, metavar="GAMMA")
+    p.add_argument("--red-frequencies", type=int, default=30, metavar="N",
+                   help="Fourier frequencies of the injected red noise (default 30)")
+    p.add_argument("--red-corner-per-yr", type=float, default=0.0, metavar="F",
+                   help="corner frequency of the injected red noise, 1/yr (default 0: none)")
     p.add_argument("-o", "--output", required=True, metavar="TOAS")
     p.set_defaults(func=cmd_simulate)
 
@@ -112,13 +133,22 @@ def _progress_enabled() -> bool:
 def cmd_fit(args) -> int:
     from timingkit.pipeline import fit_files
     from timingkit.report import summary_text
+    if args.glitch_candidate and not args.suggest:
+        raise InputError("--glitch-candidate needs --suggest", field="--glitch-candidate")
+    if not 0.0 < args.suggest_level < 1.0:
+        raise InputError(f"--suggest-level must lie between 0 and 1, found {args.suggest_level}",
+                         field="--suggest-level")
     report = fit_files(args.toas, args.model, args.outdir, free=args.free, fix=args.fix,
                        sites_paths=args.sites, ephemeris=args.ephemeris, clock_paths=args.clock,
                        make_plots=not args.no_plot, color_by=args.color_by,
-                       progress=_progress_enabled())
+                       progress=_progress_enabled(), suggest=args.suggest,
+                       suggest_level=args.suggest_level,
+                       glitch_epochs_mjd=args.glitch_candidate)
     print(summary_text(report))
+    spectrum = "" if args.no_plot or "red_noise" not in report.get("noise", {}) else \
+        "power_spectrum.png, "
     print(f"\nwrote {args.outdir}/: fitted.toml, residuals.csv, "
-          f"{'' if args.no_plot else 'residuals.png, '}report.json")
+          f"{'' if args.no_plot else 'residuals.png, '}{spectrum}report.json")
     return 0
 
 
@@ -195,7 +225,8 @@ def cmd_derive(args) -> int:
             print(f"  {key:36s} {q['value']:.6g}{unc} {q['unit']}")
     print(f"  assumptions: {derived_mod.ASSUMPTIONS}")
     for c in derived_mod.cautions_for(d):
-        print(f"  caution: {c}")
+        if c != derived_mod.ASSUMPTIONS:
+            print(f"  caution: {c}")
     return 0
 
 
@@ -211,13 +242,34 @@ def cmd_simulate(args) -> int:
         if not sep or not name or not values:
             raise InputError(f"expected NAME=V1,V2, found {item!r}", field="--flag")
         flags[name] = values.split(",")
+    noise = _simulated_noise(model, args)
     toas = simulate_toas(model, args.start, args.end, args.count, args.error_us, sites, eph,
                          site_names=args.site, freqs_mhz=args.freq_mhz, seed=args.seed,
                          clocks=clocks, flags=flags, add_noise=not args.no_noise,
-                         reference=reference_observations(model, sites, eph, clocks))
+                         reference=reference_observations(model, sites, eph, clocks),
+                         noise=noise)
     write_toas(toas, args.output)
     print(f"wrote {len(toas)} TOAs to {args.output}")
     return 0
+
+
+def _simulated_noise(model, args):
+    """The model's noise sections, with the white and/or red part replaced by
+    the command-line options when given."""
+    from timingkit.model.noise import NoiseModel
+    noise = NoiseModel.from_timing_model(model)
+    if args.error_scale is not None or args.added_error_us is not None:
+        noise.white = NoiseModel.from_values(
+            error_scale=1.0 if args.error_scale is None else args.error_scale,
+            added_error_us=0.0 if args.added_error_us is None else args.added_error_us).white
+    if args.red_amplitude_log10 is not None or args.red_spectral_index is not None:
+        if args.red_amplitude_log10 is None or args.red_spectral_index is None:
+            raise InputError("give both --red-amplitude-log10 and --red-spectral-index",
+                             field="--red-amplitude-log10")
+        noise.red = NoiseModel.from_values(
+            amplitude_log10=args.red_amplitude_log10, spectral_index=args.red_spectral_index,
+            frequencies=args.red_frequencies, corner_frequency_per_yr=args.red_corner_per_yr).red
+    return noise
 
 
 def cmd_demo(args) -> int:

@@ -132,14 +132,21 @@ def dd_to_fraction(hi, lo) -> Fraction:
 
 
 def dd_to_decimal_string(hi, lo, digits: int = 25) -> str:
-    """Decimal text of a scalar double-double with ``digits`` significant digits."""
+    """Decimal text of a scalar double-double with ``digits`` significant
+    digits: plain notation for 1e-4 <= |x| < 1e16, else scientific (1.5e-15)."""
     from decimal import localcontext
 
     with localcontext() as ctx:
         ctx.prec = digits
         value = dd_to_fraction(hi, lo)
         d = Decimal(value.numerator) / Decimal(value.denominator)
-        return format(d.normalize() if d != 0 else Decimal(0), "f")
+        if d == 0:
+            return "0"
+        d = d.normalize()
+        if Decimal("1e-4") <= abs(d) < Decimal("1e16"):
+            return format(d, "f")
+        mantissa, _, exponent = format(d, "e").partition("e")
+        return f"{mantissa}e{int(exponent)}"
 
 
 def dd_frac_round(hi, lo):

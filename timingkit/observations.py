@@ -16,6 +16,7 @@ import numpy as np
 from timingkit import earth_orientation, timescales
 from timingkit.clock import ClockTable
 from timingkit.ephemeris import Ephemeris
+from timingkit.errors import InputError
 from timingkit.sites import SiteTable, site_gcrs_posvel
 from timingkit.timearray import SplitTime
 from timingkit.toas import Toas
@@ -57,7 +58,7 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
                          planets: bool = False) -> Observations:
     """Time scales and geometry for every TOA (see module docstring)."""
     n = len(toas)
-    unique_sites, site_index = sites.resolve_many(toas.site)
+    unique_sites, site_index = _resolve_sites(toas, sites)
     day = toas.mjd_day.copy()
     frac = toas.mjd_frac.copy()
     tdb_day = np.empty(n)
@@ -116,6 +117,20 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
         sun_to_observer_m=observer - sun, planet_to_observer_m=planet_vectors,
         barycentric_input=bary, site_names=names.astype(str), ephemeris_label=ephemeris.label,
         clock_corrections=sorted(set(used_clocks)), warnings=_unique(warnings))
+
+
+def _resolve_sites(toas: Toas, sites: SiteTable):
+    """Site per TOA; an unknown name is reported at its first line in the table."""
+    try:
+        return sites.resolve_many(toas.site)
+    except InputError as exc:
+        for row, name in enumerate(toas.site):
+            try:
+                sites.lookup(str(name))
+            except InputError:
+                line = None if toas.line_numbers is None else int(toas.line_numbers[row])
+                raise InputError(exc.message, path=toas.path, line=line, field="site") from None
+        raise
 
 
 def _unique(items: list[str]) -> list[str]:

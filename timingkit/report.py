@@ -13,6 +13,7 @@ from timingkit.fitting import FitResult, Residuals
 from timingkit.model.astrometry import RAD_TO_MAS, format_dec, format_ra
 from timingkit.model.timing_model import TimingModel
 from timingkit.modelfile import atomic_write_text
+from timingkit.noise_outputs import noise_report_entry
 from timingkit.observations import Observations
 from timingkit.residual_table import ResidualTable
 
@@ -91,6 +92,9 @@ def build_report(result: FitResult, obs: Observations, source_path: str | None =
         "warnings": list(obs.warnings) + list(result.warnings),
         "timingkit_version": __version__,
     }
+    if result.noise is not None:
+        report["noise"] = noise_report_entry(result)
+        report["cautions"] = list(report["cautions"]) + report["noise"]["cautions"]
     return report
 
 
@@ -125,6 +129,27 @@ def _clean(x):
     return x
 
 
+def _noise_value(entry: dict) -> str:
+    unc = "" if entry.get("uncertainty") is None else f" ± {entry['uncertainty']:.3g}"
+    return f"{entry['value']:.4g}{unc}" + (" (fitted)" if entry.get("free") else "")
+
+
+def noise_summary_lines(noise: dict) -> list[str]:
+    lines = ["", f"  noise model ({noise['method']}; ln L = {noise['log_likelihood']:.2f}):"]
+    for g in noise["white_noise"]:
+        label = "all other TOAs" if g["flag"] is None else f"{g['flag']} = {g['value']}"
+        lines.append(f"    white noise [{label}, {g['toas']} TOAs]: error scale "
+                     f"{_noise_value(g['error_scale'])}, added "
+                     f"{_noise_value(g['added_error_us'])} µs")
+    red = noise.get("red_noise")
+    if red:
+        lines.append(f"    red noise: log10 amplitude {_noise_value(red['amplitude_log10'])}, "
+                     f"spectral index {_noise_value(red['spectral_index'])}, "
+                     f"{red['frequencies']} frequencies over {red['span_days']:.0f} d; "
+                     f"ML realisation rms {red['realisation_rms_us']:.4g} µs")
+    return lines
+
+
 def summary_text(report: dict) -> str:
     """Short human summary of a fit report for the terminal."""
     lines = [f"source {report['source']}: {report['toas']} TOAs, "
@@ -149,7 +174,13 @@ def summary_text(report: dict) -> str:
         lines.append(f"    {key:40s} {q['value']:.6g}{unc}")
     lines.append(f"  assumptions: {report['assumptions']}")
     for c in report.get("cautions", []):
-        lines.append(f"  caution: {c}")
+        if c != report["assumptions"]:
+            lines.append(f"  caution: {c}")
+    if "noise" in report:
+        lines.extend(noise_summary_lines(report["noise"]))
+    if "suggestions" in report:
+        from timingkit.model_selection import suggestions_text
+        lines.append(suggestions_text(report["suggestions"]))
     s = report["settings"]
     lines.append(f"  ephemeris: {s['ephemeris']}; clock corrections: {s['clock_corrections']}")
     for w in report["warnings"]:

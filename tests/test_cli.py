@@ -1,0 +1,205 @@
+"""The command line end to end on the sample data, and every bad-input case:
+one clear message naming file, line and field, exit status 2, no traceback,
+nothing written, the input untouched."""
+
+import csv
+import hashlib
+import json
+import os
+import shutil
+import subprocess
+import sys
+
+import pytest
+
+from timingkit.cli import main
+from timingkit.model import TimingModel
+
+SAMPLE = os.path.join(os.path.dirname(__file__), "..", "timingkit", "sample_data")
+SOURCES = ("demo-msp", "demo-young", "demo-slow")
+
+
+@pytest.fixture()
+def data(tmp_path):
+    """A private copy of the sample data (so tests can break files)."""
+    dst = tmp_path / "data"
+    shutil.copytree(SAMPLE, dst)
+    return dst
+
+
+def _digest(folder) -> dict:
+    return {p: hashlib.sha256(open(os.path.join(folder, p), "rb").read()).hexdigest()
+            for p in sorted(os.listdir(folder))}
+
+
+def test_demo_runs_end_to_end_and_recovers_the_true_models(tmp_path):
+    out = tmp_path / "demo"
+    res = subprocess.run([sys.executable, "-m", "timingkit", "demo", "-o", str(out)],
+                         capture_output=True, text=True, timeout=600)
+    assert res.returncode == 0, res.stderr
+    assert "demo done" in res.stdout
+    for name in SOURCES:
+        folder = out / name
+        for f in ("fitted.toml", "residuals.csv", "residuals.png", "report.json"):
+            assert (folder / f).stat().st_size > 0, (name, f)
+        report = json.loads((folder / "report.json").read_text())
+        for key in ("source", "toas", "free_parameters", "chi2", "dof", "reduced_chi2",
+                    "rms_us", "weighted_rms_us", "parameters", "derived", "settings",
+                    "warnings"):
+            assert key in report, key
+        assert report["settings"]["clock_corrections"] == "none applied"
+        assert any("clock" in w for w in report["warnings"])
+        assert 0.6 < report["reduced_chi2"] < 1.5
+        # the fit lands on the model the data were simulated from (within 4 sigma)
+        truth = TimingModel.from_file(os.path.join(SAMPLE, f"{name}.true.toml"))
+        fitted = TimingModel.from_file(str(folder / "fitted.toml"))
+        for pname in fitted.free_names:
+            p, q = fitted.parameter(pname), truth.parameter(pname)
+            diff = (p.value - q.value) + (p.value_lo - q.value_lo)
+            assert abs(diff) < 4 * p.uncertainty, (name, pname, diff, p.uncertainty)
+        for key in ("period_s", "period_derivative", "characteristic_age_yr",
+                    "surface_dipole_field_gauss", "spin_down_luminosity_erg_per_s"):
+            assert report["derived"][key]["value"] > 0
+
+
+def test_fit_residuals_plot_derive_barycenter_simulate(data, tmp_path, capsys):
+    toas, model = str(data / "demo-msp.toas"), str(data / "demo-msp.toml")
+    before = _digest(data)
+    out = tmp_path / "fit"
+    assert main(["fit", toas, model, "-o", str(out), "--fix", "dispersion.dm"]) == 0
+    text = capsys.readouterr().out
+    assert "reduced" in text and "spin.frequency_hz" in text and "assumptions" in text
+    report = json.loads((out / "report.json").read_text())
+    assert report["parameters"]["dispersion.dm"]["free"] is False
+    assert report["free_parameters"] == 2
+    with open(out / "residuals.csv") as fh:
+        header = next(csv.reader(fh))
+    assert header[:7] == ["mjd", "site", "freq_mhz", "err_us", "residual_us", "residual_phase",
+                          "pulse_number"] and "backend" in header
+    assert main(["plot", str(out), "--color-by", "backend", "-o", str(tmp_path / "p.pdf")]) == 0
+    assert (tmp_path / "p.pdf").read_bytes()[:4] == b"%PDF"
+    assert main(["residuals", toas, model, "-o", str(tmp_path / "res")]) == 0
+    capsys.readouterr()
+    assert main(["derive", str(out / "fitted.toml"), "--json"]) == 0
+    derived = json.loads(capsys.readouterr().out)
+    assert "characteristic_age_yr" in derived["derived"]
+    csv_path = tmp_path / "bary.csv"
+    assert main(["barycenter", toas, model, "-o", str(csv_path)]) == 0
+    with open(csv_path) as fh:
+        rows = list(csv.DictReader(fh))
+    assert list(rows[0].keys()) == ["mjd", "site", "freq_mhz", "tdb_mjd", "roemer_s",
+                                    "shapiro_s", "dispersion_s", "binary_s", "barycentric_mjd"]
+    assert len(rows) == 360
+    assert all(abs(float(r["roemer_s"])) < 510 for r in rows)
+    sim = tmp_path / "sim.toas"
+    assert main(["simulate", model, "--start", "59000", "--end", "59100", "--count", "20",
+                 "--error-us", "1", "--site", "desert-dish", "--freq-mhz", "1400", "--seed", "3",
+                 "-o", str(sim)]) == 0
+    first = sim.read_text()
+    assert main(["simulate", model, "--start", "59000", "--end", "59100", "--count", "20",
+                 "--error-us", "1", "--site", "desert-dish", "--freq-mhz", "1400", "--seed", "3",
+                 "-o", str(sim)]) == 0
+    assert sim.read_text() == first            # deterministic with --seed
+    assert _digest(data) == before             # inputs never modified
+
+
+def test_derive_json(data, capsys):
+    assert main(["derive", str(data / "demo-young.true.toml"), "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert out["derived"]["braking_index"]["value"] == pytest.approx(
+        29.946923012345678901 * 1.1147e-20 / 3.77535e-10 ** 2, rel=1e-9)
+    assert "dipole" in out["assumptions"]
+
+
+TOAS_HEADER = "mjd err_us freq_mhz site\n"
+GOOD_ROW = "59000.123456789 1.0 1400.0 desert-dish\n"
+
+
+def _toas(tmp_path, text, name="bad.toas"):
+    p = tmp_path / name
+    p.write_bytes(text if isinstance(text, bytes) else text.encode())
+    return str(p)
+
+
+BAD_TOAS = {
+    "missing column": (TOAS_HEADER.replace(" site", "") + "59000.1 1.0 1400.0\n", "site", None),
+    "misnamed column": (TOAS_HEADER.replace("err_us", "error") + GOOD_ROW, "err_us", None),
+    "non-numeric error": (TOAS_HEADER + GOOD_ROW + "59001.5 abc 1400.0 desert-dish\n", "err_us", 3),
+    "non-finite error": (TOAS_HEADER + GOOD_ROW + "59001.5 nan 1400.0 desert-dish\n", "err_us", 3),
+    "non-positive error": (TOAS_HEADER + GOOD_ROW + "59001.5 -1 1400.0 desert-dish\n", "err_us", 3),
+    "malformed mjd": (TOAS_HEADER + GOOD_ROW + "59001.5.3 1.0 1400.0 desert-dish\n", "mjd", 3),
+    "unknown site": (TOAS_HEADER + GOOD_ROW + "59001.5 1.0 1400.0 moon-base\n", "site", None),
+    "empty file": ("", None, None),
+    "binary file": (b"\x00\x01\x02\xff" * 50, None, None),
+    "outside the ephemeris": (TOAS_HEADER + "80000.5 1.0 1400.0 desert-dish\n" * 3, None, None),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_TOAS))
+def test_bad_toa_tables(case, data, tmp_path, capsys):
+    text, field, line = BAD_TOAS[case]
+    path = _toas(tmp_path, text)
+    before = open(path, "rb").read()
+    out = tmp_path / "out"
+    code = main(["fit", path, str(data / "demo-msp.toml"), "-o", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2, case
+    assert err.startswith("timingkit: error: ") and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert "bad.toas" in err
+    if field:
+        assert field in err
+    if line:
+        assert f":{line}:" in err
+    assert not out.exists()                        # nothing written
+    assert open(path, "rb").read() == before       # input untouched
+
+
+BAD_MODELS = {
+    "broken toml": ('name = "x"\n[spin\n', "bad.toml:2:"),
+    "missing key": ('[position]\nra = "1h"\ndec = "2d"\n[spin]\nepoch_mjd = "59000"\n',
+                    "spin.frequency_hz"),
+    "unknown key": ('[position]\nra = "1h"\ndec = "2d"\nshape = 1\n[spin]\nepoch_mjd = "59000"\n'
+                    'frequency_hz = "1"\n', "position.shape"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_MODELS))
+def test_bad_model_files(case, data, tmp_path, capsys):
+    text, needle = BAD_MODELS[case]
+    model = tmp_path / "bad.toml"
+    model.write_text(text)
+    out = tmp_path / "out"
+    code = main(["fit", str(data / "demo-msp.toas"), str(model), "-o", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2 and "bad.toml" in err and needle in err and "Traceback" not in err
+    assert not out.exists()
+
+
+def test_unfittable_requests(data, tmp_path, capsys):
+    toas, model = str(data / "demo-msp.toas"), data / "demo-msp.toml"
+    text = model.read_text()
+    # a starting model far too far off to number the pulses
+    far = data / "far.toml"
+    far.write_text(text.replace('frequency_hz = "287.456123876540"',
+                                'frequency_hz = "287.456133876540"'))
+    assert main(["fit", toas, str(far), "-o", str(tmp_path / "o1")]) == 2
+    err = capsys.readouterr().err
+    assert "cannot number the pulses" in err and "shorter span" in err
+    # no free parameters
+    none = data / "none.toml"
+    none.write_text(text.replace('free = ["spin.frequency_hz", "spin.frequency_derivatives.0", '
+                                 '"dispersion.dm"]', "free = []"))
+    assert main(["fit", toas, str(none), "-o", str(tmp_path / "o2")]) == 2
+    assert "no free parameters" in capsys.readouterr().err
+    # fewer TOAs than free parameters
+    few = _toas(tmp_path, TOAS_HEADER + GOOD_ROW + GOOD_ROW.replace("1400.0", "800.0"), "few.toas")
+    assert main(["fit", few, str(model), "-o", str(tmp_path / "o3")]) == 2
+    assert "TOAs" in capsys.readouterr().err
+    assert not (tmp_path / "o1").exists() and not (tmp_path / "o2").exists()
+
+
+def test_debug_shows_the_traceback(data, tmp_path):
+    bad = _toas(tmp_path, "")
+    with pytest.raises(Exception):
+        main(["--debug", "fit", bad, str(data / "demo-msp.toml"), "-o", str(tmp_path / "o")])
