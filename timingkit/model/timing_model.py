@@ -13,7 +13,9 @@ from timingkit.errors import InputError
 from timingkit.model.astrometry import Astrometry
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.dispersion import Dispersion
+from timingkit.model.binary import build_binary
 from timingkit.model.glitch import build_glitches
+from timingkit.model.group_offsets import build_group_offsets
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.model.spin import Spin
 from timingkit.modelfile import (Key, ModelDocument, read_model_document, take_section,
@@ -37,7 +39,8 @@ PHASE_ZERO_KEYS = {
 # Optional components contributed by other modules: section name ->
 # builder(section_value, path, model) -> list[Component]. Modules that add a
 # component register it here (see timingkit.model.__init__).
-EXTRA_SECTIONS: dict[str, object] = {"glitch": build_glitches}
+EXTRA_SECTIONS: dict[str, object] = {"glitch": build_glitches, "binary": build_binary,
+                                      "time_offset": build_group_offsets}
 
 CORE_SECTIONS = ("name", "position", "spin", "dispersion", "phase_zero", "fit", "settings")
 
