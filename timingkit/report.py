@@ -9,8 +9,10 @@ import math
 import numpy as np
 
 from timingkit import derived as derived_mod
+from timingkit.binary_report import extra_report_sections
+from timingkit.binary_report import summary_lines as binary_summary_lines
 from timingkit.fitting import FitResult, Residuals
-from timingkit.model.astrometry import RAD_TO_MAS, format_dec, format_ra
+from timingkit.model.astrometry import RAD_TO_MAS, angle_entry, format_dec, format_ra
 from timingkit.model.timing_model import TimingModel
 from timingkit.modelfile import atomic_write_text
 from timingkit.noise_outputs import noise_report_entry
@@ -22,6 +24,9 @@ __version__ = "0.1.0"
 
 def parameter_entry(model: TimingModel, name: str, prefit: TimingModel | None = None) -> dict:
     p = model.parameter(name)
+    angle = angle_entry(p, None if prefit is None else prefit.parameter(name))
+    if angle is not None:        # sky angles (either frame): sexagesimal, degrees, mas
+        return angle
     entry: dict = {}
     if name == "position.ra":
         entry = {"value": format_ra(p.value), "degrees": math.degrees(p.value),
@@ -95,6 +100,7 @@ def build_report(result: FitResult, obs: Observations, source_path: str | None =
     if result.noise is not None:
         report["noise"] = noise_report_entry(result)
         report["cautions"] = list(report["cautions"]) + report["noise"]["cautions"]
+    report.update(extra_report_sections(model, derived, result))   # position, binary, kinematic
     return report
 
 
@@ -172,6 +178,7 @@ def summary_text(report: dict) -> str:
             continue
         unc = "" if q["uncertainty"] is None else f" ± {q['uncertainty']:.3g}"
         lines.append(f"    {key:40s} {q['value']:.6g}{unc}")
+    lines.extend(binary_summary_lines(report))
     lines.append(f"  assumptions: {report['assumptions']}")
     for c in report.get("cautions", []):
         if c != report["assumptions"]:
