@@ -231,7 +231,7 @@ def test_resume_refits_only_the_changed_source(three_sources, tmp_path):
 def test_manifest_defaults_overrides_and_settings_in_the_hash(three_sources, tmp_path):
     manifest = tmp_path / "manifest.toml"
     spec = """[defaults]
-free = {free}
+fix = {fix}
 make_plots = false
 
 [[source]]
@@ -243,25 +243,27 @@ model = "sources/demo-batch-000/model.toml"
 name = "beta"
 toas = "sources/demo-batch-001/obs.toas"
 model = "sources/demo-batch-001/model.toml"
-free = ["spin.frequency_hz", "spin.frequency_derivatives.0", "dispersion.dm"]
+fix = []
 make_plots = true
 """
-    manifest.write_text(spec.format(free='["spin.frequency_hz", "dispersion.dm"]'))
+    manifest.write_text(spec.format(fix='["spin.frequency_derivatives.0"]'))
     outdir = tmp_path / "out"
     assert _cli([manifest, "-o", outdir, "--workers", 2]) == 0
     alpha = json.loads((outdir / "alpha" / "report.json").read_text())["parameters"]
     beta = json.loads((outdir / "beta" / "report.json").read_text())["parameters"]
-    # the manifest's default 'free' replaces the model's own [fit] list for alpha ...
+    # the manifest's default 'fix' holds a parameter the model's [fit] list frees ...
     assert not alpha["spin.frequency_derivatives.0"]["free"] and alpha["spin.frequency_hz"]["free"]
-    # ... and beta's own list overrides the default
+    # ... and beta's own (empty) list overrides the default
     assert beta["spin.frequency_derivatives.0"]["free"]
     assert not (outdir / "alpha" / "residuals.png").exists()
     assert (outdir / "beta" / "residuals.png").exists()
 
     # a changed default changes alpha's settings only: only alpha is refitted
-    manifest.write_text(spec.format(free='["spin.frequency_hz"]'))
+    manifest.write_text(spec.format(fix='["spin.frequency_derivatives.0", "dispersion.dm"]'))
     result = run_batch(manifest, outdir, workers=2, resume=True, progress=False)
     assert result.refitted == ["alpha"]
+    alpha = json.loads((outdir / "alpha" / "report.json").read_text())["parameters"]
+    assert not alpha["dispersion.dm"]["free"]
 
 
 def test_worker_killed_mid_source_is_isolated(three_sources, tmp_path):

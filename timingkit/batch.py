@@ -163,8 +163,9 @@ def read_manifest(path) -> list[Source]:
     """Sources from a TOML manifest; paths are relative to the manifest's folder.
 
     ``[defaults]`` may set ``ephemeris`` (path or ``"builtin"``), ``sites`` and
-    ``clock`` (a path or a list of paths), ``free``/``fix`` (lists of parameter
-    names) and ``make_plots`` (bool). Each ``[[source]]`` needs ``name``,
+    ``clock`` (a path or a list of paths, used besides those the model names),
+    ``free``/``fix`` (parameter names to free or hold fixed besides the model's
+    own ``[fit]`` list) and ``make_plots`` (bool). Each ``[[source]]`` needs ``name``,
     ``toas`` and ``model`` and may override any default (the value replaces it).
     Raises InputError naming the file and field for anything malformed.
     """
@@ -492,29 +493,32 @@ def _pool_pass(jobs: list[_Job], workers: int, done: Callable[[dict], None]) -> 
 
 def _run_on_pool(jobs: list[_Job], workers: int, outdir: Path, done: Callable[[dict], None]) -> None:
     """Process pool with recovery: if a worker dies (crash, out of memory, kill), the
-    sources it may have been fitting (those with a temporary folder) are rerun
-    one at a time in a pool of their own; a source that kills its own worker is
-    reported failed, and the other sources are simply run again."""
+    sources that were in flight (those with a temporary folder) become suspects;
+    the other sources simply run again. Suspects then run one at a time in a
+    one-worker pool, where the source in flight at a crash is the culprit: it is
+    reported failed and the remaining suspects go on in a fresh pool."""
     shared, suspects = list(jobs), []
-    while shared or suspects:
-        if shared:
-            left = _pool_pass(shared, workers, done)
-            in_flight = _remove_leftovers(outdir)
-            blamed = [j for j in left if j.source.name in in_flight] or left
-            suspects += blamed
-            shared = [j for j in left if j not in blamed]
-            continue
-        job = suspects.pop(0)
-        if _pool_pass([job], 1, done):
-            _remove_leftovers(outdir)
-            install_failure(str(outdir), job.source, WORKER_DIED_REASON)
-            done({"name": job.source.name, "status": STATUS_FAILED, "message": WORKER_DIED_REASON,
-                  "elapsed_s": float("nan"), "worker": "died"})
+    while shared:
+        left = _pool_pass(shared, workers, done)
+        in_flight = _remove_leftovers(outdir)
+        blamed = [j for j in left if j.source.name in in_flight] or left
+        suspects += blamed
+        shared = [j for j in left if j not in blamed]
+    while suspects:
+        left = _pool_pass(suspects, 1, done)
+        in_flight = _remove_leftovers(outdir)
+        # one worker runs the jobs in order: the culprit is the first unfinished one
+        culprit = next((j for j in left if j.source.name in in_flight), left[0] if left else None)
+        if culprit is not None:
+            install_failure(str(outdir), culprit.source, WORKER_DIED_REASON)
+            done({"name": culprit.source.name, "status": STATUS_FAILED,
+                  "message": WORKER_DIED_REASON, "elapsed_s": float("nan"), "worker": "died"})
+        suspects = [j for j in left if j is not culprit]
 
 
 def _require_dask():
     try:
-        from dask import distributed
+        import dask.distributed as distributed
     except ImportError:
         raise InputError(f"--cluster needs Dask, which is not installed; {CLUSTER_INSTALL_HINT}",
                          field="cluster") from None
