@@ -125,7 +125,23 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
                              frequency_hz=result.model.spin.frequency.value,
                              path=os.path.join(outdir, "residuals.png"))
         del fig
+        _write_phase_plots(result, post, report, outdir, color_by)
     write_json(os.path.join(outdir, "report.json"), report)
+
+
+def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color_by: str):
+    """residuals_day_of_year.png always; residuals_orbital_phase.png with a binary."""
+    from timingkit.model.binary import orbital_phase_cycles
+    from timingkit.plotting import plot_residuals_vs_day_of_year, plot_residuals_vs_orbital_phase
+    common = dict(color_by=color_by, frequency_hz=result.model.spin.frequency.value)
+    plot_residuals_vs_day_of_year(post, os.path.join(outdir, "residuals_day_of_year.png"),
+                                  title=f"{report['source']}: post-fit residuals by day of year",
+                                  **common)
+    phase = orbital_phase_cycles(result.postfit.evaluation)
+    if phase is not None:
+        plot_residuals_vs_orbital_phase(
+            post, phase, os.path.join(outdir, "residuals_orbital_phase.png"),
+            title=f"{report['source']}: post-fit residuals by orbital phase", **common)
 
 
 def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(), ephemeris=None,
