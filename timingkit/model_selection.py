@@ -220,22 +220,32 @@ def suggest(result: FitResult, obs: Observations, reference: Observations | None
     return out
 
 
-def suggestions_text(comparisons: list[Comparison], level: float = DEFAULT_LEVEL) -> str:
-    lines = [f"  suggested additions (F-test at the {100 * level:g}% level; delta AIC/BIC < 0 "
+def suggestions_entry(comparisons: list[Comparison], level: float = DEFAULT_LEVEL) -> dict:
+    """The ``suggestions`` entry of report.json."""
+    return {"level": level,
+            "criterion": f"F-test probability below {level:g} (delta AIC/BIC < 0 favour an addition)",
+            "supported": [c.addition for c in comparisons if c.supported],
+            "tried": [c.as_dict() for c in comparisons]}
+
+
+def suggestions_text(entry: dict) -> str:
+    """Terminal lines for a :func:`suggestions_entry`."""
+    level = entry["level"]
+    lines = ["", f"  suggested additions (F-test at the {100 * level:g}% level; delta AIC/BIC < 0 "
              "favour the addition):"]
-    for c in comparisons:
-        if c.f_probability is None:
-            lines.append(f"    {c.addition:44s} —  ({c.note})")
+    for c in entry["tried"]:
+        if c["f_probability"] is None:
+            lines.append(f"    {c['addition']:40s} —  ({c['note']})")
             continue
-        verdict = "SUPPORTED" if c.supported else "not needed"
-        lines.append(f"    {c.addition:44s} {verdict:10s} F-test p = {c.f_probability:.3g}, "
-                     f"dAIC = {c.delta_aic:+.2f}, dBIC = {c.delta_bic:+.2f}"
-                     + (f" ({c.note})" if c.note else ""))
-    if not any(c.supported for c in comparisons):
+        verdict = "SUPPORTED" if c["supported"] else "not needed"
+        lines.append(f"    {c['addition']:40s} {verdict:10s} F-test p = {c['f_probability']:.3g}, "
+                     f"dAIC = {c['delta_aic']:+.2f}, dBIC = {c['delta_bic']:+.2f}"
+                     + (f" ({c['note']})" if c["note"] else ""))
+    if not entry["supported"]:
         lines.append("    none of the tried additions is supported by these data")
     return "\n".join(lines)
 
 
 __all__ = ["f_test", "information_criteria_change", "Comparison", "compare_fits", "Candidate",
            "candidate_additions", "next_derivative_candidate", "binary_candidates",
-           "glitch_candidate", "suggest", "suggestions_text"]
+           "glitch_candidate", "suggest", "suggestions_entry", "suggestions_text"]

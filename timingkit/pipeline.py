@@ -102,9 +102,18 @@ def _fitted_comment(report: dict) -> str:
 
 
 def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = True,
-               color_by: str = "site", progress: bool = False) -> tuple[FitResult, dict]:
+               color_by: str = "site", progress: bool = False, suggest: bool = False,
+               suggest_level: float = 0.01, glitch_epochs_mjd=()) -> tuple[FitResult, dict]:
+    """Fit, build the report and (with ``outdir``) write the outputs. With
+    ``suggest``: also try the candidate additions (timingkit.model_selection)
+    and list them under ``suggestions`` in the report."""
     result = fit(inputs.model, inputs.obs, reference=inputs.reference)
     report = build_report(result, inputs.obs)
+    if suggest:
+        from timingkit.model_selection import suggest as suggest_additions, suggestions_entry
+        comparisons = suggest_additions(result, inputs.obs, inputs.reference, level=suggest_level,
+                                        glitch_epochs_mjd=glitch_epochs_mjd)
+        report["suggestions"] = suggestions_entry(comparisons, suggest_level)
     if outdir is not None:
         write_fit_outputs(result, inputs.obs, report, outdir, make_plots, color_by)
     return result, report
@@ -120,10 +129,15 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
     pre.write_csv(os.path.join(outdir, "prefit_residuals.csv"))
     if make_plots:
         from timingkit.plotting import plot_residuals
+        red = result.noise is not None and result.noise.red_realisation_s is not None
+        path = os.path.join(outdir, "residuals.png")
         fig = plot_residuals(post, prefit=pre, color_by=color_by,
                              title=f"{report['source']}: {report['toas']} TOAs",
                              frequency_hz=result.model.spin.frequency.value,
-                             path=os.path.join(outdir, "residuals.png"))
+                             path=None if red else path)
+        if red:   # ML red-noise curve on the post-fit panel, and power_spectrum.png
+            from timingkit.noise_outputs import write_noise_figures
+            write_noise_figures(result, obs, outdir, residual_figure=fig, residual_path=path)
         del fig
         _write_phase_plots(result, post, report, outdir, color_by)
     write_json(os.path.join(outdir, "report.json"), report)
@@ -145,13 +159,16 @@ def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color
 
 
 def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(), ephemeris=None,
-              clock_paths=(), make_plots=True, progress=False, color_by="site") -> dict:
+              clock_paths=(), make_plots=True, progress=False, color_by="site",
+              suggest=False, suggest_level=0.01, glitch_epochs_mjd=()) -> dict:
     """Fit one source from its files and write fitted.toml, residuals.csv,
-    residuals.png and report.json into ``outdir``. Returns the report dict."""
+    residuals.png and report.json into ``outdir`` (with red noise also
+    power_spectrum.png). Returns the report dict."""
     inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
                          ephemeris=ephemeris, clock_paths=clock_paths)
     _, report = fit_inputs(inputs, outdir, make_plots=make_plots, color_by=color_by,
-                           progress=progress)
+                           progress=progress, suggest=suggest, suggest_level=suggest_level,
+                           glitch_epochs_mjd=glitch_epochs_mjd)
     return report
 
 
