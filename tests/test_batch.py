@@ -170,6 +170,15 @@ def test_summary_json_matches_csv_and_states_cautions(pool_run):
             assert repr(from_json["rms_us"]) == from_csv["rms_us"]
     assert any("dipole" in c for c in document["cautions"])
     assert document["engine"] == "process pool (2 workers)"
+    # each source's own warnings and cautions travel from its report to the summary
+    # and the overview (the assumptions common to all are stated once, above)
+    report = json.loads((outdir / "demo-batch-000" / "report.json").read_text())
+    notes = document["source_notes"]["demo-batch-000"]
+    assert notes["warnings"] == report["warnings"] and notes["warnings"]
+    assert set(notes["cautions"]) == set(report["cautions"]) - set(document["cautions"])
+    page = (outdir / "overview.html").read_text()
+    assert page.count(document["cautions"][0].split(";")[0]) == 1
+    assert all(w.split(":")[0] in page for w in notes["warnings"])
 
 
 def test_pool_and_local_dask_cluster_give_identical_summaries(pool_run, ten_sources, tmp_path):

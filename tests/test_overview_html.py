@@ -126,7 +126,10 @@ def test_page_embeds_every_image_and_fetches_nothing(page_inputs, tmp_path):
 
 def test_table_has_one_row_per_source_and_escapes_text(page_inputs):
     rows, plots, ppdot = page_inputs
-    text = render_overview_html(rows, COLUMNS, ppdot_png=ppdot, residual_plots=plots)
+    text = render_overview_html(rows, COLUMNS, ppdot_png=ppdot, residual_plots=plots,
+                                warnings={"demo-old": ["no clock <tables>"]},
+                                source_cautions={"demo-fast": ["kinematic Pdot terms"]})
+    assert "Warning: no clock &lt;tables&gt;" in text and "Caution: kinematic Pdot terms" in text
     body = text.split("<tbody>")[1].split("</tbody>")[0]
     assert body.count("<tr") == len(rows)
     assert "<b>bold</b>" not in text and "demo-&lt;b&gt;bold&lt;/b&gt;" in text

@@ -41,6 +41,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable, Sequence
 
+from timingkit.derived import ASSUMPTIONS as DERIVED_ASSUMPTIONS
 from timingkit.errors import FitError, InputError
 from timingkit.residual_table import atomic_output
 
@@ -72,14 +73,6 @@ _MAX_REASON_CHARS = 300
 WORKER_DIED_REASON = ("the worker process died while fitting this source (crash, out of memory "
                       "or killed); fit it alone to see why")
 CLUSTER_INSTALL_HINT = "install the cluster extra: pip install 'timingkit[cluster]'"
-
-# Caution shown next to the derived columns (DESIGN.md section 8).
-DERIVED_CAUTION = (
-    "characteristic age, surface dipole field and spin-down luminosity assume magnetic-dipole "
-    "spin-down: a centred orthogonal dipole, R = 10 km, I = 1e45 g cm^2, braking index 3 and a "
-    "birth period much shorter than today's (Lorimer & Kramer 2005, Handbook of Pulsar Astronomy); "
-    "real ages and fields may differ.")
-
 
 # --------------------------------------------------------------------------- sources
 
@@ -717,9 +710,11 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
     reports = {o.name: _read_report(outdir / o.name, o) for o in ordered}
     rows = [summary_row(outdir / o.name, o, reports[o.name]) for o in ordered]
     result = BatchResult(outdir, ordered, rows, engine, time.perf_counter() - started)
-    warnings = {name: [str(w) for w in report.get("warnings", [])]
-                for name, report in reports.items() if report}
-    result.files = write_summaries(result, software, warnings)
+    notes = {name: {"warnings": [str(w) for w in report.get("warnings", [])],
+                    "cautions": [str(c) for c in report.get("cautions", [])
+                                 if c != DERIVED_ASSUMPTIONS]}
+             for name, report in reports.items() if report}
+    result.files = write_summaries(result, software, notes)
     return result
 
 
@@ -802,8 +797,9 @@ def _as_float(value: Any) -> float:
 
 
 def write_summaries(result: BatchResult, software: dict[str, str],
-                    warnings: dict[str, list[str]]) -> dict[str, Path]:
-    """Write summary.csv, summary.json, ppdot.png and overview.html atomically."""
+                    notes: dict[str, dict[str, list[str]]]) -> dict[str, Path]:
+    """Write summary.csv, summary.json, ppdot.png and overview.html atomically.
+    ``notes``: source -> {"warnings": [...], "cautions": [...]} from its report."""
     from timingkit.overview_html import write_overview_html
     from timingkit.plotting import plot_ppdot
 
@@ -828,8 +824,8 @@ def write_summaries(result: BatchResult, software: dict[str, str],
         "elapsed_s": round(result.elapsed_s, 3),
         "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         "software": software,
-        "cautions": [DERIVED_CAUTION],
-        "warnings": {name: w for name, w in warnings.items() if w},
+        "cautions": [DERIVED_ASSUMPTIONS],
+        "source_notes": {name: n for name, n in notes.items() if n["warnings"] or n["cautions"]},
     }
     with atomic_output(files["summary_json"]) as handle:
         handle.write(json.dumps(document, indent=1, allow_nan=False, default=str) + "\n")
@@ -842,8 +838,10 @@ def write_summaries(result: BatchResult, software: dict[str, str],
     residual_plots = {o.name: outdir / o.name / RESIDUAL_PLOT_FILE for o in result.outcomes}
     write_overview_html(
         files["overview_html"], result.rows, SUMMARY_COLUMNS,
-        ppdot_png=files["ppdot_png"], residual_plots=residual_plots, warnings=warnings,
-        cautions=[DERIVED_CAUTION],
+        ppdot_png=files["ppdot_png"], residual_plots=residual_plots,
+        warnings={name: n["warnings"] for name, n in notes.items()},
+        source_cautions={name: n["cautions"] for name, n in notes.items()},
+        cautions=[DERIVED_ASSUMPTIONS],
         note=(f"{len(result.succeeded)} of {len(result.rows)} source(s) fitted, "
               f"{len(result.failed)} failed; engine: {result.engine}; timingkit "
               f"{software.get('timingkit', '?')}; written {document['created_utc']}"))

@@ -124,14 +124,17 @@ def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> str:
 def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[str], *,
                          ppdot_png=None, residual_plots: Mapping[str, Any] | None = None,
                          warnings: Mapping[str, Sequence[str]] | None = None,
+                         source_cautions: Mapping[str, Sequence[str]] | None = None,
                          cautions: Sequence[str] = (), note: str = "",
                          title: str = "timingkit batch overview") -> str:
     """The page as a string. ``rows`` are dicts keyed by ``columns`` (one per
     source, ``source`` and ``status`` among them); ``residual_plots`` maps a
-    source name to its PNG path; ``warnings`` maps a source to its report's
-    warnings; ``cautions`` are shown under the table."""
+    source name to its PNG path; ``warnings`` and ``source_cautions`` map a
+    source to its report's warnings and cautions (shown in its section);
+    ``cautions`` apply to every source and are shown under the table."""
     residual_plots = residual_plots or {}
     warnings = warnings or {}
+    source_cautions = source_cautions or {}
     parts = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -160,6 +163,8 @@ def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[st
             parts.append(f'<p class="caution">{html.escape(str(row.get("message") or ""))}</p>')
         for warning in warnings.get(name, ()):
             parts.append(f'<p class="caution">Warning: {html.escape(str(warning))}</p>')
+        for caution in source_cautions.get(name, ()):
+            parts.append(f'<p class="caution">Caution: {html.escape(str(caution))}</p>')
         uri = png_data_uri(residual_plots[name]) if residual_plots.get(name) else None
         if uri:
             parts.append(f'<figure><img class="residuals" '
