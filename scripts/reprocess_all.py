@@ -13,7 +13,6 @@ same job as a plain loop over ``fit_files`` for people who want full control.
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 from pathlib import Path
 
@@ -24,13 +23,13 @@ from timingkit.pipeline import fit_files
 
 
 def sample_manifest(folder: Path) -> Path:
-    """A manifest listing the sample sources (paths relative to the manifest)."""
-    data = Path(sample_data_dir())
+    """A manifest listing the sample sources (relative paths would be taken
+    relative to the manifest; these are absolute)."""
+    data = Path(sample_data_dir()).resolve()
     lines = ["[defaults]", "make_plots = true", ""]
     for name in SAMPLE_SOURCES:
-        lines += ["[[source]]", f'name = "{name}"',
-                  f'toas = "{Path(os.path.relpath(data / f"{name}.toas", folder)).as_posix()}"',
-                  f'model = "{Path(os.path.relpath(data / f"{name}.toml", folder)).as_posix()}"', ""]
+        lines += ["[[source]]", f'name = "{name}"', f'toas = "{(data / f"{name}.toas").as_posix()}"',
+                  f'model = "{(data / f"{name}.toml").as_posix()}"', ""]
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "manifest.toml"
     path.write_text("\n".join(lines), encoding="utf-8")

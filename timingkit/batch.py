@@ -842,8 +842,10 @@ def write_summaries(result: BatchResult, software: dict[str, str],
         warnings={name: n["warnings"] for name, n in notes.items()},
         source_cautions={name: n["cautions"] for name, n in notes.items()},
         cautions=[DERIVED_ASSUMPTIONS],
-        note=(f"{len(result.succeeded)} of {len(result.rows)} source(s) fitted, "
-              f"{len(result.failed)} failed; engine: {result.engine}; timingkit "
+        note=(f"{len(result.succeeded)} of {len(result.rows)} source(s) fitted"
+              + (f" ({document['counts']['reused']} kept unchanged from the previous run)"
+                 if document["counts"]["reused"] else "")
+              + f", {len(result.failed)} failed; engine: {result.engine}; timingkit "
               f"{software.get('timingkit', '?')}; written {document['created_utc']}"))
     return files
 

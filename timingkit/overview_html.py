@@ -17,16 +17,21 @@ from typing import Any, Mapping, Sequence
 
 from timingkit.residual_table import atomic_output
 
-# Columns shown with all their digits (high-precision decimal strings).
-FULL_PRECISION_COLUMNS = ("frequency_hz", "frequency_derivative")
-DISPLAY_SIGNIFICANT_DIGITS = 6
+# Significant digits shown in the table (the full value is kept for sorting and
+# is in summary.csv); the spin frequency is shown with every digit.
+DISPLAY_DIGITS = {"frequency_hz": None, "frequency_derivative": 10}
+DEFAULT_DISPLAY_DIGITS = 6
+WRAPPED_COLUMNS = ("message",)
+TEXT_COLUMNS = ("source", "status", "message")
 
 _STYLE = """
 body { font-family: system-ui, sans-serif; margin: 1.5em; color: #222; }
 h1 { font-size: 1.4em; } h2 { font-size: 1.15em; margin-top: 1.6em; }
 table { border-collapse: collapse; font-size: 0.85em; }
 th, td { border: 1px solid #ccc; padding: 0.25em 0.5em; text-align: right; white-space: nowrap; }
-td.text { text-align: left; white-space: normal; max-width: 28em; }
+td.text { text-align: left; }
+td.wrap { white-space: normal; min-width: 24em; max-width: 48em; }
+.scroll { overflow-x: auto; }
 th button { font: inherit; font-weight: bold; border: none; background: none; cursor: pointer;
             padding: 0; }
 th[aria-sort="ascending"] button::after { content: " \\25B2"; }
@@ -85,20 +90,33 @@ def png_data_uri(path) -> str | None:
     return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
-def _display(value: Any, column: str) -> tuple[str, str]:
-    """(shown text, sort value) of a cell."""
-    if value is None:
-        return "", ""
+def _number(value: Any) -> float | None:
     if isinstance(value, bool):
-        return str(value).lower(), str(value).lower()
+        return None
     if isinstance(value, (int, float)):
-        if isinstance(value, float) and not math.isfinite(value):
-            return "", ""
-        shown = (str(value) if isinstance(value, int) or column in FULL_PRECISION_COLUMNS
-                 else f"{value:.{DISPLAY_SIGNIFICANT_DIGITS}g}")
-        return shown, repr(value)
-    text = str(value)
-    return text, text
+        return float(value)
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        return None
+
+
+def _display(value: Any, column: str) -> tuple[str, str, bool]:
+    """(shown text, sort value, is numeric) of a cell. Numbers, and decimal strings
+    such as the high-precision frequency, are shown rounded (see DISPLAY_DIGITS)."""
+    if value is None:
+        return "", "", False
+    number = _number(value)
+    if number is None or column in TEXT_COLUMNS:
+        return str(value), str(value), False
+    if not math.isfinite(number):
+        return "", "", True
+    digits = DISPLAY_DIGITS.get(column, DEFAULT_DISPLAY_DIGITS)
+    if isinstance(value, int) or digits is None:
+        shown = str(value)
+    else:
+        shown = f"{number:.{digits}g}"
+    return shown, str(value) if isinstance(value, str) else repr(value), True
 
 
 def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> str:
@@ -108,17 +126,17 @@ def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> str:
     for index, row in enumerate(rows):
         cells = []
         for column in columns:
-            shown, sort_value = _display(row.get(column), column)
-            numeric = isinstance(row.get(column), (int, float))
-            css = "" if numeric else ' class="text"'
+            shown, sort_value, numeric = _display(row.get(column), column)
+            css = ' class="text wrap"' if column in WRAPPED_COLUMNS else (
+                "" if numeric else ' class="text"')
             cell = html.escape(shown)
             if column == "source":
                 cell = f'<a href="#source-{index}">{cell}</a>'
             cells.append(f'<td{css} data-value="{html.escape(sort_value)}">{cell}</td>')
         status = html.escape(str(row.get("status", "")))
         body.append(f'<tr class="{status}">' + "".join(cells) + "</tr>")
-    return ('<table class="sortable" id="summary">\n<thead><tr>' + head + "</tr></thead>\n<tbody>\n"
-            + "\n".join(body) + "\n</tbody>\n</table>")
+    return ('<div class="scroll"><table class="sortable" id="summary">\n<thead><tr>' + head
+            + "</tr></thead>\n<tbody>\n" + "\n".join(body) + "\n</tbody>\n</table></div>")
 
 
 def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[str], *,
