@@ -160,8 +160,10 @@ def bench_batch(sources: int = 200, small: int = 50, toas_per_source: int = 2000
     cores = os.cpu_count() or 1
     work = Path(keep) if keep else Path(tempfile.mkdtemp(prefix="timingkit-bench-batch-"))
     try:
+        load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
         print(f"batch benchmark: {sources} simulated sources x {toas_per_source} TOAs "
-              f"({cores} cores)")
+              f"({cores} cores, load average {load:.1f} before the start: speed-ups are only "
+              "meaningful when no other work competes for the cores)")
         start = time.perf_counter()
         write_simulated_sources(work / "sources", sources, toas_per_source)
         print(f"  simulated the sources in {time.perf_counter() - start:.1f} s")
