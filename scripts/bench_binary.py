@@ -1,0 +1,185 @@
+#!/usr/bin/env python
+"""Binary benchmark (issue 4): a 100,000-TOA binary millisecond-pulsar fit
+with 20 free parameters against the same fit without the binary component.
+
+``bench_binary()`` simulates an invented MSP (site ``desert-dish`` from the
+sample site file, three frequencies, two backends) twice over the same
+arrival-time slots: once in a relativistic (Damour-Deruelle) orbit with a
+companion Shapiro delay, once isolated. Both fits start from the same
+offset in spin frequency, so they take the same number of iterations. It
+prints, for the relativistic and the low-eccentricity orbit:
+
+- time of the binary fit (12 non-binary + 8 binary free parameters = 20);
+- time of the fit without the binary (the same 12 non-binary parameters),
+  and the ratio (target <= 3x);
+- the same ratio per iteration, and against a no-binary fit that also has
+  20 free parameters (8 DM offsets in place of the orbit), which separates
+  the cost of the orbit from the cost of the extra design-matrix columns.
+
+Run: ``python scripts/bench_binary.py [--toas 100000]``; ``scripts/bench.py``
+calls :func:`bench_binary`.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+SITES = os.path.join(ROOT, "timingkit", "sample_data", "sites.toml")
+sys.path.insert(0, ROOT)
+
+START, END = 55000.0, 59000.0
+ISOLATED = """name = "bench-binary-msp"
+[position]
+ra = "16h14m22.1234567s"
+dec = "-22d19m05.12345s"
+pm_ra_cosdec_mas_per_yr = 3.8
+pm_dec_mas_per_yr = -25.1
+parallax_mas = 1.3
+[spin]
+epoch_mjd = "57000"
+frequency_hz = "317.3789345678901"
+frequency_derivatives = ["-9.7e-16"]
+[dispersion]
+dm = 34.486
+epoch_mjd = "57000"
+derivatives = [1e-4, 1e-5]
+%(dm_offsets)s
+[[time_offset]]
+flag = "backend"
+value = "wide-b"
+offset_s = 2.0e-6
+[[time_offset]]
+flag = "backend"
+value = "wide-c"
+offset_s = -1.0e-6
+"""
+BINARIES = {
+    "relativistic": """
+[binary]
+model = "relativistic"
+orbital_period_days = "8.6866194196"
+orbital_period_derivative = 1.0e-12
+projected_semi_major_axis_lt_s = 11.2911975
+eccentricity = 1.7e-4
+periastron_longitude_deg = 107.3
+periastron_epoch_mjd = "57001.05"
+shapiro_range_s = 2.4e-6
+shapiro_shape = 0.9993
+""",
+    "low_eccentricity": """
+[binary]
+model = "low_eccentricity"
+orbital_period_days = "8.6866194196"
+orbital_period_derivative = 1.0e-12
+projected_semi_major_axis_lt_s = 11.2911975
+e_sin_omega = 1.6e-4
+e_cos_omega = -5.0e-5
+ascending_node_epoch_mjd = "56998.5"
+companion_mass_msun = 0.5
+sin_inclination = 0.9993
+""",
+}
+NON_BINARY_FREE = ["spin.frequency_hz", "spin.frequency_derivatives.0", "position.ra",
+                   "position.dec", "position.pm_ra_cosdec_mas_per_yr",
+                   "position.pm_dec_mas_per_yr", "position.parallax_mas", "dispersion.dm",
+                   "dispersion.derivatives.0", "dispersion.derivatives.1",
+                   "time_offset.0.offset_s", "time_offset.1.offset_s"]
+BINARY_FREE = {
+    "relativistic": ["orbital_period_days", "orbital_period_derivative",
+                     "projected_semi_major_axis_lt_s", "eccentricity", "periastron_longitude_deg",
+                     "periastron_epoch_mjd", "shapiro_range_s", "shapiro_shape"],
+    "low_eccentricity": ["orbital_period_days", "orbital_period_derivative",
+                         "projected_semi_major_axis_lt_s", "e_sin_omega", "e_cos_omega",
+                         "ascending_node_epoch_mjd", "companion_mass_msun", "sin_inclination"],
+}
+
+
+def _dm_offset_block(count: int) -> str:
+    if not count:
+        return ""
+    # ranges over the first count/(count+1) of the span: the rest pins the mean DM
+    edges = [START + (END - START) * k / (count + 1) for k in range(count + 1)]
+    ranges = ", ".join(f"[{a:.1f}, {b:.1f}]" for a, b in zip(edges, edges[1:]))
+    return f"dm_offset_ranges_mjd = [{ranges}]\ndm_offsets = [{', '.join(['0.0'] * count)}]"
+
+
+def _simulate(text, n, sites, eph, times=None, seed=1):
+    from timingkit.model import TimingModel
+    from timingkit.observations import prepare_observations
+    from timingkit.simulate import simulate_toas
+    model = TimingModel.from_text(text)
+    toas = simulate_toas(model, START, END, n, 1.0, sites, eph, site_names=["desert-dish"],
+                         freqs_mhz=[820.0, 1400.0, 2300.0], seed=seed,
+                         flags={"backend": ["wide-a", "wide-b", "wide-c"]}, times=times)
+    return model, prepare_observations(toas, sites, eph)
+
+
+def _timed_fit(model, obs, free, repeats: int = 1):
+    from timingkit.fitting import fit
+    start = model.copy()
+    start.parameter("spin.frequency_hz").add(2e-11)
+    best, res = float("inf"), None
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        res = fit(start, obs, free=free)
+        best = min(best, time.perf_counter() - t0)
+    return best, res
+
+
+def bench_binary(n_toas: int = 100_000, repeats: int = 2) -> dict:
+    """Print and return the timings described in the module docstring."""
+    import numpy as np
+    from timingkit.ephemeris import load_ephemeris
+    from timingkit.simulate import arrival_times
+    from timingkit.sites import SiteTable
+
+    sites = SiteTable.with_files([SITES])
+    eph = load_ephemeris()
+    times = arrival_times(START, END, n_toas, np.random.default_rng(5))
+    t0 = time.perf_counter()
+    iso_text = ISOLATED % {"dm_offsets": ""}
+    iso_model, iso_obs = _simulate(iso_text, n_toas, sites, eph, times)
+    sim_s = time.perf_counter() - t0
+    t_iso, r_iso = _timed_fit(iso_model, iso_obs, NON_BINARY_FREE, repeats)
+    wide_text = ISOLATED % {"dm_offsets": _dm_offset_block(8)}
+    wide_model = type(iso_model).from_text(wide_text)
+    wide_free = NON_BINARY_FREE + [f"dispersion.dm_offsets.{k}" for k in range(8)]
+    t_wide, r_wide = _timed_fit(wide_model, iso_obs, wide_free, repeats)
+    print(f"binary fit benchmark: {n_toas} TOAs (simulation of each set {sim_s:.1f} s)")
+    print(f"  no binary, {len(NON_BINARY_FREE)} free: {t_iso:.2f} s, {r_iso.iterations} "
+          f"iterations ({t_iso / r_iso.iterations:.3f} s each)")
+    print(f"  no binary, {len(wide_free)} free (8 DM offsets): {t_wide:.2f} s, "
+          f"{r_wide.iterations} iterations ({t_wide / r_wide.iterations:.3f} s each)")
+    out = {"toas": n_toas, "no_binary_s": t_iso, "no_binary_iterations": r_iso.iterations,
+           "no_binary_20_free_s": t_wide}
+    for name, block in BINARIES.items():
+        model, obs = _simulate(iso_text + block, n_toas, sites, eph, times)
+        free = NON_BINARY_FREE + [f"binary.{k}" for k in BINARY_FREE[name]]
+        t_bin, r_bin = _timed_fit(model, obs, free, repeats)
+        ratio = t_bin / t_iso
+        per_iter = (t_bin / r_bin.iterations) / (t_iso / r_iso.iterations)
+        print(f"  {name} binary, {len(free)} free: {t_bin:.2f} s, {r_bin.iterations} "
+              f"iterations, reduced chi2 {r_bin.reduced_chi2:.3f}")
+        print(f"    ratio to the fit without the binary: {ratio:.2f}x (target <= 3x); "
+              f"per iteration {per_iter:.2f}x; against the 20-parameter no-binary fit "
+              f"{t_bin / t_wide:.2f}x")
+        out[name] = {"seconds": t_bin, "iterations": r_bin.iterations, "ratio": ratio,
+                     "ratio_per_iteration": per_iter, "ratio_vs_20_free": t_bin / t_wide}
+    return out
+
+
+def main() -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n")[0])
+    ap.add_argument("--toas", type=int, default=100_000)
+    ap.add_argument("--repeats", type=int, default=2, help="best of this many fits")
+    args = ap.parse_args()
+    bench_binary(args.toas, args.repeats)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
