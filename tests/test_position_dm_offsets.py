@@ -284,3 +284,36 @@ def test_group_offsets_that_cannot_be_measured_are_named(ephemeris):
     with pytest.raises(InputError, match="two \\[\\[time_offset\\]\\] tables"):
         TimingModel.from_text(GROUPS.replace('value = "lake-array"', 'value = "wide-b"')
                               .replace('flag = "site"', 'flag = "backend"'))
+
+
+def test_convert_command_round_trips_frame_and_binary_form(tmp_path, capsys):
+    from timingkit.cli import main
+    src = tmp_path / "m.toml"
+    src.write_text(SOURCE + '''
+[binary]
+model = "keplerian"
+orbital_period_days = "0.2"
+projected_semi_major_axis_lt_s = 1.5
+eccentricity = 1e-5
+periastron_longitude_deg = 40.0
+periastron_epoch_mjd = "58000.3"
+[fit]
+free = ["position.ra", "binary.eccentricity", "binary.projected_semi_major_axis_lt_s"]
+''')
+    before = src.read_text()
+    assert main(["convert", str(src), "--frame", "ecliptic", "--binary-model",
+                 "low_eccentricity", "-o", str(tmp_path / "e.toml")]) == 0
+    assert src.read_text() == before                          # input untouched
+    e = TimingModel.from_file(str(tmp_path / "e.toml"))
+    assert e.astrometry.frame == "ecliptic"
+    assert set(e.free_names) == {"position.ecliptic_longitude_deg",
+                                 "binary.projected_semi_major_axis_lt_s"}
+    assert main(["convert", str(tmp_path / "e.toml"), "--frame", "equatorial", "--binary-model",
+                 "keplerian", "-o", str(tmp_path / "b.toml")]) == 0
+    b = TimingModel.from_file(str(tmp_path / "b.toml"))
+    a = TimingModel.from_file(str(src))
+    assert abs(b.parameter("position.ra").value - a.parameter("position.ra").value) < 1e-14
+    assert abs(b.parameter("position.dec").value - a.parameter("position.dec").value) < 1e-14
+    assert b.parameter("binary.eccentricity").value == pytest.approx(1e-5, rel=1e-12)
+    assert main(["convert", str(src), "-o", str(tmp_path / "x.toml")]) == 2
+    assert "nothing to do" in capsys.readouterr().err
