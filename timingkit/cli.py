@@ -123,6 +123,7 @@ def build_parser() -> argparse.ArgumentParser:
 EXTRA_COMMANDS = [
     ("glitches", "timingkit.glitches_cli", "add_glitches_parser"),
     ("batch", "timingkit.batch", "add_batch_parser"),
+    ("convert", "timingkit.convert_cli", "add_convert_parser"),
 ]
 
 
