@@ -214,19 +214,19 @@ def test_overview_renders_in_headless_chromium(pool_run, tmp_path):
 
 def test_resume_refits_only_the_changed_source(three_sources, tmp_path):
     outdir = tmp_path / "out"
-    first = run_batch(three_sources, outdir, workers=2, progress=False)
+    first = run_batch(three_sources, outdir, workers=1, progress=False)
     assert first.exit_status == 0 and sorted(first.refitted) == sorted(first.succeeded)
     reports = {n: (outdir / n / "report.json") for n in first.succeeded}
     stamps = {n: p.stat().st_mtime_ns for n, p in reports.items()}
 
-    unchanged = run_batch(three_sources, outdir, workers=2, resume=True, progress=False)
+    unchanged = run_batch(three_sources, outdir, workers=1, resume=True, progress=False)
     assert unchanged.refitted == [] and all(o.reused for o in unchanged.outcomes)
     assert {n: p.stat().st_mtime_ns for n, p in reports.items()} == stamps
 
     table = three_sources / "demo-batch-001" / "obs.toas"
     lines = table.read_text().splitlines(keepends=True)
     table.write_text("".join(lines[:-20]))  # 20 TOAs fewer
-    again = run_batch(three_sources, outdir, workers=2, resume=True, progress=False)
+    again = run_batch(three_sources, outdir, workers=1, resume=True, progress=False)
     assert again.refitted == ["demo-batch-001"]
     assert [o.reused for o in again.outcomes] == [True, False, True]
     for name in ("demo-batch-000", "demo-batch-002"):
@@ -257,7 +257,7 @@ make_plots = true
 """
     manifest.write_text(spec.format(fix='["spin.frequency_derivatives.0"]'))
     outdir = tmp_path / "out"
-    assert _cli([manifest, "-o", outdir, "--workers", 2]) == 0
+    assert _cli([manifest, "-o", outdir, "--workers", 1]) == 0
     alpha = json.loads((outdir / "alpha" / "report.json").read_text())["parameters"]
     beta = json.loads((outdir / "beta" / "report.json").read_text())["parameters"]
     # the manifest's default 'fix' holds a parameter the model's [fit] list frees ...
@@ -269,7 +269,7 @@ make_plots = true
 
     # a changed default changes alpha's settings only: only alpha is refitted
     manifest.write_text(spec.format(fix='["spin.frequency_derivatives.0", "dispersion.dm"]'))
-    result = run_batch(manifest, outdir, workers=2, resume=True, progress=False)
+    result = run_batch(manifest, outdir, workers=1, resume=True, progress=False)
     assert result.refitted == ["alpha"]
     alpha = json.loads((outdir / "alpha" / "report.json").read_text())["parameters"]
     assert not alpha["dispersion.dm"]["free"]

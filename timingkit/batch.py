@@ -38,8 +38,9 @@ from concurrent.futures import ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 from contextlib import contextmanager
 from dataclasses import dataclass, field
+from functools import lru_cache
 from pathlib import Path
-from typing import Any, Callable, Iterable, Sequence
+from typing import Any, Callable, Sequence
 
 from timingkit.derived import ASSUMPTIONS as DERIVED_ASSUMPTIONS
 from timingkit.errors import FitError, InputError
@@ -277,6 +278,18 @@ def _software_fingerprint() -> dict[str, str]:
 
 
 def _file_digest(path: str) -> str:
+    """sha256 of a file's contents (a marker if unreadable: the fit will say why)."""
+    try:
+        status = os.stat(path)
+    except OSError as exc:
+        return f"unreadable:{type(exc).__name__}"
+    return _digest_of(path, status.st_size, status.st_mtime_ns)
+
+
+@lru_cache(maxsize=4096)
+def _digest_of(path: str, size: int, mtime_ns: int) -> str:
+    # cached by (path, size, mtime): a shared ephemeris or site file is read once,
+    # not once per source
     digest = hashlib.sha256()
     try:
         with open(path, "rb") as fh:
@@ -320,7 +333,6 @@ def inputs_sha256(source: Source, software: dict[str, str] | None = None) -> str
         "name": source.name,
         "files": [[role, _file_digest(p)] for role, p in files],
         "free": list(source.free), "fix": list(source.fix), "make_plots": source.make_plots,
-        "ephemeris": "given" if source.ephemeris else "model or builtin",
         "software": software if software is not None else _software_fingerprint(),
     }
     return hashlib.sha256(json.dumps(record, sort_keys=True).encode()).hexdigest()
@@ -398,13 +410,12 @@ def process_source(job: _Job) -> dict:
     tmp = _new_work_folder(job.outdir, source.name)
     status, message = STATUS_OK, ""
     try:
-        report = job.fit_function(
+        job.fit_function(
             source.toas_path, source.model_path, str(tmp), free=source.free, fix=source.fix,
             sites_paths=source.sites_paths, ephemeris=source.ephemeris,
             clock_paths=source.clock_paths, make_plots=source.make_plots, progress=False)
         if not (tmp / REPORT_FILE).is_file():
             raise RuntimeError(f"the fit returned without writing {REPORT_FILE}")
-        del report
         (tmp / HASH_FILE).write_text(job.digest + "\n", encoding="utf-8")
         _swap_into_place(tmp, Path(job.outdir) / source.name)
     except Exception as exc:
@@ -481,7 +492,20 @@ def _pool_pass(jobs: list[_Job], workers: int, done: Callable[[dict], None]) -> 
                 done(future.result())
             except BrokenProcessPool:
                 unfinished.append(futures[future])
+            except Exception as exc:  # the job could not be sent, or the worker's own I/O failed
+                _record_failure(futures[future], _one_line(
+                    f"internal error in the batch worker ({type(exc).__name__}: {exc})"), done)
     return unfinished
+
+
+def _record_failure(job: _Job, reason: str, done: Callable[[dict], None]) -> None:
+    """A source whose worker could not report: write its error.txt here and count it."""
+    try:
+        install_failure(job.outdir, job.source, reason)
+    except OSError:
+        pass  # the row in the summary still says why
+    done({"name": job.source.name, "status": STATUS_FAILED, "message": reason,
+          "elapsed_s": float("nan"), "worker": "died"})
 
 
 def _run_on_pool(jobs: list[_Job], workers: int, outdir: Path, done: Callable[[dict], None]) -> None:
@@ -503,9 +527,7 @@ def _run_on_pool(jobs: list[_Job], workers: int, outdir: Path, done: Callable[[d
         # one worker runs the jobs in order: the culprit is the first unfinished one
         culprit = next((j for j in left if j.source.name in in_flight), left[0] if left else None)
         if culprit is not None:
-            install_failure(str(outdir), culprit.source, WORKER_DIED_REASON)
-            done({"name": culprit.source.name, "status": STATUS_FAILED,
-                  "message": WORKER_DIED_REASON, "elapsed_s": float("nan"), "worker": "died"})
+            _record_failure(culprit, WORKER_DIED_REASON, done)
         suspects = [j for j in left if j is not culprit]
 
 
@@ -550,9 +572,7 @@ def _run_on_dask(jobs: list[_Job], cluster: str, workers: int, done: Callable[[d
                           if type(exc).__name__ == "KilledWorker" else
                           _one_line(f"the Dask cluster lost this source ({type(exc).__name__}: "
                                     f"{exc})"))
-                install_failure(job.outdir, job.source, reason)
-                done({"name": job.source.name, "status": STATUS_FAILED, "message": reason,
-                      "elapsed_s": float("nan"), "worker": "died"})
+                _record_failure(job, reason, done)
         workers_seen = len(client.scheduler_info().get("workers", {}))
     finally:
         client.close()
@@ -578,6 +598,8 @@ class SourceOutcome:
 
 @dataclass
 class BatchResult:
+    """Outcome of :func:`run_batch`: one outcome and one summary row per source
+    (input order), the engine used, wall time (s) and the summary files written."""
     outdir: Path
     outcomes: list[SourceOutcome]
     rows: list[dict]
