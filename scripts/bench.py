@@ -92,6 +92,9 @@ def bench_barycenter(n: int, tmp: str) -> None:
         from astropy.coordinates import EarthLocation, SkyCoord
         from astropy.utils import iers
         iers.conf.auto_download = False
+        iers.conf.auto_max_age = None
+        iers.conf.iers_degraded_accuracy = 'warn'
+        import warnings; warnings.simplefilter('ignore')
         from timingkit.toas import read_toas
         from timingkit.sites import SiteTable
         from timingkit.ephemeris import builtin_ephemeris_path
@@ -192,6 +195,9 @@ def bench_sites(n: int) -> None:
         from astropy.coordinates import EarthLocation
         from astropy.utils import iers
         iers.conf.auto_download = False
+        iers.conf.auto_max_age = None
+        iers.conf.iers_degraded_accuracy = 'warn'
+        import warnings; warnings.simplefilter('ignore')
         from timingkit.sites import SiteTable, site_gcrs_posvel
         from timingkit.timearray import SplitTime
         from timingkit import timescales

@@ -17,7 +17,7 @@ from timingkit import earth_orientation, timescales
 from timingkit.clock import ClockTable
 from timingkit.ephemeris import Ephemeris
 from timingkit.errors import InputError
-from timingkit.sites import SiteTable, site_gcrs_posvel
+from timingkit.sites import SiteTable, sites_gcrs_posvel
 from timingkit.timearray import SplitTime
 from timingkit.toas import Toas
 
@@ -69,16 +69,19 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
     names = np.empty(n, dtype=object)
     warnings: list[str] = []
     used_clocks: list[str] = []
+    earth_rows = []
+    utc_day, utc_frac = np.zeros(n), np.zeros(n)
     for k, site in enumerate(unique_sites):
         idx = np.nonzero(site_index == k)[0]
         names[idx] = site.name
         given = SplitTime(day[idx], frac[idx], "utc")
         if site.kind == "ssb":
             bary[idx] = True
-            tdb = given.with_scale("tdb")
+            tdb_day[idx], tdb_frac[idx] = given.day, given.frac
         elif site.kind == "geocenter":
             tt = given.with_scale("tt")
             tdb = timescales.tt_to_tdb(tt, tt.frac)
+            tdb_day[idx], tdb_frac[idx] = tdb.day, tdb.frac
         else:
             for table in clock_tables:
                 if table.applies_to(site.name):
@@ -86,19 +89,28 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
                     given = given.add_seconds(offset_s).with_scale("utc")
                     warnings.extend(warn)
                     used_clocks.append(f"{table.converts} ({table.path})")
-            utc = given
-            tt = timescales.utc_to_tt(utc)
-            warnings.extend(timescales.leap_second_warnings(utc))
-            dut1 = earth_orientation.ut1_minus_utc_s(utc)
-            warnings.extend(earth_orientation.coverage_warnings(utc))
-            ut1_frac = np.mod(utc.frac + dut1 / 86400.0, 1.0)
-            tdb = timescales.tt_to_tdb(tt, ut1_frac, site.longitude_rad,
-                                       site.spin_axis_distance_km, site.equator_distance_km)
-            pos, vel = site_gcrs_posvel(site, utc, tt)
-            site_pos[idx] = pos
-            site_vel[idx] = vel
-        tdb_day[idx] = tdb.day
-        tdb_frac[idx] = tdb.frac
+            utc_day[idx], utc_frac[idx] = given.day, given.frac
+            earth_rows.append(idx)
+    if earth_rows:
+        # all Earth sites at once: the Earth-orientation and TDB grids are shared
+        rows = np.sort(np.concatenate(earth_rows))
+        utc = SplitTime(utc_day[rows], utc_frac[rows], "utc")
+        tt = timescales.utc_to_tt(utc)
+        warnings.extend(timescales.leap_second_warnings(utc))
+        warnings.extend(earth_orientation.coverage_warnings(utc))
+        dut1 = earth_orientation.ut1_minus_utc_s(utc)
+        ut1_frac = np.mod(utc.frac + dut1 / 86400.0, 1.0)
+        k_rows = site_index[rows]
+        lon = np.array([s.longitude_rad if s.kind == "earth" else 0.0 for s in unique_sites])
+        u_km = np.array([s.spin_axis_distance_km if s.kind == "earth" else 0.0
+                         for s in unique_sites])
+        v_km = np.array([s.equator_distance_km if s.kind == "earth" else 0.0
+                         for s in unique_sites])
+        tdb = timescales.tt_to_tdb(tt, ut1_frac, lon[k_rows], u_km[k_rows], v_km[k_rows])
+        tdb_day[rows], tdb_frac[rows] = tdb.day, tdb.frac
+        pos, vel = sites_gcrs_posvel(unique_sites, k_rows, utc, tt)
+        site_pos[rows] = pos
+        site_vel[rows] = vel
     tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")
     ephemeris.check_span(tdb_all, where=toas.path)
     earth_pos, earth_vel = ephemeris.posvel("earth", tdb_all)

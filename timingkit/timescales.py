@@ -62,6 +62,12 @@ def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
     full series per TOA costs ~10 µs each (10 s per million TOAs).
     """
     ut = np.broadcast_to(np.asarray(ut1_fraction_of_day, dtype=float), tt.day.shape)
+    # site coordinates may be scalars or one value per TOA
+    longitude_rad = np.broadcast_to(np.asarray(longitude_rad, dtype=float), tt.day.shape)
+    spin_axis_distance_km = np.broadcast_to(np.asarray(spin_axis_distance_km, dtype=float),
+                                            tt.day.shape)
+    equator_distance_km = np.broadcast_to(np.asarray(equator_distance_km, dtype=float),
+                                          tt.day.shape)
     jd1, jd2 = tt.jd1, tt.jd2
     mjd = tt.day + tt.frac
     lo, hi = float(np.min(mjd)) - 2.0, float(np.max(mjd)) + 2.0
@@ -75,14 +81,14 @@ def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
     g = erfa.dtdb(g_jd1, zero, 0.0, 0.0, 0.0, 0.0)
     x = (tt.day - nodes[0]) + tt.frac
     out = CubicSpline(nodes - nodes[0], g)(x)
-    u, v = float(spin_axis_distance_km), float(equator_distance_km)
-    if u != 0.0:
+    u, v = spin_axis_distance_km, equator_distance_km
+    if np.any(u != 0.0):
         c = erfa.dtdb(g_jd1, zero, 0.25, 0.0, 1.0, 0.0) - g
         s = erfa.dtdb(g_jd1, zero, 0.0, 0.0, 1.0, 0.0) - g
         solar = 2.0 * np.pi * ut + longitude_rad
         out = out + u * (CubicSpline(nodes - nodes[0], c)(x) * np.sin(solar)
                          + CubicSpline(nodes - nodes[0], s)(x) * np.cos(solar))
-    if v != 0.0:
+    if np.any(v != 0.0):
         b = erfa.dtdb(g_jd1, zero, 0.0, 0.0, 0.0, 1.0) - g
         out = out + v * CubicSpline(nodes - nodes[0], b)(x)
     return out
