@@ -912,7 +912,8 @@ def run_batch_command(args) -> int:
     reused = sum(o.reused for o in result.outcomes)
     print(f"{len(result.succeeded)} of {len(result.outcomes)} source(s) fitted"
           + (f" ({reused} unchanged, kept)" if reused else "")
-          + f", {len(result.failed)} failed, in {result.elapsed_s:.1f} s on {result.engine}")
+          + f", {len(result.failed)} failed, in {result.elapsed_s:.1f} s"
+          + (f" on {result.engine}" if result.refitted else ""))
     for outcome in result.outcomes:
         if outcome.status == STATUS_FAILED:
             print(f"  failed: {outcome.name}: {outcome.message}")
