@@ -407,6 +407,16 @@ def test_directory_discovery_rules(tmp_path):
         discover_sources(root / "docs")
 
 
+def test_output_folder_that_would_replace_inputs_is_refused(tmp_path):
+    root = tmp_path / "tree"
+    toas = _write(root / "demo-a" / "obs.toas", "mjd err_us freq_mhz site\n")
+    _write(root / "demo-a" / "model.toml", 'name = "demo-a"\n')
+    with pytest.raises(InputError, match="would replace the inputs of source 'demo-a'"):
+        run_batch(root, root, workers=1, progress=False)  # -o pointing at the sources
+    assert toas.read_text() == "mjd err_us freq_mhz site\n"
+    assert sorted(p.name for p in root.iterdir()) == ["demo-a"]
+
+
 def test_problem_sources_fail_without_running_anything(tmp_path):
     sources = [Source("demo-bad", "", "", problem="found 2 TOA tables in x")]
     result = run_batch(sources, tmp_path / "out", workers=1, progress=False)

@@ -626,6 +626,20 @@ class BatchResult:
         return 0 if not self.failed else 3
 
 
+def _check_outputs_spare_inputs(sources: Sequence[Source], outdir: Path) -> None:
+    """Refuse an OUTDIR whose per-source folders would hold (and so replace) inputs,
+    e.g. ``-o`` pointing at the source directory itself."""
+    for source in sources:
+        final = outdir / source.name
+        inputs = [source.toas_path, source.model_path, *source.sites_paths,
+                  *source.clock_paths, source.ephemeris or ""]
+        for path in filter(None, inputs):
+            if Path(path).resolve().is_relative_to(final):
+                raise InputError(f"the output folder would replace the inputs of source "
+                                 f"'{source.name}' ({path}); choose another output folder",
+                                 path=str(outdir), field="outdir")
+
+
 def _default_fit_function() -> Callable:
     from timingkit.pipeline import fit_files
 
@@ -674,6 +688,7 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
     if len(set(names)) != len(names):
         duplicated = sorted({n for n in names if names.count(n) > 1})
         raise InputError(f"source names must be unique; repeated: {', '.join(duplicated)}")
+    _check_outputs_spare_inputs(sources, outdir)
     if workers is None:
         workers = os.cpu_count() or 1
     if not isinstance(workers, int) or isinstance(workers, bool) or workers < 1:
