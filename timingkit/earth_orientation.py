@@ -69,6 +69,14 @@ class EopTable:
         return float(self.mjd[-1])
 
 
+def _bundle_label() -> str:
+    try:
+        from importlib.metadata import version
+        return f"astropy-iers-data {version('astropy-iers-data')}"
+    except Exception:   # metadata missing: say what we know
+        return "astropy's bundled IERS data"
+
+
 @functools.lru_cache(maxsize=1)
 def eop_table() -> EopTable:
     """Read astropy's bundled IERS table once (about 1 s) and keep it."""
@@ -79,7 +87,7 @@ def eop_table() -> EopTable:
         xp_rad=np.asarray(table["PM_x"].to_value("rad"), dtype=float),
         yp_rad=np.asarray(table["PM_y"].to_value("rad"), dtype=float),
         predicted_from_mjd=float(table.meta.get("predictive_mjd", table["MJD"][-1].value)),
-        source=str(table.meta.get("data_path", "astropy bundled IERS table")),
+        source=_bundle_label(),
     )
 
 
@@ -180,12 +188,12 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
     day = np.floor(np.asarray(utc.day) + np.asarray(utc.frac))
     total = len(day)
     span = (f"MJD {tab.first_mjd:.0f} to {tab.last_mjd:.0f} "
-            f"({_mjd_to_date(tab.first_mjd)} to {_mjd_to_date(tab.last_mjd)})")
+            f"({_mjd_to_date(tab.first_mjd)} to {_mjd_to_date(tab.last_mjd)}; {tab.source})")
     held = ("UT1-UTC is held at the table's {edge} value and the pole is put at the IERS "
             "50-year mean (x = 0.035\", y = 0.29\"), as astropy does. ")
     cost = ("UT1-UTC has historically drifted by up to about 1 s per year (from memory: the "
             "rate that called for a leap second every year or so); each 0.1 s of UT1 error "
-            "moves an equatorial site by 46 m along its daily path (0.16 µs of Roemer delay), "
+            "moves an equatorial site by 46 m along its daily path (up to 0.16 µs of Roemer delay), "
             "and the mean pole may be off by a few tenths of an arcsec (~10 m, ~30 ns). "
             "A newer astropy-iers-data package extends the table.")
     out = []
