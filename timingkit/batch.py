@@ -371,6 +371,22 @@ def _reason(exc: BaseException) -> tuple[str, bool]:
     return _one_line(f"internal error ({type(exc).__name__}): {exc}"), True
 
 
+def _flush_to_disk(folder: Path) -> None:
+    """fsync every file in ``folder`` so that a folder renamed into place after a
+    crash of the machine holds complete files, not empty ones (best effort)."""
+    for path in folder.iterdir():
+        try:
+            descriptor = os.open(path, os.O_RDONLY)
+        except OSError:
+            continue
+        try:
+            os.fsync(descriptor)
+        except OSError:
+            pass  # not supported here (e.g. read-only handles on some systems)
+        finally:
+            os.close(descriptor)
+
+
 def _swap_into_place(tmp: Path, final: Path) -> None:
     """Rename the finished folder ``tmp`` to ``final``; an older ``final`` is moved aside
     first and removed after, so ``final`` is at every moment absent or complete."""
@@ -417,6 +433,7 @@ def process_source(job: _Job) -> dict:
         if not (tmp / REPORT_FILE).is_file():
             raise RuntimeError(f"the fit returned without writing {REPORT_FILE}")
         (tmp / HASH_FILE).write_text(job.digest + "\n", encoding="utf-8")
+        _flush_to_disk(tmp)
         _swap_into_place(tmp, Path(job.outdir) / source.name)
     except Exception as exc:
         status = STATUS_FAILED
