@@ -443,10 +443,10 @@ def _angle_text(name: str, value: float) -> str:
 
 
 def angle_entry(p: Parameter, prefit: Parameter | None = None) -> dict | None:
-    """Report entry of a sky-angle parameter: sexagesimal ``value``,
-    ``degrees``, ``uncertainty`` in mas (of the angle itself) and
-    ``uncertainty_on_sky_mas`` is left to :func:`position_summary`; None for
-    other parameters."""
+    """Report entry of a sky-angle parameter (either frame): sexagesimal
+    ``value``, ``degrees``, ``uncertainty`` in mas of the angle itself (the
+    on-sky size, times cos(latitude), is in :func:`position_summary`); None
+    for other parameters."""
     if p.name not in ANGLE_PARAMETERS:
         return None
     to_deg = 180.0 / math.pi if p.unit == "rad" else 1.0
