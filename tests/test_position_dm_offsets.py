@@ -317,3 +317,30 @@ free = ["position.ra", "binary.eccentricity", "binary.projected_semi_major_axis_
     assert b.parameter("binary.eccentricity").value == pytest.approx(1e-5, rel=1e-12)
     assert main(["convert", str(src), "-o", str(tmp_path / "x.toml")]) == 2
     assert "nothing to do" in capsys.readouterr().err
+
+
+def test_new_design_matrix_columns_match_numerical_derivatives(sites, ephemeris):
+    text = convert_model_frame(TimingModel.from_text(DM_RANGES + GROUPS.split(SOURCE)[1]),
+                               "ecliptic")
+    model = TimingModel.from_text(format_text(text.to_document()))
+    toas = simulate_toas(model, 56900, 58700, 90, 1.0, sites, ephemeris,
+                         site_names=["desert-dish", "lake-array"], freqs_mhz=[800, 1600], seed=9,
+                         add_noise=False, flags={"backend": ["wide-a", "wide-b", "wide-a"]})
+    obs = prepare_observations(toas, sites, ephemeris)
+    steps = {"position.ecliptic_longitude_deg": 1e-7, "position.ecliptic_latitude_deg": 1e-7,
+             "position.pm_longitude_coslat_mas_per_yr": 1.0,
+             "position.pm_latitude_mas_per_yr": 1.0, "dispersion.dm_offsets.0": 1e-3,
+             "dispersion.dm_offsets.1": 1e-3, "time_offset.0.offset_s": 1e-6,
+             "time_offset.1.offset_s": 1e-6}
+    names = list(steps)
+    ev = model.evaluate(obs)
+    design = model.design_matrix(ev, names)
+    for j, name in enumerate(names):
+        plus, minus = model.copy(), model.copy()
+        plus.parameter(name).add(steps[name])
+        minus.parameter(name).add(-steps[name])
+        ep, em = plus.evaluate(obs), minus.evaluate(obs)
+        num = ((ep.phase_int - em.phase_int) + (ep.phase_frac - em.phase_frac)) / (2 * steps[name])
+        scale = np.max(np.abs(num))
+        assert scale > 0, name
+        assert np.max(np.abs(design[:, j] - num)) < 1e-4 * scale, name
