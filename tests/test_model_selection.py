@@ -181,19 +181,90 @@ def test_suggest_holds_noise_fixed_and_lists_the_derivative(sites, ephemeris):
     assert [c.addition for c in comparisons] == ["second spin-frequency derivative"]
     c = comparisons[0]
     assert c.supported and c.f_probability < 1e-6 and c.delta_aic < 0 and c.delta_bic < 0
+    if "glitch" in EXTRA_SECTIONS:      # a glitch epoch to try, by the same route
+        more = suggest(result, obs, glitch_epochs_mjd=["58000.5"])
+        assert [m.addition for m in more] == ["second spin-frequency derivative",
+                                              "glitch at MJD 58000.5"]
+        # (the unmodelled cubic makes a mid-span glitch look useful too: the
+        # comparisons are each against the same base)
+        assert more[1].dof_base - more[1].dof_extended == 3
+        assert more[1].chi2_base == pytest.approx(c.chi2_base)
     fitted = float(c.values["spin.frequency_derivatives.1"]["value"])
     assert abs(fitted - SECOND_DERIVATIVE) < 4 * c.values["spin.frequency_derivatives.1"][
         "uncertainty"]
 
 
-def test_glitch_candidate_when_glitches_exist(sites, ephemeris):
+BINARY = '''
+[binary]
+model = "keplerian"
+orbital_period_days = "1.5"
+projected_semi_major_axis_lt_s = 2.0
+eccentricity = 0.1
+periastron_longitude_deg = 30.0
+periastron_epoch_mjd = "58000.1"
+periastron_advance_deg_per_yr = {advance}
+'''
+BINARY_FREE = ["spin.frequency_hz", "spin.frequency_derivatives.0", "binary.orbital_period_days",
+               "binary.projected_semi_major_axis_lt_s", "binary.eccentricity",
+               "binary.periastron_longitude_deg", "binary.periastron_epoch_mjd"]
+
+
+def test_suggest_frees_the_binary_term_the_data_need(sites, ephemeris):
+    # an orbit whose periastron advances by 0.002 deg/yr, fitted with the
+    # advance held at zero: of the fixed binary terms, freeing the advance is
+    # the one supported, and its fitted value recovers the truth
+    if "binary" not in EXTRA_SECTIONS:
+        pytest.skip("the binary component is not in this installation")
+    body = SPIN.format(derivs='"-1.0e-13"').split("[fit]")[0]
+    free = "\n[fit]\nfree = [" + ", ".join(f'"{n}"' for n in BINARY_FREE) + "]\n"
+    truth = TimingModel.from_text(body + BINARY.format(advance="0.002") + free)
+    start = TimingModel.from_text(body + BINARY.format(advance="0.0") + free)
+    obs = _obs(truth, sites, ephemeris, seed=1)
+    comparisons = suggest(fit(start, obs), obs)
+    binary = [c for c in comparisons if c.addition.startswith("binary term")]
+    assert len(binary) >= 4            # every fixed binary parameter was tried
+    supported = [c for c in comparisons if c.supported]
+    assert [c.parameters for c in supported] == [["binary.periastron_advance_deg_per_yr"]]
+    value = supported[0].values["binary.periastron_advance_deg_per_yr"]
+    assert abs(float(value["value"]) - 0.002) < 4 * value["uncertainty"]
+
+
+@pytest.mark.slow
+def test_glitch_f_test_with_red_noise_needs_the_noise_model(sites, ephemeris):
+    # red noise and no glitch: testing a glitch at mid-span (phase, frequency and
+    # frequency-derivative steps) at the 1 % level is fooled almost always with
+    # white-noise weights, at most 5 % of the time with the noise model; a real
+    # frequency step of 1e-10 Hz is preferred with the noise model
     if "glitch" not in EXTRA_SECTIONS:
-        pytest.skip("the glitch component ([[glitch]]) is not in this installation yet")
+        pytest.skip("the glitch component ([[glitch]]) is not in this installation")
     from timingkit.model_selection import glitch_candidate
-    model = _model()
-    cand = glitch_candidate(model, "58000.5")
-    built = cand.build(model)
-    assert set(cand.parameters) <= set(built.free_names)
+    trials = 30
+    truth = _model(extra=RED)
+    white = _model()
+    false_wls, false_gls, found = 0, 0, 0
+    glitched = _model(extra=RED + '\n[[glitch]]\nepoch_mjd = "58100.3"\n'
+                      'frequency_step_hz = 1e-10\n')
+    for seed in range(trials):
+        obs = _obs(truth, sites, ephemeris, seed=3000 + seed)
+        for model in (white, truth):
+            cand = glitch_candidate(model, "58000.5")
+            c = compare_fits(fit(model, obs), fit(cand.build(model), obs), cand.addition,
+                             cand.parameters, level=0.01)
+            assert c.dof_base - c.dof_extended == 3
+            if model is white:
+                false_wls += c.supported
+            else:
+                false_gls += c.supported
+        if seed < 10:
+            obs = _obs(glitched, sites, ephemeris, seed=3000 + seed)
+            cand = glitch_candidate(truth, "58100.3")
+            c = compare_fits(fit(truth, obs), fit(cand.build(truth), obs), cand.addition,
+                             cand.parameters, level=0.01)
+            found += c.supported
+    print(f"false glitch: WLS {false_wls}/{trials}, GLS {false_gls}/{trials}; real found {found}/10")
+    assert false_wls >= 0.5 * trials
+    assert false_gls <= 0.05 * trials
+    assert found == 10
 
 
 def _simulate_cli(model_path, toas_path, *options):
