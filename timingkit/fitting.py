@@ -27,7 +27,7 @@ import numpy as np
 import scipy.linalg
 
 from timingkit.errors import FitError
-from timingkit.gls import GlsSolution, gls_solve, marginal_log_likelihood
+from timingkit.gls import FourierFactor, GlsSolution, gls_solve, marginal_log_likelihood
 from timingkit.model.base import Evaluation
 from timingkit.model.noise import NoiseModel, fourier_frequencies_hz, toa_times_s
 from timingkit.model.timing_model import TimingModel
@@ -177,7 +177,7 @@ class _Solver:
     def __init__(self, noise: NoiseModel, obs: Observations, columns: list[str]):
         self.noise, self.obs, self.columns = noise, obs, columns
         self.group_index = noise.group_index(obs.toas)
-        self.times_s = self.basis = self.span_s = self.phi = None
+        self.times_s = self.basis = self.span_s = self.phi = self.factor = None
         if noise.red is not None:
             self.times_s = toa_times_s(obs)
             self.basis, self.span_s = noise.red_basis(self.times_s)
@@ -186,14 +186,16 @@ class _Solver:
     def refresh(self) -> None:
         """Re-read the noise parameters (after they were re-estimated)."""
         self.err_s = self.noise.white_errors_us(self.obs.toas, self.group_index) * 1e-6
-        if self.basis is not None:
+        if self.basis is not None:   # the red-noise part, factored once per noise setting
             self.phi = self.noise.red_prior(self.span_s)
+            self.factor = FourierFactor(self.err_s, self.basis, self.phi)
 
     def __call__(self, design, resid):
         if self.basis is None:
             delta, cov, post = _solve(design, resid, self.err_s, self.columns)
             return delta, cov, post, None
-        sol = gls_solve(design, resid, self.err_s, self.basis, self.phi, self.columns)
+        sol = gls_solve(design, resid, self.err_s, self.basis, self.phi, self.columns,
+                        factor=self.factor)
         return sol.delta, sol.covariance, sol.postfit_s, sol
 
 

@@ -101,37 +101,87 @@ def _log_likelihood_from_factor(r, n_toas, p, log_det_white, log_norms):
     return chi2, loglike
 
 
+class FourierFactor:
+    """The part of the GLS problem fixed by the noise model: a Householder QR
+    (LAPACK geqrf) of the stacked prior and weighted-basis block
+    [I; N^-1/2 F Phi^1/2], computed once per set of noise values and reused
+    for every linearisation of the timing model. Each solve then applies the
+    stored reflectors to the p + 1 timing and residual columns (LAPACK ormqr,
+    O(N 2m p)) and factors only what is left (QR of N x (p + 1)), instead of
+    a QR of the whole N x (2m + p + 1) matrix: the standard update of a QR
+    factorisation by added columns."""
+
+    def __init__(self, err_s: np.ndarray, basis: np.ndarray, prior_var_s2: np.ndarray):
+        self.err_s = err_s
+        self.basis = basis
+        self.sqrt_phi = np.sqrt(prior_var_s2)
+        self.m2 = m2 = basis.shape[1]
+        stacked = np.empty((m2 + len(err_s), m2), order="F")
+        stacked[:m2] = np.eye(m2)
+        stacked[m2:] = basis * (self.sqrt_phi[None, :] / err_s[:, None])
+        geqrf, self._ormqr = scipy.linalg.lapack.get_lapack_funcs(("geqrf", "ormqr"),
+                                                                   (stacked,))
+        lwork = int(geqrf(stacked, lwork=-1)[2][0])
+        self.qr, self.tau, _, info = geqrf(stacked, lwork=max(lwork, 1), overwrite_a=True)
+        if info != 0:
+            raise FitError(f"QR factorisation of the red-noise basis failed (LAPACK info {info})")
+        self.r = np.triu(self.qr[:m2, :m2])
+        self.log_det_r = 2.0 * float(np.sum(np.log(np.abs(np.diag(self.r)))))
+
+    def project(self, w_data: np.ndarray):
+        """(C, E): Q^T applied to ``w`` (zero prior rows, data rows ``w_data``),
+        split into the rows of the factor's columns and the rest."""
+        m2 = self.m2
+        w = np.zeros((m2 + w_data.shape[0], w_data.shape[1]), order="F")
+        w[m2:] = w_data
+        lwork = int(self._ormqr("L", "T", self.qr, self.tau, w, lwork=-1)[1][0])
+        cq, _, info = self._ormqr("L", "T", self.qr, self.tau, w, lwork=max(lwork, 1),
+                                  overwrite_c=True)
+        if info != 0:
+            raise FitError(f"applying the red-noise QR failed (LAPACK info {info})")
+        return cq[:m2], cq[m2:]
+
+
 def gls_solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray,
               basis: np.ndarray | None, prior_var_s2: np.ndarray | None,
-              names: list[str]) -> GlsSolution:
+              names: list[str], factor: FourierFactor | None = None) -> GlsSolution:
     """GLS fit of ``resid_s`` ~ ``design_s`` @ delta with white errors ``err_s``
     and red noise ``basis`` @ a, a ~ N(0, diag(prior_var_s2)); ``basis=None``
-    gives plain weighted least squares. Degenerate parameters are named
-    (FitError), never a LinAlgError."""
+    gives plain weighted least squares. ``factor``: a :class:`FourierFactor`
+    of the same errors and prior, to reuse. Degenerate parameters (given the
+    noise model) are named (FitError), never a LinAlgError."""
     n, p = design_s.shape
-    a_m, norms, a_f = _weighted_columns(design_s, basis, err_s, names)
-    sqrt_phi = np.sqrt(prior_var_s2) if basis is not None else np.zeros(0)
-    a_f = a_f * sqrt_phi
-    m2 = a_f.shape[1]
-    b = resid_s / err_s
-    r = _stacked_factor(a_f, a_m, b)
-    k = m2 + p
-    rk, qtb = r[:k, :k], r[:k, k]
-    u, s, vt = scipy.linalg.svd(rk, lapack_driver="gesdd")
-    if s[-1] < DEGENERACY_RCOND * s[0]:
-        v = vt[-1][m2:]
+    a_m, norms, _ = _weighted_columns(design_s, None, err_s, names)
+    w = np.column_stack([a_m, resid_s / err_s])
+    if basis is None:
+        m2, c, e = 0, np.zeros((0, p + 1)), w
+    else:
+        factor = factor if factor is not None else FourierFactor(err_s, basis, prior_var_s2)
+        m2 = basis.shape[1]
+        c, e = factor.project(w)
+    r_e = _qr_r(e)                       # R of the timing block after the red noise
+    r_mm, qtb_m = r_e[:p, :p], r_e[:p, p]
+    chi2 = float(r_e[p, p] ** 2)
+    u, s, vt = scipy.linalg.svd(r_mm, lapack_driver="gesdd")
+    if not s[-1] > DEGENERACY_RCOND * s[0]:
+        v = vt[-1]
         involved = [names[j] for j in np.argsort(-np.abs(v)) if abs(v[j]) > 0.2]
         raise FitError(f"degenerate fit: {', '.join(involved) or 'the timing parameters'} cannot "
                        "be separated by these TOAs (fix one of them, or add TOAs over a longer "
                        "span / more frequencies)")
-    x = vt.T @ ((u.T @ qtb) / s)
-    cov_scaled = (vt.T / s ** 2) @ vt
-    coef = x[:m2] * sqrt_phi
-    delta = x[m2:] / norms
-    cov = cov_scaled[m2:, m2:] / np.outer(norms, norms)
-    red = basis @ coef if m2 else np.zeros(n)
-    chi2, loglike = _log_likelihood_from_factor(r, n, p, 2.0 * float(np.sum(np.log(err_s))),
-                                                float(np.sum(np.log(norms))))
+    x_m = vt.T @ ((u.T @ qtb_m) / s)
+    delta = x_m / norms
+    cov = ((vt.T / s ** 2) @ vt) / np.outer(norms, norms)
+    log_det_sigma = 2.0 * float(np.sum(np.log(s)) + np.sum(np.log(norms)))
+    if m2:
+        x_f = scipy.linalg.solve_triangular(factor.r, c[:, p] - c[:, :p] @ x_m)
+        coef = x_f * factor.sqrt_phi
+        red = basis @ coef
+        log_det_sigma += factor.log_det_r
+    else:
+        coef, red = np.zeros(0), np.zeros(n)
+    log_det_white = 2.0 * float(np.sum(np.log(err_s)))
+    loglike = -0.5 * (chi2 + log_det_white + log_det_sigma) - 0.5 * (n - p) * LOG_2PI
     return GlsSolution(delta=delta, covariance=cov, coefficients_s=coef,
                        red_realisation_s=red, postfit_s=resid_s - design_s @ delta,
                        chi2=chi2, log_likelihood=loglike)
