@@ -142,7 +142,8 @@ def _measure(toas: int, sizes) -> dict:
           f"(injected -11.5), spectral_index {est.values['red_noise.spectral_index']:.2f} ± "
           f"{est.uncertainties['red_noise.spectral_index'] or float('nan'):.2f} (injected 4.0)")
 
-    # N-scaling of one linear GLS solve (design: offset, F0, F1 columns; 30 frequencies)
+    # N-scaling of one linear GLS solve (offset, linear, quadratic + 3 random columns; 30
+    # Fourier frequencies)
     rng = np.random.default_rng(3)
     span = (END - START) * 86400.0
     phi = fourier_prior_variances(span, 30, -11.5, 4.0)

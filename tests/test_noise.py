@@ -382,3 +382,33 @@ def test_noise_only_fit_and_report_entry(sites, ephemeris):
         red["amplitude_log10"]["uncertainty"]
     assert any("power-law" in c for c in rep["cautions"])
     assert rep["free_parameters"] == 1
+
+
+def test_noise_realisations_have_the_model_covariance(sites, ephemeris):
+    # draws of white (scaled, per group) + red noise: their sample covariance
+    # must match diag(sigma'^2) + F Phi F^T built independently here
+    plain = _model()
+    obs = _observations(plain, sites, ephemeris, 1, count=12, add_noise=False,
+                        flags={"backend": ["wide-a", "wide-b"]})
+    noise = NoiseModel.from_timing_model(_model(_white([("backend", "wide-b", 2.0, 1.0)]),
+                                                _red(-13.0, 3.0, frequencies=5)))
+    t = np.linspace(0.0, 5e7, 12)
+    draws = noise.realisations_s(obs.toas, t, np.random.default_rng(1), 40000)
+    sigma = np.where(obs.toas.flags["backend"] == "wide-b", math.hypot(2.0, 1.0), 1.0) * 1e-6
+    basis = fourier_basis(t, 5e7, 5)
+    expected = np.diag(sigma ** 2) + red_covariance_dense(
+        basis, fourier_prior_variances(5e7, 5, -13.0, 3.0))
+    sample = np.cov(draws, rowvar=False)
+    scale = np.sqrt(np.outer(np.diag(expected), np.diag(expected)))
+    assert np.max(np.abs(sample - expected) / scale) < 0.04     # ~5 sigma of 40000 draws
+
+
+def test_white_noise_group_without_toas_is_held_with_a_warning(sites, ephemeris):
+    obs = _observations(_model(), sites, ephemeris, 2, count=60,
+                        flags={"backend": ["wide-a"]})
+    start = _model(_white([("backend", "wide-a", 1.0, 0.0), ("backend", "absent", 1.0, 0.0)]),
+                   free=SPIN_FREE + ["white_noise.0.error_scale", "white_noise.1.error_scale"])
+    r = fit(start, obs)
+    assert r.noise.estimate.names == ["white_noise.0.error_scale"]
+    assert any("white_noise.1.error_scale: no TOAs" in w for w in r.warnings)
+    assert r.noise.group_counts == [60, 0]

@@ -402,6 +402,21 @@ class NoiseModel:
         return basis @ (rng.normal(0.0, 1.0, len(phi)) * np.sqrt(phi))
 
 
+    def realisations_s(self, toas, times_s: np.ndarray, rng: np.random.Generator,
+                       count: int) -> np.ndarray:
+        """``count`` random draws, shape (count, N) in seconds, of the whole
+        noise model at these TOAs: white noise of the scaled errors plus the
+        red process on its basis (for null distributions under the noise
+        model, e.g. of a search statistic)."""
+        sigma_s = self.white_errors_us(toas) * 1e-6
+        out = rng.standard_normal((count, len(sigma_s))) * sigma_s[None, :]
+        if self.red is not None:
+            basis, span = self.red_basis(times_s)
+            phi = self.red_prior(span)
+            out += (rng.standard_normal((count, len(phi))) * np.sqrt(phi)[None, :]) @ basis.T
+        return out
+
+
 def _dec(x: float):
     from decimal import Decimal
     return Decimal(repr(float(x)))
