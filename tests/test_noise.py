@@ -412,3 +412,45 @@ def test_white_noise_group_without_toas_is_held_with_a_warning(sites, ephemeris)
     assert r.noise.estimate.names == ["white_noise.0.error_scale"]
     assert any("white_noise.1.error_scale: no TOAs" in w for w in r.warnings)
     assert r.noise.group_counts == [60, 0]
+
+
+def test_residual_spectrum_estimate_follows_the_noise_model(sites, ephemeris):
+    # averaged over realisations, the white-weighted spectrum of the post-fit
+    # residuals must equal the injected power law plus the white level at the
+    # basis frequencies above the lowest two (which the spin terms absorb)
+    from timingkit.noise_outputs import residual_power_spectrum
+    truth = _model(_red(-12.5, 4.0))
+    ratios = []
+    for seed in range(20):
+        r = fit(truth, _observations(truth, sites, ephemeris, 500 + seed))
+        freqs, power, model = residual_power_spectrum(r)
+        ratios.append(power / model)
+    mean_ratio = np.mean(ratios, axis=0)
+    assert freqs[0] == pytest.approx(SECONDS_PER_YEAR / r.noise.red_span_s, rel=1e-12)
+    # each bin: mean of 20 chi-square(2)/2 variables, relative sd ~ 0.22
+    assert np.all(np.abs(mean_ratio[2:] - 1) < 0.7)
+    # (the fitted timing model removes some power in every bin: ~10 % on average
+    # here; a wrong normalisation would be off by a factor of 2 or more)
+    assert np.mean(mean_ratio[2:]) == pytest.approx(1.0, abs=0.2)
+    print("mean measured/model power per bin", np.round(mean_ratio, 2))
+
+
+def test_residual_figure_carries_the_red_noise_curve(sites, ephemeris, tmp_path):
+    from timingkit.noise_outputs import add_red_noise_curve, write_noise_figures
+    from timingkit.plotting import plot_residuals
+    from timingkit.report import residual_table
+    truth = _model(_red(-12.5, 4.0))
+    obs = _observations(truth, sites, ephemeris, 7)
+    r = fit(truth, obs)
+    fig = plot_residuals(residual_table(obs, r.postfit), prefit=residual_table(obs, r.prefit))
+    mjd = obs.toas.mjd_day + obs.toas.mjd_frac
+    add_red_noise_curve(fig, mjd, r.noise.red_realisation_s * 1e6)
+    lines = [ln for ax in fig.axes for ln in ax.get_lines()
+             if ln.get_gid() == "red_noise_realisation"]
+    assert len(lines) == 1
+    ax = lines[0].axes
+    assert ax.get_title(loc="left") == "post-fit"
+    y = lines[0].get_ydata()
+    assert np.max(np.abs(np.sort(y) - np.sort(r.noise.red_realisation_s * 1e6))) < 1e-9
+    written = write_noise_figures(r, obs, str(tmp_path))
+    assert written == [str(tmp_path / "power_spectrum.png")]
