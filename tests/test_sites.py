@@ -86,24 +86,29 @@ def _test_epochs():
     sessions = (rng.uniform(52000, 65000, 4)[:, None]
                 + rng.uniform(0.0, 0.12, (4, 50))).ravel()                # 3-hour sessions
     dense = rng.uniform(58000.0, 58040.0, 200)                            # every day filled
-    return np.r_[random, sessions, dense]
+    return random, np.r_[sessions, dense]
 
 
 @pytest.mark.parametrize("name", ["desert-dish", "ice-shelf", "south-bowl"])
 def test_gcrs_posvel_matches_astropy(table, name, astropy_holds_values_offline):
     site = table.lookup(name)
-    t, utc, tt = _times(_test_epochs())
-    pos, vel = site_gcrs_posvel(site, utc, tt)
     loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")          # astropy: "times after IERS data"
-        # source: astropy 8.0 EarthLocation.get_gcrs_posvel (bundled IERS)
-        ref_pos, ref_vel = loc.get_gcrs_posvel(t)
-    dpos = np.linalg.norm(pos - ref_pos.xyz.to_value(u.m).T, axis=1)
-    dvel = np.linalg.norm(vel - ref_vel.xyz.to_value(u.m / u.s).T, axis=1)
-    # Required: 3 cm and 1 mm/s; the method's own budget is 0.1 mm.
-    assert dpos.max() < 1e-3
-    assert dvel.max() < 1e-6
+    isolated, crowded = _test_epochs()
+    # Isolated times take the precession-nutation series itself: only rounding
+    # separates us from astropy. Crowded times are interpolated (budget
+    # 0.75 mm per pole coordinate, so < 1.1 mm in all).
+    for epochs, pos_limit_m in ((isolated, 1e-5), (crowded, 1.5e-3)):
+        t, utc, tt = _times(epochs)
+        pos, vel = site_gcrs_posvel(site, utc, tt)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")          # astropy: "times after IERS data"
+            # source: astropy 8.0 EarthLocation.get_gcrs_posvel (bundled IERS)
+            ref_pos, ref_vel = loc.get_gcrs_posvel(t)
+        dpos = np.linalg.norm(pos - ref_pos.xyz.to_value(u.m).T, axis=1)
+        dvel = np.linalg.norm(vel - ref_vel.xyz.to_value(u.m / u.s).T, axis=1)
+        # Required: 3 cm and 1 mm/s.
+        assert dpos.max() < pos_limit_m
+        assert dvel.max() < 1e-6
 
 
 def test_gcrs_posvel_keeps_length_and_spins_at_the_earth_rate(table):

@@ -19,9 +19,10 @@ the pole is put at the IERS 50-year mean pole (x, y) = (0.035, 0.29) arcsec.
 
 The celestial intermediate pole (CIP) X, Y and the CIO locator s (IAU 2006
 precession + IAU 2000A nutation, ``erfa.xys06a``) are offered interpolated
-(``cip_xys``): the series costs ~60 us per date, so we evaluate it on a few
+(``cip_xys``): the series costs ~40-60 us per date, so we evaluate it on a few
 Chebyshev nodes per interval and interpolate; the measured error is below
-3.1 micro-arcsec (0.1 mm at the Earth's surface) for every interval scheme.
+24 micro-arcsec per coordinate (0.75 mm at the Earth's surface, 2.5 ps of
+light time) for every interval scheme.
 """
 
 from __future__ import annotations
@@ -229,15 +230,21 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
 # takes the scheme needing the fewest series evaluations, so sparse sessions
 # get short intervals and dense data long ones.
 # Max error over full-width intervals, measured against erfa.xys06a at 20,000
-# random TT dates over 2000-2040 (micro-arcsec, X and Y; s is 1000x smaller):
-#   (0.25, 2) 1.6   (0.5, 3) 0.26   (1, 4) 0.14   (2, 5) 0.27
-#   (4, 6) 2.1      (8, 9) 2.7      (16, 15) 3.1  (32, 28) 2.4
-# 3.1 micro-arcsec = 1.5e-11 rad = 0.1 mm at 6400 km; narrower intervals do
-# better. Coarser schemes are not possible: the IAU 2000A series has terms of a
-# few days' period at the 0.1-1 mas level (a 2-day grid of any order misses by
-# ~0.3 mas), so about one evaluation per day is the floor for dense data.
-CIP_SCHEMES = ((0.25, 2), (0.5, 3), (1.0, 4), (2.0, 5), (4.0, 6),
-               (8.0, 9), (16.0, 15), (32.0, 28))
+# random TT dates over 2000-2040 (micro-arcsec, worse of X and Y; s is ~600x
+# smaller):
+#   (0.09, 1) 19     (0.5, 2) 13.5   (1, 3) 4.2    (2, 4) 4.3
+#   (4, 5) 16.7      (8, 8) 10.7     (16, 14) 7.3  (32, 25) 12.7
+# Budget: 24 micro-arcsec = 1.2e-10 rad = 0.75 mm at 6400 km (2.5 ps of light
+# time, 40x inside the 3 cm we promise against astropy), with >= 25% margin
+# over the measured maxima for the tails of larger samples; a 0.1 mm budget
+# costs ~25% more time for short sessions and ~10% for dense data. Narrower
+# intervals do better (error ~ width^(degree+1)). Coarser schemes are not
+# possible: the IAU 2000A series has terms of a few days' period at the
+# 0.1-1 mas level (a 2-day grid of any order misses by ~0.3 mas), so about
+# 0.8 evaluations per day is the floor for dense data.
+CIP_SCHEMES = ((0.09, 1), (0.5, 2), (1.0, 3), (2.0, 4), (4.0, 5),
+               (8.0, 8), (16.0, 14), (32.0, 25))
+CIP_ERROR_BOUND_RAD = 24e-6 / 206264.806
 
 # Relative costs, in units of one series evaluation (~55 us), used to weigh
 # schemes against each other: one Chebyshev term for one TOA (~2 ns) and one
@@ -321,7 +328,8 @@ def _chebyshev_sum(coeffs: np.ndarray, counts: np.ndarray, x: np.ndarray) -> np.
             xs = x[s:e]
             basis = buf[:, :e - s]
             basis[0] = 1.0
-            basis[1] = xs
+            if nterms > 1:
+                basis[1] = xs
             twox = 2.0 * xs
             for k in range(2, nterms):
                 np.multiply(twox, basis[k - 1], out=basis[k])
@@ -335,7 +343,7 @@ def cip_xys(tt: SplitTime, scheme: tuple[float, int] | None = None):
     """CIP coordinates X, Y and CIO locator s (radians) at TT times.
 
     IAU 2006/2000A (``erfa.xys06a``), interpolated as described above: error
-    below 3.1 micro-arcsec (0.1 mm at the Earth's surface). ``scheme`` forces
+    below 24 micro-arcsec (0.75 mm at the Earth's surface). ``scheme`` forces
     one (max_width_days, degree) pair, for testing.
     """
     if tt.scale != "tt":

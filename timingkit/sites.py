@@ -359,7 +359,7 @@ class SiteTable:
 
         ``sites[index[i]]`` is the site of ``names[i]``; aliases of one site
         share one entry. One np.unique over the names, then one look-up per
-        distinct name (about 0.3 s for 1e6 TOAs).
+        distinct name (0.3-0.7 s for 1e6 TOAs).
         """
         names = np.asarray(names)
         if names.dtype.kind not in "US":
