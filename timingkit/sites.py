@@ -12,8 +12,9 @@ coordinates in metres. Site files (TOML) add places::
 ``site_gcrs_posvel`` turns ITRF coordinates into GCRS position and velocity
 (IAU 2006/2000A precession-nutation, CIO based; polar motion and UT1-UTC
 from astropy's bundled IERS table). It reproduces astropy's
-``EarthLocation.get_gcrs_posvel`` to < 0.1 mm and < 1e-8 m/s (measured), at a
-fraction of the cost (15-30x faster for 200,000 TOAs, see
+``EarthLocation.get_gcrs_posvel`` within 0.75 mm per pole coordinate by
+design (measured: <= 0.3 mm and 3e-8 m/s; 0.01 mm where TOAs are sparse), at a
+fraction of the cost (12-25x faster for 200,000 TOAs, see
 ``bench_site_posvel``): the slowly varying celestial pole is interpolated
 (``earth_orientation.cip_xys``), Earth rotation angle, UT1 and polar motion
 are evaluated exactly per TOA.
@@ -397,10 +398,12 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     once for all TOAs. Geocenter rows are zero. The ssb is not an Earth
     site: ValueError if any TOA refers to it (callers treat it apart).
     Accuracy: IAU 2006/2000A, CIO based, as astropy's
-    ``EarthLocation.get_gcrs_posvel``, which it matches to < 0.1 mm; the
-    observed celestial-pole offsets dX, dY are not applied (as in astropy);
-    at ~0.2 mas (from memory) they are worth ~1 cm. Outside the bundled IERS table UT1-UTC is held and the
-    pole put at the mean pole, as astropy (see earth_orientation).
+    ``EarthLocation.get_gcrs_posvel``, which it matches to < 1 mm (the
+    interpolation budget of ``earth_orientation.cip_xys``). The observed
+    celestial-pole offsets dX, dY are not applied (as in astropy); at
+    ~0.2 mas (from memory) they are worth ~1 cm. Outside the bundled IERS
+    table UT1-UTC is held and the pole put at the mean pole, as astropy
+    does (see earth_orientation.coverage_warnings).
     """
     _check_times(utc, tt)
     site_index = np.asarray(site_index, dtype=np.intp).reshape(-1)
