@@ -194,9 +194,9 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
             "50-year mean (x = 0.035\", y = 0.29\"), as astropy does. ")
     cost = ("UT1-UTC has historically drifted by up to about 1 s per year (from memory: the "
             "rate that called for a leap second every year or so); each 0.1 s of UT1 error "
-            "moves an equatorial site by 46 m along its daily path (up to 0.16 µs of Roemer delay), "
-            "and the mean pole may be off by a few tenths of an arcsec (~10 m, ~30 ns). "
-            "A newer astropy-iers-data package extends the table.")
+            "moves an equatorial site by 46 m along its daily path (up to 0.16 µs of "
+            "Roemer delay), and the mean pole may be off by a few tenths of an arcsec "
+            "(~10 m, ~30 ns). A newer astropy-iers-data package extends the table.")
     out = []
     n_before = int(np.count_nonzero(day < tab.first_mjd))
     n_after = int(np.count_nonzero(day >= tab.last_mjd))
@@ -232,12 +232,12 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
 # Max error over full-width intervals, measured against erfa.xys06a at 20,000
 # random TT dates over 2000-2040 (micro-arcsec, worse of X and Y; s is ~600x
 # smaller):
-#   (0.09, 1) 19     (0.5, 2) 13.5   (1, 3) 4.2    (2, 4) 4.3
+#   (0.09, 1) 18.1   (0.5, 2) 13.5   (1, 3) 4.2    (2, 4) 4.3
 #   (4, 5) 16.7      (8, 8) 10.7     (16, 14) 7.3  (32, 25) 12.7
 # Budget: 24 micro-arcsec = 1.2e-10 rad = 0.75 mm at 6400 km (2.5 ps of light
 # time, 40x inside the 3 cm we promise against astropy), with >= 25% margin
 # over the measured maxima for the tails of larger samples; a 0.1 mm budget
-# costs ~25% more time for short sessions and ~10% for dense data. Narrower
+# costs up to ~25% more time (sessions under 2 h) and ~10% for dense data. Narrower
 # intervals do better (error ~ width^(degree+1)). Coarser schemes are not
 # possible: the IAU 2000A series has terms of a few days' period at the
 # 0.1-1 mas level (a 2-day grid of any order misses by ~0.3 mas), so about
