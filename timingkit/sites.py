@@ -5,7 +5,7 @@ barycentre (``ssb``, TOAs in TDB), or a place on the Earth given by ITRF
 coordinates in metres. Site files (TOML) add places::
 
     [site.desert-dish]
-    itrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]   # or longitude_deg/latitude_deg/height_m (WGS84)
+    itrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]  # or longitude_deg, latitude_deg, height_m
     aliases = ["dd"]
     source = "survey of 2019, +-0.1 m"                  # optional: where the numbers come from
 
