@@ -222,6 +222,8 @@ def test_site_values_are_frozen_and_compare_by_value():
         Site("x", "moon", [1.0, 2.0, 3.0])
     with pytest.raises(ValueError, match="3 finite"):
         Site("x", "earth", [1.0, 2.0])
+    with pytest.raises(ValueError, match="needs itrf_xyz_m"):
+        Site("x", "earth", None)
 
 
 # ---------------------------------------------------------------------------

@@ -76,6 +76,8 @@ class Site:
             if self.itrf_xyz_m is not None:
                 raise ValueError("the ssb has no ITRF position")
             return
+        if self.kind == "earth" and self.itrf_xyz_m is None:
+            raise ValueError(f"site {self.name}: an Earth site needs itrf_xyz_m")
         xyz = np.array(self.itrf_xyz_m if self.itrf_xyz_m is not None else np.zeros(3), dtype=float)
         if xyz.shape != (3,) or not np.all(np.isfinite(xyz)):
             raise ValueError(f"site {self.name}: itrf_xyz_m must be 3 finite numbers")
