@@ -491,6 +491,8 @@ class _Windows:
     w_right: np.ndarray
     n_left: np.ndarray
     n_right: np.ndarray
+    left_bwd: np.ndarray      # (G,) window numbered by the backward chain
+    right_bwd: np.ndarray
 
 
 def _barrier_bounds(n, barriers):
@@ -537,18 +539,24 @@ def _estimators(idx, x, sigma):
     return est, aw, cov, w, ok
 
 
-def build_windows(t_s, sigma, seg_left, seg_right, barriers, window_toas, window_days,
+def build_windows(t_s, sigma, chains, barriers, window_toas, window_days,
                   exclude=()) -> _Windows:
-    """Left/right windows of every candidate gap (module docstring, step 2)."""
+    """Left/right windows of every candidate gap (module docstring, step 2).
+    Each window takes its pulse numbering from whichever tracking chain
+    connects more of its TOAs (the forward chain by preference on the left,
+    the backward chain on the right)."""
     n = len(t_s)
     t_days = t_s / SECONDS_PER_DAY
     gap_width = np.diff(t_days)
     prev_b, next_b = _barrier_bounds(n, barriers)
-    start_l, _ = _segment_bounds(seg_left)
-    _, end_r = _segment_bounds(seg_right)
+    fwd, bwd = chains
+    start_f, end_f = _segment_bounds(fwd.segment)
+    start_b, end_b = _segment_bounds(bwd.segment)
     j = np.arange(n - 1)
-    lo = np.maximum(start_l[j], prev_b[j])
-    hi = np.minimum(end_r[j + 1], next_b[j + 1])
+    left_bwd = start_b[j] < start_f[j]
+    right_fwd = end_f[j + 1] > end_b[j + 1]
+    lo = np.maximum(np.where(left_bwd, start_b[j], start_f[j]), prev_b[j])
+    hi = np.minimum(np.where(right_fwd, end_f[j + 1], end_b[j + 1]), next_b[j + 1])
     if window_toas is not None:
         lo = np.maximum(lo, j - int(window_toas) + 1)
         hi = np.minimum(hi, j + int(window_toas))
@@ -561,6 +569,7 @@ def build_windows(t_s, sigma, seg_left, seg_right, barriers, window_toas, window
     ok &= ~np.isin(j, np.array(sorted(set(barriers) | set(exclude)), dtype=np.int64))
     gaps = j[ok]
     lo, hi, n_l, n_r = lo[ok], hi[ok], n_l[ok], n_r[ok]
+    left_bwd, right_bwd = left_bwd[ok], ~right_fwd[ok]
     width = int(max(np.max(n_l, initial=1), np.max(n_r, initial=1)))
     k = np.arange(width)
     left = gaps[:, None] - k[None, :]
@@ -576,15 +585,21 @@ def build_windows(t_s, sigma, seg_left, seg_right, barriers, window_toas, window
     return _Windows(gaps=gaps[sel], left=left[sel], right=right[sel], e_left=e_l[sel],
                     e_right=e_r[sel], aw_left=aw_l[sel], aw_right=aw_r[sel],
                     cov_left=c_l[sel], cov_right=c_r[sel], w_left=w_l[sel], w_right=w_r[sel],
-                    n_left=n_l[sel], n_right=n_r[sel])
+                    n_left=n_l[sel], n_right=n_r[sel], left_bwd=left_bwd[sel],
+                    right_bwd=right_bwd[sel])
 
 
-def _window_fits(e, aw, w, idx, r):
+def _window_fits(e, aw, w, idx, r, r_alt=None, use_alt=None):
     """Window parameters (..., G, 3) and chi-squares (..., G) for residuals
-    ``r`` (N,) or realisations (M, N), by batched matrix products."""
+    ``r`` (N,) or realisations (M, N), by batched matrix products; windows
+    flagged ``use_alt`` take their values from ``r_alt`` instead."""
     single = r.ndim == 1
     rt = r[:, None] if single else r.T                       # (N, M)
     vals = rt[np.maximum(idx, 0)] * (idx >= 0)[..., None]    # (G, W, M)
+    if r_alt is not None and np.any(use_alt):
+        alt = r_alt[:, None] if single else r_alt.T
+        vals = np.where(use_alt[:, None, None],
+                        alt[np.maximum(idx, 0)] * (idx >= 0)[..., None], vals)
     params = np.matmul(e, vals)                              # (G, 3, M)
     proj = np.matmul(aw, vals)                               # (G, 3, M): A^T W r
     sumsq = np.matmul(w[:, None, :], vals * vals)[:, 0, :]   # (G, M)
@@ -594,12 +609,15 @@ def _window_fits(e, aw, w, idx, r):
     return (params[0], chi2[0]) if single else (params, chi2)
 
 
-def gap_statistics(win: _Windows, r_left, r_right):
+def gap_statistics(win: _Windows, r_fwd, r_bwd=None):
     """Per-gap 2-dof chi-square of the frequency and frequency-derivative steps,
     and the steps themselves (cycles/day, cycles/day^2, sign: residual).
-    ``r_*``: residuals (N,) or realisations (M, N), cycles."""
-    p_l, chi2_l = _window_fits(win.e_left, win.aw_left, win.w_left, win.left, r_left)
-    p_r, chi2_r = _window_fits(win.e_right, win.aw_right, win.w_right, win.right, r_right)
+    ``r_fwd``/``r_bwd``: residuals numbered by the forward/backward chain (N,),
+    or noise realisations (M, N) for both."""
+    p_l, chi2_l = _window_fits(win.e_left, win.aw_left, win.w_left, win.left, r_fwd,
+                               r_bwd, win.left_bwd)
+    p_r, chi2_r = _window_fits(win.e_right, win.aw_right, win.w_right, win.right, r_fwd,
+                               r_bwd, win.right_bwd)
     s_l = np.maximum(1.0, chi2_l / (win.n_left - 3))
     s_r = np.maximum(1.0, chi2_r / (win.n_right - 3))
     d = p_r[..., 1:] - p_l[..., 1:]
@@ -629,7 +647,7 @@ def null_distribution(win: _Windows, sigma, trials: int, rng, keep_per_gap=False
     while done < trials:
         m = min(chunk, trials - done)
         r = rng.standard_normal((m, n)) * sigma[None, :]
-        stat, *_ = gap_statistics(win, r, r)
+        stat, *_ = gap_statistics(win, r)
         maxima.append(np.max(stat, axis=1))
         pooled.append(stat.ravel())
         if keep_per_gap:
@@ -752,8 +770,8 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
           search_pass=1) -> tuple[list[_Accepted], dict, list[str]]:
     """Steps 2-3: accept gaps one at a time until none is significant."""
     fwd, bwd = chains
-    r_left = data.frac + fwd.offsets
-    r_right = data.frac + bwd.offsets
+    r_fwd = data.frac + fwd.offsets     # residual phases numbered by each chain
+    r_bwd = data.frac + bwd.offsets
     accepted: list[_Accepted] = []
     barriers = set(barriers)
     threshold = settings.false_alarm_threshold
@@ -762,7 +780,7 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
     f_ref = float(np.median(data.frequency_hz))
 
     def estimate(win, k, stat_value, fap, known=False):
-        stat, d, c, _, _ = gap_statistics(win, r_left, r_right)
+        stat, d, c, _, _ = gap_statistics(win, r_fwd, r_bwd)
         return _Accepted(gap=int(win.gaps[k]), fap=fap, stat=float(stat_value),
                          df_hz=float(-d[k, 0] / SECONDS_PER_DAY),
                          df_err_hz=float(math.sqrt(c[k, 0, 0]) / SECONDS_PER_DAY),
@@ -772,7 +790,7 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
     if known_gaps is not None:
         for gap in known_gaps:
             others = barriers | (set(known_gaps) - {gap})
-            win = build_windows(data.t_s, data.sigma, fwd.segment, bwd.segment, others,
+            win = build_windows(data.t_s, data.sigma, chains, others,
                                 settings.window_toas, settings.window_days)
             hit = np.nonzero(win.gaps == gap)[0]
             if len(hit) == 0:
@@ -784,7 +802,7 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
                                           search_pass=search_pass))
                 continue
             k = int(hit[0])
-            stat, *_ = gap_statistics(win, r_left, r_right)
+            stat, *_ = gap_statistics(win, r_fwd, r_bwd)
             null = null_distribution(win, data.sigma, int(settings.null_trials), rng)
             local = _local_survival(null.pooled, float(stat[k]))
             accepted.append(estimate(win, k, stat[k], float(local), known=True))
@@ -793,11 +811,11 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
         return accepted, limit, notes
 
     for _ in range(MAX_GLITCHES_PER_PASS):
-        win = build_windows(data.t_s, data.sigma, fwd.segment, bwd.segment, barriers,
+        win = build_windows(data.t_s, data.sigma, chains, barriers,
                             settings.window_toas, settings.window_days)
         if len(win.gaps) == 0:
             break
-        stat, *_ = gap_statistics(win, r_left, r_right)
+        stat, *_ = gap_statistics(win, r_fwd, r_bwd)
         k = int(np.argmax(stat))
         # a short null run settles clear cases; borderline ones get the full run
         trials = int(settings.null_trials)
