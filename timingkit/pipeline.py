@@ -107,8 +107,13 @@ def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = Tru
     """Fit, build the report and (with ``outdir``) write the outputs. With
     ``suggest``: also try the candidate additions (timingkit.model_selection)
     and list them under ``suggestions`` in the report."""
-    result = fit(inputs.model, inputs.obs, reference=inputs.reference)
+    bar = _stage_bar(progress, "fitting")
+    result = fit(inputs.model, inputs.obs, reference=inputs.reference,
+                 progress=(lambda k: bar.set_postfix_str(f"iteration {k}")) if bar else None)
     report = build_report(result, inputs.obs)
+    if bar:
+        bar.update(1)
+        bar.set_description("writing outputs")
     if suggest:
         from timingkit.model_selection import suggest as suggest_additions, suggestions_entry
         comparisons = suggest_additions(result, inputs.obs, inputs.reference, level=suggest_level,
@@ -116,7 +121,20 @@ def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = Tru
         report["suggestions"] = suggestions_entry(comparisons, suggest_level)
     if outdir is not None:
         write_fit_outputs(result, inputs.obs, report, outdir, make_plots, color_by)
+    if bar:
+        bar.update(1)
+        bar.close()
     return result, report
+
+
+def _stage_bar(progress: bool, description: str):
+    """A two-stage progress bar (fit, write) for long runs on a terminal; None
+    when progress is off."""
+    if not progress:
+        return None
+    from tqdm import tqdm
+    return tqdm(total=2, desc=description, unit="stage", leave=False,
+                bar_format="{desc}: {bar} {n_fmt}/{total_fmt} [{elapsed}] {postfix}")
 
 
 def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir: str,
@@ -164,6 +182,9 @@ def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
     """Fit one source from its files and write fitted.toml, residuals.csv,
     residuals.png and report.json into ``outdir`` (with red noise also
     power_spectrum.png). Returns the report dict."""
+    if progress:
+        import sys
+        print("reading and barycentring the TOAs ...", file=sys.stderr, flush=True)
     inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
                          ephemeris=ephemeris, clock_paths=clock_paths)
     _, report = fit_inputs(inputs, outdir, make_plots=make_plots, color_by=color_by,
