@@ -135,11 +135,11 @@ def cmd_glitches(args) -> int:
                           sites_paths=args.sites, ephemeris=args.ephemeris,
                           clock_paths=args.clock, make_plots=not args.no_plot,
                           color_by=args.color_by, settings=settings)
-    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE)))
+    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot))
     return 0
 
 
-def summary_text(report: dict, glitch_path: str) -> str:
+def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
     import json
     with open(glitch_path, encoding="utf-8") as fh:
         found = json.load(fh)
@@ -162,6 +162,7 @@ def summary_text(report: dict, glitch_path: str) -> str:
                      f"{limit['fractional_size']:.2g}")
     for w in report.get("warnings", []):
         lines.append(f"warning: {w}")
+    figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""
     lines.append(f"wrote {os.path.dirname(glitch_path) or '.'}/: {GLITCH_FILE}, fitted.toml, "
-                 f"{FIGURE_FILE}, residuals.csv, report.json")
+                 f"{figures}residuals.csv, report.json")
     return "\n".join(lines)

@@ -1,0 +1,151 @@
+"""``timingkit glitches TOAS MODEL -o OUTDIR``: files, keys, exit codes
+(invented source "demo-young", TOAs at the barycentre)."""
+
+import json
+import os
+import tomllib
+
+import numpy as np
+import pytest
+
+from timingkit.cli import main
+from timingkit.glitches_cli import glitch_files
+from timingkit.model import TimingModel
+from timingkit.model.glitch import model_glitches
+from timingkit.simulate import simulate_toas
+from timingkit.toas import write_toas
+
+REQUIRED = {"epoch_mjd", "epoch_min_mjd", "epoch_max_mjd", "frequency_step_hz",
+            "frequency_step_uncertainty_hz", "frequency_derivative_step",
+            "frequency_derivative_step_uncertainty", "fractional_size", "false_alarm_probability"}
+
+START = """name = "demo-young"
+[position]
+ra = "05h12m33.4567s"
+dec = "+21d02m11.234s"
+[spin]
+epoch_mjd = "58000"
+frequency_hz = "10.0"
+frequency_derivatives = ["-1e-11"]
+[fit]
+free = ["spin.frequency_hz", "spin.frequency_derivatives.0"]
+"""
+
+EPOCH, STEP = 58400.3, 1e-6
+GLITCH = f"""
+[[glitch]]
+epoch_mjd = "{EPOCH}"
+frequency_step_hz = {STEP}
+frequency_derivative_step = -1e-14
+"""
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory, sites, ephemeris):
+    folder = tmp_path_factory.mktemp("glitch-cli")
+    truth = TimingModel.from_text(START + GLITCH)
+    for name, model in (("glitch", truth), ("quiet", TimingModel.from_text(START))):
+        toas = simulate_toas(model, 58000, 58730, 104, 50.0, sites, ephemeris,
+                             site_names=["ssb"], freqs_mhz=[1400.0], seed=21)
+        write_toas(toas, str(folder / f"{name}.toas"))
+    (folder / "start.toml").write_text(START)
+    return folder
+
+
+def test_outputs_of_a_glitch_run(files, tmp_path, capsys):
+    out = tmp_path / "out"
+    toas_before = (files / "glitch.toas").read_bytes()
+    code = main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+                 "-o", str(out)])
+    assert code == 0
+    assert (files / "glitch.toas").read_bytes() == toas_before      # inputs untouched
+    printed = capsys.readouterr().out
+    assert "1 glitch candidate" in printed
+    data = json.loads((out / "glitches.json").read_text())
+    (c,) = data["candidates"]
+    assert REQUIRED <= set(c)
+    assert c["epoch_min_mjd"] <= EPOCH <= c["epoch_max_mjd"]
+    assert c["epoch_min_mjd"] <= c["epoch_mjd"] <= c["epoch_max_mjd"]
+    assert abs(c["frequency_step_hz"] - STEP) <= 3 * c["frequency_step_uncertainty_hz"]
+    assert c["fractional_size"] == pytest.approx(STEP / 10.0, rel=1e-3)
+    assert 0.0 <= c["false_alarm_probability"] < 1e-6
+    # the fitted model carries the glitch and reads back
+    fitted = TimingModel.from_file(str(out / "fitted.toml"))
+    (g,) = model_glitches(fitted)
+    assert float(g.epoch) == pytest.approx(c["epoch_mjd"], abs=1e-9)
+    assert g.frequency_step.value == pytest.approx(c["frequency_step_hz"], rel=1e-12)
+    assert "glitch.0.frequency_step_hz" in fitted.free_names
+    with open(out / "fitted.toml", "rb") as fh:
+        assert tomllib.load(fh)["glitch"][0]["uncertainty"]["frequency_step_hz"] > 0
+    report = json.loads((out / "report.json").read_text())
+    assert report["glitch_candidates"] == 1
+    assert report["reduced_chi2"] < 1.6
+    assert "glitch.0.frequency_step_hz" in report["parameters"]
+    for name in ("glitch_search.png", "residuals.csv", "residuals.png"):
+        assert (out / name).stat().st_size > 1000, name
+    assert (out / "glitch_search.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert not [n for n in os.listdir(out) if n.startswith(".tmp")]
+
+
+def test_glitch_free_run_reports_none(files, tmp_path):
+    out = tmp_path / "quiet"
+    assert main(["glitches", str(files / "quiet.toas"), str(files / "start.toml"),
+                 "-o", str(out), "--no-plot", "--window-days", "70"]) == 0
+    assert json.loads((out / "glitches.json").read_text())["candidates"] == []
+    assert json.loads((out / "report.json").read_text())["glitch_candidates"] == 0
+    assert not (out / "glitch_search.png").exists()
+    fitted = TimingModel.from_file(str(out / "fitted.toml"))
+    assert model_glitches(fitted) == []
+
+
+def test_known_epochs_and_significance_options(files, tmp_path):
+    out = tmp_path / "known"
+    assert main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"), "-o",
+                 str(out), "--no-plot", "--known-epochs", "58400.0", "--window-toas", "8",
+                 "--min-significance", "5"]) == 0
+    data = json.loads((out / "glitches.json").read_text())
+    (c,) = data["candidates"]
+    assert c["known_epoch"] is True
+    assert c["epoch_min_mjd"] <= EPOCH <= c["epoch_max_mjd"]
+    assert data["settings"]["window_toas"] == 8
+    assert data["settings"]["min_significance_sigma"] == 5.0
+
+
+@pytest.mark.parametrize("extra, words", [
+    (["--known-epochs", "57000"], "--known-epochs"),
+    (["--window-toas", "3"], "--window-toas"),
+    (["--min-significance", "-1"], "--min-significance"),
+])
+def test_bad_options_exit_2_with_one_message(files, tmp_path, capsys, extra, words):
+    code = main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+                 "-o", str(tmp_path / "bad"), "--no-plot", *extra])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert words in err and "Traceback" not in err
+    assert not (tmp_path / "bad" / "report.json").exists()
+
+
+def test_window_options_are_exclusive(files, tmp_path):
+    with pytest.raises(SystemExit) as info:
+        main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+              "--window-toas", "8", "--window-days", "50"])
+    assert info.value.code == 2
+
+
+def test_missing_model_file_exit_2(files, tmp_path, capsys):
+    code = main(["glitches", str(files / "glitch.toas"), str(tmp_path / "none.toml"),
+                 "-o", str(tmp_path / "x")])
+    assert code == 2
+    assert "none.toml" in capsys.readouterr().err
+
+
+def test_glitch_files_takes_the_batch_fit_function_arguments(files, tmp_path):
+    # the batch runner calls fit functions as f(toas, model, outdir, free=, fix=,
+    # sites_paths=, ephemeris=, clock_paths=, make_plots=, progress=)
+    report = glitch_files(str(files / "glitch.toas"), str(files / "start.toml"),
+                          str(tmp_path / "b"), free=(), fix=(), sites_paths=(), ephemeris=None,
+                          clock_paths=(), make_plots=False, progress=False)
+    assert report["glitch_candidates"] == 1
+    assert np.isfinite(report["chi2"])
+    saved = json.loads((tmp_path / "b" / "report.json").read_text())
+    assert saved["glitch_candidates"] == 1
