@@ -89,7 +89,9 @@ MAX_PASSES = 12                    # one glitch (plus unbridgeable ones) per pas
 LOCALISE_GAPS = 2                  # gaps tried on each side of the change point ...
 LOCALISE_MAX_GAPS = 6              # ... extended while the best is at the edge
 LOCALISE_DCHI2 = 9.0               # gaps this close to the best fit are in the bracket
-LOCALISE_MAX_REDUCED_CHI2 = 4.0    # placements are compared only when the model fits
+ADEQUATE_REDUCED_CHI2 = 4.0        # decays and placements only with a model that fits
+DEFER_DAYS = 900.0                 # candidates this soon after a glitch accepted in the ...
+DEFER_RATIO = 0.1                  # ... same pass and this much smaller wait a pass
 MAX_GLITCHES_PER_PASS = 20
 
 ASSUMPTIONS = ("false-alarm probabilities assume white TOA noise with the stated uncertainties "
@@ -764,6 +766,8 @@ class _Accepted:
     consistent_gaps: tuple | None = None  # first and last gap the fit allows
     epoch_variance: float = 0.0           # s^2, over the consistent gaps (mixture)
     root_spread: float = 0.0              # s^2, of the zero-phase-step epochs in the gap
+    decay_tried: bool = False             # decaying terms tried
+    placed: bool = False                  # placement among nearby gaps done (or not needed)
 
 
 def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
@@ -1009,6 +1013,17 @@ def _glitch_keys(decays: int) -> set:
     return keys
 
 
+def _carry_pulses(old: TimingModel, new: TimingModel, obs, reference, pulse):
+    """Pulse numbers for ``new`` from those pinned for ``old``: the counts are
+    data, but a glitch moved across TOAs (or a phase step changed by whole
+    turns) changes how many turns the model gives them; the integers follow
+    the change of the model phase, the fractions stay for the fit to judge."""
+    a = old.evaluate(obs, reference)
+    b = new.evaluate(obs, reference)
+    change = (b.phase_int - a.phase_int) + (b.phase_frac - a.phase_frac)
+    return np.asarray(pulse, dtype=np.int64) + np.round(change).astype(np.int64)
+
+
 def _fit(model, obs, reference, pulse=None) -> FitResult:
     """Fit with the search's free parameters; ``pulse`` pins pulse numbers
     (None: numbered from the model, ignoring any table column)."""
@@ -1067,8 +1082,9 @@ def _try_decay(res: FitResult, obs, reference, pulse, epoch, settings, span_afte
     scale = max(1.0, fitted.reduced_chi2)
     if not fitted.converged or (base.chi2 - fitted.chi2) / scale < threshold:
         return None
+    longest = min(3.0 * max(settings.decay_grid_days), 2.0 * span_after_days)
     if not (amp.uncertainty and tau.uncertainty and abs(amp.value) > 3 * amp.uncertainty
-            and 0 < tau.value < 10 * span_after_days and tau.uncertainty < tau.value):
+            and 0 < tau.value < longest and tau.uncertainty < 0.5 * tau.value):
         return None
     return fitted
 
@@ -1094,7 +1110,7 @@ def _add_decays(res, accepted, obs, reference, pulse, settings):
     return res
 
 
-def _placement_fit(res: FitResult, epoch, gap: int, data: _PhaseData, obs, reference):
+def _placement_fit(res: FitResult, epoch, gap: int, data: _PhaseData, obs, reference, pulse):
     """The fit with the glitch at ``epoch`` moved to the middle of ``gap``
     (pulse numbers pinned): (fit, chi2 with the phase-continuity penalty,
     zero-phase-step epoch (s), its variance (s^2), new epoch) or None."""
@@ -1104,14 +1120,16 @@ def _placement_fit(res: FitResult, epoch, gap: int, data: _PhaseData, obs, refer
     t_mid = 0.5 * (t_a + t_b)
     sections = _sections_of(model)
     # carry the glitch to the new epoch unchanged in its predictions after it; the
-    # TOAs that change sides are then numbered by the carried model (pulse=None)
+    # pulse counts of the TOAs that change sides follow the carried model
     new_sec = _transported(model, g, t_mid, None)
     new_epoch = new_sec["epoch_mjd"]
     sections[model_glitches(model).index(g)] = new_sec
     free = _free_flags(model)
     free[new_epoch] = free.pop(epoch)
+    trial = _rebuild(model, sections, free)
+    moved_pulse = _carry_pulses(model, trial, obs, reference, pulse)
     try:
-        fitted = _fit(_rebuild(model, sections, free), obs, reference, None)
+        fitted = _fit(trial, obs, reference, moved_pulse)
     except FitError:
         return None
     h = _glitch_at(fitted.model, new_epoch)
@@ -1122,11 +1140,11 @@ def _placement_fit(res: FitResult, epoch, gap: int, data: _PhaseData, obs, refer
     uniform = (t_b - t_a) ** 2 / 12.0
     fitted_var = (sig / df_inst) ** 2 if (sig and df_inst) else uniform
     var = (min(fitted_var, uniform) + spread) if n_roots else uniform
-    return fitted, fitted.chi2 + penalty, t_new, var, new_epoch
+    return fitted, fitted.chi2 + penalty, t_new, var, new_epoch, moved_pulse
 
 
 def _localise(res: FitResult, acc: _Accepted, data: _PhaseData, obs, reference,
-              barriers) -> FitResult:
+              barriers, pulse):
     """Choose the gap of a glitch by the fit (the change point only points
     near it): each nearby gap is tried with phase continuity required (a phase
     step that no epoch inside the gap can remove costs chi-square); gaps
@@ -1140,7 +1158,7 @@ def _localise(res: FitResult, acc: _Accepted, data: _PhaseData, obs, reference,
     def attempt(j):
         if j in tried or not lo_allowed <= j <= hi_allowed or width[j] < MIN_GAP_DAYS:
             return
-        tried[j] = _placement_fit(res, acc.epoch, j, data, obs, reference)
+        tried[j] = _placement_fit(res, acc.epoch, j, data, obs, reference, pulse)
 
     lo = hi = acc.gap
     attempt(acc.gap)
@@ -1150,7 +1168,7 @@ def _localise(res: FitResult, acc: _Accepted, data: _PhaseData, obs, reference,
     while True:
         good = {j: v for j, v in tried.items() if v is not None}
         if not good:
-            return res
+            return res, pulse
         best = min(good, key=lambda j: good[j][1])
         if best == lo and lo - 1 >= lo_allowed and acc.gap - lo < LOCALISE_MAX_GAPS:
             lo -= 1
@@ -1160,17 +1178,17 @@ def _localise(res: FitResult, acc: _Accepted, data: _PhaseData, obs, reference,
             attempt(hi)
         else:
             break
-    fitted, chi2_best, t_best, _, new_epoch = good[best]
+    fitted, chi2_best, t_best, _, new_epoch, new_pulse = good[best]
     consistent = sorted(j for j, v in good.items() if v[1] - chi2_best <= LOCALISE_DCHI2)
     weights = np.array([math.exp(-0.5 * (good[j][1] - chi2_best)) for j in consistent])
     spread = np.array([(good[j][2] - t_best) ** 2 + good[j][3] for j in consistent])
     acc.epoch_variance = float(np.sum(weights * spread) / np.sum(weights))
     acc.consistent_gaps = (consistent[0], consistent[-1])
     acc.gap, acc.epoch = best, new_epoch
-    return fitted
+    return fitted, new_pulse
 
 
-def _refine_epochs(res: FitResult, accepted, obs, reference):
+def _refine_epochs(res: FitResult, accepted, obs, reference, pulse):
     """Move each new glitch to the epoch in its bracket that zeroes the phase
     step (module docstring), then refit with pulses numbered by that model."""
     data = _phase_data(res.model, obs, reference)
@@ -1199,7 +1217,8 @@ def _refine_epochs(res: FitResult, accepted, obs, reference):
     for acc in accepted:
         acc.epoch = moved.get(acc.epoch, acc.epoch)
     refined = _rebuild(res.model, sections, free)
-    return _fit(refined, obs, reference)
+    pulse = _carry_pulses(res.model, refined, obs, reference, pulse)
+    return _fit(refined, obs, reference, pulse), pulse
 
 
 def _refine_epoch(model: TimingModel, g: Glitch, t_a: float, t_b: float):
@@ -1295,6 +1314,57 @@ def _glitch_uncertainties(res: FitResult, g: Glitch, acc: _Accepted) -> dict:
             "epoch_s": float(sig[2]), "decay_amplitudes": [float(x) for x in sig[3:]]}
 
 
+def _select(candidates: list[_Accepted], data: _PhaseData, everything: bool):
+    """(accepted now, waiting): see the comment in :func:`search_glitches`."""
+    if everything or not candidates:
+        return list(candidates), []
+    accepted, waiting = [candidates[0]], []
+    for cand in candidates[1:]:
+        t = data.t_s[cand.gap]
+        shadowed = any(
+            0 < t - data.t_s[a.gap] < DEFER_DAYS * SECONDS_PER_DAY
+            and a.df_hz is not None and cand.df_hz is not None
+            and abs(cand.df_hz) < DEFER_RATIO * abs(a.df_hz) for a in accepted)
+        (waiting if shadowed else accepted).append(cand)
+    return accepted, waiting
+
+
+def _sync_gaps(found: list[_Accepted], model: TimingModel, data: _PhaseData) -> set[int]:
+    """Each glitch's gap in ``data`` from its model epoch; the set of all
+    glitch gaps of the model."""
+    for acc in found:
+        if acc.epoch is not None:
+            acc.gap = int(np.searchsorted(data.t_s, _glitch_t_s(model, _glitch_at(model,
+                                                                               acc.epoch))) - 1)
+    return {int(np.searchsorted(data.t_s, _glitch_t_s(model, g)) - 1)
+            for g in model_glitches(model)}
+
+
+def _settle(res: FitResult, found: list[_Accepted], obs, reference, pulse, settings):
+    """After a pass's fit: decaying terms for the glitches new in it; placement
+    among nearby gaps for those not yet placed, when the model fits (reduced
+    chi-square at most ADEQUATE_REDUCED_CHI2: otherwise glitches not yet
+    found, or timing noise, would drive the choice); then epochs where the
+    phase steps vanish."""
+    data = _phase_data(res.model, obs, reference)
+    if settings.fit_decays:
+        res = _add_decays(res, [a for a in found if not (a.decay_tried or a.forced)], obs,
+                          reference, pulse, settings)
+    for acc in found:
+        acc.decay_tried = True
+    if res.reduced_chi2 <= ADEQUATE_REDUCED_CHI2:
+        barriers = _sync_gaps(found, res.model, data)
+        for acc in found:
+            if not (acc.placed or acc.forced or acc.known):
+                before = acc.gap
+                res, pulse = _localise(res, acc, data, obs, reference, barriers, pulse)
+                barriers = (barriers - {before}) | {acc.gap}
+            acc.placed = True
+    _sync_gaps(found, res.model, data)
+    res, pulse = _refine_epochs(res, found, obs, reference, pulse)
+    return res, pulse
+
+
 def search_glitches(model: TimingModel, obs: Observations,
                     settings: GlitchSearchSettings | None = None,
                     reference: Observations | None = None) -> GlitchSearchResult:
@@ -1346,13 +1416,24 @@ def search_glitches(model: TimingModel, obs: Observations,
         warnings.extend(notes)
         detection = detection or limit
         if not accepted:
+            if result_fit is None:
+                # nothing found: fit the starting model with the tracked pulse numbers
+                offsets, keep, forced = _number_pulses(data, chains, set(existing), warnings)
+                if not forced and np.all(keep):
+                    pulse = np.empty(len(use_obs), dtype=np.int64)
+                    pulse[data.order] = (data.phase_int - offsets).astype(np.int64)
+                    try:
+                        result_fit = _fit(current, use_obs, reference, pulse)
+                        current = result_fit.model
+                    except FitError:
+                        result_fit = None
             break
-        # One glitch per pass (the most significant), so that what it does to the
-        # residuals after it (decaying terms) is modelled before anything near it is
-        # tested; other significant candidates wait for the next pass unless the
-        # pulses cannot be numbered across them (a hard sign of a large glitch).
-        pending = [] if known_t is not None else accepted[1:]
-        accepted = accepted if known_t is not None else accepted[:1]
+        # The most significant candidate is accepted, and with it every other one
+        # except those just after a much larger glitch accepted now: there, unmodelled
+        # decaying terms mimic small steps, so they wait until the larger glitch's
+        # decay has been fitted. Pulses that cannot be numbered across a waiting
+        # candidate promote it (a hard sign of a large glitch).
+        accepted, pending = _select(accepted, data, known_t is not None)
         barriers = set(existing) | {a.gap for a in accepted}
         failed_before: set[int] = set()
         while True:
@@ -1389,31 +1470,11 @@ def search_glitches(model: TimingModel, obs: Observations,
             kept = np.sort(data.order[keep])
             dropped += len(use_obs) - len(kept)
             use_obs, pulse = use_obs.select(kept), pulse[kept]
-            # gap positions in the reduced data, by the gap middles
-            middle = {b: 0.5 * (data.t_s[b] + data.t_s[b + 1]) for b in barriers}
             data = _phase_data(current, use_obs, reference)
-            where = {b: int(np.searchsorted(data.t_s, t) - 1) for b, t in middle.items()}
-            for acc in accepted:
-                acc.gap = where[acc.gap]
-            barriers = set(where.values())
-        res = _fit(trial, use_obs, reference, pulse)
-        if settings.fit_decays:
-            res = _add_decays(res, accepted, use_obs, reference, pulse, settings)
-        # the fit places each glitch among nearby gaps; only a model that fits
-        # (no unmodelled structure) can arbitrate between placements
-        if res.reduced_chi2 <= LOCALISE_MAX_REDUCED_CHI2:
-            for acc in accepted:
-                if not (acc.forced or acc.known):
-                    before = acc.gap
-                    res = _localise(res, acc, data, use_obs, reference, barriers)
-                    barriers = (barriers - {before}) | {acc.gap}
-        else:
-            warnings.append(f"reduced chi-square {res.reduced_chi2:.2f} after fitting the "
-                            "glitches: epochs were left in the gaps the frequency track "
-                            "points to (no refinement among nearby gaps)")
-        res = _refine_epochs(res, accepted, use_obs, reference)
-        current, result_fit = res.model, res
         found.extend(accepted)
+        res = _fit(trial, use_obs, reference, pulse)
+        res, pulse = _settle(res, found, use_obs, reference, pulse, settings)
+        current, result_fit = res.model, res
         if known_t is not None:
             break
     if result_fit is None:
@@ -1422,6 +1483,11 @@ def search_glitches(model: TimingModel, obs: Observations,
             current = result_fit.model
         except FitError as exc:
             warnings.append(f"no glitch found, and the starting model could not be fitted: {exc}")
+    if any(not a.placed for a in found):
+        warnings.append(f"the fit with the glitches has reduced chi-square "
+                        f"{result_fit.reduced_chi2:.2f} (> {ADEQUATE_REDUCED_CHI2:g}): epochs "
+                        "were left in the gaps the frequency track points to, not compared "
+                        "with nearby gaps (timing noise or unmodelled structure?)")
     candidates = _candidates(current, result_fit, found)
     if any(c.epoch_choice.startswith("ambiguous") for c in candidates):
         warnings.append("some glitches unwound the phase by more than one turn between the "
