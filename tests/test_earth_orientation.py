@@ -197,3 +197,23 @@ def test_cip_empty_and_order_preserved():
     x, _, _ = eo.cip_xys(_tt(mjd))
     ex, _, _ = erfa.xys06a(2400000.5, mjd)   # source: erfa.xys06a
     assert np.max(np.abs(x - ex)) * RAD_TO_UAS < CIP_BOUND_UAS
+
+
+def test_disk_cache_reproduces_the_bundled_table(tmp_path, monkeypatch):
+    # The cached arrays must equal a fresh parse of astropy's bundled table exactly.
+    import numpy as np
+    from timingkit import earth_orientation as eo
+    monkeypatch.setenv("TIMINGKIT_CACHE_DIR", str(tmp_path))
+    eo.eop_table.cache_clear()
+    try:
+        first = eo.eop_table()                    # parses and writes the cache
+        assert list(tmp_path.glob("eop-*.npz"))
+        eo.eop_table.cache_clear()
+        cached = eo.eop_table()                   # reads the cache
+        fresh = eo._parse_bundled()
+        for name in ("mjd", "ut1_minus_utc_s", "xp_rad", "yp_rad"):
+            assert np.array_equal(getattr(cached, name), getattr(fresh, name))
+            assert np.array_equal(getattr(first, name), getattr(fresh, name))
+        assert cached.predicted_from_mjd == fresh.predicted_from_mjd
+    finally:
+        eo.eop_table.cache_clear()

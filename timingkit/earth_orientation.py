@@ -78,9 +78,23 @@ def _bundle_label() -> str:
         return "astropy's bundled IERS data"
 
 
-@functools.lru_cache(maxsize=1)
-def eop_table() -> EopTable:
-    """Read astropy's bundled IERS table once (about 1 s) and keep it."""
+def _cache_path() -> str | None:
+    """Where the parsed table is kept between runs: $TIMINGKIT_CACHE_DIR, else
+    ~/.cache/timingkit; the file name carries the astropy and IERS-data
+    versions, so a new bundled table is parsed afresh."""
+    import os
+    try:
+        from importlib.metadata import version
+        import astropy
+        key = f"astropy-{astropy.__version__}-iers-{version('astropy-iers-data')}"
+    except Exception:
+        return None
+    root = os.environ.get("TIMINGKIT_CACHE_DIR") or os.path.join(
+        os.path.expanduser("~"), ".cache", "timingkit")
+    return os.path.join(root, f"eop-{key}.npz")
+
+
+def _parse_bundled() -> EopTable:
     table = iers.IERS_Auto.open()
     return EopTable(
         mjd=np.asarray(table["MJD"].to_value("d"), dtype=float),
@@ -90,6 +104,38 @@ def eop_table() -> EopTable:
         predicted_from_mjd=float(table.meta.get("predictive_mjd", table["MJD"][-1].value)),
         source=_bundle_label(),
     )
+
+
+@functools.lru_cache(maxsize=1)
+def eop_table() -> EopTable:
+    """Astropy's bundled IERS table as arrays. Parsing it costs ~1-2 s, so the
+    arrays are cached on disk (a derived copy of the installed file, never a
+    download; skipped silently where the cache folder is not writable)."""
+    import os
+    import tempfile
+    path = _cache_path()
+    if path and os.path.exists(path):
+        try:
+            with np.load(path) as z:
+                return EopTable(mjd=z["mjd"], ut1_minus_utc_s=z["ut1_minus_utc_s"],
+                                xp_rad=z["xp_rad"], yp_rad=z["yp_rad"],
+                                predicted_from_mjd=float(z["predicted_from_mjd"]),
+                                source=str(z["source"]))
+        except Exception:   # damaged cache: parse again below
+            pass
+    table = _parse_bundled()
+    if path:
+        try:
+            os.makedirs(os.path.dirname(path), exist_ok=True)
+            fd, tmp = tempfile.mkstemp(prefix=".eop-", suffix=".npz", dir=os.path.dirname(path))
+            with os.fdopen(fd, "wb") as fh:
+                np.savez(fh, mjd=table.mjd, ut1_minus_utc_s=table.ut1_minus_utc_s,
+                         xp_rad=table.xp_rad, yp_rad=table.yp_rad,
+                         predicted_from_mjd=table.predicted_from_mjd, source=table.source)
+            os.replace(tmp, path)
+        except OSError:
+            pass
+    return table
 
 
 def _require_utc(utc: SplitTime) -> None:

@@ -44,7 +44,8 @@ def tt_to_utc(tt: SplitTime) -> SplitTime:
         return _from_jd(t.jd1, t.jd2, "utc")
 
 
-GRID_STEP_DAYS = 1.0      # spline nodes for the slowly varying parts of TDB-TT
+GRID_STEP_DAYS = 1.0      # spline nodes for the geocentric part of TDB-TT (FB90)
+TOPO_STEP_DAYS = 4.0      # nodes for the topocentric coefficients (monthly at fastest)
 DIRECT_BELOW = 4          # evaluate erfa.dtdb directly when N < DIRECT_BELOW * nodes
 
 
@@ -82,15 +83,20 @@ def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
     x = (tt.day - nodes[0]) + tt.frac
     out = CubicSpline(nodes - nodes[0], g)(x)
     u, v = spin_axis_distance_km, equator_distance_km
+    topo = np.arange(nodes[0], nodes[-1] + TOPO_STEP_DAYS, TOPO_STEP_DAYS)
+    t_jd1, t_zero = topo + 2400000.5, np.zeros_like(topo)
+    t_x = topo - nodes[0]
+    if np.any(u != 0.0) or np.any(v != 0.0):
+        g_topo = erfa.dtdb(t_jd1, t_zero, 0.0, 0.0, 0.0, 0.0)
     if np.any(u != 0.0):
-        c = erfa.dtdb(g_jd1, zero, 0.25, 0.0, 1.0, 0.0) - g
-        s = erfa.dtdb(g_jd1, zero, 0.0, 0.0, 1.0, 0.0) - g
+        c = erfa.dtdb(t_jd1, t_zero, 0.25, 0.0, 1.0, 0.0) - g_topo
+        s = erfa.dtdb(t_jd1, t_zero, 0.0, 0.0, 1.0, 0.0) - g_topo
         solar = 2.0 * np.pi * ut + longitude_rad
-        out = out + u * (CubicSpline(nodes - nodes[0], c)(x) * np.sin(solar)
-                         + CubicSpline(nodes - nodes[0], s)(x) * np.cos(solar))
+        out = out + u * (CubicSpline(t_x, c)(x) * np.sin(solar)
+                         + CubicSpline(t_x, s)(x) * np.cos(solar))
     if np.any(v != 0.0):
-        b = erfa.dtdb(g_jd1, zero, 0.0, 0.0, 0.0, 1.0) - g
-        out = out + v * CubicSpline(nodes - nodes[0], b)(x)
+        b = erfa.dtdb(t_jd1, t_zero, 0.0, 0.0, 0.0, 1.0) - g_topo
+        out = out + v * CubicSpline(t_x, b)(x)
     return out
 
 
