@@ -1,50 +1,47 @@
 """Glitch search and glitch-parameter estimation.
 
 The search works on the pulse-phase residuals of a starting timing model
-(cycles, at the emission times) in five steps:
+(cycles, at the emission times) in passes of four steps:
 
-1. **Phase tracking.** Pulses are numbered TOA by TOA, forward in time and,
-   independently, backward: a quadratic in phase fitted to the last few
-   connected TOAs predicts the next one, whose pulse number is the integer that
-   brings it nearest the prediction. When a TOA misses the prediction (a glitch
-   has unwound the phase, possibly by many turns) the chain restarts with a
-   *seed solution*: for three TOAs every pulse count allowed by a bounded
-   frequency offset (``max_fractional_step`` of the spin frequency) and a
-   bounded frequency-derivative offset is enumerated, and the count is kept
-   that the following TOAs confirm uniquely (least-squares chi-square, with a
-   margin to the runner-up).
-2. **Frequency track.** For every gap between TOAs, the windows of TOAs just
-   before it (numbered by the forward chain) and just after it (backward chain)
-   are fitted with phase, frequency and frequency derivative, referred to the
-   gap. Their differences (a frequency and a frequency-derivative step) with
-   the windows' covariances, scaled up by each window's reduced chi-square
-   when that exceeds 1, give a 2-dof chi-square per gap.
-3. **Change points with an honest null.** The largest gap statistic is
-   compared with its distribution when there is no glitch, obtained by
-   simulating white noise with the TOA uncertainties through exactly the same
-   windows and scaling (``null_trials`` realisations; the far tail from the
-   pooled per-gap distribution raised to the effective number of independent
-   gaps). A candidate is accepted when this global false-alarm probability is
-   below the two-sided Gaussian tail of ``min_significance`` sigma; windows are
-   then cut at it and the next largest gap is tested the same way.
-4. **Fit.** Pulses are numbered across the whole data set (intervals between
-   accepted glitches, pieces joined where unambiguous) and the starting model
-   plus one glitch component per candidate (phase step, frequency step,
+1. **Phase tracking** (timingkit.glitch_tracking): pulses are numbered TOA
+   by TOA, forward in time and, independently, backward, each TOA from a
+   quadratic fitted to the connected TOAs before it; where a glitch unwinds
+   the phase (possibly by many turns) the chain restarts from a seed solution
+   that enumerates the pulse counts allowed by bounded frequency
+   (``max_fractional_step`` of the spin frequency) and frequency-derivative
+   offsets and keeps the one the following TOAs confirm uniquely.
+2. **Frequency track and change points** (timingkit.glitch_scan): for every
+   gap between TOAs, windows of TOAs before and after it (``window_toas`` or
+   ``window_days``) are fitted with phase, frequency and frequency derivative
+   referred to the gap; their differences give a 2-dof chi-square per gap.
+   The largest is compared with its distribution for white noise with the
+   TOA uncertainties sent through the same windows (``null_trials``
+   simulations): a candidate is accepted when this global false-alarm
+   probability is below the two-sided Gaussian tail of ``min_significance``
+   sigma; windows are then cut at it and the next largest gap is tested.
+   Candidates just after a much larger glitch accepted in the same pass wait
+   for the next pass (there, an unmodelled decay mimics small steps).
+3. **Fit**: pulses are numbered across the data (intervals between glitches,
+   pieces joined where unambiguous) and held fixed; the model plus one
+   glitch component per candidate (phase step, frequency step,
    frequency-derivative step) is fitted with timingkit.fitting. A decaying
-   frequency step is added where it improves the fit significantly
-   (time-scale grid, then fitted). Then each epoch is moved, within the gap
-   between the TOAs that bracket the glitch, to where the phase step vanishes
-   (common practice); when the glitch is so large that several epochs in the
-   gap do so, the middle one is taken and the epoch uncertainty is the
-   gap's (uniform) spread. Uncertainties of the steps include the epoch's.
-5. A second pass searches the residuals of the fitted model for glitches the
-   first pass could not see.
+   frequency step is kept where it is significant (time-scale grid, then
+   fitted). When the model fits, each glitch is tried in the nearby gaps with
+   phase continuity required, and the gaps the fit allows (chi-square within
+   LOCALISE_DCHI2 of the best) form its reported bracket.
+4. **Epoch**: each epoch moves, inside its gap, to where the phase step
+   vanishes (common practice); when several epochs in the gap do so (a glitch
+   that unwinds more than a turn there) the one nearest their mean is used and
+   their spread enters the epoch uncertainty, which is propagated into the
+   steps' uncertainties.
 
-Assumptions stated with the results: white TOA noise (red timing noise makes
-false-alarm probabilities optimistic) and a locally quadratic phase over each
-window. Glitches closer than ``MIN_WINDOW_TOAS`` TOAs to the ends of the data
-or to another glitch cannot be measured. Times in this module are seconds of
-TDB at the pulsar (emission times) unless named ``_days`` or ``_mjd``.
+Passes repeat on the residuals of the fitted model until nothing new is
+significant. Assumptions stated with the results: white TOA noise (red
+timing noise makes false-alarm probabilities optimistic) and a locally
+quadratic phase over each window. Glitches within ``MIN_WINDOW_TOAS`` TOAs
+of the ends of the data or of another glitch cannot be found by the scan.
+Times in this module are TDB seconds at the pulsar since the spin epoch
+unless named ``_days`` or ``_mjd``.
 """
 
 from __future__ import annotations
@@ -60,32 +57,26 @@ import scipy.stats
 
 from timingkit.errors import FitError, InputError
 from timingkit.fitting import FitResult, fit
+from timingkit.glitch_scan import (MIN_GAP_DAYS, GapWindows, NullDistribution, build_windows,
+                                   detection_limit, false_alarm_probability, gap_statistics,
+                                   null_distribution, local_survival, gaussian_sigma,
+                                   threshold_statistic)
+from timingkit.glitch_tracking import (MIN_WINDOW_TOAS, SECONDS_PER_DAY, TrackingChain,
+                                       _quadratic_fit, number_pulses, solve_seed, track_phases)
 from timingkit.model.glitch import (DECAY_AMPLITUDE, DECAY_TIME, Glitch, glitch_section,
                                     model_glitches, set_glitches)
 from timingkit.model.timing_model import TimingModel
 from timingkit.observations import Observations
 
-SECONDS_PER_DAY = 86400.0
 DEFAULT_WINDOW_TOAS = 10
 DEFAULT_MIN_SIGNIFICANCE = 3.0     # sigma (two-sided Gaussian tail of the global FAP)
 DEFAULT_NULL_TRIALS = 1000
 QUICK_NULL_TRIALS = 250            # first null run; the full one only for borderline cases
 DEFAULT_MAX_FRACTIONAL_STEP = 2e-5  # largest reconnectable step, fraction of the frequency
-MIN_WINDOW_TOAS = 5                # per window: 3 fitted terms + 2 degrees of freedom
-MIN_GAP_DAYS = 0.1                 # shorter gaps (one observing session) are no candidates
-TRACK_WINDOW_TOAS = 8              # TOAs of the local fit that predicts the next TOA
-TRACK_Z = 4.0                      # a TOA further than this (sigma) from the prediction breaks
-TRACK_MAX_DEVIATION = 0.2          # ... as does one further than this (cycles)
-TRACK_MAX_PREDICTION_SIGMA = 0.08  # cycles: beyond this the pulse count is not safe
-SEED_TOAS = 6
-MAX_SEED_TOAS = 16
-SEED_PRUNE_P = 1e-6                # chi-square tail below which a pulse-count hypothesis dies
-SEED_UNIQUE_DCHI2 = 25.0           # runner-up must be this much worse (5 sigma)
-MAX_SEED_HYPOTHESES = 400_000
 FDOT_FRACTIONAL_RANGE = 0.2        # |frequency-derivative offset| <= this * |fdot| ...
 FDOT_RANGE_FLOOR = 1e-14           # ... or this (Hz/s), whichever is larger
 DECAY_GRID_DAYS = (10.0, 30.0, 100.0, 300.0)
-MAX_PASSES = 12                    # one glitch (plus unbridgeable ones) per pass
+MAX_PASSES = 12                    # passes of scan + fit until nothing new is found
 LOCALISE_GAPS = 2                  # gaps tried on each side of the change point ...
 LOCALISE_MAX_GAPS = 6              # ... extended while the best is at the edge
 LOCALISE_DCHI2 = 9.0               # gaps this close to the best fit are in the bracket
@@ -251,474 +242,6 @@ class GlitchSearchResult:
                 "warnings": list(self.warnings)}
 
 
-# ============================================================================ local fits
-
-def _design(x):
-    """Columns [1, x, x^2/2] of a quadratic phase; x in days."""
-    x = np.asarray(x, dtype=float)
-    return np.stack([np.ones_like(x), x, 0.5 * x * x], axis=-1)
-
-
-def _quadratic_fit(x_days, r, w):
-    """Weighted fit r ~ a + b x + c x^2/2: (params, covariance, chi2). The
-    abscissa is scaled to O(1) before the 3x3 solve (normal equations of a
-    well-conditioned basis; small enough to do by hand quickly)."""
-    x = np.asarray(x_days, dtype=float)
-    scale = max(float(np.max(np.abs(x))), 1e-12)
-    u = x / scale
-    a = np.stack([np.ones_like(u), u, 0.5 * u * u], axis=1)
-    aw = a * w[:, None]
-    gram = a.T @ aw
-    cov_u = np.linalg.inv(gram)
-    params_u = cov_u @ (aw.T @ r)
-    resid = r - a @ params_u
-    unscale = np.array([1.0, 1.0 / scale, 1.0 / scale ** 2])
-    return (params_u * unscale, cov_u * np.outer(unscale, unscale),
-            float(np.sum(w * resid ** 2)))
-
-
-def _chi2_limit(dof: int, p: float = SEED_PRUNE_P) -> float:
-    return float(scipy.stats.chi2.isf(p, max(int(dof), 1)))
-
-
-# ============================================================================ seed solution
-
-def _choose_anchors(x, f_range, fdot_range):
-    """Three seed TOAs (indices) with few pulse-count hypotheses and no two at
-    nearly the same time."""
-    order = np.argsort(x)
-    xs = x[order]
-    spacing = np.diff(xs)
-    typical = np.median(spacing[spacing > 0]) if np.any(spacing > 0) else 0.0
-    best, best_cost = None, np.inf
-    for i in range(len(xs) - 2):
-        d12, d23 = xs[i + 1] - xs[i], xs[i + 2] - xs[i + 1]
-        if min(d12, d23) <= max(0.25 * typical, 1.0):
-            continue
-        cost = (2 * f_range * d12 + 3) * (fdot_range * (d12 + d23) * d23 + 3)
-        if cost < best_cost:
-            best, best_cost = (order[i], order[i + 1], order[i + 2]), cost
-    return best, best_cost
-
-
-def solve_seed(x_s, rho, sigma, f_range_hz, fdot_range, tolerance: float = 1.0):
-    """Pulse-count offsets (integers, one per TOA) that make the residual
-    phases ``rho`` (cycles, any integer offset each) at times ``x_s`` (s) lie
-    on one quadratic, with |frequency offset| <= ``f_range_hz`` and
-    |frequency-derivative offset| <= ``fdot_range``. Returns (offsets,
-    chi2, unique) or None when no hypothesis survives. ``tolerance`` scales the
-    TOA uncertainties (for data noisier than stated)."""
-    x_s = np.asarray(x_s, float)
-    rho = np.asarray(rho, float)
-    sig = np.asarray(sigma, float) * tolerance
-    m = len(x_s)
-    if m < 4:
-        return None
-    xd = (x_s - np.mean(x_s)) / SECONDS_PER_DAY
-    w = 1.0 / sig ** 2
-    _, _, chi2 = _quadratic_fit(xd, rho, w)
-    if chi2 <= _chi2_limit(m - 3):
-        return np.zeros(m, dtype=np.int64), chi2, True
-    anchors, cost = _choose_anchors(x_s, f_range_hz, fdot_range)
-    if anchors is None or cost > MAX_SEED_HYPOTHESES:
-        return None
-    i1, i2, i3 = anchors
-    t1, t2, t3 = x_s[i1], x_s[i2], x_s[i3]
-    d12, d23, d13 = t2 - t1, t3 - t2, t3 - t1
-    base12 = rho[i2] - rho[i1]
-    k2 = np.arange(math.floor(-f_range_hz * d12 - base12) - 1,
-                   math.ceil(f_range_hz * d12 - base12) + 2)
-    s12 = (base12 + k2) / d12
-    # phase change from t2 to t3 for the allowed frequency-derivative offsets
-    lo = (s12 - 0.5 * fdot_range * d13) * d23 - (rho[i3] - rho[i2]) + k2
-    hi = (s12 + 0.5 * fdot_range * d13) * d23 - (rho[i3] - rho[i2]) + k2
-    k3_lo = np.floor(lo).astype(np.int64) - 1
-    counts = (np.ceil(hi).astype(np.int64) + 1) - k3_lo + 1
-    total = int(np.sum(counts))
-    if total > MAX_SEED_HYPOTHESES:
-        return None
-    rep = np.repeat(np.arange(len(k2)), counts)
-    within = np.arange(total) - np.repeat(np.cumsum(counts) - counts, counts)
-    k3 = k3_lo[rep] + within
-    h = total
-    offsets = np.zeros((h, m), dtype=np.int64)
-    offsets[:, i2] = k2[rep]
-    offsets[:, i3] = k3
-    assigned = [i1, i2, i3]
-    rest = [i for i in np.argsort(np.abs(x_s - np.mean([t1, t2, t3]))) if i not in assigned]
-    for i in rest:
-        idx = np.array(assigned)
-        a = _design(xd[idx])
-        wa = a * w[idx][:, None]
-        gram = a.T @ wa
-        try:
-            ginv = np.linalg.inv(gram)
-        except np.linalg.LinAlgError:
-            return None
-        r_h = rho[idx][None, :] + offsets[:, idx]
-        params = (r_h @ wa) @ ginv
-        a_new = _design(xd[i])
-        pred = params @ a_new
-        sig_pred = math.sqrt(max(float(a_new @ ginv @ a_new), 0.0) + sig[i] ** 2)
-        spread = int(min(3, math.floor(5.0 * sig_pred + 0.5)))
-        base = np.round(pred - rho[i]).astype(np.int64)
-        if spread > 0:
-            choices = base[:, None] + np.arange(-spread, spread + 1)[None, :]
-            parent = np.repeat(np.arange(len(base)), 2 * spread + 1)
-            offsets = offsets[parent]
-            offsets[:, i] = choices.ravel()
-        else:
-            offsets[:, i] = base
-        assigned.append(i)
-        idx = np.array(assigned)
-        r_h = rho[idx][None, :] + offsets[:, idx]
-        a = _design(xd[idx])
-        wa = a * w[idx][:, None]
-        ginv = np.linalg.inv(a.T @ wa)
-        b = r_h @ wa
-        chi2 = np.sum(w[idx] * r_h ** 2, axis=1) - np.einsum("hk,kl,hl->h", b, ginv, b)
-        keep = chi2 <= _chi2_limit(len(idx) - 3)
-        # the frequency-derivative bound holds for the whole seed, not only the anchors
-        params = b @ ginv
-        keep &= np.abs(params[:, 2]) <= 1.5 * fdot_range * SECONDS_PER_DAY ** 2 + 1e-300
-        offsets = offsets[keep]
-        if len(offsets) == 0:
-            return None
-        if len(offsets) > MAX_SEED_HYPOTHESES:
-            return None
-    idx = np.arange(m)
-    r_h = rho[None, :] + offsets
-    a = _design(xd)
-    wa = a * w[:, None]
-    ginv = np.linalg.inv(a.T @ wa)
-    b = r_h @ wa
-    chi2 = np.sum(w * r_h ** 2, axis=1) - np.einsum("hk,kl,hl->h", b, ginv, b)
-    # the same numbering can appear twice (branching); keep distinct ones
-    offsets = offsets - offsets[:, :1]
-    offsets, first = np.unique(offsets, axis=0, return_index=True)
-    chi2 = chi2[first]
-    order = np.argsort(chi2)
-    best = order[0]
-    scale = max(1.0, chi2[best] / max(m - 3, 1))
-    unique = len(order) == 1 or chi2[order[1]] - chi2[best] >= SEED_UNIQUE_DCHI2 * scale
-    return offsets[best] - 0, float(chi2[best]), bool(unique)
-
-
-# ============================================================================ phase tracking
-
-@dataclass
-class _Chain:
-    """Pulse-count offsets (integers added to the model's fractional phase) and
-    connected-segment labels per TOA (time order), for one tracking direction."""
-    offsets: np.ndarray
-    segment: np.ndarray
-    ambiguous_at: list
-
-
-def track_phases(t_s, frac, sigma, f_range_hz, fdot_range, backward: bool = False) -> _Chain:
-    """Number the pulses TOA by TOA (module docstring, step 1). ``t_s`` sorted."""
-    n = len(t_s)
-    order = np.arange(n)[::-1] if backward else np.arange(n)
-    offsets = np.zeros(n, dtype=np.int64)
-    segment = np.full(n, -1, dtype=np.int64)
-    ambiguous = []
-    p, seg = 0, 0
-    while p < n:
-        # ---- seed
-        size = min(SEED_TOAS, n - p)
-        solved = None
-        while True:
-            idx = order[p:p + size]
-            for tol in (1.0, 10.0):
-                solved = solve_seed(t_s[idx], frac[idx], sigma[idx], f_range_hz, fdot_range, tol)
-                if solved is not None:
-                    break
-            if solved is None or solved[2] or p + size >= n or size >= MAX_SEED_TOAS:
-                break
-            size = min(size + 2, n - p)
-        if solved is None:
-            offsets[order[p]] = 0
-            segment[order[p]] = seg
-            seg += 1
-            p += 1
-            continue
-        if not solved[2]:
-            ambiguous.append(int(order[p]))
-        offsets[idx] = solved[0]
-        segment[idx] = seg
-        p += size
-        # ---- track
-        while p < n:
-            nxt = order[p]
-            start = max(p - TRACK_WINDOW_TOAS, 0)
-            win = order[start:p]
-            win = win[segment[win] == seg]
-            if len(win) < 4:
-                break
-            x = (t_s[win] - t_s[nxt]) / SECONDS_PER_DAY
-            r = frac[win] + offsets[win]
-            params, cov, chi2 = _quadratic_fit(x, r, 1.0 / sigma[win] ** 2)
-            scale = max(1.0, chi2 / (len(win) - 3))
-            pred = params[0]
-            sig_pred = math.sqrt(scale * cov[0, 0])
-            k = int(np.round(pred - frac[nxt]))
-            dev = frac[nxt] + k - pred
-            total = math.sqrt(sig_pred ** 2 + scale * sigma[nxt] ** 2)
-            if (sig_pred > TRACK_MAX_PREDICTION_SIGMA or abs(dev) > TRACK_MAX_DEVIATION
-                    or abs(dev) > TRACK_Z * total):
-                break
-            offsets[nxt] = k
-            segment[nxt] = seg
-            p += 1
-        seg += 1
-    if backward:   # label segments in time order
-        _, segment = np.unique(-segment, return_inverse=True)
-    return _Chain(offsets=offsets, segment=segment.astype(np.int64), ambiguous_at=ambiguous)
-
-
-# ============================================================================ gap statistics
-
-@dataclass
-class _Windows:
-    gaps: np.ndarray          # gap j lies between sorted TOAs j and j+1
-    left: np.ndarray          # (G, W) TOA indices, -1 = padding
-    right: np.ndarray
-    e_left: np.ndarray        # (G, 3, W) estimators: params = e @ r (x in days from the gap)
-    e_right: np.ndarray
-    aw_left: np.ndarray       # (G, 3, W) A^T W of each window
-    aw_right: np.ndarray
-    cov_left: np.ndarray      # (G, 3, 3)
-    cov_right: np.ndarray
-    w_left: np.ndarray        # (G, W) weights (0 for padding)
-    w_right: np.ndarray
-    n_left: np.ndarray
-    n_right: np.ndarray
-    left_bwd: np.ndarray      # (G,) window numbered by the backward chain
-    right_bwd: np.ndarray
-
-
-def _barrier_bounds(n, barriers):
-    """For each TOA position: first position after the last barrier before
-    it, and last position before the next barrier after it."""
-    b = np.array(sorted(barriers), dtype=np.int64)
-    pos = np.arange(n)
-    if len(b) == 0:
-        return np.zeros(n, np.int64), np.full(n, n - 1, np.int64)
-    k = np.searchsorted(b, pos, side="left")        # barriers >= pos
-    prev = np.where(k > 0, b[np.maximum(k - 1, 0)] + 1, 0)
-    k2 = np.searchsorted(b, pos, side="left")        # first barrier >= pos
-    nxt = np.where(k2 < len(b), b[np.minimum(k2, len(b) - 1)], n - 1)
-    return prev, nxt
-
-
-def _segment_bounds(segment):
-    n = len(segment)
-    start = np.zeros(n, np.int64)
-    end = np.zeros(n, np.int64)
-    change = np.nonzero(np.diff(segment) != 0)[0]
-    starts = np.concatenate([[0], change + 1])
-    ends = np.concatenate([change, [n - 1]])
-    for s, e in zip(starts, ends):
-        start[s:e + 1] = s
-        end[s:e + 1] = e
-    return start, end
-
-
-def _estimators(idx, x, sigma):
-    """Per-window weighted LS estimators of [1, x, x^2/2] (padded idx=-1)."""
-    mask = idx >= 0
-    w = np.where(mask, 1.0 / sigma[np.maximum(idx, 0)] ** 2, 0.0)
-    a = _design(x)                                  # (G, W, 3)
-    gram = np.einsum("gw,gwk,gwl->gkl", w, a, a)
-    # condition the 3x3 systems by their diagonals before inverting
-    d = np.sqrt(np.maximum(np.einsum("gkk->gk", gram), 1e-300))
-    scaled = gram / (d[:, :, None] * d[:, None, :])
-    ok = np.linalg.cond(scaled) < 1e12
-    scaled[~ok] = np.eye(3)
-    cov = np.linalg.inv(scaled) / (d[:, :, None] * d[:, None, :])
-    aw = np.einsum("gwk,gw->gkw", a, w)
-    est = np.matmul(cov, aw)
-    return est, aw, cov, w, ok
-
-
-def build_windows(t_s, sigma, chains, barriers, window_toas, window_days,
-                  exclude=()) -> _Windows:
-    """Left/right windows of every candidate gap (module docstring, step 2).
-    Each window takes its pulse numbering from whichever tracking chain
-    connects more of its TOAs (the forward chain by preference on the left,
-    the backward chain on the right)."""
-    n = len(t_s)
-    t_days = t_s / SECONDS_PER_DAY
-    gap_width = np.diff(t_days)
-    prev_b, next_b = _barrier_bounds(n, barriers)
-    fwd, bwd = chains
-    start_f, end_f = _segment_bounds(fwd.segment)
-    start_b, end_b = _segment_bounds(bwd.segment)
-    j = np.arange(n - 1)
-    left_bwd = start_b[j] < start_f[j]
-    right_fwd = end_f[j + 1] > end_b[j + 1]
-    lo = np.maximum(np.where(left_bwd, start_b[j], start_f[j]), prev_b[j])
-    hi = np.minimum(np.where(right_fwd, end_f[j + 1], end_b[j + 1]), next_b[j + 1])
-    if window_toas is not None:
-        lo = np.maximum(lo, j - int(window_toas) + 1)
-        hi = np.minimum(hi, j + int(window_toas))
-    else:
-        lo = np.maximum(lo, np.searchsorted(t_days, t_days[j] - window_days, side="left"))
-        hi = np.minimum(hi, np.searchsorted(t_days, t_days[j + 1] + window_days, side="right") - 1)
-    n_l = j - lo + 1
-    n_r = hi - j
-    ok = (n_l >= MIN_WINDOW_TOAS) & (n_r >= MIN_WINDOW_TOAS) & (gap_width >= MIN_GAP_DAYS)
-    ok &= ~np.isin(j, np.array(sorted(set(barriers) | set(exclude)), dtype=np.int64))
-    gaps = j[ok]
-    lo, hi, n_l, n_r = lo[ok], hi[ok], n_l[ok], n_r[ok]
-    left_bwd, right_bwd = left_bwd[ok], ~right_fwd[ok]
-    width = int(max(np.max(n_l, initial=1), np.max(n_r, initial=1)))
-    k = np.arange(width)
-    left = gaps[:, None] - k[None, :]
-    left = np.where(k[None, :] < n_l[:, None], left, -1)
-    right = gaps[:, None] + 1 + k[None, :]
-    right = np.where(k[None, :] < n_r[:, None], right, -1)
-    mid = 0.5 * (t_days[gaps] + t_days[gaps + 1])
-    x_l = np.where(left >= 0, t_days[np.maximum(left, 0)] - mid[:, None], 0.0)
-    x_r = np.where(right >= 0, t_days[np.maximum(right, 0)] - mid[:, None], 0.0)
-    e_l, aw_l, c_l, w_l, ok_l = _estimators(left, x_l, sigma)
-    e_r, aw_r, c_r, w_r, ok_r = _estimators(right, x_r, sigma)
-    sel = np.nonzero(ok_l & ok_r)[0]
-    return _Windows(gaps=gaps[sel], left=left[sel], right=right[sel], e_left=e_l[sel],
-                    e_right=e_r[sel], aw_left=aw_l[sel], aw_right=aw_r[sel],
-                    cov_left=c_l[sel], cov_right=c_r[sel], w_left=w_l[sel], w_right=w_r[sel],
-                    n_left=n_l[sel], n_right=n_r[sel], left_bwd=left_bwd[sel],
-                    right_bwd=right_bwd[sel])
-
-
-def _window_fits(e, aw, w, idx, r, r_alt=None, use_alt=None):
-    """Window parameters (..., G, 3) and chi-squares (..., G) for residuals
-    ``r`` (N,) or realisations (M, N), by batched matrix products; windows
-    flagged ``use_alt`` take their values from ``r_alt`` instead."""
-    single = r.ndim == 1
-    rt = r[:, None] if single else r.T                       # (N, M)
-    vals = rt[np.maximum(idx, 0)] * (idx >= 0)[..., None]    # (G, W, M)
-    if r_alt is not None and np.any(use_alt):
-        alt = r_alt[:, None] if single else r_alt.T
-        vals = np.where(use_alt[:, None, None],
-                        alt[np.maximum(idx, 0)] * (idx >= 0)[..., None], vals)
-    params = np.matmul(e, vals)                              # (G, 3, M)
-    proj = np.matmul(aw, vals)                               # (G, 3, M): A^T W r
-    sumsq = np.matmul(w[:, None, :], vals * vals)[:, 0, :]   # (G, M)
-    chi2 = sumsq - np.sum(params * proj, axis=1)
-    params = np.moveaxis(params, 2, 0)                       # (M, G, 3)
-    chi2 = chi2.T                                            # (M, G)
-    return (params[0], chi2[0]) if single else (params, chi2)
-
-
-def gap_statistics(win: _Windows, r_fwd, r_bwd=None):
-    """Per-gap 2-dof chi-square of the frequency and frequency-derivative steps,
-    and the steps themselves (cycles/day, cycles/day^2, sign: residual).
-    ``r_fwd``/``r_bwd``: residuals numbered by the forward/backward chain (N,),
-    or noise realisations (M, N) for both."""
-    p_l, chi2_l = _window_fits(win.e_left, win.aw_left, win.w_left, win.left, r_fwd,
-                               r_bwd, win.left_bwd)
-    p_r, chi2_r = _window_fits(win.e_right, win.aw_right, win.w_right, win.right, r_fwd,
-                               r_bwd, win.right_bwd)
-    s_l = np.maximum(1.0, chi2_l / (win.n_left - 3))
-    s_r = np.maximum(1.0, chi2_r / (win.n_right - 3))
-    d = p_r[..., 1:] - p_l[..., 1:]
-    c = (s_l[..., None, None] * win.cov_left[:, 1:, 1:]
-         + s_r[..., None, None] * win.cov_right[:, 1:, 1:])
-    det = c[..., 0, 0] * c[..., 1, 1] - c[..., 0, 1] ** 2
-    stat = (c[..., 1, 1] * d[..., 0] ** 2 - 2 * c[..., 0, 1] * d[..., 0] * d[..., 1]
-            + c[..., 0, 0] * d[..., 1] ** 2) / det
-    return stat, d, c, p_l, p_r
-
-
-@dataclass
-class _Null:
-    maxima: np.ndarray         # per realisation: max over gaps
-    pooled: np.ndarray         # sorted per-gap values of all realisations
-    n_effective: float
-    per_gap: np.ndarray | None = None  # (M, G) kept for known-epoch tests
-
-
-def null_distribution(win: _Windows, sigma, trials: int, rng, keep_per_gap=False) -> _Null:
-    """Gap statistics of pure white noise through the same windows (step 3)."""
-    n = len(sigma)
-    g, width = win.left.shape
-    chunk = max(1, int(3_000_000 // max(g * width, 1)))
-    maxima, pooled, per_gap = [], [], []
-    done = 0
-    while done < trials:
-        m = min(chunk, trials - done)
-        r = rng.standard_normal((m, n)) * sigma[None, :]
-        stat, *_ = gap_statistics(win, r)
-        maxima.append(np.max(stat, axis=1))
-        pooled.append(stat.ravel())
-        if keep_per_gap:
-            per_gap.append(stat)
-        done += m
-    maxima = np.concatenate(maxima)
-    pooled = np.sort(np.concatenate(pooled))
-    local_at_median = _local_survival(pooled, np.median(maxima))
-    # effective number of independent gaps: median of the maximum <-> (1 - S)^N = 1/2
-    n_eff = math.log(0.5) / math.log1p(-min(max(local_at_median, 1e-300), 1 - 1e-16))
-    return _Null(maxima=maxima, pooled=pooled, n_effective=max(1.0, n_eff),
-                 per_gap=np.concatenate(per_gap) if keep_per_gap else None)
-
-
-def _local_survival(pooled, value):
-    """P(per-gap statistic >= value) under the null: empirical, with the
-    exponential (2-dof chi-square) tail beyond the simulated range."""
-    n = len(pooled)
-    above = n - np.searchsorted(pooled, value, side="left")
-    if above >= 50:
-        return above / n
-    anchor = pooled[max(n - 50, 0)]
-    return (50.0 / n) * math.exp(-0.5 * max(value - anchor, 0.0))
-
-
-def false_alarm_probability(null: _Null, value: float) -> float:
-    """Global FAP of a maximum gap statistic ``value`` (step 3)."""
-    exceed = int(np.sum(null.maxima >= value))
-    if exceed >= 20:
-        return (exceed + 1) / (len(null.maxima) + 1)
-    s = _local_survival(null.pooled, value)
-    return float(-np.expm1(null.n_effective * np.log1p(-min(s, 1 - 1e-16))))
-
-
-def _sigma_of(fap: float) -> float:
-    return float(math.sqrt(2.0) * scipy.special.erfcinv(min(max(fap, 1e-300), 1.0)))
-
-
-def _threshold_statistic(null: _Null, fap: float) -> float:
-    """Statistic whose global FAP equals ``fap`` (for the detection limit)."""
-    lo, hi = 0.0, 2000.0
-    for _ in range(80):
-        mid = 0.5 * (lo + hi)
-        if false_alarm_probability(null, mid) > fap:
-            lo = mid
-        else:
-            hi = mid
-    return hi
-
-
-def detection_limit(win: _Windows, threshold: float, frequency_hz: float) -> dict:
-    """Smallest frequency step found with 95 % probability at a typical gap:
-    non-central 2-dof chi-square above ``threshold`` (white noise, no scaling)."""
-    if len(win.gaps) == 0:
-        return {"frequency_step_hz": None, "fractional_size": None}
-    from scipy.optimize import brentq
-    lam = brentq(lambda nc: scipy.stats.ncx2.sf(threshold, 2, nc) - 0.95, 1e-6, 1e5)
-    c = win.cov_left[:, 1:, 1:] + win.cov_right[:, 1:, 1:]
-    inv_ff = c[:, 1, 1] / (c[:, 0, 0] * c[:, 1, 1] - c[:, 0, 1] ** 2)
-    step = np.sqrt(lam / inv_ff) / SECONDS_PER_DAY
-    return {"frequency_step_hz": float(np.median(step)),
-            "fractional_size": float(np.median(step) / frequency_hz),
-            "fractional_size_90th_percentile_gap": float(np.percentile(step, 90) / frequency_hz),
-            "statistic_threshold": float(threshold),
-            "note": "95 % detection probability for a pure frequency step at the median gap, "
-                    "white noise, at the minimum significance; larger steps than "
-                    "max_fractional_step cannot be reconnected"}
-
-
 # ============================================================================ the search
 
 @dataclass
@@ -729,6 +252,7 @@ class _PhaseData:
     phase_int: np.ndarray   # model phase integer part
     sigma: np.ndarray       # TOA uncertainty in cycles
     frequency_hz: np.ndarray
+    spin_epoch_mjd: float
 
 
 def _phase_data(model: TimingModel, obs: Observations, reference) -> _PhaseData:
@@ -738,7 +262,8 @@ def _phase_data(model: TimingModel, obs: Observations, reference) -> _PhaseData:
     sigma = obs.toas.err_us * 1e-6 * ev.spin_frequency_hz
     return _PhaseData(order=order, t_s=t[order], frac=ev.phase_frac[order],
                       phase_int=ev.phase_int[order], sigma=sigma[order],
-                      frequency_hz=ev.spin_frequency_hz[order])
+                      frequency_hz=ev.spin_frequency_hz[order],
+                      spin_epoch_mjd=model.spin.epoch_day + model.spin.epoch_frac)
 
 
 def _ranges(model: TimingModel, settings: GlitchSearchSettings):
@@ -798,9 +323,10 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
                                 settings.window_toas, settings.window_days)
             hit = np.nonzero(win.gaps == gap)[0]
             if len(hit) == 0:
-                notes.append(f"known epoch in the gap after TOA {gap}: too few TOAs on one "
-                             "side to measure it from the windows; fitted without a "
-                             "false-alarm probability")
+                mjd = data.spin_epoch_mjd + data.t_s[gap] / SECONDS_PER_DAY
+                notes.append(f"known glitch after MJD {mjd:.4f}: too few TOAs on one side to "
+                             "measure it from the windows; fitted without a false-alarm "
+                             "probability")
                 accepted.append(_Accepted(gap=gap, fap=None, stat=None, df_hz=None,
                                           df_err_hz=None, dfdot=None, known=True,
                                           search_pass=search_pass))
@@ -808,10 +334,10 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
             k = int(hit[0])
             stat, *_ = gap_statistics(win, r_fwd, r_bwd)
             null = null_distribution(win, data.sigma, int(settings.null_trials), rng)
-            local = _local_survival(null.pooled, float(stat[k]))
+            local = local_survival(null.pooled, float(stat[k]))
             accepted.append(estimate(win, k, stat[k], float(local), known=True))
             if not limit:
-                limit = detection_limit(win, _threshold_statistic(null, threshold), f_ref)
+                limit = detection_limit(win, threshold_statistic(null, threshold), f_ref)
         return accepted, limit, notes
 
     for _ in range(MAX_GLITCHES_PER_PASS):
@@ -829,7 +355,7 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
             null = null_distribution(win, data.sigma, trials, rng)
             fap = false_alarm_probability(null, float(stat[k]))
         if not limit:
-            limit = detection_limit(win, _threshold_statistic(null, threshold), f_ref)
+            limit = detection_limit(win, threshold_statistic(null, threshold), f_ref)
         if fap > threshold:
             break
         accepted.append(estimate(win, k, stat[k], fap))
@@ -838,104 +364,6 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
 
 
 # ---------------------------------------------------------------------------- numbering
-
-def _bridge(t_s, sigma, r, conn, piece):
-    """Integer offset joining ``piece`` (positions, self-consistent residuals
-    ``r``) to the connected positions ``conn``; None when not unambiguous."""
-    conn = np.asarray(conn)
-    piece = np.asarray(piece)
-    if piece[0] > conn[-1]:
-        near_c, near_p = conn[-TRACK_WINDOW_TOAS:], piece[:TRACK_WINDOW_TOAS]
-    else:
-        near_c, near_p = conn[:TRACK_WINDOW_TOAS], piece[-TRACK_WINDOW_TOAS:]
-    if len(near_c) < 4:
-        return None
-    t0 = t_s[near_p[0]] if piece[0] > conn[-1] else t_s[near_p[-1]]
-    xc = (t_s[near_c] - t0) / SECONDS_PER_DAY
-    params, cov, chi2c = _quadratic_fit(xc, r[near_c], 1.0 / sigma[near_c] ** 2)
-    scale = max(1.0, chi2c / max(len(near_c) - 3, 1))
-    p_ref = near_p[0] if piece[0] > conn[-1] else near_p[-1]
-    pred = params[0]
-    sig = math.sqrt(scale * (cov[0, 0] + sigma[p_ref] ** 2))
-    k0 = int(np.round(pred - r[p_ref]))
-    spread = int(min(200, math.ceil(6 * sig) + 1))
-    ks = k0 + np.arange(-spread, spread + 1)
-    both = np.concatenate([near_c, near_p])
-    x = (t_s[both] - t0) / SECONDS_PER_DAY
-    w = 1.0 / sigma[both] ** 2
-    a = _design(x)
-    ginv = np.linalg.inv(a.T @ (a * w[:, None]))
-    is_p = np.concatenate([np.zeros(len(near_c)), np.ones(len(near_p))])
-    rr = r[both][None, :] + ks[:, None] * is_p[None, :]
-    b = rr @ (a * w[:, None])
-    chi2 = np.sum(w * rr ** 2, axis=1) - np.einsum("hk,kl,hl->h", b, ginv, b)
-    order = np.argsort(chi2)
-    best = order[0]
-    dof = len(both) - 3
-    s = max(1.0, chi2c / max(len(near_c) - 3, 1))
-    if chi2[best] > s * _chi2_limit(dof, 1e-4):
-        return None
-    if len(order) > 1 and chi2[order[1]] - chi2[best] < SEED_UNIQUE_DCHI2 * s:
-        return None
-    return int(ks[best])
-
-
-def _number_pulses(data: _PhaseData, chains, barriers, warnings):
-    """Connected pulse-count offsets for every TOA, interval by interval
-    between the glitch gaps ``barriers``. Returns (offsets, keep mask, forced
-    gaps); a forced gap is one where the connection could not be made and
-    more than a few TOAs lie beyond it (the caller fits a glitch there)."""
-    n = len(data.t_s)
-    fwd, bwd = chains
-    offsets = np.zeros(n, dtype=np.int64)
-    keep = np.ones(n, dtype=bool)
-    edges = [-1] + sorted(barriers) + [n - 1]
-    for lo, hi in zip(np.array(edges[:-1]) + 1, edges[1:]):
-        if hi < lo:
-            continue
-        span = np.arange(lo, hi + 1)
-        chosen = next((c for c in (fwd, bwd) if len(np.unique(c.segment[span])) == 1), None)
-        if chosen is not None:
-            offsets[span] = chosen.offsets[span]
-            continue
-        # join the forward chain's pieces, starting from the largest, nearest first
-        cuts = np.nonzero(np.diff(fwd.segment[span]) != 0)[0] + 1
-        pieces = np.split(span, cuts)
-        big = int(np.argmax([len(p) for p in pieces]))
-        lo_p, hi_p = big, big
-        offsets[pieces[big]] = fwd.offsets[pieces[big]]
-        while lo_p > 0 or hi_p < len(pieces) - 1:
-            conn = np.arange(pieces[lo_p][0], pieces[hi_p][-1] + 1)
-            conn = conn[keep[conn]]
-            options = []
-            if hi_p < len(pieces) - 1:
-                piece = pieces[hi_p + 1]
-                options.append((data.t_s[piece[0]] - data.t_s[conn[-1]], "right", piece))
-            if lo_p > 0:
-                piece = pieces[lo_p - 1]
-                options.append((data.t_s[conn[0]] - data.t_s[piece[-1]], "left", piece))
-            _, side, piece = min(options, key=lambda o: o[0])
-            r = (data.frac + offsets).astype(float)
-            r[piece] = data.frac[piece] + fwd.offsets[piece]
-            k = _bridge(data.t_s, data.sigma, r, conn, piece)
-            if k is not None:
-                offsets[piece] = fwd.offsets[piece] + k
-            elif len(piece) < MIN_WINDOW_TOAS:
-                keep[piece] = False
-                offsets[piece] = fwd.offsets[piece]
-                days = (data.t_s[piece[0]]) / SECONDS_PER_DAY
-                warnings.append(f"phase connection lost {days:.1f} days after the spin epoch: "
-                                f"{len(piece)} TOA(s) left out of the fit")
-            else:
-                return offsets, keep, [int(piece[0] - 1 if side == "right" else piece[-1])]
-            if side == "right":
-                hi_p += 1
-            else:
-                lo_p -= 1
-    return offsets, keep, []
-
-
-# ---------------------------------------------------------------------------- fitting
 
 def _emission_mjd(model: TimingModel, t_s):
     return model.spin.epoch_day + model.spin.epoch_frac + np.asarray(t_s) / SECONDS_PER_DAY
@@ -954,11 +382,10 @@ def _glitch_t_s(model: TimingModel, g: Glitch) -> float:
 
 
 def _spin_frequency_at(model: TimingModel, t_s):
+    """Spin frequency (Hz) of the model's Taylor series t_s seconds from its epoch."""
     f = model.spin.frequency.value
-    term, fdot = 1.0, 0.0
+    term = 1.0
     for k, p in enumerate(model.spin.derivatives, start=1):
-        if k == 1:
-            fdot = p.value
         term = term * t_s / k
         f = f + p.value * term
     return f
@@ -974,7 +401,7 @@ def _spin_fdot_at(model: TimingModel, t_s):
     return out
 
 
-def _free_names(model: TimingModel, glitch_free_keys=()):
+def _free_names(model: TimingModel):
     names = list(model.free_names)
     for p in [model.spin.frequency, *model.spin.derivatives[:1]]:
         if p.name not in names:
@@ -1401,6 +828,12 @@ def search_glitches(model: TimingModel, obs: Observations,
         chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range),
                   track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range,
                                backward=True))
+        for chain in chains:
+            for pos in chain.ambiguous_at:
+                mjd = data.spin_epoch_mjd + data.t_s[pos] / SECONDS_PER_DAY
+                warnings.append(f"pulse numbering near MJD {mjd:.2f} is ambiguous (several "
+                                "pulse counts fit the TOAs after a break): results there may "
+                                "be off by whole turns; more TOAs close together would help")
         known_gaps = None
         if known_t is not None:
             known_gaps = []
@@ -1418,7 +851,7 @@ def search_glitches(model: TimingModel, obs: Observations,
         if not accepted:
             if result_fit is None:
                 # nothing found: fit the starting model with the tracked pulse numbers
-                offsets, keep, forced = _number_pulses(data, chains, set(existing), warnings)
+                offsets, keep, forced = number_pulses(data, chains, set(existing), warnings)
                 if not forced and np.all(keep):
                     pulse = np.empty(len(use_obs), dtype=np.int64)
                     pulse[data.order] = (data.phase_int - offsets).astype(np.int64)
@@ -1437,7 +870,7 @@ def search_glitches(model: TimingModel, obs: Observations,
         barriers = set(existing) | {a.gap for a in accepted}
         failed_before: set[int] = set()
         while True:
-            offsets, keep, forced = _number_pulses(data, chains, barriers, warnings)
+            offsets, keep, forced = number_pulses(data, chains, barriers, warnings)
             if not forced:
                 break
             gap = forced[0]
@@ -1496,7 +929,8 @@ def search_glitches(model: TimingModel, obs: Observations,
     return GlitchSearchResult(
         candidates=candidates, model=current, fit=result_fit, obs=use_obs, track=track,
         residual_mjd=before[0], residual_us=before[1], residual_err_us=before[2],
-        detection_limit=detection, settings=settings, warnings=warnings, dropped_toas=dropped)
+        detection_limit=detection, settings=settings, warnings=list(dict.fromkeys(warnings)),
+        dropped_toas=dropped)
 
 
 def _candidates(model, res, found: list[_Accepted]) -> list[GlitchCandidate]:
@@ -1540,7 +974,7 @@ def _candidates(model, res, found: list[_Accepted]) -> list[GlitchCandidate]:
             fractional_size=df_total / f_here,
             permanent_fractional_size=g.frequency_step.value / f_here,
             false_alarm_probability=acc.fap,
-            significance_sigma=None if acc.fap is None else _sigma_of(acc.fap),
+            significance_sigma=None if acc.fap is None else gaussian_sigma(acc.fap),
             detection_chi2=acc.stat,
             window_frequency_step_hz=acc.df_hz,
             window_frequency_step_uncertainty_hz=acc.df_err_hz,
@@ -1609,6 +1043,7 @@ def _track_and_residuals(model, obs, reference, settings, res):
 
 
 __all__ = ["GlitchSearchSettings", "GlitchCandidate", "GlitchSearchResult", "FrequencyTrack",
-           "search_glitches", "track_phases", "solve_seed", "build_windows", "gap_statistics",
-           "null_distribution", "false_alarm_probability", "DEFAULT_WINDOW_TOAS",
-           "DEFAULT_MIN_SIGNIFICANCE"]
+           "search_glitches", "track_phases", "solve_seed", "number_pulses", "TrackingChain",
+           "build_windows", "gap_statistics", "GapWindows", "null_distribution",
+           "NullDistribution", "false_alarm_probability", "detection_limit",
+           "DEFAULT_WINDOW_TOAS", "DEFAULT_MIN_SIGNIFICANCE", "ASSUMPTIONS"]
