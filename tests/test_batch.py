@@ -275,6 +275,22 @@ make_plots = true
     assert not alpha["dispersion.dm"]["free"]
 
 
+def test_glitch_option_fills_glitch_candidates_and_changes_the_hash(ten_sources, tmp_path):
+    root = tmp_path / "sources"
+    shutil.copytree(ten_sources / "demo-batch-003", root / "demo-batch-003")
+    outdir = tmp_path / "out"
+    assert _cli([root, "-o", outdir, "--workers", 1]) == 0
+    assert _read_csv(outdir / "summary.csv")[0]["glitch_candidates"] == ""  # no search ran
+    assert _cli([root, "-o", outdir, "--workers", 1, "--resume", "--glitches"]) == 0
+    row = _read_csv(outdir / "summary.csv")[0]
+    assert not row["message"].startswith("reused")  # another function: refitted
+    found = json.loads((outdir / "demo-batch-003" / "glitches.json").read_text())
+    # the simulation has no glitch; the count is the report's, and glitches.json agrees
+    report = json.loads((outdir / "demo-batch-003" / "report.json").read_text())
+    assert row["glitch_candidates"] == str(report["glitch_candidates"]) == "0"
+    assert len(found["candidates"]) == 0
+
+
 def test_worker_killed_mid_source_is_isolated(three_sources, tmp_path):
     outdir = tmp_path / "out"
     result = run_batch(three_sources, outdir, workers=2, progress=False, fit_function=fit_or_die)
@@ -312,7 +328,9 @@ def test_interrupted_run_leaves_no_partial_report_and_rerun_completes(three_sour
     assert not (outdir / "summary.csv").exists()
     _assert_no_partial_folders(outdir)
 
-    rerun = run_batch(three_sources, outdir, workers=1, resume=True, progress=False)
+    # same function, no longer stalling ($TIMINGKIT_TEST_STALL is unset here)
+    rerun = run_batch(three_sources, outdir, workers=1, resume=True, progress=False,
+                      fit_function=fit_or_stall)
     assert rerun.exit_status == 0 and rerun.refitted == ["demo-batch-002"]
     _assert_no_partial_folders(outdir)
     assert not [p for p in outdir.iterdir() if p.name.startswith(".")]
@@ -437,6 +455,7 @@ def test_content_hash_follows_contents_settings_and_referenced_files(tmp_path):
     assert inputs_sha256(discover_sources(moved)[0]) == reference  # paths are not hashed
     assert inputs_sha256(Source(**{**source.__dict__, "free": ("dispersion.dm",)})) != reference
     assert inputs_sha256(Source(**{**source.__dict__, "make_plots": False})) != reference
+    assert inputs_sha256(source, fit_function="timingkit.glitches_cli.glitch_files") != reference
     (folder / "sites.toml").write_text("[site.desert-dish]\nheight_m = 2.0\n")
     assert inputs_sha256(source) != reference  # a file named in the model's settings
 

@@ -73,6 +73,7 @@ _MAX_REASON_CHARS = 300
 
 WORKER_DIED_REASON = ("the worker process died while fitting this source (crash, out of memory "
                       "or killed); fit it alone to see why")
+DEFAULT_FIT_FUNCTION = "timingkit.pipeline.fit_files"
 CLUSTER_INSTALL_HINT = "install the cluster extra: pip install 'timingkit[cluster]'"
 
 # --------------------------------------------------------------------------- sources
@@ -318,11 +319,20 @@ def _model_referenced_files(model_path: str) -> list[str]:
     return found
 
 
-def inputs_sha256(source: Source, software: dict[str, str] | None = None) -> str:
+def function_name(function: Callable | None) -> str:
+    """Dotted name of a per-source function (None: the default fit)."""
+    if function is None:
+        return DEFAULT_FIT_FUNCTION
+    return f"{getattr(function, '__module__', '?')}.{getattr(function, '__qualname__', '?')}"
+
+
+def inputs_sha256(source: Source, software: dict[str, str] | None = None,
+                  fit_function: str = DEFAULT_FIT_FUNCTION) -> str:
     """sha256 over the contents of every input file of ``source`` (TOA table, model,
     site/clock/ephemeris files given to the batch or named in the model), the
-    settings (free, fix, make_plots) and the software versions. Paths are not
-    hashed, so moving a data tree does not force a refit."""
+    settings (free, fix, make_plots), the per-source function (by name) and the
+    software versions. Paths are not hashed, so moving a data tree does not
+    force a refit."""
     files = [("toas", source.toas_path), ("model", source.model_path)]
     files += [("sites", p) for p in source.sites_paths]
     files += [("clock", p) for p in source.clock_paths]
@@ -333,6 +343,7 @@ def inputs_sha256(source: Source, software: dict[str, str] | None = None) -> str
         "name": source.name,
         "files": [[role, _file_digest(p)] for role, p in files],
         "free": list(source.free), "fix": list(source.fix), "make_plots": source.make_plots,
+        "function": fit_function,
         "software": software if software is not None else _software_fingerprint(),
     }
     return hashlib.sha256(json.dumps(record, sort_keys=True).encode()).hexdigest()
@@ -739,7 +750,7 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
                 done({"name": source.name, "status": STATUS_FAILED,
                       "message": _one_line(source.problem), "elapsed_s": 0.0, "worker": ""})
                 continue
-            digest = inputs_sha256(source, software)
+            digest = inputs_sha256(source, software, function_name(fit_function))
             if resume and _reusable(outdir, source, digest):
                 done({"name": source.name, "status": STATUS_OK, "message": "", "elapsed_s": 0.0,
                       "worker": ""}, reused=True)
@@ -908,7 +919,7 @@ def write_summaries(result: BatchResult, software: dict[str, str],
 
 def add_batch_parser(subparsers):
     """Add ``timingkit batch MANIFEST_OR_DIR [-o OUTDIR] [--workers N]
-    [--cluster ADDRESS|local] [--resume]``; the handler is ``args.func``."""
+    [--cluster ADDRESS|local] [--resume] [--glitches]``; the handler is ``args.func``."""
     parser = subparsers.add_parser(
         "batch", help="fit many sources (process pool or Dask cluster)",
         description="Fit every source of a manifest or of a directory of source folders; "
@@ -927,15 +938,21 @@ def add_batch_parser(subparsers):
     parser.add_argument("--resume", action="store_true",
                         help="skip sources whose inputs and settings are unchanged since their "
                              "last successful run")
+    parser.add_argument("--glitches", action="store_true",
+                        help="also search every source for glitches (as 'timingkit glitches'; "
+                             "fills the glitch_candidates column)")
     parser.set_defaults(func=run_batch_command)
     return parser
 
 
 def run_batch_command(args) -> int:
     """Run ``timingkit batch``; print a short summary. Exit 0 / 3 / 2 (see parser)."""
+    fit_function = None
+    if getattr(args, "glitches", False):
+        from timingkit.glitches_cli import glitch_files as fit_function
     try:
         result = run_batch(args.inputs, args.outdir, workers=args.workers, cluster=args.cluster,
-                           resume=args.resume, progress=None)
+                           resume=args.resume, progress=None, fit_function=fit_function)
     except InputError as exc:
         if getattr(args, "debug", False):
             raise
