@@ -157,7 +157,8 @@ class GlitchCandidate:
     epoch_max_mjd: float
     epoch_uncertainty_days: float
     frequency_step_hz: float
-    frequency_step_uncertainty_hz: float
+    frequency_step_uncertainty_hz: float        # with the epoch's uncertainty
+    frequency_step_fit_uncertainty_hz: float    # with the epoch held where it is
     frequency_derivative_step: float
     frequency_derivative_step_uncertainty: float
     phase_step: float
@@ -184,6 +185,7 @@ class GlitchCandidate:
             "epoch_uncertainty_days": self.epoch_uncertainty_days,
             "frequency_step_hz": self.frequency_step_hz,
             "frequency_step_uncertainty_hz": self.frequency_step_uncertainty_hz,
+            "frequency_step_fit_uncertainty_hz": self.frequency_step_fit_uncertainty_hz,
             "frequency_derivative_step": self.frequency_derivative_step,
             "frequency_derivative_step_uncertainty": self.frequency_derivative_step_uncertainty,
             "fractional_size": self.fractional_size,
@@ -916,6 +918,12 @@ def search_glitches(model: TimingModel, obs: Observations,
             current = result_fit.model
         except FitError as exc:
             warnings.append(f"no glitch found, and the starting model could not be fitted: {exc}")
+    if result_fit is not None:   # the fitter's words assume the user pinned the pulses
+        result_fit.warnings = [
+            w.replace("with the pulse numbers of the table's 'pulse' column: check those numbers",
+                      "with the pulse numbering of the glitch search: phase connection is "
+                      "doubtful (timing noise, or glitches the search did not find?)")
+            for w in result_fit.warnings]
     if any(not a.placed for a in found):
         warnings.append(f"the fit with the glitches has reduced chi-square "
                         f"{result_fit.reduced_chi2:.2f} (> {ADEQUATE_REDUCED_CHI2:g}): epochs "
@@ -966,6 +974,7 @@ def _candidates(model, res, found: list[_Accepted]) -> list[GlitchCandidate]:
             epoch_uncertainty_days=float(unc["epoch_s"] / SECONDS_PER_DAY),
             frequency_step_hz=g.frequency_step.value,
             frequency_step_uncertainty_hz=float(unc["frequency_step"]),
+            frequency_step_fit_uncertainty_hz=float(g.frequency_step.uncertainty or float("nan")),
             frequency_derivative_step=g.frequency_derivative_step.value,
             frequency_derivative_step_uncertainty=float(unc["frequency_derivative_step"]),
             phase_step=g.phase_step.value,

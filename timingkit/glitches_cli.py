@@ -156,10 +156,16 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
             f" frequency-derivative step {c['frequency_derivative_step']:.3g} ± "
             f"{c['frequency_derivative_step_uncertainty']:.2g} Hz/s, false-alarm probability "
             + ("n/a" if fap is None else f"{fap:.2g}"))
+        for d in c.get("decaying_terms", []):
+            lines.append(f"    decaying step {d['decaying_frequency_step_hz']:.4g} ± "
+                         f"{d['decaying_frequency_step_uncertainty_hz']:.2g} Hz, time-scale "
+                         f"{d['decay_time_days']:.4g} ± {d['decay_time_uncertainty_days']:.2g} days")
     limit = found.get("detection_limit") or {}
     if limit.get("fractional_size") is not None:
         lines.append(f"  detection limit (95 %, typical gap): fractional size "
                      f"{limit['fractional_size']:.2g}")
+    if n:
+        lines.append(f"  note: {found.get('assumptions', '')}")
     for w in report.get("warnings", []):
         lines.append(f"warning: {w}")
     figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""
