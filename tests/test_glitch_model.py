@@ -91,8 +91,8 @@ def test_keys_and_parameter_names():
 
 
 def test_phase_after_the_epoch_matches_the_published_formula(sites, ephemeris):
-    # Glitch phase model of Lorimer & Kramer 2005 (Handbook of Pulsar Astronomy, §8.5) /
-    # Edwards, Hobbs & Manchester 2006 (MNRAS 372, 1549, eq. 121): for dt > 0
+    # Glitch phase model as given in Lorimer & Kramer 2005, Handbook of Pulsar Astronomy,
+    # timing chapter (section from memory): for dt > 0
     # phase = phase_step + df dt + dfdot dt^2 / 2 + df_d tau (1 - exp(-dt / tau)),
     # and nothing before the epoch. The polynomial part is evaluated here in exact
     # rational arithmetic, the decay with math.exp.

@@ -7,9 +7,9 @@ glitch adds, with dt = t_emit - t_g in seconds,
                     + sum_k df_k tau_k (1 - exp(-dt / tau_k))          [cycles]
     frequency(dt) = df + dfdot dt + sum_k df_k exp(-dt / tau_k)        [Hz]
 
-(the standard glitch phase model, e.g. Lorimer & Kramer 2005, Handbook of
-Pulsar Astronomy, §8.5; Edwards, Hobbs & Manchester 2006, MNRAS 372, 1549,
-eq. 121), and nothing before it. Keys (DESIGN.md §4): ``epoch_mjd``,
+(the standard glitch phase model of the trade, as in Lorimer & Kramer 2005,
+Handbook of Pulsar Astronomy, in the chapter on timing; section cited from
+memory), and nothing before it. Keys (DESIGN.md §4): ``epoch_mjd``,
 ``phase_step`` (cycles), ``frequency_step_hz`` (permanent step, Hz),
 ``frequency_derivative_step`` (Hz/s), ``decaying_frequency_step_hz`` (Hz)
 and ``decay_time_days`` (days). The last two may be lists (several decaying
