@@ -379,7 +379,7 @@ def test_manifest_paths_are_relative_to_the_manifest(tmp_path):
     manifest = _write(tmp_path / "deep" / "m.toml", """
 [defaults]
 sites = "shared/sites.toml"
-clock = ["shared/a.clk", "shared/b.clk"]
+clock = ["shared/a.clock", "shared/b.clock"]
 ephemeris = "builtin"
 [[source]]
 name = "demo-one"
@@ -397,7 +397,7 @@ sites = []
     assert one.toas_path == str(base / "one" / "obs.toas")
     assert one.model_path == str((tmp_path / "models" / "one.toml").resolve())
     assert one.sites_paths == (str(base / "shared" / "sites.toml"),)
-    assert one.clock_paths == (str(base / "shared" / "a.clk"), str(base / "shared" / "b.clk"))
+    assert one.clock_paths == (str(base / "shared" / "a.clock"), str(base / "shared" / "b.clock"))
     assert one.ephemeris is None and one.free == () and one.make_plots is True
     assert two.ephemeris == str(base / "eph" / "other.bsp") and two.sites_paths == ()
 

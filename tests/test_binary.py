@@ -191,7 +191,7 @@ def test_retarded_time_is_solved_exactly(sites, ephemeris):
     t0 = p["periastron_epoch_mjd"]
     day, frac = math.floor(t0), t0 - math.floor(t0) + binary.params["periastron_epoch_mjd"].value_lo
     hi, lo = ev.t_bary.seconds_since(day, frac)
-    dt = (hi + lo) - ev.binary_s                             # emission time - T0, seconds
+    dt = (hi + lo) - ev.binary_s                             # emission time - periastron epoch, seconds
     pb = p["orbital_period_days"] * 86400
     u = dt / pb
     mean = 2 * np.pi * (u - 0.5 * p["orbital_period_derivative"] * u ** 2)

@@ -271,7 +271,7 @@ def orbital_phase_cycles(ev: Evaluation) -> np.ndarray | None:
 
 def low_eccentricity_section(keplerian: dict) -> dict:
     """A ``[binary]`` section (dict) of a keplerian/relativistic orbit written
-    in the low-eccentricity form: e sin w, e cos w and T_asc = T0 - w Pb / 2 pi
+    in the low-eccentricity form: e sin w, e cos w and t_asc = t_peri - w Pb / 2 pi
     (exact at the epoch; rates of e and w are not carried over)."""
     e = float(keplerian["eccentricity"])
     w = math.radians(float(keplerian["periastron_longitude_deg"]))
@@ -292,7 +292,7 @@ def low_eccentricity_section(keplerian: dict) -> dict:
 
 def keplerian_section(low_e: dict, model: str = "keplerian") -> dict:
     """The inverse of :func:`low_eccentricity_section`: e = hypot(h, k),
-    w = atan2(h, k), T0 = T_asc + w Pb / 2 pi."""
+    w = atan2(h, k), t_peri = t_asc + w Pb / 2 pi."""
     eta, kappa = float(low_e.get("e_sin_omega", 0.0)), float(low_e.get("e_cos_omega", 0.0))
     e = math.hypot(eta, kappa)
     w = math.atan2(eta, kappa) % (2 * math.pi)

@@ -13,7 +13,7 @@ The inversion of the timing formula (retarded time) is done by the caller
 Formulae
 - Keplerian, Blandford & Teukolsky (1976, ApJ 205, 580):
   D = x sin w (cos E - e) + (x sqrt(1-e^2) cos w + gamma) sin E,
-  w = w0 + w_dot (t - T0) (linear in time).
+  w = w0 + w_dot (t - t_peri) (linear in time; t_peri the periastron epoch).
 - Relativistic, Damour & Deruelle (1986, Ann. Inst. H. Poincare 44, 263),
   as summarised by Taylor & Weisberg (1989, ApJ 345, 434) and Lorimer &
   Kramer (2005, sect. 8.3): the same Roemer/Einstein form with
