@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from timingkit.errors import InputError
+from timingkit.textfile import read_text_file
 
 
 @dataclass
@@ -53,17 +54,7 @@ class ClockTable:
 
 def read_clock_table(path: str) -> ClockTable:
     """Read and validate a clock table; errors name the file, line and field."""
-    try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise InputError("clock-correction table not found", path=path) from None
-    if b"\0" in raw:
-        raise InputError("not a text clock table (binary content)", path=path)
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError("not a text clock table (not UTF-8)", path=path) from None
+    text = read_text_file(path, "clock-correction table")
     sites: tuple[str, ...] = ()
     converts = ""
     header = None

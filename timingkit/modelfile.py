@@ -21,6 +21,7 @@ from decimal import Decimal, InvalidOperation
 from typing import Any
 
 from timingkit.errors import InputError
+from timingkit.textfile import read_text_file
 
 KINDS = ("text", "decimal", "number", "integer", "bool", "list_decimal", "list_number",
          "list_text", "list_list_number", "mjd", "table")
@@ -51,20 +52,7 @@ class ModelDocument:
 
 
 def read_model_document(path: str) -> ModelDocument:
-    try:
-        with open(path, "rb") as fh:
-            raw = fh.read()
-    except FileNotFoundError:
-        raise InputError("model file not found", path=path) from None
-    except IsADirectoryError:
-        raise InputError("is a directory, expected a TOML model file", path=path) from None
-    if b"\0" in raw:
-        raise InputError("not a text TOML model file (binary content)", path=path)
-    try:
-        text = raw.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError("not a UTF-8 text TOML model file", path=path) from None
-    return parse_model_text(text, path)
+    return parse_model_text(read_text_file(path, "TOML model file"), path)
 
 
 def parse_model_text(text: str, path: str | None = None) -> ModelDocument:
