@@ -488,7 +488,7 @@ def _try_decay(res: FitResult, obs, reference, pulse, epoch, settings, span_afte
         free = _free_flags(base.model)
         free[epoch] = _glitch_keys(0) | {DECAY_AMPLITUDE}
         trial = _rebuild(base.model, sections, free)
-        _fix_decay_times_except_last(trial, epoch)
+        _hold_decay_times(trial, epoch)
         try:
             fitted = _fit(trial, obs, reference, pulse)
         except FitError:
@@ -518,13 +518,15 @@ def _try_decay(res: FitResult, obs, reference, pulse, epoch, settings, span_afte
     return fitted
 
 
-def _fix_decay_times_except_last(model, epoch):
+def _hold_decay_times(model, epoch):
+    """Time-scales of the glitch at ``epoch`` held fixed (the grid step)."""
     g = _glitch_at(model, epoch)
     for p in g.decay_times:
         p.free = False
 
 
 def _add_decays(res, accepted, obs, reference, pulse, settings):
+    """One decaying term tried on each glitch in ``accepted`` (in turn)."""
     for acc in accepted:
         if acc.forced:
             continue
