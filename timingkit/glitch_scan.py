@@ -5,10 +5,22 @@ Each gap between TOAs gets a window of TOAs on each side, fitted with phase,
 frequency and frequency derivative referred to the gap; the differences of
 the fitted frequency and frequency derivative, with the windows'
 covariances scaled up by their reduced chi-squares above 1, give a 2-dof
-chi-square per gap. White noise with the TOA uncertainties sent through the
-very same windows gives the null distribution of the largest one, hence the
-global false-alarm probability. All windows are solved at once with batched
-3x3 algebra (numpy), which is why this is written by hand.
+chi-square per gap. Noise sent through the very same windows gives the null
+distribution of the largest one, hence the global false-alarm probability:
+white noise with the TOA uncertainties, or, when the timing model has noise
+sections, the whole noise model (:class:`NullNoise`: the scaled white errors
+plus the red process on its Fourier basis).
+
+With red noise the window fits stay weighted by the white errors (each
+window is short, and its quadratic absorbs most of the red power), but the
+covariance of the steps between the two windows gains the red-noise term
+D Phi D^T (D: response of the step estimates to the Fourier coefficients,
+Phi their prior variances), including the correlation of the two windows,
+so that each gap's statistic is again close to a 2-dof chi-square under the
+noise model; the reduced chi-square of a window is taken against its
+expected value under the noise model ((n - 3) plus the red power its
+quadratic leaves). All windows are solved at once with batched 3x3 algebra
+(numpy), which is why this is written by hand.
 """
 
 from __future__ import annotations
@@ -42,6 +54,29 @@ class GapWindows:
     n_right: np.ndarray
     left_bwd: np.ndarray      # (G,) window numbered by the backward chain
     right_bwd: np.ndarray
+    red_cov: np.ndarray | None = None     # (G, 2, 2) red-noise covariance of the steps
+    red_chi2_left: np.ndarray | None = None   # (G,) expected red-noise chi-square of a window
+    red_chi2_right: np.ndarray | None = None
+
+
+@dataclass
+class NullNoise:
+    """The noise of the null realisations, in cycles, in the search's
+    time-sorted TOA order: white noise of ``sigma`` (N,) and, optionally, red
+    noise ``red @ z`` with z unit normal, ``red`` (N, K) the red-noise Fourier
+    basis times the square root of each coefficient's prior variance (the same
+    draw as timingkit.model.noise.NoiseModel.realisations_s, converted to
+    cycles)."""
+    sigma: np.ndarray
+    red: np.ndarray | None = None
+
+    def draw(self, rng, count: int) -> np.ndarray:
+        """(count, N) realisations; white part first from ``rng`` (as before red
+        noise existed, so white-only searches keep their random streams)."""
+        out = rng.standard_normal((count, len(self.sigma))) * self.sigma[None, :]
+        if self.red is not None:
+            out += rng.standard_normal((count, self.red.shape[1])) @ self.red.T
+        return out
 
 
 def _barrier_bounds(n, barriers):
@@ -88,11 +123,23 @@ def _estimators(idx, x, sigma):
     return est, aw, cov, w, ok
 
 
-def build_windows(t_s, sigma, chains, barriers, window_toas, window_days) -> GapWindows:
+def _red_terms(idx, x, est, w, red):
+    """Response (G, 3, K) of a window's parameters to the red-noise
+    coefficients, and the expected red-noise chi-square (G,) its quadratic
+    leaves (sum of w (r - A E r)^2 over the coefficients' unit variances)."""
+    rows = red[np.maximum(idx, 0)] * (idx >= 0)[..., None]      # (G, W, K)
+    response = np.matmul(est, rows)                               # (G, 3, K)
+    left_over = rows - np.matmul(_design(x), response)            # (G, W, K)
+    return response, np.einsum("gw,gwk,gwk->g", w, left_over, left_over)
+
+
+def build_windows(t_s, sigma, chains, barriers, window_toas, window_days,
+                  red=None) -> GapWindows:
     """Left/right windows of every candidate gap (module docstring, step 2).
     Each window takes its pulse numbering from whichever tracking chain
     connects more of its TOAs (the forward chain by preference on the left,
-    the backward chain on the right)."""
+    the backward chain on the right). ``red``: the red-noise columns of
+    :class:`NullNoise` (cycles), or None for white noise only."""
     n = len(t_s)
     t_days = t_s / SECONDS_PER_DAY
     gap_width = np.diff(t_days)
@@ -130,11 +177,18 @@ def build_windows(t_s, sigma, chains, barriers, window_toas, window_days) -> Gap
     e_l, aw_l, c_l, w_l, ok_l = _estimators(left, x_l, sigma)
     e_r, aw_r, c_r, w_r, ok_r = _estimators(right, x_r, sigma)
     sel = np.nonzero(ok_l & ok_r)[0]
+    red_cov = red_chi2_l = red_chi2_r = None
+    if red is not None:
+        resp_l, red_chi2_l = _red_terms(left[sel], x_l[sel], e_l[sel], w_l[sel], red)
+        resp_r, red_chi2_r = _red_terms(right[sel], x_r[sel], e_r[sel], w_r[sel], red)
+        d = resp_r[:, 1:, :] - resp_l[:, 1:, :]                   # (G, 2, K)
+        red_cov = np.matmul(d, np.swapaxes(d, 1, 2))
     return GapWindows(gaps=gaps[sel], left=left[sel], right=right[sel], e_left=e_l[sel],
                     e_right=e_r[sel], aw_left=aw_l[sel], aw_right=aw_r[sel],
                     cov_left=c_l[sel], cov_right=c_r[sel], w_left=w_l[sel], w_right=w_r[sel],
                     n_left=n_l[sel], n_right=n_r[sel], left_bwd=left_bwd[sel],
-                    right_bwd=right_bwd[sel])
+                    right_bwd=right_bwd[sel], red_cov=red_cov, red_chi2_left=red_chi2_l,
+                    red_chi2_right=red_chi2_r)
 
 
 def _window_fits(e, aw, w, idx, r, r_alt=None, use_alt=None):
@@ -166,11 +220,20 @@ def gap_statistics(win: GapWindows, r_fwd, r_bwd=None):
                                r_bwd, win.left_bwd)
     p_r, chi2_r = _window_fits(win.e_right, win.aw_right, win.w_right, win.right, r_fwd,
                                r_bwd, win.right_bwd)
-    s_l = np.maximum(1.0, chi2_l / (win.n_left - 3))
-    s_r = np.maximum(1.0, chi2_r / (win.n_right - 3))
     d = p_r[..., 1:] - p_l[..., 1:]
-    c = (s_l[..., None, None] * win.cov_left[:, 1:, 1:]
-         + s_r[..., None, None] * win.cov_right[:, 1:, 1:])
+    if win.red_cov is None:
+        s_l = np.maximum(1.0, chi2_l / (win.n_left - 3))
+        s_r = np.maximum(1.0, chi2_r / (win.n_right - 3))
+        c = (s_l[..., None, None] * win.cov_left[:, 1:, 1:]
+             + s_r[..., None, None] * win.cov_right[:, 1:, 1:])
+    else:
+        # reduced chi-squares against their expectation under the noise model;
+        # the joint red term scales with the mean of the two
+        s_l = np.maximum(1.0, chi2_l / (win.n_left - 3 + win.red_chi2_left))
+        s_r = np.maximum(1.0, chi2_r / (win.n_right - 3 + win.red_chi2_right))
+        c = (s_l[..., None, None] * win.cov_left[:, 1:, 1:]
+             + s_r[..., None, None] * win.cov_right[:, 1:, 1:]
+             + 0.5 * (s_l + s_r)[..., None, None] * win.red_cov)
     det = c[..., 0, 0] * c[..., 1, 1] - c[..., 0, 1] ** 2
     stat = (c[..., 1, 1] * d[..., 0] ** 2 - 2 * c[..., 0, 1] * d[..., 0] * d[..., 1]
             + c[..., 0, 0] * d[..., 1] ** 2) / det
@@ -179,27 +242,30 @@ def gap_statistics(win: GapWindows, r_fwd, r_bwd=None):
 
 @dataclass
 class NullDistribution:
-    """Largest gap statistic of each white-noise realisation, all per-gap
+    """Largest gap statistic of each null (noise-only) realisation, all per-gap
     values pooled (sorted), and the effective number of independent gaps."""
     maxima: np.ndarray
     pooled: np.ndarray
     n_effective: float
 
 
-def null_distribution(win: GapWindows, sigma, trials: int, rng) -> NullDistribution:
-    """Gap statistics of pure white noise (``sigma``: TOA uncertainties in
-    cycles) through the same windows and scaling (step 3). The effective
+def null_distribution(win: GapWindows, noise, trials: int, rng) -> NullDistribution:
+    """Gap statistics of pure noise through the same windows and scaling
+    (step 3): ``noise`` a :class:`NullNoise`, or an array of TOA
+    uncertainties in cycles for white noise only. The effective
     number of independent gaps N makes (1 - S(x))^N, with S the pooled per-gap
     survival function, match the distribution of the maxima at its upper
     quantile (1 - 25/trials), where the far tail is extrapolated from."""
-    n = len(sigma)
+    if not isinstance(noise, NullNoise):
+        noise = NullNoise(np.asarray(noise, dtype=float))
+    n = len(noise.sigma)
     g, width = win.left.shape
     chunk = max(1, int(3_000_000 // max(g * width, 1)))
     maxima, pooled = [], []
     done = 0
     while done < trials:
         m = min(chunk, trials - done)
-        r = rng.standard_normal((m, n)) * sigma[None, :]
+        r = noise.draw(rng, m)
         stat, *_ = gap_statistics(win, r)
         maxima.append(np.max(stat, axis=1))
         pooled.append(stat.ravel())
@@ -250,12 +316,15 @@ def threshold_statistic(null: NullDistribution, fap: float) -> float:
 
 def detection_limit(win: GapWindows, threshold: float, frequency_hz: float) -> dict:
     """Smallest frequency step found with 95 % probability at a typical gap:
-    non-central 2-dof chi-square above ``threshold`` (white noise, no scaling)."""
+    non-central 2-dof chi-square above ``threshold`` (the noise model's
+    covariance of the steps, no scaling)."""
     if len(win.gaps) == 0:
         return {"frequency_step_hz": None, "fractional_size": None}
     from scipy.optimize import brentq
     lam = brentq(lambda nc: scipy.stats.ncx2.sf(threshold, 2, nc) - 0.95, 1e-6, 1e5)
     c = win.cov_left[:, 1:, 1:] + win.cov_right[:, 1:, 1:]
+    if win.red_cov is not None:
+        c = c + win.red_cov
     inv_ff = c[:, 1, 1] / (c[:, 0, 0] * c[:, 1, 1] - c[:, 0, 1] ** 2)
     step = np.sqrt(lam / inv_ff) / SECONDS_PER_DAY
     return {"frequency_step_hz": float(np.median(step)),
@@ -263,7 +332,9 @@ def detection_limit(win: GapWindows, threshold: float, frequency_hz: float) -> d
             "fractional_size_90th_percentile_gap": float(np.percentile(step, 90) / frequency_hz),
             "statistic_threshold": float(threshold),
             "note": "95 % detection probability for a pure frequency step at the median gap, "
-                    "white noise, at the minimum significance; larger steps than "
+                    + ("white and red noise of the model's noise sections"
+                       if win.red_cov is not None else "white noise")
+                    + ", at the minimum significance; larger steps than "
                     "max_fractional_step cannot be reconnected"}
 
 
