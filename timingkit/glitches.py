@@ -14,9 +14,10 @@ The search works on the pulse-phase residuals of a starting timing model
    gap between TOAs, windows of TOAs before and after it (``window_toas`` or
    ``window_days``) are fitted with phase, frequency and frequency derivative
    referred to the gap; their differences give a 2-dof chi-square per gap.
-   The largest is compared with its distribution for white noise with the
-   TOA uncertainties sent through the same windows (``null_trials``
-   simulations): a candidate is accepted when this global false-alarm
+   The largest is compared with its distribution for noise sent through the
+   same windows (``null_trials`` simulations): white noise with the TOA
+   uncertainties or, when the model has noise sections, the noise model
+   (next paragraph). A candidate is accepted when this global false-alarm
    probability is below the two-sided Gaussian tail of ``min_significance``
    sigma; windows are then cut at it and the next largest gap is tested.
    Candidates just after a much larger glitch accepted in the same pass wait
@@ -35,10 +36,21 @@ The search works on the pulse-phase residuals of a starting timing model
    their spread enters the epoch uncertainty, which is propagated into the
    steps' uncertainties.
 
+Noise model (timingkit.model.noise). With [[white_noise]] groups every
+step weights the TOAs by the scaled uncertainties. With [red_noise] the
+null realisations are drawn from the whole noise model (white plus the red
+process on its Fourier basis, in cycles, in the search's time order), the
+covariance of each gap's steps includes the red noise of both windows
+(timingkit.glitch_scan), and every fit is the generalised least squares of
+timingkit.fitting; noise parameters left free in the model are estimated in
+those fits and used by the next pass. Without red noise in the model, red
+timing noise in the data makes the false-alarm probabilities optimistic
+(spurious candidates).
+
 Passes repeat on the residuals of the fitted model until nothing new is
-significant. Assumptions stated with the results: white TOA noise (red
-timing noise makes false-alarm probabilities optimistic) and a locally
-quadratic phase over each window. Glitches within ``MIN_WINDOW_TOAS`` TOAs
+significant. Assumptions stated with the results: the noise (white with
+the stated or scaled uncertainties, or the model's noise sections) and a
+locally quadratic phase over each window. Glitches within ``MIN_WINDOW_TOAS`` TOAs
 of the ends of the data or of another glitch cannot be found by the scan.
 Times in this module are TDB seconds at the pulsar since the spin epoch
 unless named ``_days`` or ``_mjd``.
@@ -57,14 +69,15 @@ import scipy.stats
 
 from timingkit.errors import FitError, InputError
 from timingkit.fitting import FitResult, fit
-from timingkit.glitch_scan import (MIN_GAP_DAYS, GapWindows, NullDistribution, build_windows,
-                                   detection_limit, false_alarm_probability, gap_statistics,
-                                   null_distribution, local_survival, gaussian_sigma,
-                                   threshold_statistic)
+from timingkit.glitch_scan import (MIN_GAP_DAYS, GapWindows, NullDistribution, NullNoise,
+                                   build_windows, detection_limit, false_alarm_probability,
+                                   gap_statistics, null_distribution, local_survival,
+                                   gaussian_sigma, threshold_statistic)
 from timingkit.glitch_tracking import (MIN_WINDOW_TOAS, SECONDS_PER_DAY, TrackingChain,
                                        _quadratic_fit, number_pulses, solve_seed, track_phases)
 from timingkit.model.glitch import (DECAY_AMPLITUDE, DECAY_TIME, Glitch, glitch_section,
                                     model_glitches, set_glitches)
+from timingkit.model.noise import NoiseModel, toa_times_s
 from timingkit.model.timing_model import TimingModel
 from timingkit.observations import Observations
 
@@ -88,6 +101,27 @@ MAX_GLITCHES_PER_PASS = 20
 ASSUMPTIONS = ("false-alarm probabilities assume white TOA noise with the stated uncertainties "
                "and a locally quadratic phase over each window (red timing noise makes them "
                "optimistic); glitch epochs are only known to lie between the bracketing TOAs")
+ASSUMPTIONS_WITH_NOISE_MODEL = (
+    "false-alarm probabilities assume the noise of the model's noise sections (white-noise "
+    "scaling{red}) and a locally quadratic phase over each window; they are only as good as "
+    "those noise parameters (noise stronger than stated makes them optimistic); glitch epochs "
+    "are only known to lie between the bracketing TOAs")
+
+
+def search_assumptions(model: TimingModel) -> tuple[str, str]:
+    """(assumptions, description of the null noise) for a search with ``model``."""
+    noise = NoiseModel.from_timing_model(model)
+    if noise.empty:
+        return ASSUMPTIONS, "white noise with the TOA uncertainties of the table"
+    parts = [f"white noise with the uncertainties scaled by {len(noise.white)} "
+             "[[white_noise]] group(s)" if noise.white else
+             "white noise with the TOA uncertainties of the table"]
+    if noise.red is not None:
+        parts.append(f"power-law red noise (amplitude_log10 {noise.red.amplitude.value:g}, "
+                     f"spectral_index {noise.red.spectral_index.value:g}, "
+                     f"{noise.red.frequencies} Fourier frequencies)")
+    red = " and power-law red noise" if noise.red is not None else ""
+    return ASSUMPTIONS_WITH_NOISE_MODEL.format(red=red), " plus ".join(parts)
 
 
 # ============================================================================ settings, results
@@ -235,11 +269,14 @@ class GlitchSearchResult:
     settings: GlitchSearchSettings
     warnings: list[str] = field(default_factory=list)
     dropped_toas: int = 0
+    assumptions: str = ASSUMPTIONS
+    null_noise: str = "white noise with the TOA uncertainties of the table"
 
     def to_json(self) -> dict:
         return {"candidates": [c.to_json() for c in self.candidates],
                 "units": UNITS, "detection_limit": self.detection_limit,
-                "settings": self.settings.as_dict(), "assumptions": ASSUMPTIONS,
+                "settings": self.settings.as_dict(), "assumptions": self.assumptions,
+                "null_noise": self.null_noise,
                 "toas_used": int(len(self.obs)), "toas_left_out": int(self.dropped_toas),
                 "warnings": list(self.warnings)}
 
@@ -252,20 +289,40 @@ class _PhaseData:
     t_s: np.ndarray         # emission time, s since the spin epoch (sorted)
     frac: np.ndarray        # model phase fraction (cycles)
     phase_int: np.ndarray   # model phase integer part
-    sigma: np.ndarray       # TOA uncertainty in cycles
+    sigma: np.ndarray       # white TOA uncertainty in cycles (scaled by the noise model)
     frequency_hz: np.ndarray
     spin_epoch_mjd: float
+    red: np.ndarray | None = None   # red-noise columns in cycles (see NullNoise), or None
+
+    @property
+    def null_noise(self) -> NullNoise:
+        return NullNoise(self.sigma, self.red)
+
+
+def white_errors_us(model: TimingModel, obs: Observations) -> np.ndarray:
+    """TOA uncertainties the search weights with (µs): the table's, scaled by
+    the model's [[white_noise]] groups when it has any."""
+    noise = NoiseModel.from_timing_model(model)
+    return noise.white_errors_us(obs.toas) if noise.white else obs.toas.err_us
 
 
 def _phase_data(model: TimingModel, obs: Observations, reference) -> _PhaseData:
     ev = model.evaluate(obs, reference)
     t = ev.extra["spin_dt_s"]
     order = np.argsort(t, kind="stable")
-    sigma = obs.toas.err_us * 1e-6 * ev.spin_frequency_hz
+    sigma = white_errors_us(model, obs) * 1e-6 * ev.spin_frequency_hz
+    red = None
+    noise = NoiseModel.from_timing_model(model)
+    if noise.red is not None:
+        # the red process on its Fourier basis, each column times the square root
+        # of its coefficient's prior variance, in cycles (seconds x spin frequency)
+        basis, span_s = noise.red_basis(toa_times_s(obs))
+        red = (basis * np.sqrt(noise.red_prior(span_s))[None, :]
+               * ev.spin_frequency_hz[:, None])[order]
     return _PhaseData(order=order, t_s=t[order], frac=ev.phase_frac[order],
                       phase_int=ev.phase_int[order], sigma=sigma[order],
                       frequency_hz=ev.spin_frequency_hz[order],
-                      spin_epoch_mjd=model.spin.epoch_day + model.spin.epoch_frac)
+                      spin_epoch_mjd=model.spin.epoch_day + model.spin.epoch_frac, red=red)
 
 
 def _ranges(model: TimingModel, settings: GlitchSearchSettings):
@@ -322,7 +379,7 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
         for gap in known_gaps:
             others = barriers | (set(known_gaps) - {gap})
             win = build_windows(data.t_s, data.sigma, chains, others,
-                                settings.window_toas, settings.window_days)
+                                settings.window_toas, settings.window_days, data.red)
             hit = np.nonzero(win.gaps == gap)[0]
             if len(hit) == 0:
                 mjd = data.spin_epoch_mjd + data.t_s[gap] / SECONDS_PER_DAY
@@ -335,7 +392,7 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
                 continue
             k = int(hit[0])
             stat, *_ = gap_statistics(win, r_fwd, r_bwd)
-            null = null_distribution(win, data.sigma, int(settings.null_trials), rng)
+            null = null_distribution(win, data.null_noise, int(settings.null_trials), rng)
             local = local_survival(null.pooled, float(stat[k]))
             accepted.append(estimate(win, k, stat[k], float(local), known=True))
             if not limit:
@@ -344,17 +401,17 @@ def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
 
     for _ in range(MAX_GLITCHES_PER_PASS):
         win = build_windows(data.t_s, data.sigma, chains, barriers,
-                            settings.window_toas, settings.window_days)
+                            settings.window_toas, settings.window_days, data.red)
         if len(win.gaps) == 0:
             break
         stat, *_ = gap_statistics(win, r_fwd, r_bwd)
         k = int(np.argmax(stat))
         # a short null run settles clear cases; borderline ones get the full run
         trials = int(settings.null_trials)
-        null = null_distribution(win, data.sigma, min(trials, QUICK_NULL_TRIALS), rng)
+        null = null_distribution(win, data.null_noise, min(trials, QUICK_NULL_TRIALS), rng)
         fap = false_alarm_probability(null, float(stat[k]))
         if trials > QUICK_NULL_TRIALS and threshold / 30 < fap < min(0.5, 30 * threshold):
-            null = null_distribution(win, data.sigma, trials, rng)
+            null = null_distribution(win, data.null_noise, trials, rng)
             fap = false_alarm_probability(null, float(stat[k]))
         if not limit:
             limit = detection_limit(win, threshold_statistic(null, threshold), f_ref)
@@ -936,11 +993,12 @@ def search_glitches(model: TimingModel, obs: Observations,
         warnings.append("some glitches unwound the phase by more than one turn between the "
                         "bracketing TOAs: their epochs are uncertain over the whole gap")
     track, before = _track_and_residuals(current, use_obs, reference, settings, result_fit)
+    assumptions, null_noise = search_assumptions(current)
     return GlitchSearchResult(
         candidates=candidates, model=current, fit=result_fit, obs=use_obs, track=track,
         residual_mjd=before[0], residual_us=before[1], residual_err_us=before[2],
         detection_limit=detection, settings=settings, warnings=list(dict.fromkeys(warnings)),
-        dropped_toas=dropped)
+        dropped_toas=dropped, assumptions=assumptions, null_noise=null_noise)
 
 
 def _candidates(model, res, found: list[_Accepted]) -> list[GlitchCandidate]:
@@ -1013,7 +1071,7 @@ def _track_and_residuals(model, obs, reference, settings, res):
         pulse = ev_full.phase_int
     phase = (ev.phase_int - pulse) + ev.phase_frac
     f = ev.spin_frequency_hz
-    err_us = obs.toas.err_us
+    err_us = white_errors_us(model, obs)
     w = 1.0 / err_us ** 2
     resid_us = phase / f * 1e6
     resid_us = resid_us - np.sum(w * resid_us) / np.sum(w)
@@ -1056,5 +1114,6 @@ def _track_and_residuals(model, obs, reference, settings, res):
 __all__ = ["GlitchSearchSettings", "GlitchCandidate", "GlitchSearchResult", "FrequencyTrack",
            "search_glitches", "track_phases", "solve_seed", "number_pulses", "TrackingChain",
            "build_windows", "gap_statistics", "GapWindows", "null_distribution",
-           "NullDistribution", "false_alarm_probability", "detection_limit",
+           "NullDistribution", "NullNoise", "false_alarm_probability", "detection_limit",
+           "search_assumptions", "white_errors_us",
            "DEFAULT_WINDOW_TOAS", "DEFAULT_MIN_SIGNIFICANCE", "ASSUMPTIONS"]

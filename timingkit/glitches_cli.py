@@ -17,7 +17,7 @@ import argparse
 import os
 
 from timingkit.errors import FitError
-from timingkit.glitches import (ASSUMPTIONS, DEFAULT_MIN_SIGNIFICANCE, DEFAULT_NULL_TRIALS,
+from timingkit.glitches import (DEFAULT_MIN_SIGNIFICANCE, DEFAULT_NULL_TRIALS,
                                 GlitchSearchResult, GlitchSearchSettings, search_glitches)
 from timingkit.pipeline import load_inputs, write_fit_outputs
 from timingkit.report import build_report, write_json
@@ -38,7 +38,8 @@ def glitch_report(result: GlitchSearchResult) -> dict:
         "detection_limit": result.detection_limit,
         "settings": result.settings.as_dict(),
         "toas_left_out": result.dropped_toas,
-        "assumptions": ASSUMPTIONS,
+        "assumptions": result.assumptions,
+        "null_noise": result.null_noise,
     }
     report["warnings"] = list(report.get("warnings", [])) + list(result.warnings)
     return report
@@ -91,8 +92,9 @@ def add_glitches_parser(subparsers) -> argparse.ArgumentParser:
     p = subparsers.add_parser(
         "glitches", help="search TOAs for glitches, fit them, plot and report",
         description="Track the spin frequency in sliding windows, find change points with "
-                    "false-alarm probabilities from simulated white noise, keep the phase "
-                    "connected across glitches, fit each glitch as a model component.")
+                    "false-alarm probabilities from simulated noise (white, or the model's "
+                    "[[white_noise]]/[red_noise] sections), keep the phase connected across "
+                    "glitches, fit each glitch as a model component.")
     p.add_argument("toas", help="TOA table (plain text)")
     p.add_argument("model", help="starting timing model (TOML)")
     p.add_argument("-o", "--outdir", default="timingkit-glitches", help="output folder")
@@ -107,7 +109,7 @@ def add_glitches_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--known-epochs", nargs="+", type=_mjd, metavar="MJD",
                    help="test and fit glitches at these epochs (TDB) instead of searching")
     p.add_argument("--null-trials", type=int, default=DEFAULT_NULL_TRIALS, metavar="N",
-                   help=f"white-noise simulations for the false-alarm probabilities "
+                   help=f"noise simulations for the false-alarm probabilities "
                         f"(default {DEFAULT_NULL_TRIALS})")
     p.add_argument("--no-decay", action="store_true",
                    help="do not try decaying frequency steps")
