@@ -344,3 +344,19 @@ def test_new_design_matrix_columns_match_numerical_derivatives(sites, ephemeris)
         scale = np.max(np.abs(num))
         assert scale > 0, name
         assert np.max(np.abs(design[:, j] - num)) < 1e-4 * scale, name
+
+
+def test_sexagesimal_reader_agrees_with_astropy_angle():
+    # The exact fast path for 'HHhMMmSS.s' / 'DDdMMmSS.s' / colon forms must
+    # give astropy.coordinates.Angle's value (an independent parser) to 1e-15 rad.
+    from astropy.coordinates import Angle
+    from timingkit.model.astrometry import parse_angle
+    for text, unit in [("05h12m33.4567s", "hourangle"), ("17:53:20.1234567", "hourangle"),
+                       ("23h59m59.999999s", "hourangle"), ("+21d02m11.234s", "deg"),
+                       ("-07d41m12.345678s", "deg"), ("-00:30:00.5", "deg"),
+                       ("89d59m59.9999s", "deg")]:
+        assert abs(parse_angle(text, unit, "f", None) - Angle(text, unit=unit).radian) < 1e-15
+    import pytest
+    from timingkit.errors import InputError
+    with pytest.raises(InputError):
+        parse_angle("05h61m00s", "hourangle", "position.ra", "m.toml")

@@ -25,7 +25,6 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.optimize
 
 from timingkit.errors import FitError
 from timingkit.gls import RedLikelihood, marginal_log_likelihood
@@ -151,6 +150,8 @@ def fit_noise(noise: NoiseModel, toas, design_s: np.ndarray, resid_s: np.ndarray
         if _kind(n) == "added_error_us" and y0[i] == 0.0:
             y0[i] = 0.01
     y0 = _scan_amplitude(objective, y0, names, bounds)
+    import scipy.optimize  # here, not at module level: ~0.3 s of import for every CLI run
+
     opt = scipy.optimize.minimize(objective, y0, method="L-BFGS-B", bounds=bounds,
                                   options={"maxiter": 500})
     y_best = opt.x

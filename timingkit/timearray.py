@@ -92,5 +92,4 @@ class SplitTime:
         carry = units // scale          # handles fractions rounding to 1 or below 0
         units = units - carry * scale
         day = day + carry
-        frac_text = np.char.zfill(units.astype(str), decimals)
-        return np.char.add(np.char.add(day.astype(str), "."), frac_text).tolist()
+        return [f"{d}.{u:0{decimals}d}" for d, u in zip(day.tolist(), units.tolist())]

@@ -26,10 +26,11 @@ term; it does not enter the delays; the parallax does).
 from __future__ import annotations
 
 import math
+import re
+from fractions import Fraction
 from decimal import Decimal
 
 import numpy as np
-from astropy.coordinates import Angle
 
 from timingkit import delays
 from timingkit.errors import InputError
@@ -76,10 +77,39 @@ ICRS_TO_ECLIPTIC = np.array([[1.0, 0.0, 0.0], [0.0, _C, _S], [0.0, -_S, _C]])
 FRAME_TO_ICRS = {"equatorial": np.eye(3), "ecliptic": ICRS_TO_ECLIPTIC.T.copy()}
 
 
+_SEXAGESIMAL = re.compile(r"^\s*([+-]?)(\d+)([hd:])(\d+)([m:])(\d+(?:\.\d*)?)(s?)\s*$")
+
+
+def _parse_sexagesimal(text: str, unit: str):
+    """Exact reading of 'HHhMMmSS.sss s', 'DDdMMmSS.sss s' or colon forms:
+    the fields are combined as exact rationals and rounded once. Returns None
+    for other forms (left to astropy). Written here because astropy's Angle
+    goes through floats, and importing astropy.coordinates costs ~0.4 s."""
+    m = _SEXAGESIMAL.match(text)
+    if not m:
+        return None
+    sign, whole, sep1, minutes, sep2, seconds, _ = m.groups()
+    if sep1 != ":" and (sep1 == "h") != (unit == "hourangle"):
+        return None
+    if (sep1 == ":") != (sep2 == ":"):
+        return None
+    if int(minutes) >= 60 or Fraction(seconds) >= 60:
+        raise ValueError("minutes and seconds must be below 60")
+    value = Fraction(int(whole)) + Fraction(int(minutes), 60) + Fraction(seconds) / 3600
+    if sign == "-":
+        value = -value
+    turns = value / (24 if unit == "hourangle" else 360)
+    return float(turns * 2) * math.pi
+
+
 def parse_angle(text: str, unit: str, field: str, path: str | None) -> float:
     """Right ascension (hours) or declination (degrees) in radians, from
     sexagesimal ('05h12m33.4s', '05:12:33.4') or decimal degrees ('78.14d')."""
     try:
+        fast = _parse_sexagesimal(text, unit)
+        if fast is not None:
+            return fast
+        from astropy.coordinates import Angle
         ang = Angle(text, unit=unit)
     except Exception:
         raise InputError(f"cannot read angle {text!r} (e.g. '05h12m33.4567s' or '05:12:33.4567'"
@@ -88,15 +118,18 @@ def parse_angle(text: str, unit: str, field: str, path: str | None) -> float:
 
 
 def format_ra(ra_rad: float) -> str:
+    from astropy.coordinates import Angle
     return Angle(ra_rad, unit="rad").to_string(unit="hourangle", sep="hms", precision=9, pad=True)
 
 
 def format_dec(dec_rad: float) -> str:
+    from astropy.coordinates import Angle
     return Angle(dec_rad, unit="rad").to_string(unit="deg", sep="dms", precision=8,
                                                 alwayssign=True, pad=True)
 
 
 def format_longitude_dms(lon_deg: float) -> str:
+    from astropy.coordinates import Angle
     return Angle(lon_deg % 360.0, unit="deg").to_string(unit="deg", sep="dms", precision=8,
                                                         pad=True)
 
