@@ -217,6 +217,9 @@ class Binary(Component):
         ev.binary_s = ev.binary_s + delay + shapiro
         ev.extra["binary"] = (state, arrival)
         ev.extra["orbital_phase_cycles"] = state.anomaly.cycles
+        # d(t_emit)/d(t_bary) = 1/(1 + dD/dt): delays upstream of the orbit move the
+        # emission time by this factor (applied in TimingModel.design_matrix)
+        ev.extra["emit_per_bary"] = 1.0 / (1.0 + state.rate)
 
     def partials(self, ev: Evaluation, names: list[str]) -> dict[str, np.ndarray]:
         """d(t_emit)/d(param) = -d(binary delay)/d(param), seconds per unit."""

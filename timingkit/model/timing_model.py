@@ -202,6 +202,8 @@ class TimingModel:
             cols = comp.partials(ev, wanted)
             for name in wanted:
                 col = cols[name]
+                if comp.kind in ("geometry", "delay") and "emit_per_bary" in ev.extra:
+                    col = col * ev.extra["emit_per_bary"]   # through the orbit's time warp
                 if comp.kind != "phase":
                     col = col * ev.spin_frequency_hz
                 out[:, names.index(name)] = col
