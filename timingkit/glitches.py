@@ -773,7 +773,10 @@ def _glitch_uncertainties(res: FitResult, g: Glitch, acc: _Accepted) -> dict:
     -A d / tau. When several epochs in the gap zero the phase step (a glitch
     that unwinds more than a turn there) their spread is added; with none,
     the epoch variance is that of a uniform spread over the gap; and it is at
-    least the spread over all gaps the fit allows (``acc.epoch_variance``)."""
+    least the spread over all gaps the fit allows (``acc.epoch_variance``).
+    A larger epoch variance than the fit's is added along the shift; a
+    smaller one (the gap confines the epoch) shrinks the parts of the steps
+    correlated with the epoch, which keeps every variance >= 0."""
     names = res.free_names
     cov = res.covariance[:len(names), :len(names)]
     idx = {p.name: names.index(p.name) for p in g.parameters() if p.name in names}
@@ -796,7 +799,15 @@ def _glitch_uncertainties(res: FitResult, g: Glitch, acc: _Accepted) -> dict:
     uniform_gap = acc.gap_width_s ** 2 / 12.0
     target = (min(out[2, 2], uniform_gap) + acc.root_spread) if acc.n_roots else uniform_gap
     target = max(target, acc.epoch_variance)
-    out = out + (target - out[2, 2]) * np.outer(shift, shift)
+    if target >= out[2, 2]:
+        # more epoch spread than the fit's (independent of it): added along the shift
+        out = out + (target - out[2, 2]) * np.outer(shift, shift)
+    elif out[2, 2] > 0:
+        # less (the epoch is confined to the gap): the rows' parts correlated with
+        # the epoch shrink with it (regression on the epoch row), so the
+        # covariance stays positive semi-definite
+        along = out[:, 2] / out[2, 2]
+        out = out - (out[2, 2] - target) * np.outer(along, along)
     sig = np.sqrt(np.maximum(np.diag(out), 0.0))
     return {"frequency_step": float(sig[0]), "frequency_derivative_step": float(sig[1]),
             "epoch_s": float(sig[2]), "decay_amplitudes": [float(x) for x in sig[3:]]}
