@@ -299,10 +299,11 @@ class _PhaseData:
         return NullNoise(self.sigma, self.red)
 
 
-def white_errors_us(model: TimingModel, obs: Observations) -> np.ndarray:
+def white_errors_us(model: TimingModel, obs: Observations,
+                    noise: NoiseModel | None = None) -> np.ndarray:
     """TOA uncertainties the search weights with (µs): the table's, scaled by
     the model's [[white_noise]] groups when it has any."""
-    noise = NoiseModel.from_timing_model(model)
+    noise = NoiseModel.from_timing_model(model) if noise is None else noise
     return noise.white_errors_us(obs.toas) if noise.white else obs.toas.err_us
 
 
@@ -310,9 +311,9 @@ def _phase_data(model: TimingModel, obs: Observations, reference) -> _PhaseData:
     ev = model.evaluate(obs, reference)
     t = ev.extra["spin_dt_s"]
     order = np.argsort(t, kind="stable")
-    sigma = white_errors_us(model, obs) * 1e-6 * ev.spin_frequency_hz
-    red = None
     noise = NoiseModel.from_timing_model(model)
+    sigma = white_errors_us(model, obs, noise) * 1e-6 * ev.spin_frequency_hz
+    red = None
     if noise.red is not None:
         # the red process on its Fourier basis, each column times the square root
         # of its coefficient's prior variance, in cycles (seconds x spin frequency)
