@@ -14,6 +14,7 @@ from timingkit.model import TimingModel
 from timingkit.observations import prepare_observations
 from timingkit.simulate import simulate_toas
 from timingkit.toas import Toas
+from numdiff import phase_partial
 
 MSP = '''
 name = "sim-msp"
@@ -105,11 +106,7 @@ def test_design_matrix_matches_numerical_derivatives(sites, ephemeris):
     ev = truth.evaluate(obs)
     m = truth.design_matrix(ev, names)
     for j, (name, h) in enumerate(zip(names, steps)):
-        plus, minus = truth.copy(), truth.copy()
-        plus.parameter(name).add(h)
-        minus.parameter(name).add(-h)
-        ep, em = plus.evaluate(obs), minus.evaluate(obs)
-        num = ((ep.phase_int - em.phase_int) + (ep.phase_frac - em.phase_frac)) / (2 * h)
+        num = phase_partial(truth, obs, name, h)
         scale = np.max(np.abs(num))
         assert scale > 0, name
         assert np.max(np.abs(m[:, j] - num)) < 1e-4 * scale, name
