@@ -109,3 +109,23 @@ def test_writer_keeps_decimals_as_strings():
                                            "x": 1.5, "free": ["a"]}})
     assert 'frequency_hz = "700.1234567890123456789"' in text
     assert parse_model_text(text).data["spin"]["x"] == Decimal("1.5")
+
+
+def test_written_model_still_finds_its_site_and_clock_files(tmp_path):
+    # A fitted model saved in another folder must point at the same files.
+    src = tmp_path / "in"
+    src.mkdir()
+    (src / "sites.toml").write_text("[site.x-dish]\nlongitude_deg = 10.0\nlatitude_deg = 20.0\n"
+                                    "height_m = 0.0\n")
+    text = GOOD + '\n[settings]\nsites = "sites.toml"\nclock = ["clocks/x.clock"]\n'
+    (src / "m.toml").write_text(text)
+    m = TimingModel.from_file(str(src / "m.toml"))
+    out = tmp_path / "deep" / "out"
+    out.mkdir(parents=True)
+    m.write(str(out / "fitted.toml"))
+    m2 = TimingModel.from_file(str(out / "fitted.toml"))
+    import os
+    assert os.path.samefile(os.path.join(m2.base_dir, m2.settings["sites"][0]), src / "sites.toml")
+    assert os.path.normpath(os.path.join(m2.base_dir, m2.settings["clock"][0])) == \
+        os.path.normpath(src / "clocks" / "x.clock")
+    assert m2.settings["ephemeris"] == "builtin"

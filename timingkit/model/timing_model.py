@@ -4,6 +4,7 @@ evaluation of pulse phase at each TOA and the analytic design matrix."""
 from __future__ import annotations
 
 import copy
+import os
 from decimal import Decimal
 
 import numpy as np
@@ -251,7 +252,31 @@ class TimingModel:
                     lst[p.index] = value
 
     def write(self, path: str, comment: str | None = None) -> None:
-        write_model_document(self.to_document(), path, comment)
+        """Write the model; file paths in [settings] (sites, clock tables, a
+        .bsp ephemeris) are rewritten relative to the new file's folder, so the
+        written model finds the same files wherever it is saved."""
+        doc = self.to_document()
+        if "settings" in doc:
+            doc["settings"] = self._settings_relative_to(os.path.dirname(os.path.abspath(path)))
+        write_model_document(doc, path, comment)
+
+    def _settings_relative_to(self, folder: str) -> dict:
+        def move(p: str) -> str:
+            absolute = p if os.path.isabs(p) else os.path.normpath(os.path.join(self.base_dir, p))
+            try:
+                return os.path.relpath(absolute, folder)
+            except ValueError:      # another drive (Windows): keep it absolute
+                return absolute
+        out = {}
+        for key, value in self.settings.items():
+            if value in (None, [], False):
+                continue
+            if key in ("sites", "clock"):
+                value = [move(v) for v in value]
+            elif key == "ephemeris" and value not in ("builtin", "de421", ""):
+                value = move(value)
+            out[key] = value
+        return out
 
 
 __all__ = ["TimingModel", "EXTRA_SECTIONS", "Decimal", "mjd_decimal", "mjd_parts"]
