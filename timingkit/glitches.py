@@ -29,7 +29,13 @@ The search works on the pulse-phase residuals of a starting timing model
    frequency step is kept where it is significant (time-scale grid, then
    fitted). When the model fits, each glitch is tried in the nearby gaps with
    phase continuity required, and the gaps the fit allows (chi-square within
-   LOCALISE_DCHI2 of the best) form its reported bracket.
+   LOCALISE_DCHI2 of the best) form its reported bracket. Where pulses
+   could not be numbered across a gap with no significant candidate, a
+   glitch is forced there (forced_by_lost_connection); once the fit holds
+   the other glitches' decays and frequency-derivative steps (which a local
+   quadratic cannot follow), a forced glitch with an insignificant step is
+   dropped if the pulses, re-tracked without it, connect and the fit is not
+   significantly worse.
 4. **Epoch**: each epoch moves, inside its gap, to where the phase step
    vanishes (common practice); when several epochs in the gap do so (a glitch
    that unwinds more than a turn there) the one nearest their mean is used and
@@ -97,6 +103,10 @@ ADEQUATE_REDUCED_CHI2 = 4.0        # decays and placements only with a model tha
 DEFER_DAYS = 900.0                 # candidates this soon after a glitch accepted in the ...
 DEFER_RATIO = 0.1                  # ... same pass and this much smaller wait a pass
 MAX_GLITCHES_PER_PASS = 20
+FORCED_STEP_Z = 3.0                # a forced glitch with a smaller step (sigma) is re-checked
+LOST_CONNECTION_WARNING = ("phase connection was lost in a gap with no significant glitch: a "
+                           "glitch was fitted there to keep the solution connected (flagged "
+                           "forced_by_lost_connection)")
 
 ASSUMPTIONS = ("false-alarm probabilities assume white TOA noise with the stated uncertainties "
                "and a locally quadratic phase over each window (red timing noise makes them "
@@ -353,6 +363,7 @@ class _Accepted:
     root_spread: float = 0.0              # s^2, of the zero-phase-step epochs in the gap
     decay_tried: bool = False             # decaying terms tried
     placed: bool = False                  # placement among nearby gaps done (or not needed)
+    rechecked: bool = False               # forced: re-tracked without it after a fit
 
 
 def _scan(data: _PhaseData, chains, barriers, settings, rng, known_gaps=None,
@@ -865,6 +876,61 @@ def _settle(res: FitResult, found: list[_Accepted], obs, reference, pulse, setti
     return res, pulse
 
 
+def _drop_unneeded_forced(res: FitResult, found: list[_Accepted], obs, reference, pulse,
+                          settings, ranges, warnings):
+    """Forced glitches (connection lost before the other glitches' decaying terms
+    and frequency-derivative steps were in the model: a local quadratic cannot
+    follow a post-glitch recovery) re-checked once the fit holds them: one whose
+    frequency step is below FORCED_STEP_Z sigma is dropped when the pulses,
+    re-tracked against the fitted model without it, connect across its gap and
+    the fit without it is not worse by more than the search threshold
+    (likelihood ratio, chi-square with its free parameters as degrees of freedom)."""
+    for acc in [a for a in found if a.forced and not a.rechecked and a.epoch is not None]:
+        acc.rechecked = True
+        g = _glitch_at(res.model, acc.epoch)
+        step, err = g.frequency_step.value, g.frequency_step.uncertainty
+        if not err or abs(step) > FORCED_STEP_Z * err:
+            continue
+        n_free = sum(1 for p in g.parameters() if p.free)
+        sections = [s for s, h in zip(_sections_of(res.model), model_glitches(res.model))
+                    if h.epoch != acc.epoch]
+        free = _free_flags(res.model)
+        free.pop(acc.epoch, None)
+        trial = _rebuild(res.model, sections, free)
+        try:
+            # the same counts first (the fit moves the other terms into place), then a
+            # fresh numbering against that fit, which must connect across the gap
+            first = _fit(trial, obs, reference, _carry_pulses(res.model, trial, obs,
+                                                              reference, pulse))
+            data = _phase_data(first.model, obs, reference)
+            f_range, fdot_range = ranges
+            chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range),
+                      track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range,
+                                   backward=True))
+            barriers = {int(np.searchsorted(data.t_s, _glitch_t_s(first.model, h)) - 1)
+                        for h in model_glitches(first.model)}
+            offsets, keep, forced = number_pulses(data, chains, barriers, [])
+            if forced or not np.all(keep):
+                continue
+            new_pulse = np.empty(len(obs), dtype=np.int64)
+            new_pulse[data.order] = (data.phase_int - offsets).astype(np.int64)
+            fitted = _fit(first.model, obs, reference, new_pulse)
+        except FitError:
+            continue
+        threshold = scipy.stats.chi2.isf(settings.false_alarm_threshold, max(n_free, 1))
+        scale = max(1.0, res.reduced_chi2)
+        if not fitted.converged or (fitted.chi2 - res.chi2) / scale >= threshold:
+            continue
+        found.remove(acc)
+        res, pulse = fitted, new_pulse
+    if not any(a.forced for a in found) and LOST_CONNECTION_WARNING in warnings:
+        warnings[:] = [w for w in warnings if w != LOST_CONNECTION_WARNING]
+        warnings.append("phase connection was lost in a gap before the decaying terms of the "
+                        "glitches were fitted; with them in the model it holds, so no glitch "
+                        "was forced there")
+    return res, pulse
+
+
 def search_glitches(model: TimingModel, obs: Observations,
                     settings: GlitchSearchSettings | None = None,
                     reference: Observations | None = None) -> GlitchSearchResult:
@@ -958,9 +1024,7 @@ def search_glitches(model: TimingModel, obs: Observations,
                                           df_err_hz=None, dfdot=None, forced=True,
                                           search_pass=search_pass))
                 barriers.add(gap)
-                warnings.append("phase connection was lost in a gap with no significant "
-                                "glitch: a glitch was fitted there to keep the solution "
-                                "connected (flagged forced_by_lost_connection)")
+                warnings.append(LOST_CONNECTION_WARNING)
             failed_before.add(gap)
         sections = _sections_of(current)
         free = _free_flags(current)
@@ -980,6 +1044,8 @@ def search_glitches(model: TimingModel, obs: Observations,
         found.extend(accepted)
         res = _fit(trial, use_obs, reference, pulse)
         res, pulse = _settle(res, found, use_obs, reference, pulse, settings)
+        res, pulse = _drop_unneeded_forced(res, found, use_obs, reference, pulse, settings,
+                                           (f_range, fdot_range), warnings)
         current, result_fit = res.model, res
         if known_t is not None:
             break
