@@ -24,12 +24,12 @@ def approx(expected, rel=1e-6, abs=0.0):
 VELA_NU_HZ = 11.1946
 VELA_NUDOT = -1.5666e-11
 
-# Crab (PSR B0531+21), Lyne, Pritchard & Graham-Smith 1993 (MNRAS 265, 1003),
+# The 33-ms pulsar of the Taurus supernova remnant (B0531+21), Lyne, Pritchard & Graham-Smith 1993 (MNRAS 265, 1003),
 # epoch MJD 40000, from memory; published braking index 2.509(1).
-CRAB_1993 = (30.2254370, [-3.862251e-10, 1.2426e-20])
-# Crab, catalogue-style ephemeris whose nu_ddot carries the 45-yr mean
+YOUNG_1993 = (30.2254370, [-3.862251e-10, 1.2426e-20])
+# The same pulsar, catalogue-style ephemeris whose nu_ddot carries the 45-yr mean
 # braking index 2.342(1) of Lyne et al. 2015 (MNRAS 446, 857), from memory.
-CRAB_LONG = (29.946923, [-3.77535e-10, 1.1147e-20])
+YOUNG_LONG = (29.946923, [-3.77535e-10, 1.1147e-20])
 
 SPIN_KEYS = ["period_s", "period_derivative", "characteristic_age_yr",
              "surface_dipole_field_gauss", "surface_dipole_field_tesla",
@@ -39,7 +39,7 @@ SPIN_KEYS = ["period_s", "period_derivative", "characteristic_age_yr",
 def test_keys_order_and_shape_follow_design():
     d = derive_spin(VELA_NU_HZ, [VELA_NUDOT])
     assert list(d) == SPIN_KEYS          # DESIGN.md section 5, no nu_ddot
-    d2 = derive_spin(*CRAB_1993)
+    d2 = derive_spin(*YOUNG_1993)
     assert list(d2) == SPIN_KEYS + ["braking_index"]
     for q in d2.values():
         assert set(q) >= {"value", "uncertainty", "unit", "assumptions"}
@@ -61,9 +61,9 @@ def test_vela_against_catalogue():
     assert d["spin_down_luminosity_erg_per_s"]["value"] == approx(6.9e36, rel=0.01)
 
 
-def test_crab_against_catalogue():
-    d = derive_spin(*CRAB_LONG)
-    # ATNF catalogue for the Crab, from memory: P = 0.0333924 s,
+def test_young_remnant_pulsar_against_catalogue():
+    d = derive_spin(*YOUNG_LONG)
+    # ATNF catalogue for this pulsar, from memory: P = 0.0333924 s,
     # Pdot = 4.2097e-13, age 1.26 kyr, B_s 3.79e12 G, Edot 4.5e38 erg/s.
     assert d["period_s"]["value"] == approx(0.0333924, rel=1e-6)
     assert d["period_derivative"]["value"] == approx(4.2097e-13, rel=1e-4)
@@ -72,12 +72,12 @@ def test_crab_against_catalogue():
     assert d["spin_down_luminosity_erg_per_s"]["value"] == approx(4.5e38, rel=0.01)
 
 
-def test_crab_braking_index():
+def test_young_remnant_pulsar_braking_index():
     # Lyne et al. 1993: n = 2.509 +- 0.001 (from memory; our recalled
     # digits of nu_ddot give 2.518, hence the 0.02 tolerance).
-    assert derive_spin(*CRAB_1993)["braking_index"]["value"] == approx(2.51, abs=0.02)
+    assert derive_spin(*YOUNG_1993)["braking_index"]["value"] == approx(2.51, abs=0.02)
     # Lyne et al. 2015: long-term n = 2.342 (from memory).
-    assert derive_spin(*CRAB_LONG)["braking_index"]["value"] == approx(2.342, abs=0.002)
+    assert derive_spin(*YOUNG_LONG)["braking_index"]["value"] == approx(2.342, abs=0.002)
 
 
 def test_surface_field_constant_from_first_principles():
@@ -95,7 +95,7 @@ def test_surface_field_constant_from_first_principles():
 def test_light_cylinder_field_from_geometry():
     # B_lc = B_s (R / R_lc)^3, R_lc = c P / (2 pi), R = 10 km
     # (Lorimer & Kramer 2005 sect. 3.x, from memory); c from astropy.
-    for nu, nudot in [(VELA_NU_HZ, VELA_NUDOT), CRAB_LONG[:1] + (CRAB_LONG[1][0],)]:
+    for nu, nudot in [(VELA_NU_HZ, VELA_NUDOT), YOUNG_LONG[:1] + (YOUNG_LONG[1][0],)]:
         d = derive_spin(nu, [nudot])
         p = d["period_s"]["value"]
         r_lc_cm = (const.c * p * u.s / (2 * math.pi)).to_value(u.cm)
@@ -209,7 +209,7 @@ def test_spin_up_gives_notes_not_nan():
 
 
 def test_cautions():
-    young = derive_spin(*CRAB_1993, covariance=np.diag([1e-20, 1e-36, (0.5e-20) ** 2]))
+    young = derive_spin(*YOUNG_1993, covariance=np.diag([1e-20, 1e-36, (0.5e-20) ** 2]))
     c = cautions_for(young)
     assert c[0] == ASSUMPTIONS
     assert "orthogonal" in ASSUMPTIONS and "10 km" in ASSUMPTIONS and "1e45" in ASSUMPTIONS

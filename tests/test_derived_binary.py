@@ -109,11 +109,11 @@ def test_hulse_taylor_total_mass_and_decay():
     m = total_mass_from_periastron_advance(HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY)
     # Weisberg & Huang 2016: M = 2.828378(7) M_sun (from memory).
     assert m["value"] == approx(2.828378, abs=2e-5)
-    pbdot = orbital_decay_gr(HT_PULSAR_MASS, HT_COMPANION_MASS, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY)
+    decay = orbital_decay_gr(HT_PULSAR_MASS, HT_COMPANION_MASS, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY)
     # Weisberg & Huang 2016: GR prediction -2.40263(5)e-12 (from memory);
     # our masses are rounded to 1e-3, hence 0.1 %.
-    assert pbdot["value"] == approx(-2.4026e-12, rel=1e-3)
-    assert pbdot["unit"] == "s/s"
+    assert decay["value"] == approx(-2.4026e-12, rel=1e-3)
+    assert decay["unit"] == "s/s"
 
 
 def test_hulse_taylor_einstein_delay():
@@ -184,7 +184,7 @@ def test_shklovskii_coefficient_and_j0437():
         u.dimensionless_unscaled, equivalencies=u.dimensionless_angles())
     assert shklovskii_period_derivative(1.0, 1.0, 1.0)["value"] == approx(expect, rel=1e-6)
     # PSR J0437-4715 (Verbiest et al. 2008, from memory): mu = 140.915 mas/yr,
-    # Pb = 5.741046 d, observed Pbdot = 3.73(6)e-12, explained by the
+    # Pb = 5.741046 d, observed orbital period derivative = 3.73(6)e-12, explained by the
     # Shklovskii term plus a small Galactic term at d = 157 pc.
     pb_s = 5.741046 * 86400
     l, b = galactic_from_icrs(69.3158, -47.2525)   # J0437-4715 position, from memory
@@ -266,22 +266,22 @@ def test_intrinsic_spin_msp():
                        distance_err_kpc=0.0013)
     shk = r["shklovskii_period_derivative"]["value"]
     gal = r["galactic_period_derivative"]["value"]
-    pint = r["intrinsic_period_derivative"]["value"]
-    assert pint == approx(pdot - shk - gal, rel=1e-12)
+    intrinsic = r["intrinsic_period_derivative"]["value"]
+    assert intrinsic == approx(pdot - shk - gal, rel=1e-12)
     # For J0437-4715 the Shklovskii term is known to dominate the observed
     # Pdot (from memory); with these inputs it is ~76 % of it.
     assert 0.7 < shk / pdot < 0.8
     # Age and field follow the handbook formulae with the intrinsic Pdot.
-    assert r["characteristic_age_yr"]["value"] == approx(p / (2 * pint) / (365.25 * 86400), rel=1e-12)
-    assert r["surface_dipole_field_gauss"]["value"] == approx(3.2e19 * math.sqrt(p * pint), rel=1e-12)
+    assert r["characteristic_age_yr"]["value"] == approx(p / (2 * intrinsic) / (365.25 * 86400), rel=1e-12)
+    assert r["surface_dipole_field_gauss"]["value"] == approx(3.2e19 * math.sqrt(p * intrinsic), rel=1e-12)
     assert "intrinsic" in r["characteristic_age_yr"]["assumptions"]
     # Distance error enters both kinematic terms with the same sign here.
     h = 1e-7
-    def pint_at(d):
+    def intrinsic_at(d):
         return intrinsic_spin(p, pdot, proper_motion_mas_per_yr=140.915, distance_kpc=d,
                               galactic_longitude_deg=l, galactic_latitude_deg=b
                               )["intrinsic_period_derivative"]["value"]
-    gd = (pint_at(0.1563 + h) - pint_at(0.1563 - h)) / (2 * h)
+    gd = (intrinsic_at(0.1563 + h) - intrinsic_at(0.1563 - h)) / (2 * h)
     gmu = 2 * shk / 140.915
     expect = math.sqrt(0.002e-20 ** 2 + (gmu * 0.01) ** 2 + (gd * 0.0013) ** 2)
     assert r["intrinsic_period_derivative"]["uncertainty"] == approx(expect, rel=1e-4)

@@ -98,9 +98,9 @@ def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dic
             eccentricity_err=se)
         cautions.append("total mass assumes the periastron advance is purely relativistic")
     gamma, sgamma = _value_err(binary, "einstein_delay_amplitude_s")
-    pbdot, spbdot = _value_err(binary, "orbital_period_derivative")
+    period_dot, period_dot_err = _value_err(binary, "orbital_period_derivative")
     if "total_mass_msun" in out and gamma > 0:
-        _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, pbdot, spbdot)
+        _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, period_dot, period_dot_err)
     shapiro = binary.orbit.shapiro
     if shapiro is not None and shapiro.range_s > 0:
         range_key, shape_key = shapiro.names
@@ -112,13 +112,13 @@ def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dic
             "companion Shapiro delay range r = G m_c / c^3 (GR)")
         out["sin_inclination_from_shapiro"] = quantity(s, ss, "", "Shapiro shape s = sin i (GR)")
     if distance is not None:
-        _orbital_kinematics(out, binary, pb, pbdot, spbdot, distance)
+        _orbital_kinematics(out, binary, pb, period_dot, period_dot_err, distance)
     if binary.model == "low_eccentricity":
         cautions.extend(binary.warnings())
     return {"model": binary.model, "quantities": out, "cautions": cautions}
 
 
-def _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, pbdot, spbdot):
+def _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, period_dot, period_dot_err):
     total, mc, mp = masses_from_advance_and_einstein(wdot, gamma, pb, e)
     if not (mc > 0 and mp > 0):
         out["pulsar_mass_msun"] = quantity(None, None, "M_sun", "GR from periastron advance "
@@ -146,13 +146,13 @@ def _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, pbdot, spbdot
     out["companion_mass_msun"] = quantity(mc, sig[1], "M_sun", why)
     decay = dbin.orbital_decay_gr(mp, mc, pb, e, mass_covariance=cov)
     out["orbital_period_derivative_gr"] = decay
-    if pbdot != 0:
+    if period_dot != 0:
         err = None
-        if spbdot is not None and decay["uncertainty"] is not None:
-            err = abs(pbdot / decay["value"]) * math.hypot(spbdot / pbdot,
+        if period_dot_err is not None and decay["uncertainty"] is not None:
+            err = abs(period_dot / decay["value"]) * math.hypot(period_dot_err / period_dot,
                                                            decay["uncertainty"] / decay["value"])
         out["orbital_period_derivative_observed_over_gr"] = quantity(
-            pbdot / decay["value"], err, "",
+            period_dot / decay["value"], err, "",
             "observed orbital period derivative over the GR prediction (kinematic terms not "
             "removed)")
 
@@ -183,7 +183,7 @@ def _proper_motion(model, result=None):
     return mu, err, l_deg, b_deg
 
 
-def _orbital_kinematics(out, binary, pb, pbdot, spbdot, distance):
+def _orbital_kinematics(out, binary, pb, period_dot, period_dot_err, distance):
     mu, smu, l_deg, b_deg = distance["proper_motion"]
     d, sd = distance["value_kpc"], distance["uncertainty_kpc"]
     pb_s = pb * SECONDS_PER_DAY
@@ -195,15 +195,15 @@ def _orbital_kinematics(out, binary, pb, pbdot, spbdot, distance):
     skin = math.sqrt(sum(s * s for s in terms)) if terms else None
     out["orbital_period_derivative_shklovskii"] = shk
     out["orbital_period_derivative_galactic"] = gal
-    parts = [s for s in (skin, spbdot) if s is not None]
+    parts = [s for s in (skin, period_dot_err) if s is not None]
     out["orbital_period_derivative_intrinsic"] = quantity(
-        pbdot - kin, math.sqrt(sum(s * s for s in parts)) if parts else None, "s/s",
+        period_dot - kin, math.sqrt(sum(s * s for s in parts)) if parts else None, "s/s",
         f"observed minus Shklovskii minus Galactic terms (distance: {distance['source']}; "
         "the two kinematic terms' distance errors treated as independent)")
     gr = out.get("orbital_period_derivative_gr")
     if gr is not None and gr["value"]:
         out["orbital_period_derivative_intrinsic_over_gr"] = quantity(
-            (pbdot - kin) / gr["value"], None, "", "intrinsic over GR-predicted orbital decay")
+            (period_dot - kin) / gr["value"], None, "", "intrinsic over GR-predicted orbital decay")
 
 
 def derive_kinematic(model, spin_derived: dict | None, distance) -> dict | None:

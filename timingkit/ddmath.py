@@ -5,7 +5,7 @@ A double-double number is a pair ``(hi, lo)`` of float64 arrays with
 Written by hand because no well-kept numpy library offers vectorised
 error-free transformations; the algorithms are the classic ones of Dekker
 (1971) and Knuth (TAOCP vol. 2), as collected by Hida, Li & Bailey (2001).
-Portable: plain IEEE float64 only, never ``np.longdouble``.
+Portable: plain IEEE float64 only, never an extended-precision float type.
 """
 
 from __future__ import annotations

@@ -296,10 +296,10 @@ def post_keplerian_gr(pulsar_mass_msun: float, companion_mass_msun: float,
         _GR + "; gravitational redshift plus second-order Doppler amplitude")
 
     fe, _ = _enhancement(e)
-    pbdot = -(192.0 * math.pi / 5.0) * n ** (5 / 3) * fe * T ** (5 / 3) * mp * mc * M ** (-1 / 3)
+    period_dot = -(192.0 * math.pi / 5.0) * n ** (5 / 3) * fe * T ** (5 / 3) * mp * mc * M ** (-1 / 3)
     out["orbital_period_derivative"] = quantity(
-        pbdot, _with_masses((pbdot * (1.0 / mp - 1.0 / (3.0 * M)),
-                             pbdot * (1.0 / mc - 1.0 / (3.0 * M))), cov), "s/s",
+        period_dot, _with_masses((period_dot * (1.0 / mp - 1.0 / (3.0 * M)),
+                             period_dot * (1.0 / mc - 1.0 / (3.0 * M))), cov), "s/s",
         _GR + "; quadrupole gravitational-wave emission only (no kinematic terms)")
 
     out["shapiro_range_s"] = quantity(

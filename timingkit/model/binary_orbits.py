@@ -58,26 +58,26 @@ class MeanAnomaly:
     orbits: np.ndarray        # dt / Pb (double)
     d_dt: np.ndarray          # dM/d(dt), rad/s
     d_pb_days: np.ndarray     # dM/dPb, rad/day
-    d_pbdot: np.ndarray       # dM/dPb_dot, rad
+    d_period_dot: np.ndarray       # dM/d(orbital period derivative), rad
 
     @property
     def cycles(self) -> np.ndarray:
         return self.turns + self.wrapped / TWO_PI
 
 
-def mean_anomaly(dt_hi, dt_lo, pb_days: float, pbdot: float) -> MeanAnomaly:
+def mean_anomaly(dt_hi, dt_lo, pb_days: float, period_dot: float) -> MeanAnomaly:
     pb_s = pb_days * SECONDS_PER_DAY
     q_hi, q_lo = ddmath.dd_div_d(dt_hi, dt_lo, pb_s)
     whole = np.round(q_hi)
     frac = (q_hi - whole) + q_lo
     orbits = q_hi + q_lo
-    m, k = wrap_angle(TWO_PI * frac - math.pi * pbdot * orbits ** 2)
+    m, k = wrap_angle(TWO_PI * frac - math.pi * period_dot * orbits ** 2)
     n = TWO_PI / pb_s
     return MeanAnomaly(
         wrapped=m, turns=whole + k, dt=dt_hi + dt_lo, orbits=orbits,
-        d_dt=n * (1.0 - pbdot * orbits),
-        d_pb_days=n * (-orbits + pbdot * orbits ** 2) * SECONDS_PER_DAY,
-        d_pbdot=-math.pi * orbits ** 2)
+        d_dt=n * (1.0 - period_dot * orbits),
+        d_pb_days=n * (-orbits + period_dot * orbits ** 2) * SECONDS_PER_DAY,
+        d_period_dot=-math.pi * orbits ** 2)
 
 
 @dataclass
@@ -234,7 +234,7 @@ class EccentricOrbit:
         if self.advance == "true_anomaly":
             extra_pb = sens["w"] * work["nu"] * work["wdot"] * SECONDS_PER_DAY / TWO_PI
         put("orbital_period_days", d_m * ma.d_pb_days + extra_pb)
-        put("orbital_period_derivative", d_m * ma.d_pbdot)
+        put("orbital_period_derivative", d_m * ma.d_period_dot)
         put("projected_semi_major_axis_lt_s", sens["x"] + 0.0 * dt)
         put("projected_semi_major_axis_derivative_lt_s_per_s", sens["x"] * dt)
         put("eccentricity", d_e)
@@ -314,7 +314,7 @@ class LowEccentricityOrbit:
         dt = ma.dt
         table = {
             "orbital_period_days": lambda: sens["phi"] * ma.d_pb_days,
-            "orbital_period_derivative": lambda: sens["phi"] * ma.d_pbdot,
+            "orbital_period_derivative": lambda: sens["phi"] * ma.d_period_dot,
             "projected_semi_major_axis_lt_s": lambda: sens["x"] + 0.0 * dt,
             "projected_semi_major_axis_derivative_lt_s_per_s": lambda: sens["x"] * dt,
             "e_sin_omega": lambda: sens["eta"] + 0.0 * dt,
