@@ -98,9 +98,11 @@ class FitResult:
 
 def compute_residuals(model: TimingModel, obs: Observations, pulse_number=None,
                       reference: Observations | None = None,
-                      subtract_mean: bool = True) -> Residuals:
-    """Residuals of ``model``; pulse numbers from the model when not given."""
-    ev = model.evaluate(obs, reference)
+                      subtract_mean: bool = True,
+                      evaluation: Evaluation | None = None) -> Residuals:
+    """Residuals of ``model``; pulse numbers from the model when not given.
+    ``evaluation``: the model already evaluated on ``obs`` (saves a pass)."""
+    ev = evaluation if evaluation is not None else model.evaluate(obs, reference)
     if pulse_number is None:
         pulse_number = ev.phase_int.copy()
         phase = ev.phase_frac.copy()
@@ -264,7 +266,7 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
         raise FitError("unconstrained parameter(s): " + "; ".join(problems))
     ev0 = model.evaluate(obs, reference)
     pulse = pulse_numbers_from_table(obs, ev0)
-    prefit = compute_residuals(model, obs, pulse, reference)
+    prefit = compute_residuals(model, obs, pulse, reference, evaluation=ev0)
     if pulse is None:
         pulse = prefit.pulse_number
     columns = names + [OFFSET_NAME]

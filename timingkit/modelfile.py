@@ -176,6 +176,28 @@ def take_section(data: dict | None, section: str, spec: dict[str, Key],
     return out
 
 
+def table_list(value, section: str, path: str | None) -> list[dict]:
+    """An array-of-tables section (``[[section]]``) as a list of tables; a
+    single ``[section]`` table is taken as a list of one."""
+    items = [value] if isinstance(value, dict) else value
+    if not isinstance(items, list) or not all(isinstance(v, dict) for v in items):
+        raise InputError(f"expected one or more [[{section}]] tables", path=path, field=section)
+    return items
+
+
+def reject_repeated_groups(items, section: str, noun: str, path: str | None) -> None:
+    """Each (flag, value) group may appear once among the ``[[section]]``
+    items (objects with ``flag``, ``value``, ``array_index`` and ``label``)."""
+    seen: dict = {}
+    for item in items:
+        key = (item.flag, item.value)
+        if key in seen:
+            raise InputError(f"two [[{section}]] {noun} for {item.label} (numbers {seen[key]} "
+                             f"and {item.array_index}): give each group once", path=path,
+                             field=f"{section}.{item.array_index}")
+        seen[key] = item.array_index
+
+
 # ---------------------------------------------------------------- writing
 
 def _format_value(value: Any) -> str:

@@ -21,7 +21,7 @@ import numpy as np
 from timingkit.errors import InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.parameters import Parameter
-from timingkit.modelfile import Key, take_section
+from timingkit.modelfile import Key, reject_repeated_groups, table_list, take_section
 
 SECTION = "time_offset"
 OFFSET_KEYS = {
@@ -45,6 +45,7 @@ class GroupOffset(Component):
         self.array_index = index
         self.flag = s["flag"]
         self.value = s["value"]
+        self.label = f"{self.flag} = {self.value}"
         unc = s.get("uncertainty", {})
         self.offset = Parameter(f"{where}.offset_s", s["offset_s"], "s",
                                 uncertainty=unc.get("offset_s"), key="offset_s",
@@ -94,19 +95,9 @@ class GroupOffset(Component):
 
 def build_group_offsets(value, path, model) -> list[Component]:
     """EXTRA_SECTIONS builder for ``[[time_offset]]``."""
-    if isinstance(value, dict):
-        value = [value]
-    if not isinstance(value, list) or not all(isinstance(v, dict) for v in value):
-        raise InputError("expected one or more [[time_offset]] tables", path=path, field=SECTION)
-    comps = [GroupOffset(table, k, path) for k, table in enumerate(value)]
-    seen = {}
-    for c in comps:
-        key = (c.flag, c.value)
-        if key in seen:
-            raise InputError(f"two [[time_offset]] tables for {c.flag} = {c.value} "
-                             f"(numbers {seen[key]} and {c.array_index})", path=path,
-                             field=f"{SECTION}.{c.array_index}")
-        seen[key] = c.array_index
+    comps = [GroupOffset(table, k, path)
+             for k, table in enumerate(table_list(value, SECTION, path))]
+    reject_repeated_groups(comps, SECTION, "tables", path)
     return comps
 
 

@@ -49,7 +49,7 @@ from timingkit.errors import InputError
 from timingkit.model.base import Component
 from timingkit.model.parameters import Parameter
 from timingkit.model.timing_model import EXTRA_SECTIONS
-from timingkit.modelfile import Key, take_section
+from timingkit.modelfile import Key, reject_repeated_groups, table_list, take_section
 
 SECONDS_PER_YEAR = 365.25 * 86400.0        # Julian year
 ONE_PER_YEAR_HZ = 1.0 / SECONDS_PER_YEAR
@@ -249,19 +249,9 @@ class RedNoise(Component):
 
 
 def _build_white_noise(value, path, model) -> list[Component]:
-    items = [value] if isinstance(value, dict) else value
-    if not isinstance(items, list) or not all(isinstance(v, dict) for v in items):
-        raise InputError("expected one or more [[white_noise]] tables", path=path,
-                         field="white_noise")
-    groups = [WhiteNoiseGroup(item, path, i) for i, item in enumerate(items)]
-    seen: dict = {}
-    for g in groups:
-        key = (g.flag, g.value)
-        if key in seen:
-            raise InputError(f"two [[white_noise]] groups for {g.label} (numbers {seen[key]} and "
-                             f"{g.array_index}): give each group once", path=path,
-                             field=f"white_noise.{g.array_index}")
-        seen[key] = g.array_index
+    groups = [WhiteNoiseGroup(item, path, i)
+              for i, item in enumerate(table_list(value, "white_noise", path))]
+    reject_repeated_groups(groups, "white_noise", "groups", path)
     return groups
 
 
