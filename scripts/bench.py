@@ -80,7 +80,7 @@ def bench_barycenter(n: int, tmp: str) -> None:
         fh.write(MODEL)
     ours = child(f"""
         t0 = time.perf_counter()
-        from timingkit.pipeline import barycenter_files
+        from timingkit.pipeline.fit_run import barycenter_files
         barycenter_files({toas!r}, {model!r}, {os.path.join(tmp, 'ours.csv')!r})
         out = dict(seconds=time.perf_counter() - t0)
     """)
@@ -95,9 +95,9 @@ def bench_barycenter(n: int, tmp: str) -> None:
         iers.conf.auto_max_age = None
         iers.conf.iers_degraded_accuracy = 'warn'
         import warnings; warnings.simplefilter('ignore')
-        from timingkit.toas import read_toas
-        from timingkit.sites import SiteTable
-        from timingkit.ephemeris import builtin_ephemeris_path
+        from timingkit.formats.toa_table import read_toas
+        from timingkit.geometry.sites import SiteTable
+        from timingkit.geometry.ephemeris import builtin_ephemeris_path
         toas = read_toas({toas!r})
         table = SiteTable.with_files([{SITES!r}])
         c = SkyCoord("17h53m20.1234567s", "-07d41m12.345678s", frame="icrs")
@@ -132,7 +132,7 @@ def bench_read(n: int, tmp: str) -> None:
     toas = os.path.join(tmp, f"read{n}.toas")
     write_table(toas, n)
     r = child(f"""
-        from timingkit.toas import read_toas
+        from timingkit.formats.toa_table import read_toas
         t0 = time.perf_counter()
         t = read_toas({toas!r})
         out = dict(seconds=time.perf_counter() - t0, n=len(t))
@@ -148,9 +148,9 @@ def _fit_child(n: int, tmp: str) -> dict:
         fh.write(MODEL)
     sim = child(f"""
         t0 = time.perf_counter()
-        from timingkit.pipeline import load_context, load_model
-        from timingkit.simulate import simulate_toas
-        from timingkit.toas import write_toas
+        from timingkit.pipeline.fit_run import load_context, load_model
+        from timingkit.model.simulate import simulate_toas
+        from timingkit.formats.toa_table import write_toas
         m = load_model({model!r})
         sites, eph, clocks = load_context(m)
         toas = simulate_toas(m, 55000, 60000, {n}, 1.0, sites, eph,
@@ -166,7 +166,7 @@ def _fit_child(n: int, tmp: str) -> dict:
                                                                                     "24.5640"))
     fit = child(f"""
         t0 = time.perf_counter()
-        from timingkit.pipeline import fit_files
+        from timingkit.pipeline.fit_run import fit_files
         rep = fit_files({toas!r}, {start!r}, {os.path.join(tmp, f'fit{n}')!r}, make_plots=False)
         out = dict(seconds=time.perf_counter() - t0, chi2=rep["reduced_chi2"])
     """)
@@ -198,15 +198,15 @@ def bench_sites(n: int) -> None:
         iers.conf.auto_max_age = None
         iers.conf.iers_degraded_accuracy = 'warn'
         import warnings; warnings.simplefilter('ignore')
-        from timingkit.sites import SiteTable, site_gcrs_posvel
-        from timingkit.timearray import SplitTime
-        from timingkit import timescales
+        from timingkit.geometry.sites import SiteTable, site_gcrs_posvel
+        from timingkit.numerics.timearray import SplitTime
+        from timingkit.geometry import timescales
         site = SiteTable.with_files([{SITES!r}]).lookup("desert-dish")
         rng = np.random.default_rng(0)
         mjd = np.sort(rng.uniform(51544, 51544 + 25 * 365.25, {n}))
         day = np.floor(mjd); utc = SplitTime(day, mjd - day, "utc")
         tt = timescales.utc_to_tt(utc)
-        from timingkit import earth_orientation
+        from timingkit.geometry import earth_orientation
         earth_orientation.eop_table()     # one-time table load, paid once per process
         t0 = time.perf_counter(); pos, vel = site_gcrs_posvel(site, utc, tt)
         ours = time.perf_counter() - t0

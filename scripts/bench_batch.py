@@ -82,9 +82,9 @@ def _write_model(path: Path, name: str, spin: dict, f0_offset_hz=0.0, f1_offset=
 
 def _simulate_one(task) -> str:
     folder, name, index, toas_per_source, error_us, seed = task
-    from timingkit.pipeline import load_context, load_model
-    from timingkit.simulate import simulate_toas
-    from timingkit.toas import write_toas
+    from timingkit.pipeline.fit_run import load_context, load_model
+    from timingkit.model.simulate import simulate_toas
+    from timingkit.formats.toa_table import write_toas
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -135,7 +135,7 @@ def write_simulated_sources(root, count: int, toas_per_source: int = 150, *, err
 
 
 def _timed_batch(sources, outdir, workers):
-    from timingkit.batch import run_batch
+    from timingkit.batch.runner import run_batch
 
     start = time.perf_counter()
     result = run_batch(sources, outdir, workers=workers, progress=False)
@@ -156,7 +156,7 @@ def _first_and_later(result) -> tuple[list[float], list[float]]:
 def bench_batch(sources: int = 200, small: int = 50, toas_per_source: int = 2000,
                 keep: str | None = None) -> dict:
     """Run the batch benchmark and print its figures; returns them as a dict."""
-    from timingkit.batch import discover_sources
+    from timingkit.batch.runner import discover_sources
 
     cores = os.cpu_count() or 1
     work = Path(keep) if keep else Path(tempfile.mkdtemp(prefix="timingkit-bench-batch-"))

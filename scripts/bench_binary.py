@@ -109,8 +109,8 @@ def _dm_offset_block(count: int) -> str:
 
 def _simulate(text, n, sites, eph, times=None, seed=1):
     from timingkit.model import TimingModel
-    from timingkit.observations import prepare_observations
-    from timingkit.simulate import simulate_toas
+    from timingkit.geometry.observations import prepare_observations
+    from timingkit.model.simulate import simulate_toas
     model = TimingModel.from_text(text)
     toas = simulate_toas(model, START, END, n, 1.0, sites, eph, site_names=["desert-dish"],
                          freqs_mhz=[820.0, 1400.0, 2300.0], seed=seed,
@@ -119,7 +119,7 @@ def _simulate(text, n, sites, eph, times=None, seed=1):
 
 
 def _timed_fit(model, obs, free, repeats: int = 1):
-    from timingkit.fitting import fit
+    from timingkit.fit.fitter import fit
     start = model.copy()
     start.parameter("spin.frequency_hz").add(2e-11)
     best, res = float("inf"), None
@@ -133,9 +133,9 @@ def _timed_fit(model, obs, free, repeats: int = 1):
 def bench_binary(n_toas: int = 100_000, repeats: int = 2) -> dict:
     """Print and return the timings described in the module docstring."""
     import numpy as np
-    from timingkit.ephemeris import load_ephemeris
-    from timingkit.simulate import arrival_times
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.ephemeris import load_ephemeris
+    from timingkit.model.simulate import arrival_times
+    from timingkit.geometry.sites import SiteTable
 
     sites = SiteTable.with_files([SITES])
     eph = load_ephemeris()

@@ -64,7 +64,7 @@ def _glitch_text(f0: float) -> str:
 
 
 def _timed_search(model, obs):
-    import timingkit.glitches as glitches
+    import timingkit.glitch.search as glitches
     stages = {"tracking+scan": 0.0, "fits": 0.0}
     originals = {}
 
@@ -95,12 +95,12 @@ def _timed_search(model, obs):
 
 def bench_glitches(n_toas: int = 2000, years: float = 10.0) -> dict:
     os.environ.setdefault("MPLBACKEND", "Agg")
-    from timingkit.ephemeris import load_ephemeris
-    from timingkit.fitting import fit
+    from timingkit.geometry.ephemeris import load_ephemeris
+    from timingkit.fit.fitter import fit
     from timingkit.model import TimingModel
-    from timingkit.observations import prepare_observations
-    from timingkit.simulate import simulate_toas
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.observations import prepare_observations
+    from timingkit.model.simulate import simulate_toas
+    from timingkit.geometry.sites import SiteTable
 
     eph = load_ephemeris()
     sites = SiteTable.with_files([str(SITE_FILE)])

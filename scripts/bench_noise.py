@@ -12,7 +12,7 @@ observing frequencies, red noise injected) and prints:
   fixed [red_noise] of 30 frequencies: times and ratio, per iteration too;
 - the maximum-likelihood estimate of the red-noise amplitude and index on
   top of that (reported separately: it is many likelihood evaluations);
-- one linear GLS solve (timingkit.gls.gls_solve) for N = 1,250 ... 40,000
+- one linear GLS solve (timingkit.fit.gls.gls_solve) for N = 1,250 ... 40,000
   and the log-log slope of time against N (1 = linear).
 
 Both fits start from the same offset in spin frequency and run in this
@@ -94,14 +94,14 @@ def bench_noise(toas: int = 10_000, sizes=SIZES, single_thread_child: bool = Tru
 def _measure(toas: int, sizes) -> dict:
     import numpy as np
 
-    from timingkit.ephemeris import load_ephemeris
-    from timingkit.fitting import fit
-    from timingkit.gls import gls_solve
+    from timingkit.geometry.ephemeris import load_ephemeris
+    from timingkit.fit.fitter import fit
+    from timingkit.fit.gls import gls_solve
     from timingkit.model import TimingModel
     from timingkit.model.noise import fourier_basis, fourier_prior_variances
-    from timingkit.observations import prepare_observations
-    from timingkit.simulate import simulate_toas
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.observations import prepare_observations
+    from timingkit.model.simulate import simulate_toas
+    from timingkit.geometry.sites import SiteTable
 
     eph = load_ephemeris()
     sites = SiteTable()

@@ -9,11 +9,11 @@ SAMPLE = os.path.join(os.path.dirname(__file__), "..", "timingkit", "sample_data
 
 @pytest.fixture(scope="session")
 def ephemeris():
-    from timingkit.ephemeris import load_ephemeris
+    from timingkit.geometry.ephemeris import load_ephemeris
     return load_ephemeris()
 
 
 @pytest.fixture(scope="session")
 def sites():
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     return SiteTable.with_files([os.path.join(SAMPLE, "sites.toml")])

@@ -9,10 +9,10 @@ from astropy.coordinates import (EarthLocation, SkyCoord, get_body_barycentric_p
 from astropy.time import Time
 from astropy.utils import iers
 
-from timingkit.ephemeris import builtin_ephemeris_path
+from timingkit.geometry.ephemeris import builtin_ephemeris_path
 from timingkit.model import TimingModel
-from timingkit.observations import prepare_observations
-from timingkit.toas import Toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.formats.toa_table import Toas
 
 iers.conf.auto_download = False
 iers.conf.auto_max_age = None   # the bundled table, as offline users have it

@@ -19,10 +19,10 @@ from pathlib import Path
 
 import pytest
 
-from timingkit import batch
-from timingkit.batch import (Source, add_batch_parser, discover_sources, inputs_sha256,
+from timingkit.batch import runner as batch
+from timingkit.batch.runner import (Source, add_batch_parser, discover_sources, inputs_sha256,
                              read_manifest, run_batch)
-from timingkit.errors import InputError
+from timingkit.formats.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]
 TESTS = Path(__file__).resolve().parent
@@ -73,7 +73,7 @@ def fit_or_die(toas_path, model_path, outdir, **options):
     """Kill the worker process (no exception, no cleanup) for demo-batch-001."""
     if "demo-batch-001" in str(toas_path):
         os._exit(9)
-    from timingkit.pipeline import fit_files
+    from timingkit.pipeline.fit_run import fit_files
 
     return fit_files(toas_path, model_path, outdir, **options)
 
@@ -87,7 +87,7 @@ def fit_or_stall(toas_path, model_path, outdir, **options):
         Path(outdir, "fitted.toml").write_text("name = ")
         Path(sentinel).write_text("stalled\n")
         time.sleep(300)
-    from timingkit.pipeline import fit_files
+    from timingkit.pipeline.fit_run import fit_files
 
     return fit_files(toas_path, model_path, outdir, **options)
 
@@ -303,7 +303,7 @@ def test_worker_killed_mid_source_is_isolated(three_sources, tmp_path):
 
 def test_interrupted_run_leaves_no_partial_report_and_rerun_completes(three_sources, tmp_path):
     outdir, sentinel = tmp_path / "out", tmp_path / "stalled"
-    program = ("import sys; from timingkit.batch import run_batch; from test_batch import "
+    program = ("import sys; from timingkit.batch.runner import run_batch; from test_batch import "
                f"fit_or_stall; run_batch({str(three_sources)!r}, {str(outdir)!r}, workers=1, "
                "progress=False, fit_function=fit_or_stall)")
     env = dict(os.environ, TIMINGKIT_TEST_STALL=str(sentinel),
@@ -455,7 +455,7 @@ def test_content_hash_follows_contents_settings_and_referenced_files(tmp_path):
     assert inputs_sha256(discover_sources(moved)[0]) == reference  # paths are not hashed
     assert inputs_sha256(Source(**{**source.__dict__, "free": ("dispersion.dm",)})) != reference
     assert inputs_sha256(Source(**{**source.__dict__, "make_plots": False})) != reference
-    assert inputs_sha256(source, fit_function="timingkit.glitches_cli.glitch_files") != reference
+    assert inputs_sha256(source, fit_function="timingkit.cli.glitches.glitch_files") != reference
     (folder / "sites.toml").write_text("[site.desert-dish]\nheight_m = 2.0\n")
     assert inputs_sha256(source) != reference  # a file named in the model's settings
 

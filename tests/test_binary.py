@@ -15,14 +15,14 @@ import mpmath
 import numpy as np
 import pytest
 
-from timingkit.errors import FitError, InputError
-from timingkit.fitting import compute_residuals, fit
+from timingkit.formats.errors import FitError, InputError
+from timingkit.fit.fitter import compute_residuals, fit
 from timingkit.model import TimingModel
 from timingkit.model.binary import keplerian_section, low_eccentricity_section
 from timingkit.model.kepler import solve_kepler, true_anomaly
-from timingkit.modelfile import format_model_document
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.formats.model_file import format_model_document
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 from numdiff import phase_partial
 
 MSP = '''
@@ -204,7 +204,7 @@ def test_retarded_time_is_solved_exactly(sites, ephemeris):
 
 
 def test_low_eccentricity_and_keplerian_forms_agree_below_1ns(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     kep = TimingModel.from_text(MSP + '''
 [binary]
@@ -263,7 +263,7 @@ def test_five_hour_near_circular_orbit_is_recovered(sites, ephemeris):
 
 
 def test_eccentric_double_neutron_star_orbit_is_recovered(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(DNS)
     obs = _obs(truth, sites, ephemeris, 54000, 56000, 500, 4)
@@ -285,7 +285,7 @@ def test_eccentric_double_neutron_star_orbit_is_recovered(ephemeris):
 
 
 def test_wide_keplerian_orbit_is_recovered_and_written_back(tmp_path, ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(WIDE)
     obs = _obs(truth, sites, ephemeris, 57500, 58500, 300, 5)
@@ -311,7 +311,7 @@ def test_wide_keplerian_orbit_is_recovered_and_written_back(tmp_path, ephemeris)
 
 def test_orbit_switched_off_leaves_the_orbital_period_in_the_residuals(ephemeris):
     from astropy.timeseries import LombScargle
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     # a light companion: 0.5 ms of Roemer delay, 5 % of the 10 ms period,
     # so the pulses stay numbered without the orbit
@@ -356,7 +356,7 @@ def test_bad_binary_sections_name_the_field(change, field, message):
 
 
 def test_shape_without_range_is_named_as_unconstrained(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     model = TimingModel.from_text(DNS.replace("shapiro_range_s = 6.8e-6", "shapiro_range_s = 0"))
     obs = _obs(model, sites, ephemeris, 54000, 54100, 40, 2, noise=False)
@@ -367,8 +367,8 @@ def test_shape_without_range_is_named_as_unconstrained(ephemeris):
 # ------------------------------------------------------- derived physics
 
 def _report_for(text, ephemeris, free, count=60, span=(57000, 57400)):
-    from timingkit.report import build_report
-    from timingkit.sites import SiteTable
+    from timingkit.outputs.report import build_report
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     model = TimingModel.from_text(text)
     obs = _obs(model, sites, ephemeris, span[0], span[1], count, 8, noise=False)
@@ -412,7 +412,7 @@ def test_hulse_taylor_masses_and_gr_decay_in_the_report(ephemeris):
     assert q["orbital_period_derivative_gr"]["value"] == pytest.approx(-2.40263e-12, rel=1e-3)
     assert q["orbital_period_derivative_observed_over_gr"]["value"] == pytest.approx(1.0085,
                                                                                    abs=2e-3)
-    from timingkit.report import summary_text
+    from timingkit.outputs.report import summary_text
     assert "orbital_period_derivative_gr" in summary_text(rep)
 
 
@@ -464,9 +464,9 @@ orbital_period_derivative = 0.06e-12
 
 
 def test_fit_writes_orbital_phase_and_day_of_year_plots(tmp_path, ephemeris):
-    from timingkit.pipeline import fit_files
-    from timingkit.sites import SiteTable
-    from timingkit.toas import write_toas
+    from timingkit.pipeline.fit_run import fit_files
+    from timingkit.geometry.sites import SiteTable
+    from timingkit.formats.toa_table import write_toas
     sites = SiteTable.with_files([])
     text = WIDE + '\n[fit]\nfree = ["spin.frequency_hz", "binary.projected_semi_major_axis_lt_s"]\n'
     model = TimingModel.from_text(text)

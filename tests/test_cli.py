@@ -12,7 +12,7 @@ import sys
 
 import pytest
 
-from timingkit.cli import main
+from timingkit.cli.main import main
 from timingkit.model import TimingModel
 
 SAMPLE = os.path.join(os.path.dirname(__file__), "..", "timingkit", "sample_data")

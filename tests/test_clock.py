@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from timingkit.clock import read_clock_table
-from timingkit.errors import InputError
+from timingkit.formats.clock_table import read_clock_table
+from timingkit.formats.errors import InputError
 
 TABLE = """# converts: desert-dish maser -> UTC
 # site: desert-dish

@@ -6,7 +6,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from timingkit import ddmath
+from timingkit.numerics import ddmath
 
 # Magnitudes of timing work (1e-60 .. 1e12, or zero): far from float64 underflow,
 # where no error-free transformation can be exact.

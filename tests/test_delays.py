@@ -2,7 +2,7 @@
 
 import numpy as np
 
-from timingkit import delays
+from timingkit.geometry import delays
 
 
 def test_dispersion_delay_dm100_at_1ghz():

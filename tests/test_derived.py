@@ -9,9 +9,9 @@ import pytest
 from astropy import constants as const
 from astropy import units as u
 
-from timingkit.derived import (ASSUMPTIONS, cautions_for, derive_spin,
+from timingkit.physics.spin import (ASSUMPTIONS, cautions_for, derive_spin,
                                derive_spin_from_period, period_derivative_from)
-from timingkit.errors import InputError
+from timingkit.formats.errors import InputError
 
 
 def approx(expected, rel=1e-6, abs=0.0):

@@ -10,7 +10,7 @@ from astropy import constants as const
 from astropy import units as u
 from astropy.coordinates import ICRS, Galactocentric, SkyCoord
 
-from timingkit.derived_binary import (GALACTIC_CONSTANTS, SOLAR_MASS_TIME_S,
+from timingkit.physics.binary import (GALACTIC_CONSTANTS, SOLAR_MASS_TIME_S,
                                       companion_mass, galactic_from_icrs,
                                       galactic_period_derivative,
                                       intrinsic_spin, mass_function,
@@ -18,7 +18,7 @@ from timingkit.derived_binary import (GALACTIC_CONSTANTS, SOLAR_MASS_TIME_S,
                                       orbital_decay_gr, post_keplerian_gr,
                                       shklovskii_period_derivative,
                                       total_mass_from_periastron_advance)
-from timingkit.errors import InputError
+from timingkit.formats.errors import InputError
 
 
 def approx(expected, rel=1e-6, abs=0.0):

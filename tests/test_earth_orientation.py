@@ -13,8 +13,8 @@ import pytest
 from astropy.time import Time
 from astropy.utils import iers
 
-from timingkit import earth_orientation as eo
-from timingkit.timearray import SplitTime
+from timingkit.geometry import earth_orientation as eo
+from timingkit.numerics.timearray import SplitTime
 
 RAD_TO_UAS = 180.0 / np.pi * 3600.0e6
 CIP_BOUND_UAS = 24.0     # the budget stated in earth_orientation (0.75 mm at 6400 km)
@@ -202,7 +202,7 @@ def test_cip_empty_and_order_preserved():
 def test_disk_cache_reproduces_the_bundled_table(tmp_path, monkeypatch):
     # The cached arrays must equal a fresh parse of astropy's bundled table exactly.
     import numpy as np
-    from timingkit import earth_orientation as eo
+    from timingkit.geometry import earth_orientation as eo
     monkeypatch.setenv("TIMINGKIT_CACHE_DIR", str(tmp_path))
     eo.eop_table.cache_clear()
     try:

@@ -5,9 +5,9 @@ import os
 import numpy as np
 import pytest
 
-from timingkit.ephemeris import load_ephemeris
-from timingkit.errors import InputError
-from timingkit.timearray import SplitTime
+from timingkit.geometry.ephemeris import load_ephemeris
+from timingkit.formats.errors import InputError
+from timingkit.numerics.timearray import SplitTime
 
 AU_KM = 149597870.700  # IAU 2012 Resolution B2
 

@@ -8,12 +8,12 @@ unit normal and the reduced chi-square near 1 when the TOA errors are right.
 import numpy as np
 import pytest
 
-from timingkit.errors import FitError
-from timingkit.fitting import compute_residuals, fit
+from timingkit.formats.errors import FitError
+from timingkit.fit.fitter import compute_residuals, fit
 from timingkit.model import TimingModel
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
-from timingkit.toas import Toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
+from timingkit.formats.toa_table import Toas
 from numdiff import phase_partial
 
 MSP = '''
@@ -62,7 +62,7 @@ def _calibration_model():
 def test_statistical_calibration_over_60_simulations(ephemeris):
     # Pulls (fitted - true)/sigma must have mean ~0 and std in [0.8, 1.2] for
     # every free parameter, and the reduced chi-square must average ~1.
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = _calibration_model()
     exact = simulate_toas(truth, 57000, 59000, 150, 2.0, sites, ephemeris,
@@ -113,7 +113,7 @@ def test_design_matrix_matches_numerical_derivatives(sites, ephemeris):
 
 
 def test_pulse_column_is_honoured(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = _calibration_model()
     toas = simulate_toas(truth, 58000, 58400, 40, 1.0, sites, ephemeris,
@@ -134,7 +134,7 @@ def test_pulse_column_is_honoured(ephemeris):
 
 
 def test_unconstrained_and_degenerate_parameters_are_named(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(MSP.replace('["-1.2e-15"]', '["-1.2e-15", "0"]'))
     toas = simulate_toas(truth, 58000, 58300, 30, 1.0, sites, ephemeris,
@@ -152,7 +152,7 @@ def test_unconstrained_and_degenerate_parameters_are_named(ephemeris):
 
 
 def test_starting_model_too_far_off_is_reported(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = _calibration_model()
     toas = simulate_toas(truth, 57000, 59000, 200, 1.0, sites, ephemeris,

@@ -10,14 +10,14 @@ from fractions import Fraction
 import numpy as np
 import pytest
 
-from timingkit.errors import InputError
-from timingkit.fitting import fit
+from timingkit.formats.errors import InputError
+from timingkit.fit.fitter import fit
 from timingkit.model import TimingModel
 from timingkit.model.glitch import Glitch, glitch_phase, model_glitches
-from timingkit.modelfile import format_model_document
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
-from timingkit.toas import Toas
+from timingkit.formats.model_file import format_model_document
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
+from timingkit.formats.toa_table import Toas
 
 DAY = 86400.0
 

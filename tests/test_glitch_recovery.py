@@ -7,10 +7,10 @@ tracking cannot follow the post-glitch recovery, and connection broke about
 fitted the pulses connect without it, so the search must report one glitch.
 Invented data (seeded simulation); the truth is the injected model."""
 
-from timingkit.glitches import search_glitches
+from timingkit.glitch.search import search_glitches
 from timingkit.model import TimingModel
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 
 START = """
 name = "demo-young"

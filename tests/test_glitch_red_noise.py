@@ -3,7 +3,7 @@
 Simulated invented young pulsar "demo-young" (10 Hz) at the barycentre (site
 'ssb': fast), a TOA every 14 days for 3 years with 30 µs errors, plus
 power-law red noise (log10 amplitude -10.75, spectral index 4, 30 Fourier
-frequencies) injected by timingkit.simulate: after fitting the spin
+frequencies) injected by timingkit.model.simulate: after fitting the spin
 frequency and its derivative the residuals are about 130 µs rms, some four
 times the white level, the red power on the longest time-scales. The
 searches with the noise model start from a model carrying the true
@@ -22,15 +22,15 @@ red-noise term).
 import numpy as np
 import pytest
 
-from timingkit.glitch_scan import _red_terms
-from timingkit.glitches import (_phase_data, build_windows, false_alarm_probability,
+from timingkit.glitch.scan import _red_terms
+from timingkit.glitch.search import (_phase_data, build_windows, false_alarm_probability,
                                 gap_statistics, null_distribution, search_glitches,
                                 track_phases)
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.noise import NoiseModel, toa_times_s
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 
 START_MJD = 58000.0
 YEARS, CADENCE_DAYS, ERR_US = 3.0, 14.0, 30.0
@@ -86,7 +86,7 @@ def glitch_free(sites, ephemeris):
 def test_red_noise_is_well_above_white_in_these_simulations(glitch_free):
     # the premise of the tests below: a plain weighted fit leaves red residuals
     # several times the TOA errors (else the tests would not be about red noise)
-    from timingkit.fitting import fit
+    from timingkit.fit.fitter import fit
     rms = [fit(without_noise_model(), obs).postfit.rms_us() for obs in glitch_free[:10]]
     assert 2.5 * ERR_US < np.median(rms) < 10 * ERR_US
 

@@ -13,13 +13,13 @@ significance); the sizes tested are at least 3 times above it.
 import numpy as np
 import pytest
 
-from timingkit.glitches import (GlitchSearchSettings, build_windows, false_alarm_probability,
+from timingkit.glitch.search import (GlitchSearchSettings, build_windows, false_alarm_probability,
                                 gap_statistics, null_distribution, search_glitches, solve_seed,
                                 track_phases)
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 
 START_MJD = 58000.0
 

@@ -8,12 +8,12 @@ import tomllib
 import numpy as np
 import pytest
 
-from timingkit.cli import main
-from timingkit.glitches_cli import glitch_files
+from timingkit.cli.main import main
+from timingkit.cli.glitches import glitch_files
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
-from timingkit.simulate import simulate_toas
-from timingkit.toas import write_toas
+from timingkit.model.simulate import simulate_toas
+from timingkit.formats.toa_table import write_toas
 
 REQUIRED = {"epoch_mjd", "epoch_min_mjd", "epoch_max_mjd", "frequency_step_hz",
             "frequency_step_uncertainty_hz", "frequency_derivative_step",

@@ -15,13 +15,13 @@ import numpy as np
 import pytest
 import scipy.stats
 
-from timingkit.cli import main
-from timingkit.fitting import fit
+from timingkit.cli.main import main
+from timingkit.fit.fitter import fit
 from timingkit.model import EXTRA_SECTIONS, TimingModel
-from timingkit.model_selection import (compare_fits, f_test, information_criteria_change,
+from timingkit.fit.model_selection import (compare_fits, f_test, information_criteria_change,
                                        next_derivative_candidate, suggest)
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 
 SPIN = '''
 name = "sim-select"
@@ -237,7 +237,7 @@ def test_glitch_f_test_with_red_noise_needs_the_noise_model(sites, ephemeris):
     # frequency step of 1e-10 Hz is preferred with the noise model
     if "glitch" not in EXTRA_SECTIONS:
         pytest.skip("the glitch component ([[glitch]]) is not in this installation")
-    from timingkit.model_selection import glitch_candidate
+    from timingkit.fit.model_selection import glitch_candidate
     trials = 30
     truth = _model(extra=RED)
     white = _model()

@@ -5,10 +5,10 @@ from fractions import Fraction
 
 import pytest
 
-from timingkit.errors import InputError
-from timingkit.modelfile import format_model_document, parse_model_text, read_model_document
+from timingkit.formats.errors import InputError
+from timingkit.formats.model_file import format_model_document, parse_model_text, read_model_document
 
-pytest.importorskip("timingkit.sites")
+pytest.importorskip("timingkit.geometry.sites")
 from timingkit.model import TimingModel  # noqa: E402
 
 GOOD = '''

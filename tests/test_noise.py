@@ -17,16 +17,16 @@ import pytest
 import scipy.integrate
 import scipy.stats
 
-from timingkit.errors import FitError, InputError
-from timingkit.fitting import fit
-from timingkit.gls import (RedLikelihood, dense_gls, gls_solve, marginal_log_likelihood,
+from timingkit.formats.errors import FitError, InputError
+from timingkit.fit.fitter import fit
+from timingkit.fit.gls import (RedLikelihood, dense_gls, gls_solve, marginal_log_likelihood,
                            red_covariance_dense)
 from timingkit.model import TimingModel
 from timingkit.model.noise import (ONE_PER_YEAR_HZ, SECONDS_PER_YEAR, NoiseModel,
                                    fourier_basis, fourier_prior_variances, power_law_psd)
-from timingkit.modelfile import format_model_document
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.formats.model_file import format_model_document
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 
 SPIN = '''
 name = "sim-noisy"
@@ -365,7 +365,7 @@ def test_simulated_white_scaling_and_red_noise_have_the_stated_variance(sites, e
 
 
 def test_noise_only_fit_and_report_entry(sites, ephemeris):
-    from timingkit.report import build_report
+    from timingkit.outputs.report import build_report
     truth = _model(_red(-12.5, 4.0))
     obs = _observations(truth, sites, ephemeris, 5)
     start = _model(_red(-13.0, 4.0), free=["spin.frequency_hz", "red_noise.amplitude_log10"])
@@ -418,7 +418,7 @@ def test_residual_spectrum_estimate_follows_the_noise_model(sites, ephemeris):
     # averaged over realisations, the white-weighted spectrum of the post-fit
     # residuals must equal the injected power law plus the white level at the
     # basis frequencies above the lowest two (which the spin terms absorb)
-    from timingkit.noise_outputs import residual_power_spectrum
+    from timingkit.outputs.noise_outputs import residual_power_spectrum
     truth = _model(_red(-12.5, 4.0))
     ratios = []
     for seed in range(20):
@@ -436,9 +436,9 @@ def test_residual_spectrum_estimate_follows_the_noise_model(sites, ephemeris):
 
 
 def test_residual_figure_carries_the_red_noise_curve(sites, ephemeris, tmp_path):
-    from timingkit.noise_outputs import add_red_noise_curve, write_noise_figures
-    from timingkit.plotting import plot_residuals
-    from timingkit.report import residual_table
+    from timingkit.outputs.noise_outputs import add_red_noise_curve, write_noise_figures
+    from timingkit.outputs.plotting import plot_residuals
+    from timingkit.outputs.report import residual_table
     truth = _model(_red(-12.5, 4.0))
     obs = _observations(truth, sites, ephemeris, 7)
     r = fit(truth, obs)

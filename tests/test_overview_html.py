@@ -16,7 +16,7 @@ import pytest
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
-from timingkit.overview_html import png_data_uri, render_overview_html, write_overview_html
+from timingkit.outputs.overview_page import png_data_uri, render_overview_html, write_overview_html
 
 COLUMNS = ("source", "status", "toas", "rms_us", "frequency_hz", "period_s", "message")
 

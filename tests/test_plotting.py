@@ -15,9 +15,9 @@ from matplotlib import colormaps
 from matplotlib.image import imread
 from PIL import Image
 
-from timingkit import plotting
-from timingkit.errors import InputError
-from timingkit.residual_table import ResidualTable
+from timingkit.outputs import plotting
+from timingkit.formats.errors import InputError
+from timingkit.outputs.residual_table import ResidualTable
 
 JULIAN_YEAR_S = 3.15576e7   # IAU Julian year, 365.25 d of 86400 s
 
@@ -110,7 +110,7 @@ def test_unknown_suffix_is_input_error_listing_formats(tmp_path):
 
 def test_no_pyplot_and_thread_safe(tmp_path):
     # Importing and drawing must not pull in pyplot (global state, GUI backends).
-    code = ("import sys, numpy as np; from timingkit import plotting; "
+    code = ("import sys, numpy as np; from timingkit.outputs import plotting; "
             "plotting.plot_ppdot([1.0], [1e-15], ['demo-one']); "
             "print('matplotlib.pyplot' in sys.modules)")
     env = {k: v for k, v in os.environ.items() if k != "MPLBACKEND"}

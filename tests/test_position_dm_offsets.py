@@ -10,13 +10,13 @@ import pytest
 from astropy import units as u
 from astropy.coordinates import BarycentricMeanEcliptic, SkyCoord
 
-from timingkit.errors import FitError, InputError
-from timingkit.fitting import compute_residuals, fit
+from timingkit.formats.errors import FitError, InputError
+from timingkit.fit.fitter import compute_residuals, fit
 from timingkit.model import TimingModel
 from timingkit.model.astrometry import (ICRS_TO_ECLIPTIC, convert_model_frame,
                                         ecliptic_to_equatorial, equatorial_to_ecliptic)
-from timingkit.observations import prepare_observations
-from timingkit.simulate import simulate_toas
+from timingkit.geometry.observations import prepare_observations
+from timingkit.model.simulate import simulate_toas
 from numdiff import phase_partial
 
 MAS = math.pi / (180 * 3600e3)
@@ -128,7 +128,7 @@ def test_ecliptic_and_equatorial_forms_give_the_same_residuals(astrometric):
 
 
 def test_position_report_gives_both_frames_in_sexagesimal_degrees_and_mas(astrometric):
-    from timingkit.report import build_report
+    from timingkit.outputs.report import build_report
     truth, obs = astrometric
     ecl = convert_model_frame(truth, "ecliptic")
     res = fit(ecl, obs, free=SPIN + ["position.ecliptic_longitude_deg",
@@ -177,7 +177,7 @@ dm_offsets = [0.0, 0.0]
 
 
 def test_dm_offsets_are_recovered(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(DM_RANGES.replace("dm_offsets = [0.0, 0.0]",
                                                     "dm_offsets = [2e-3, -3e-3]"))
@@ -198,14 +198,14 @@ def test_dm_offsets_are_recovered(ephemeris):
 
 
 def test_dm_offset_with_one_frequency_in_its_range_is_named(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(DM_RANGES)
     two = simulate_toas(truth, 56800, 57900, 100, 1.0, sites, ephemeris,
                         site_names=["geocenter"], freqs_mhz=[800, 1400], seed=4)
     one = simulate_toas(truth, 57950, 58700, 60, 1.0, sites, ephemeris,
                         site_names=["geocenter"], freqs_mhz=[1400], seed=5)
-    from timingkit.toas import Toas
+    from timingkit.formats.toa_table import Toas
     toas = Toas.from_arrays(np.concatenate([two.mjd_day, one.mjd_day]),
                             np.concatenate([two.mjd_frac, one.mjd_frac]), 1.0,
                             np.concatenate([two.freq_mhz, one.freq_mhz]), "geocenter")
@@ -266,12 +266,12 @@ def test_group_offsets_are_recovered_and_written_back(sites, ephemeris):
 
 
 def format_text(doc):
-    from timingkit.modelfile import format_model_document
+    from timingkit.formats.model_file import format_model_document
     return format_model_document(doc)
 
 
 def test_group_offsets_that_cannot_be_measured_are_named(ephemeris):
-    from timingkit.sites import SiteTable
+    from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
     model = TimingModel.from_text(GROUPS.replace('value = "lake-array"', 'value = "geocenter"'))
     toas = simulate_toas(model, 57000, 57300, 40, 1.0, sites, ephemeris,
@@ -288,7 +288,7 @@ def test_group_offsets_that_cannot_be_measured_are_named(ephemeris):
 
 
 def test_convert_command_round_trips_frame_and_binary_form(tmp_path, capsys):
-    from timingkit.cli import main
+    from timingkit.cli.main import main
     src = tmp_path / "m.toml"
     src.write_text(SOURCE + '''
 [binary]
@@ -354,6 +354,6 @@ def test_sexagesimal_reader_agrees_with_astropy_angle():
                        ("89d59m59.9999s", "deg")]:
         assert abs(parse_angle(text, unit, "f", None) - Angle(text, unit=unit).radian) < 1e-15
     import pytest
-    from timingkit.errors import InputError
+    from timingkit.formats.errors import InputError
     with pytest.raises(InputError):
         parse_angle("05h61m00s", "hourangle", "position.ra", "m.toml")

@@ -6,8 +6,8 @@ import os
 import numpy as np
 import pytest
 
-from timingkit.errors import InputError
-from timingkit.residual_table import CORE_COLUMNS, ResidualTable, read_csv
+from timingkit.formats.errors import InputError
+from timingkit.outputs.residual_table import CORE_COLUMNS, ResidualTable, read_csv
 
 # Invented demo data (invented sites), not observations.
 MJD_TEXT = ["58849.000142889802083", "58851.997000000000000", "58900.5",

@@ -17,10 +17,10 @@ from astropy.coordinates import EarthLocation
 from astropy.time import Time
 from astropy.utils import iers
 
-from timingkit.errors import InputError
-from timingkit.sites import (GEOCENTER, SSB, Site, SiteTable, load_site_file,
+from timingkit.formats.errors import InputError
+from timingkit.geometry.sites import (GEOCENTER, SSB, Site, SiteTable, load_site_file,
                              site_gcrs_posvel, sites_gcrs_posvel)
-from timingkit.timearray import SplitTime
+from timingkit.numerics.timearray import SplitTime
 
 # Invented sites: a mid-latitude one (the example of the design brief), a
 # far-northern and a southern one given geodetically.

@@ -8,7 +8,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from timingkit import ddmath
+from timingkit.numerics import ddmath
 from timingkit.model.spin import spin_phase_dd
 
 THIRTY_YEARS_S = 30 * 365.25 * 86400

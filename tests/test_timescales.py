@@ -3,8 +3,8 @@
 import numpy as np
 import pytest
 
-from timingkit import timescales
-from timingkit.timearray import SplitTime
+from timingkit.geometry import timescales
+from timingkit.numerics.timearray import SplitTime
 
 J2000_MJD = 51544.5
 DAYS_PER_MILLENNIUM = 365250.0
@@ -53,11 +53,11 @@ def test_sofa_time_scale_worked_example(tmp_path):
     # 2006-01-15 21:24:37.5 at latitude +19.48125 deg, longitude -155.933222 deg
     # (UT1-UTC = +0.3341 s) gives TDB 2006-01-15 21:25:42.684373. Through the
     # project's own path: a site file, the TOA table, prepare_observations.
-    pytest.importorskip("timingkit.sites")
-    from timingkit.ephemeris import load_ephemeris
-    from timingkit.observations import prepare_observations
-    from timingkit.sites import SiteTable
-    from timingkit.toas import Toas
+    pytest.importorskip("timingkit.geometry.sites")
+    from timingkit.geometry.ephemeris import load_ephemeris
+    from timingkit.geometry.observations import prepare_observations
+    from timingkit.geometry.sites import SiteTable
+    from timingkit.formats.toa_table import Toas
     site_file = tmp_path / "sites.toml"
     site_file.write_text("[site.sofa-example]\nlongitude_deg = -155.933222\n"
                          "latitude_deg = 19.48125\nheight_m = 0.0\n")

@@ -1,4 +1,4 @@
-"""Tests of the TOA table reader/writer (timingkit/toas.py, DESIGN.md §4).
+"""Tests of the TOA table reader/writer (timingkit/formats/toa_table.py, DESIGN.md §4).
 
 Exactness is checked against Python's own ``decimal``/``fractions`` modules
 (an independent general-purpose exact-arithmetic library): the fraction of
@@ -19,10 +19,10 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from timingkit import toas as toasmod
-from timingkit.errors import InputError
-from timingkit.timearray import SplitTime
-from timingkit.toas import Toas, parse_mjd_strings, read_toas, write_toas
+from timingkit.formats import toa_table as toasmod
+from timingkit.formats.errors import InputError
+from timingkit.numerics.timearray import SplitTime
+from timingkit.formats.toa_table import Toas, parse_mjd_strings, read_toas, write_toas
 
 FAST = settings(max_examples=60, deadline=None,
                 suppress_health_check=[HealthCheck.too_slow])

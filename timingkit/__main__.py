@@ -1,3 +1,3 @@
-from timingkit.cli import main
+from timingkit.cli.main import main
 
 raise SystemExit(main())

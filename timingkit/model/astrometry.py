@@ -32,12 +32,12 @@ from decimal import Decimal
 
 import numpy as np
 
-from timingkit import delays
-from timingkit.errors import InputError
+from timingkit.geometry import delays
+from timingkit.formats.errors import InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
-from timingkit.modelfile import Key, take_section
-from timingkit.timearray import SECONDS_PER_DAY
+from timingkit.formats.model_file import Key, take_section
+from timingkit.numerics.timearray import SECONDS_PER_DAY
 
 FRAMES = ("equatorial", "ecliptic")
 COMMON_KEYS = {

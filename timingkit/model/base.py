@@ -15,8 +15,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from timingkit.model.parameters import Parameter
-from timingkit.observations import Observations
-from timingkit.timearray import SplitTime
+from timingkit.geometry.observations import Observations
+from timingkit.numerics.timearray import SplitTime
 
 
 @dataclass

@@ -47,13 +47,13 @@ from decimal import Decimal
 
 import numpy as np
 
-from timingkit import ddmath
-from timingkit.errors import InputError
+from timingkit.numerics import ddmath
+from timingkit.formats.errors import InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.binary_orbits import (EccentricOrbit, LowEccentricityOrbit, ShapiroForm,
                                            SOLAR_MASS_TIME_S)
 from timingkit.model.parameters import Parameter
-from timingkit.modelfile import Key, take_section
+from timingkit.formats.model_file import Key, take_section
 
 SECTION = "binary"
 MODELS = ("keplerian", "relativistic", "low_eccentricity")

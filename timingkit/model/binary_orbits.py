@@ -38,8 +38,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from timingkit import ddmath
-from timingkit.errors import FitError
+from timingkit.numerics import ddmath
+from timingkit.formats.errors import FitError
 from timingkit.model.kepler import TWO_PI, solve_kepler, true_anomaly, wrap_angle
 
 SECONDS_PER_DAY = 86400.0

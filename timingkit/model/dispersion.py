@@ -20,11 +20,11 @@ from math import factorial
 
 import numpy as np
 
-from timingkit import delays
-from timingkit.errors import InputError
+from timingkit.geometry import delays
+from timingkit.formats.errors import InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
-from timingkit.modelfile import Key, take_section
+from timingkit.formats.model_file import Key, take_section
 
 DISPERSION_KEYS = {
     "dm": Key("number", default=0.0, unit="pc cm^-3"),

@@ -29,10 +29,10 @@ from decimal import Decimal
 
 import numpy as np
 
-from timingkit.errors import FitError, InputError
+from timingkit.formats.errors import FitError, InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.parameters import Parameter, mjd_parts
-from timingkit.modelfile import Key, take_section
+from timingkit.formats.model_file import Key, take_section
 
 SECONDS_PER_DAY = 86400.0
 SECTION = "glitch"

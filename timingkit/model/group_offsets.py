@@ -18,10 +18,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from timingkit.errors import InputError
+from timingkit.formats.errors import InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.parameters import Parameter
-from timingkit.modelfile import Key, reject_repeated_groups, table_list, take_section
+from timingkit.formats.model_file import Key, reject_repeated_groups, table_list, take_section
 
 SECTION = "time_offset"
 OFFSET_KEYS = {

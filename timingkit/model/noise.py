@@ -45,11 +45,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from timingkit.errors import InputError
+from timingkit.formats.errors import InputError
 from timingkit.model.base import Component
 from timingkit.model.parameters import Parameter
 from timingkit.model.timing_model import EXTRA_SECTIONS
-from timingkit.modelfile import Key, reject_repeated_groups, table_list, take_section
+from timingkit.formats.model_file import Key, reject_repeated_groups, table_list, take_section
 
 SECONDS_PER_YEAR = 365.25 * 86400.0        # Julian year
 ONE_PER_YEAR_HZ = 1.0 / SECONDS_PER_YEAR

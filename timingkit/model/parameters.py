@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from decimal import Decimal
 from fractions import Fraction
 
-from timingkit import ddmath
+from timingkit.numerics import ddmath
 
 
 @dataclass

@@ -1,7 +1,7 @@
 """Spin phase from the frequency and any number of its derivatives.
 
 phase(t) = sum_k f_k dt^(k+1) / (k+1)!, dt = t_emit - epoch (TDB seconds),
-evaluated by Horner's rule in double-double (timingkit.ddmath): the error
+evaluated by Horner's rule in double-double (timingkit.numerics.ddmath): the error
 stays far below 1e-9 cycles for a 700 Hz pulsar 30 years from its epoch, on
 every platform.
 """
@@ -13,11 +13,11 @@ from math import factorial
 
 import numpy as np
 
-from timingkit import ddmath
-from timingkit.errors import InputError
+from timingkit.numerics import ddmath
+from timingkit.formats.errors import InputError
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
-from timingkit.modelfile import Key, take_section
+from timingkit.formats.model_file import Key, take_section
 
 SPIN_KEYS = {
     "epoch_mjd": Key("mjd", required=True),

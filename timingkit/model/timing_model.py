@@ -9,8 +9,8 @@ from decimal import Decimal
 
 import numpy as np
 
-from timingkit import ddmath
-from timingkit.errors import InputError
+from timingkit.numerics import ddmath
+from timingkit.formats.errors import InputError
 from timingkit.model.astrometry import Astrometry
 from timingkit.model.base import Component, Evaluation
 from timingkit.model.dispersion import Dispersion
@@ -19,9 +19,9 @@ from timingkit.model.glitch import build_glitches
 from timingkit.model.group_offsets import build_group_offsets
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.model.spin import Spin
-from timingkit.modelfile import (Key, ModelDocument, read_model_document, take_section,
+from timingkit.formats.model_file import (Key, ModelDocument, read_model_document, take_section,
                                  write_model_document)
-from timingkit.observations import Observations
+from timingkit.geometry.observations import Observations
 
 TOP_KEYS = {"name": Key("text", default="unnamed")}
 FIT_KEYS = {"free": Key("list_text", default=list)}
@@ -91,7 +91,7 @@ class TimingModel:
 
     @classmethod
     def from_text(cls, text: str, path: str | None = None) -> "TimingModel":
-        from timingkit.modelfile import parse_model_text
+        from timingkit.formats.model_file import parse_model_text
         return cls(parse_model_text(text, path))
 
     def copy(self) -> "TimingModel":

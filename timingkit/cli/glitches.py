@@ -1,0 +1,176 @@
+"""``timingkit glitches``: search TOAs for glitches, fit them, write the results.
+
+Outputs in OUTDIR: ``glitches.json`` (candidates with their brackets,
+steps, uncertainties and false-alarm probabilities), ``fitted.toml`` (the
+starting model with the glitches added and everything fitted),
+``glitch_search.png`` (residuals before the glitch terms, the local
+frequency track with the candidate epochs, the frequency-derivative track),
+and the files of ``timingkit fit`` (residuals.csv, prefit_residuals.csv,
+residuals.png, report.json with ``glitch_candidates``). :func:`glitch_files`
+takes the same arguments as :func:`timingkit.pipeline.fit_run.fit_files`, so the
+batch runner can use it as its fit function.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+
+from timingkit.formats.errors import FitError
+from timingkit.glitch.search import (DEFAULT_MIN_SIGNIFICANCE, DEFAULT_NULL_TRIALS,
+                                GlitchSearchResult, GlitchSearchSettings, search_glitches)
+from timingkit.pipeline.fit_run import load_inputs, write_fit_outputs
+from timingkit.outputs.report import build_report, write_json
+
+GLITCH_FILE = "glitches.json"
+FIGURE_FILE = "glitch_search.png"
+
+
+def glitch_report(result: GlitchSearchResult) -> dict:
+    """report.json of a glitch run: the fit report plus the search summary."""
+    report = build_report(result.fit, result.obs)
+    report["glitch_candidates"] = len(result.candidates)
+    report["glitch_search"] = {
+        "candidates_file": GLITCH_FILE,
+        "epochs_mjd": [float(c.epoch_mjd) for c in result.candidates],
+        "fractional_sizes": [c.fractional_size for c in result.candidates],
+        "false_alarm_probabilities": [c.false_alarm_probability for c in result.candidates],
+        "detection_limit": result.detection_limit,
+        "settings": result.settings.as_dict(),
+        "toas_left_out": result.dropped_toas,
+        "assumptions": result.assumptions,
+        "null_noise": result.null_noise,
+    }
+    report["warnings"] = list(report.get("warnings", [])) + list(result.warnings)
+    return report
+
+
+def write_glitch_figure(result: GlitchSearchResult, path: str, title: str | None = None):
+    from timingkit.outputs.plotting import plot_glitch_search
+    track = result.track
+    return plot_glitch_search(
+        result.residual_mjd, result.residual_us, result.residual_err_us, track.mjd,
+        track.frequency_offset_hz, track.frequency_err_hz, track.frequency_derivative,
+        track.frequency_derivative_err, [float(c.epoch_mjd) for c in result.candidates],
+        path=path, frequency_reference_hz=0.0,
+        title=title or "glitch search: frequency relative to the fitted spin-down (no glitch terms)")
+
+
+def glitch_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
+                 ephemeris=None, clock_paths=(), make_plots=True, progress=False,
+                 color_by="site", settings: GlitchSearchSettings | None = None) -> dict:
+    """Search one source for glitches and write the outputs (module docstring).
+    Returns the report dict (also written to ``outdir/report.json``)."""
+    inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
+                         ephemeris=ephemeris, clock_paths=clock_paths)
+    result = search_glitches(inputs.model, inputs.obs, settings, reference=inputs.reference)
+    if result.fit is None:
+        raise FitError("the glitch search found nothing and the starting model could not be "
+                       "fitted: " + "; ".join(result.warnings))
+    os.makedirs(outdir, exist_ok=True)
+    write_json(os.path.join(outdir, GLITCH_FILE), result.to_json())
+    if make_plots:
+        write_glitch_figure(result, os.path.join(outdir, FIGURE_FILE),
+                            title=f"{inputs.model.name}: glitch search "
+                                  "(frequency relative to the fitted spin-down)")
+    report = glitch_report(result)
+    write_fit_outputs(result.fit, result.obs, report, outdir, make_plots, color_by)
+    return report
+
+
+def _mjd(text: str) -> str:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected an MJD, found {text!r}") from None
+    if not 0 < value < 200000:
+        raise argparse.ArgumentTypeError(f"expected an MJD (0-200000), found {text!r}")
+    return text
+
+
+def add_glitches_parser(subparsers) -> argparse.ArgumentParser:
+    p = subparsers.add_parser(
+        "glitches", help="search TOAs for glitches, fit them, plot and report",
+        description="Track the spin frequency in sliding windows, find change points with "
+                    "false-alarm probabilities from simulated noise (white, or the model's "
+                    "[[white_noise]]/[red_noise] sections), keep the phase connected across "
+                    "glitches, fit each glitch as a model component.")
+    p.add_argument("toas", help="TOA table (plain text)")
+    p.add_argument("model", help="starting timing model (TOML)")
+    p.add_argument("-o", "--outdir", default="timingkit-glitches", help="output folder")
+    window = p.add_mutually_exclusive_group()
+    window.add_argument("--window-toas", type=int, metavar="N",
+                        help="TOAs in the window on each side of a gap (default 10)")
+    window.add_argument("--window-days", type=float, metavar="D",
+                        help="days in the window on each side of a gap")
+    p.add_argument("--min-significance", type=float, default=DEFAULT_MIN_SIGNIFICANCE,
+                   metavar="S", help="accept candidates whose global false-alarm probability "
+                   f"is below the Gaussian S-sigma two-sided tail (default {DEFAULT_MIN_SIGNIFICANCE})")
+    p.add_argument("--known-epochs", nargs="+", type=_mjd, metavar="MJD",
+                   help="test and fit glitches at these epochs (TDB) instead of searching")
+    p.add_argument("--null-trials", type=int, default=DEFAULT_NULL_TRIALS, metavar="N",
+                   help=f"noise simulations for the false-alarm probabilities "
+                        f"(default {DEFAULT_NULL_TRIALS})")
+    p.add_argument("--no-decay", action="store_true",
+                   help="do not try decaying frequency steps")
+    p.add_argument("--seed", type=int, default=GlitchSearchSettings.seed,
+                   help="random seed of the null simulations")
+    p.add_argument("--free", nargs="+", default=[], metavar="P", help="also fit these")
+    p.add_argument("--fix", nargs="+", default=[], metavar="P", help="hold these fixed")
+    p.add_argument("--sites", action="append", default=[], metavar="FILE",
+                   help="extra site file (TOML); may be repeated")
+    p.add_argument("--ephemeris", metavar="BSP", help="JPL SPK ephemeris file")
+    p.add_argument("--clock", action="append", default=[], metavar="FILE",
+                   help="clock-correction table; may be repeated")
+    p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
+    p.add_argument("--no-plot", action="store_true", help="skip the figures")
+    p.set_defaults(func=cmd_glitches)
+    return p
+
+
+def cmd_glitches(args) -> int:
+    settings = GlitchSearchSettings(
+        window_toas=args.window_toas, window_days=args.window_days,
+        min_significance=args.min_significance, known_epochs_mjd=args.known_epochs,
+        null_trials=args.null_trials, fit_decays=not args.no_decay, seed=args.seed)
+    report = glitch_files(args.toas, args.model, args.outdir, free=args.free, fix=args.fix,
+                          sites_paths=args.sites, ephemeris=args.ephemeris,
+                          clock_paths=args.clock, make_plots=not args.no_plot,
+                          color_by=args.color_by, settings=settings)
+    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot))
+    return 0
+
+
+def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
+    import json
+    with open(glitch_path, encoding="utf-8") as fh:
+        found = json.load(fh)
+    n = len(found["candidates"])
+    lines = [f"{report['source']}: {report['toas']} TOAs, {n} glitch candidate"
+             f"{'' if n == 1 else 's'}; fitted model reduced chi2 {report['reduced_chi2']:.3f}, "
+             f"weighted rms {report['weighted_rms_us']:.4g} µs"]
+    for c in found["candidates"]:
+        fap = c["false_alarm_probability"]
+        lines.append(
+            f"  MJD {c['epoch_mjd']:.4f} (between {c['epoch_min_mjd']:.4f} and "
+            f"{c['epoch_max_mjd']:.4f}): step {c['frequency_step_hz']:.6g} ± "
+            f"{c['frequency_step_uncertainty_hz']:.2g} Hz (fractional {c['fractional_size']:.3g}),"
+            f" frequency-derivative step {c['frequency_derivative_step']:.3g} ± "
+            f"{c['frequency_derivative_step_uncertainty']:.2g} Hz/s, false-alarm probability "
+            + ("n/a" if fap is None else f"{fap:.2g}"))
+        for d in c.get("decaying_terms", []):
+            lines.append(f"    decaying step {d['decaying_frequency_step_hz']:.4g} ± "
+                         f"{d['decaying_frequency_step_uncertainty_hz']:.2g} Hz, time-scale "
+                         f"{d['decay_time_days']:.4g} ± {d['decay_time_uncertainty_days']:.2g} days")
+    limit = found.get("detection_limit") or {}
+    if limit.get("fractional_size") is not None:
+        lines.append(f"  detection limit (95 %, typical gap): fractional size "
+                     f"{limit['fractional_size']:.2g}")
+    if n:
+        lines.append(f"  note: {found.get('assumptions', '')}")
+    for w in report.get("warnings", []):
+        lines.append(f"warning: {w}")
+    figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""
+    lines.append(f"wrote {os.path.dirname(glitch_path) or '.'}/: {GLITCH_FILE}, fitted.toml, "
+                 f"{figures}residuals.csv, report.json")
+    return "\n".join(lines)

@@ -1,0 +1,267 @@
+"""The TOML timing-model file: read, validate section by section, write.
+
+Every TOML number is parsed as an exact ``Decimal`` (``tomllib`` with
+``parse_float=Decimal``), and high-precision values (MJDs, the spin
+frequency) may also be given as decimal strings; neither passes through a
+binary float before the model decides what precision it needs. Components of
+the timing model declare the keys of their section with :class:`Key` specs;
+:func:`take_section` checks them and names unknown or malformed keys. The
+writer is hand-made (stdlib ``tomllib`` reads only) so that high-precision
+values are written as exact strings in a stable, readable layout.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+import tomllib
+from dataclasses import dataclass
+from decimal import Decimal, InvalidOperation
+from typing import Any
+
+from timingkit.formats.errors import InputError
+from timingkit.formats.textfile import read_text_file
+
+KINDS = ("text", "decimal", "number", "integer", "bool", "list_decimal", "list_number",
+         "list_text", "list_list_number", "mjd", "table")
+
+
+@dataclass(frozen=True)
+class Key:
+    """Spec of one key: its kind, whether required, its default, a unit note."""
+    kind: str
+    required: bool = False
+    default: Any = None
+    unit: str = ""
+
+    def __post_init__(self):
+        if self.kind not in KINDS:
+            raise ValueError(f"unknown kind {self.kind}")
+
+
+@dataclass
+class ModelDocument:
+    """A parsed model file: its data (nested dicts) and where it came from."""
+    data: dict
+    path: str | None
+
+    @property
+    def base_dir(self) -> str:
+        return os.path.dirname(os.path.abspath(self.path)) if self.path else os.getcwd()
+
+
+def read_model_document(path: str) -> ModelDocument:
+    return parse_model_text(read_text_file(path, "TOML model file"), path)
+
+
+def parse_model_text(text: str, path: str | None = None) -> ModelDocument:
+    try:
+        data = tomllib.loads(text, parse_float=Decimal)
+    except tomllib.TOMLDecodeError as exc:
+        line = None
+        msg = str(exc)
+        if "(at line " in msg:
+            try:
+                line = int(msg.split("(at line ")[1].split(",")[0])
+            except ValueError:
+                line = None
+            msg = msg.split(" (at line ")[0]
+        raise InputError(f"not valid TOML: {msg}", path=path, line=line) from None
+    if not data:
+        raise InputError("model file is empty", path=path)
+    return ModelDocument(data=data, path=path)
+
+
+def _convert(kind: str, value: Any, where: str, path: str | None):
+    def bad(expect: str):
+        return InputError(f"expected {expect}, found {value!r}", path=path, field=where)
+
+    if kind == "text":
+        if not isinstance(value, str):
+            raise bad("a string")
+        return value
+    if kind in ("decimal", "mjd"):
+        if isinstance(value, bool):
+            raise bad("a number or decimal string")
+        if isinstance(value, (int, Decimal)):
+            dec = Decimal(value)
+        elif isinstance(value, str):
+            try:
+                dec = Decimal(value.strip())
+            except InvalidOperation:
+                raise bad("a decimal number as a string") from None
+        else:
+            raise bad("a number or decimal string")
+        if kind == "mjd" and (not dec.is_finite() or dec < 0 or dec > 200000):
+            raise bad("an MJD (0-200000)")
+        if kind == "decimal" and not dec.is_finite() and str(value).strip().lower() not in ("inf", "+inf"):
+            raise bad("a finite number")
+        return dec
+    if kind == "number":
+        if isinstance(value, bool):
+            raise bad("a number")
+        if isinstance(value, (int, Decimal)):
+            out = float(value)
+        elif isinstance(value, str):
+            try:
+                out = float(Decimal(value.strip()))
+            except InvalidOperation:
+                raise bad("a number") from None
+        else:
+            raise bad("a number")
+        if math.isnan(out):
+            raise bad("a number (not nan)")
+        return out
+    if kind == "integer":
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise bad("an integer")
+        return value
+    if kind == "bool":
+        if not isinstance(value, bool):
+            raise bad("true or false")
+        return value
+    if kind.startswith("list_"):
+        if not isinstance(value, list):
+            raise bad("a list")
+        inner = kind[5:]
+        return [_convert(inner, v, f"{where}.{i}", path) for i, v in enumerate(value)]
+    if kind == "table":
+        if not isinstance(value, dict):
+            raise bad("a table")
+        return value
+    raise ValueError(kind)
+
+
+def take_section(data: dict | None, section: str, spec: dict[str, Key],
+                 path: str | None, allow_uncertainty: bool = True) -> dict:
+    """Validate one section against ``spec``: converts values, fills defaults,
+    names unknown keys (listing the legal ones) and missing required keys."""
+    data = {} if data is None else data
+    if not isinstance(data, dict):
+        raise InputError("expected a table", path=path, field=section)
+    out: dict[str, Any] = {}
+    legal = set(spec) | ({"uncertainty"} if allow_uncertainty else set())
+    unknown = [k for k in data if k not in legal]
+    if unknown:
+        raise InputError(
+            f"unknown key{'s' if len(unknown) > 1 else ''} {', '.join(map(repr, unknown))} in "
+            f"[{section}]; legal keys: {', '.join(sorted(legal))}",
+            path=path, field=f"{section}.{unknown[0]}" if section else unknown[0])
+    for key, ks in spec.items():
+        where = f"{section}.{key}" if section else key
+        if key in data:
+            out[key] = _convert(ks.kind, data[key], where, path)
+        elif ks.required:
+            raise InputError(f"missing required key '{key}' in [{section or 'top level'}]",
+                             path=path, field=where)
+        else:
+            out[key] = ks.default() if callable(ks.default) else ks.default
+    if allow_uncertainty and "uncertainty" in data:
+        unc = data["uncertainty"]
+        if not isinstance(unc, dict):
+            raise InputError("expected a table", path=path, field=f"{section}.uncertainty")
+        out["uncertainty"] = {}
+        for key, value in unc.items():
+            if key not in spec:
+                raise InputError(f"uncertainty given for unknown key '{key}'", path=path,
+                                 field=f"{section}.uncertainty.{key}")
+            where = f"{section}.uncertainty.{key}"
+            if isinstance(value, list):  # nan marks an entry that was not fitted
+                out["uncertainty"][key] = [
+                    float("nan") if isinstance(v, Decimal) and v.is_nan()
+                    else _convert("number", v, f"{where}.{i}", path) for i, v in enumerate(value)]
+            else:
+                out["uncertainty"][key] = _convert("number", value, where, path)
+    return out
+
+
+def table_list(value, section: str, path: str | None) -> list[dict]:
+    """An array-of-tables section (``[[section]]``) as a list of tables; a
+    single ``[section]`` table is taken as a list of one."""
+    items = [value] if isinstance(value, dict) else value
+    if not isinstance(items, list) or not all(isinstance(v, dict) for v in items):
+        raise InputError(f"expected one or more [[{section}]] tables", path=path, field=section)
+    return items
+
+
+def reject_repeated_groups(items, section: str, noun: str, path: str | None) -> None:
+    """Each (flag, value) group may appear once among the ``[[section]]``
+    items (objects with ``flag``, ``value``, ``array_index`` and ``label``)."""
+    seen: dict = {}
+    for item in items:
+        key = (item.flag, item.value)
+        if key in seen:
+            raise InputError(f"two [[{section}]] {noun} for {item.label} (numbers {seen[key]} "
+                             f"and {item.array_index}): give each group once", path=path,
+                             field=f"{section}.{item.array_index}")
+        seen[key] = item.array_index
+
+
+# ---------------------------------------------------------------- writing
+
+def _format_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, Decimal):
+        return f'"{value}"'
+    if isinstance(value, int):
+        return str(value)
+    if isinstance(value, float):
+        if math.isinf(value):
+            return "inf" if value > 0 else "-inf"
+        return repr(value)
+    if isinstance(value, str):
+        escaped = value.replace("\\", "\\\\").replace('"', '\\"')
+        return f'"{escaped}"'
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_format_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} to TOML")
+
+
+def _write_table(lines: list[str], header: str | None, table: dict, array: bool = False):
+    scalars = {k: v for k, v in table.items()
+               if not isinstance(v, dict) and not (isinstance(v, list) and v and isinstance(v[0], dict))}
+    subtables = {k: v for k, v in table.items() if isinstance(v, dict)}
+    arrays = {k: v for k, v in table.items() if isinstance(v, list) and v and isinstance(v[0], dict)}
+    if header is not None:
+        lines.append("")
+        lines.append(f"[[{header}]]" if array else f"[{header}]")
+    for key, value in scalars.items():
+        if value is None:
+            continue
+        lines.append(f"{key} = {_format_value(value)}")
+    for key, value in subtables.items():
+        _write_table(lines, f"{header}.{key}" if header else key, value)
+    for key, items in arrays.items():
+        for item in items:
+            _write_table(lines, f"{header}.{key}" if header else key, item, array=True)
+
+
+def format_model_document(data: dict, comment: str | None = None) -> str:
+    """TOML text of a nested dict (Decimal -> exact string, floats by repr)."""
+    lines: list[str] = []
+    if comment:
+        lines.extend(f"# {c}" for c in comment.splitlines())
+    _write_table(lines, None, data)
+    return "\n".join(lines).lstrip("\n") + "\n"
+
+
+def write_model_document(data: dict, path: str, comment: str | None = None) -> None:
+    """Write atomically (temporary file in the same folder, then rename)."""
+    text = format_model_document(data, comment)
+    tomllib.loads(text)  # never write a file we could not read back
+    atomic_write_text(path, text)
+
+
+def atomic_write_text(path: str, text: str) -> None:
+    folder = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(prefix=".tmp-", dir=folder)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise

@@ -1,0 +1,121 @@
+"""Solar-system ephemeris: barycentric positions and velocities from a JPL SPK file.
+
+The built-in file is DE421 (JPL, Folkner et al. 2008), shipped by the
+``skyfield-data`` package; a user's own ``.bsp`` (DE440, DE441 ...) is
+accepted by path. Read with ``jplephem.spk``, passing whole and fractional
+TDB Julian dates separately so no precision is lost (jplephem evaluates the
+Chebyshev series on the two parts). Positions in metres, velocities in m/s,
+in the ICRF axes, relative to the solar-system barycentre.
+"""
+
+from __future__ import annotations
+
+import os
+from functools import lru_cache
+
+import numpy as np
+from jplephem.spk import SPK
+
+from timingkit.formats.errors import InputError
+from timingkit.numerics.timearray import SplitTime
+
+KM = 1000.0
+SECONDS_PER_DAY = 86400.0
+
+# NAIF integer codes (public NAIF convention).
+BODY_CODES = {
+    "mercury": 1, "venus": 2, "earth-moon-barycenter": 3, "mars": 4,
+    "jupiter": 5, "saturn": 6, "uranus": 7, "neptune": 8, "pluto": 9,
+    "sun": 10, "moon": 301, "earth": 399,
+}
+
+BUILTIN_NAME = "builtin"
+
+
+def builtin_ephemeris_path() -> str:
+    """Path of DE421 inside the skyfield-data package."""
+    import skyfield_data
+
+    return os.path.join(os.path.dirname(skyfield_data.__file__), "data", "de421.bsp")
+
+
+class Ephemeris:
+    """An open SPK file. Use :func:`load_ephemeris` (cached per process)."""
+
+    def __init__(self, path: str, label: str):
+        self.path = path
+        self.label = label
+        try:
+            self._kernel = SPK.open(path)
+        except FileNotFoundError:
+            raise InputError("ephemeris file not found", path=path) from None
+        except Exception as exc:  # jplephem raises assorted errors on non-SPK files
+            raise InputError(f"not a readable JPL SPK ephemeris ({exc})", path=path) from None
+        self._segments = {(s.center, s.target): s for s in self._kernel.segments}
+        starts = [s.start_jd for s in self._kernel.segments]
+        ends = [s.end_jd for s in self._kernel.segments]
+        self.start_jd = max(starts)
+        self.end_jd = min(ends)
+
+    def __repr__(self) -> str:
+        return f"Ephemeris({self.label!r})"
+
+    def _chain(self, code: int) -> list[tuple[int, int]]:
+        """Segments from the barycentre (0) to ``code``."""
+        if (0, code) in self._segments:
+            return [(0, code)]
+        for (center, target) in self._segments:
+            if target == code and center != 0:
+                return self._chain(center) + [(center, target)]
+        raise InputError(f"ephemeris has no data for NAIF body {code}", path=self.path)
+
+    def check_span(self, tdb: SplitTime, where: str | None = None) -> None:
+        jd = tdb.jd1 + tdb.jd2
+        bad = (jd < self.start_jd) | (jd > self.end_jd)
+        if np.any(bad):
+            first = int(np.argmax(bad))
+            lo = self.start_jd - 2400000.5
+            hi = self.end_jd - 2400000.5
+            raise InputError(
+                f"{int(bad.sum())} TOA(s) lie outside the ephemeris span "
+                f"MJD {lo:.1f}-{hi:.1f} of {self.label} (first: MJD {tdb.mjd[first]:.6f}); "
+                "use an ephemeris covering the data (settings.ephemeris or --ephemeris)",
+                path=where)
+
+    def posvel(self, body: str, tdb: SplitTime) -> tuple[np.ndarray, np.ndarray]:
+        """Barycentric position (m) and velocity (m/s) of ``body``, shape (N, 3)."""
+        try:
+            code = BODY_CODES[body]
+        except KeyError:
+            raise ValueError(f"unknown body {body!r}; known: {', '.join(BODY_CODES)}") from None
+        jd1, jd2 = tdb.jd1, tdb.jd2
+        pos = np.zeros((3, len(jd1)))
+        vel = np.zeros((3, len(jd1)))
+        for key in self._chain(code):
+            p, v = self._segments[key].compute_and_differentiate(jd1, jd2)
+            pos += p
+            vel += v
+        return (pos * KM).T, (vel * (KM / SECONDS_PER_DAY)).T
+
+    def position(self, body: str, tdb: SplitTime) -> np.ndarray:
+        return self.posvel(body, tdb)[0]
+
+
+@lru_cache(maxsize=8)
+def _load(path: str, label: str) -> Ephemeris:
+    return Ephemeris(path, label)
+
+
+def load_ephemeris(spec: str | None = None, base_dir: str | None = None) -> Ephemeris:
+    """Open the built-in DE421 (``None`` or ``'builtin'``) or a ``.bsp`` by path.
+
+    Relative paths are taken relative to ``base_dir`` (the model file's folder).
+    Opened files are cached, so a worker pays for loading once.
+    """
+    if spec in (None, "", BUILTIN_NAME, "de421"):
+        return _load(builtin_ephemeris_path(), "builtin DE421 (JPL; via skyfield-data)")
+    path = spec
+    if base_dir and not os.path.isabs(path):
+        path = os.path.join(base_dir, path)
+    path = os.path.abspath(path)
+    return _load(path, os.path.basename(path))

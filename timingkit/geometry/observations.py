@@ -1,0 +1,155 @@
+"""Per-TOA geometry and time scales, computed once per data set.
+
+``prepare_observations`` carries every TOA from its site clock to TDB at the
+site and computes the observer's barycentric position and velocity and the
+Sun (and optional planets) -> observer vectors. The timing model then needs
+only cheap vector algebra per fit iteration. Everything here is independent
+of the timing-model parameters.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from timingkit.geometry import earth_orientation
+from timingkit.geometry import timescales
+from timingkit.formats.clock_table import ClockTable
+from timingkit.geometry.ephemeris import Ephemeris
+from timingkit.formats.errors import InputError
+from timingkit.geometry.sites import SiteTable, sites_gcrs_posvel
+from timingkit.numerics.timearray import SplitTime
+from timingkit.formats.toa_table import Toas
+
+PLANETS = ("venus", "jupiter", "saturn", "uranus", "neptune")
+
+
+@dataclass
+class Observations:
+    toas: Toas
+    tdb: SplitTime                      # TDB at the observatory
+    observer_ssb_m: np.ndarray          # (N, 3)
+    observer_ssb_vel_m_per_s: np.ndarray
+    sun_to_observer_m: np.ndarray       # (N, 3)
+    planet_to_observer_m: dict[str, np.ndarray]
+    barycentric_input: np.ndarray       # bool: TOA given at the barycentre (site 'ssb')
+    site_names: np.ndarray              # canonical site name per TOA
+    ephemeris_label: str
+    clock_corrections: list[str]
+    warnings: list[str] = field(default_factory=list)
+
+    def __len__(self) -> int:
+        return len(self.toas)
+
+    def select(self, index) -> "Observations":
+        return Observations(
+            toas=self.toas.select(index), tdb=self.tdb[index],
+            observer_ssb_m=self.observer_ssb_m[index],
+            observer_ssb_vel_m_per_s=self.observer_ssb_vel_m_per_s[index],
+            sun_to_observer_m=self.sun_to_observer_m[index],
+            planet_to_observer_m={k: v[index] for k, v in self.planet_to_observer_m.items()},
+            barycentric_input=self.barycentric_input[index], site_names=self.site_names[index],
+            ephemeris_label=self.ephemeris_label, clock_corrections=list(self.clock_corrections),
+            warnings=list(self.warnings))
+
+
+def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
+                         clock_tables: list[ClockTable] | tuple = (),
+                         planets: bool = False) -> Observations:
+    """Time scales and geometry for every TOA (see module docstring)."""
+    n = len(toas)
+    unique_sites, site_index = _resolve_sites(toas, sites)
+    day = toas.mjd_day.copy()
+    frac = toas.mjd_frac.copy()
+    tdb_day = np.empty(n)
+    tdb_frac = np.empty(n)
+    site_pos = np.zeros((n, 3))
+    site_vel = np.zeros((n, 3))
+    bary = np.zeros(n, dtype=bool)
+    names = np.empty(n, dtype=object)
+    warnings: list[str] = []
+    used_clocks: list[str] = []
+    earth_rows = []
+    utc_day, utc_frac = np.zeros(n), np.zeros(n)
+    for k, site in enumerate(unique_sites):
+        idx = np.nonzero(site_index == k)[0]
+        names[idx] = site.name
+        given = SplitTime(day[idx], frac[idx], "utc")
+        if site.kind == "ssb":
+            bary[idx] = True
+            tdb_day[idx], tdb_frac[idx] = given.day, given.frac
+        elif site.kind == "geocenter":
+            tt = given.with_scale("tt")
+            tdb = timescales.tt_to_tdb(tt, tt.frac)
+            tdb_day[idx], tdb_frac[idx] = tdb.day, tdb.frac
+        else:
+            for table in clock_tables:
+                if table.applies_to(site.name):
+                    offset_s, warn = table.offset_s(given.mjd, site.name)
+                    given = given.add_seconds(offset_s).with_scale("utc")
+                    warnings.extend(warn)
+                    used_clocks.append(f"{table.converts} ({table.path})")
+            utc_day[idx], utc_frac[idx] = given.day, given.frac
+            earth_rows.append(idx)
+    if earth_rows:
+        # all Earth sites at once: the Earth-orientation and TDB grids are shared
+        rows = np.sort(np.concatenate(earth_rows))
+        utc = SplitTime(utc_day[rows], utc_frac[rows], "utc")
+        tt = timescales.utc_to_tt(utc)
+        warnings.extend(timescales.leap_second_warnings(utc))
+        warnings.extend(earth_orientation.coverage_warnings(utc))
+        dut1 = earth_orientation.ut1_minus_utc_s(utc)
+        ut1_frac = np.mod(utc.frac + dut1 / 86400.0, 1.0)
+        k_rows = site_index[rows]
+        lon = np.array([s.longitude_rad if s.kind == "earth" else 0.0 for s in unique_sites])
+        u_km = np.array([s.spin_axis_distance_km if s.kind == "earth" else 0.0
+                         for s in unique_sites])
+        v_km = np.array([s.equator_distance_km if s.kind == "earth" else 0.0
+                         for s in unique_sites])
+        tdb = timescales.tt_to_tdb(tt, ut1_frac, lon[k_rows], u_km[k_rows], v_km[k_rows])
+        tdb_day[rows], tdb_frac[rows] = tdb.day, tdb.frac
+        pos, vel = sites_gcrs_posvel(unique_sites, k_rows, utc, tt)
+        site_pos[rows] = pos
+        site_vel[rows] = vel
+    tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")
+    ephemeris.check_span(tdb_all, where=toas.path)
+    earth_pos, earth_vel = ephemeris.posvel("earth", tdb_all)
+    observer = np.where(bary[:, None], 0.0, earth_pos + site_pos)
+    observer_vel = np.where(bary[:, None], 0.0, earth_vel + site_vel)
+    sun = ephemeris.position("sun", tdb_all)
+    planet_vectors = {}
+    if planets:
+        for body in PLANETS:
+            planet_vectors[body] = observer - ephemeris.position(body, tdb_all)
+    if not clock_tables and not np.all(bary | (names == "geocenter")):
+        warnings.append("no observatory clock corrections applied: site clocks are taken as UTC "
+                        "(errors of up to µs possible; supply clock tables in settings.clock)")
+    return Observations(
+        toas=toas, tdb=tdb_all, observer_ssb_m=observer, observer_ssb_vel_m_per_s=observer_vel,
+        sun_to_observer_m=observer - sun, planet_to_observer_m=planet_vectors,
+        barycentric_input=bary, site_names=names.astype(str), ephemeris_label=ephemeris.label,
+        clock_corrections=sorted(set(used_clocks)), warnings=_unique(warnings))
+
+
+def _resolve_sites(toas: Toas, sites: SiteTable):
+    """Site per TOA; an unknown name is reported at its first line in the table."""
+    try:
+        return sites.resolve_many(toas.site)
+    except InputError as exc:
+        for row, name in enumerate(toas.site):
+            try:
+                sites.lookup(str(name))
+            except InputError:
+                line = None if toas.line_numbers is None else int(toas.line_numbers[row])
+                raise InputError(exc.message, path=toas.path, line=line, field="site") from None
+        raise
+
+
+def _unique(items: list[str]) -> list[str]:
+    seen, out = set(), []
+    for item in items:
+        if item not in seen:
+            seen.add(item)
+            out.append(item)
+    return out

@@ -1,0 +1,272 @@
+"""The residuals table (``residuals.csv``, DESIGN.md §5) and its reader/writer.
+
+Columns, in this order: ``mjd`` (the arrival time exactly as read from the TOA
+table), ``site``, ``freq_mhz``, ``err_us``, ``residual_us``, ``residual_phase``,
+``pulse_number``, then one column per TOA flag (e.g. ``backend``).
+
+Printed precision: ``residual_us`` with 6 decimals (1 ps steps, well below a
+nanosecond), ``residual_phase`` with 13 significant digits, ``freq_mhz`` and
+``err_us`` as the shortest text that reads back to the same float64.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import math
+import os
+import re
+import uuid
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from timingkit.formats.errors import InputError
+
+CORE_COLUMNS = ("mjd", "site", "freq_mhz", "err_us", "residual_us",
+                "residual_phase", "pulse_number")
+
+# A decimal MJD: digits with an optional fraction, no exponent (kept as text
+# so no precision is lost between the TOA table and this file).
+_MJD_TEXT = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)$")
+_INTEGER_TEXT = re.compile(r"^[+-]?\d+$")
+
+
+@contextlib.contextmanager
+def atomic_output(path, binary: bool = False):
+    """Open a temporary file beside ``path`` for writing; rename it to ``path``
+    only when the block finishes without error (else delete it). The file gets
+    the usual permissions (0o666 minus the umask), like a plain open()."""
+    path = Path(path)
+    temporary = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
+    descriptor = os.open(temporary, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
+    try:
+        if binary:
+            handle = os.fdopen(descriptor, "wb")
+        else:
+            handle = os.fdopen(descriptor, "w", newline="", encoding="utf-8")
+        with handle:
+            yield handle
+        os.replace(temporary, path)
+    except BaseException:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(temporary)
+        raise
+
+
+def _text_array(values) -> np.ndarray:
+    """A 1-d numpy array of Python str (object dtype, so any length fits)."""
+    array = np.empty(len(values), dtype=object)
+    array[:] = [str(v) for v in values]
+    return array
+
+
+@dataclass
+class ResidualTable:
+    """Per-TOA residuals, one row per arrival time.
+
+    ``mjd_text``: the MJD as read (str); ``mjd``: the same as float64 (good to
+    ~1 µs, for plotting only); ``site``: site names (str); ``freq_mhz``:
+    observing frequency in MHz (``inf`` = no dispersion); ``err_us``: 1σ TOA
+    uncertainty in µs; ``residual_us``: residual in µs; ``residual_phase``:
+    residual in pulse cycles; ``pulse_number``: int64 pulse numbers;
+    ``flags``: flag name -> array of str, in column order.
+    """
+
+    mjd_text: np.ndarray
+    mjd: np.ndarray
+    site: np.ndarray
+    freq_mhz: np.ndarray
+    err_us: np.ndarray
+    residual_us: np.ndarray
+    residual_phase: np.ndarray
+    pulse_number: np.ndarray
+    flags: dict[str, np.ndarray] = field(default_factory=dict)
+
+    def __post_init__(self):
+        self.mjd_text = _text_array(np.atleast_1d(self.mjd_text))
+        self.mjd = np.atleast_1d(np.asarray(self.mjd, dtype=float))
+        self.site = _text_array(np.atleast_1d(self.site))
+        self.freq_mhz = np.atleast_1d(np.asarray(self.freq_mhz, dtype=float))
+        self.err_us = np.atleast_1d(np.asarray(self.err_us, dtype=float))
+        self.residual_us = np.atleast_1d(np.asarray(self.residual_us, dtype=float))
+        self.residual_phase = np.atleast_1d(np.asarray(self.residual_phase, dtype=float))
+        self.pulse_number = np.atleast_1d(np.asarray(self.pulse_number, dtype=np.int64))
+        self.flags = {str(name): _text_array(np.atleast_1d(values))
+                      for name, values in dict(self.flags).items()}
+        n = len(self.mjd_text)
+        columns = {"mjd": self.mjd, "site": self.site, "freq_mhz": self.freq_mhz,
+                   "err_us": self.err_us, "residual_us": self.residual_us,
+                   "residual_phase": self.residual_phase,
+                   "pulse_number": self.pulse_number}
+        columns.update(self.flags)
+        for name, values in columns.items():
+            if values.ndim != 1 or len(values) != n:
+                raise ValueError(f"ResidualTable column '{name}' has {len(values)} "
+                                 f"entries, mjd_text has {n}")
+        for name in self.flags:
+            if name in CORE_COLUMNS or not name or name != name.strip():
+                raise ValueError(f"bad flag name {name!r}: must be non-empty, without "
+                                 f"surrounding blanks, and not one of {', '.join(CORE_COLUMNS)}")
+
+    @classmethod
+    def from_columns(cls, mjd_text, site, freq_mhz, err_us, residual_us,
+                     residual_phase, pulse_number, flags=None) -> "ResidualTable":
+        """Build a table, deriving the float ``mjd`` from the MJD text."""
+        mjd_text = _text_array(np.atleast_1d(mjd_text))
+        mjd = np.array([float(t) for t in mjd_text], dtype=float)
+        return cls(mjd_text, mjd, site, freq_mhz, err_us, residual_us,
+                   residual_phase, pulse_number, dict(flags or {}))
+
+    @classmethod
+    def read_csv(cls, path) -> "ResidualTable":
+        """Same as the module function :func:`read_csv`."""
+        return read_csv(path)
+
+    def __len__(self) -> int:
+        return len(self.mjd_text)
+
+    @property
+    def columns(self) -> list[str]:
+        """Column names as written to the CSV file."""
+        return list(CORE_COLUMNS) + list(self.flags)
+
+    def subset(self, index) -> "ResidualTable":
+        """Rows selected by a boolean mask or index array."""
+        return ResidualTable(self.mjd_text[index], self.mjd[index], self.site[index],
+                             self.freq_mhz[index], self.err_us[index],
+                             self.residual_us[index], self.residual_phase[index],
+                             self.pulse_number[index],
+                             {k: v[index] for k, v in self.flags.items()})
+
+    def rms_us(self) -> float:
+        """Root-mean-square residual about zero, µs (nan for an empty table)."""
+        if len(self) == 0:
+            return math.nan
+        return float(np.sqrt(np.mean(self.residual_us ** 2)))
+
+    def weighted_rms_us(self) -> float:
+        """RMS about zero with weights 1/err_us², µs (nan for an empty table)."""
+        if len(self) == 0:
+            return math.nan
+        weights = 1.0 / self.err_us ** 2
+        return float(np.sqrt(np.sum(weights * self.residual_us ** 2) / np.sum(weights)))
+
+    def write_csv(self, path) -> None:
+        """Write ``residuals.csv`` atomically (temp file in the same folder, then rename)."""
+        path = Path(path)
+        bad = ~np.isfinite(self.residual_us) | ~np.isfinite(self.residual_phase)
+        if np.any(bad):
+            raise ValueError(f"{int(np.sum(bad))} non-finite residual(s); "
+                             f"first at row {int(np.argmax(bad))}")
+        with atomic_output(path) as handle:
+            writer = csv.writer(handle, lineterminator="\n")
+            writer.writerow(self.columns)
+            flag_columns = list(self.flags.values())
+            for i in range(len(self)):
+                writer.writerow([
+                    self.mjd_text[i],
+                    self.site[i],
+                    repr(float(self.freq_mhz[i])),
+                    repr(float(self.err_us[i])),
+                    "%.6f" % self.residual_us[i],
+                    "%.12e" % self.residual_phase[i],
+                    str(int(self.pulse_number[i])),
+                    *(column[i] for column in flag_columns),
+                ])
+
+
+def _parse_float(text: str, path, line: int, name: str, *, positive: bool = False,
+                 allow_inf: bool = False) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise InputError(f"not a number: {text!r}", path=path, line=line, field=name) from None
+    if math.isnan(value) or (math.isinf(value) and not (allow_inf and value > 0)):
+        allowed = "a finite number" + (" or inf" if allow_inf else "")
+        raise InputError(f"{text!r} is not allowed here; expected {allowed}",
+                         path=path, line=line, field=name)
+    if positive and not value > 0:
+        raise InputError(f"must be > 0, got {text!r}", path=path, line=line, field=name)
+    return value
+
+
+def read_csv(path) -> ResidualTable:
+    """Read a ``residuals.csv`` written by :meth:`ResidualTable.write_csv`.
+
+    Raises :class:`InputError` naming the file, line (1-based) and column for a
+    missing file, missing or duplicate columns, wrong field counts or bad values.
+    """
+    path = str(path)
+    try:
+        handle = open(path, newline="", encoding="utf-8-sig")
+    except OSError as exc:
+        raise InputError(f"cannot read residuals table: {exc.strerror}", path=path) from None
+    with handle:
+        reader = csv.reader(handle)
+        header = None
+        for row in reader:
+            if any(cell.strip() for cell in row):
+                header = [cell.strip() for cell in row]
+                header_line = reader.line_num
+                break
+        if header is None:
+            raise InputError("empty residuals table: no header line", path=path, line=1)
+        seen = set()
+        for name in header:
+            if not name:
+                raise InputError("empty column name in header", path=path, line=header_line)
+            if name in seen:
+                raise InputError("column named twice in header", path=path,
+                                 line=header_line, field=name)
+            seen.add(name)
+        missing = [name for name in CORE_COLUMNS if name not in seen]
+        if missing:
+            raise InputError(f"missing column(s) {', '.join(missing)}; required columns: "
+                             f"{', '.join(CORE_COLUMNS)}", path=path, line=header_line,
+                             field=missing[0])
+        position = {name: header.index(name) for name in header}
+        flag_names = [name for name in header if name not in CORE_COLUMNS]
+
+        rows: dict[str, list] = {name: [] for name in header}
+        for row in reader:
+            line = reader.line_num
+            if not any(cell.strip() for cell in row):
+                continue
+            if len(row) != len(header):
+                raise InputError(f"{len(row)} fields, header has {len(header)}",
+                                 path=path, line=line)
+            cell = {name: row[position[name]].strip() for name in header}
+            if not _MJD_TEXT.match(cell["mjd"]):
+                raise InputError(f"not a decimal MJD: {cell['mjd']!r}", path=path,
+                                 line=line, field="mjd")
+            if not cell["site"]:
+                raise InputError("empty site name", path=path, line=line, field="site")
+            if not _INTEGER_TEXT.match(cell["pulse_number"]):
+                raise InputError(f"not an integer: {cell['pulse_number']!r}", path=path,
+                                 line=line, field="pulse_number")
+            pulse = int(cell["pulse_number"])
+            if not -2**63 <= pulse < 2**63:
+                raise InputError(f"pulse number out of the 64-bit range: {pulse}",
+                                 path=path, line=line, field="pulse_number")
+            rows["mjd"].append(cell["mjd"])
+            rows["site"].append(cell["site"])
+            rows["freq_mhz"].append(_parse_float(cell["freq_mhz"], path, line, "freq_mhz",
+                                                 positive=True, allow_inf=True))
+            rows["err_us"].append(_parse_float(cell["err_us"], path, line, "err_us",
+                                               positive=True))
+            rows["residual_us"].append(_parse_float(cell["residual_us"], path, line,
+                                                    "residual_us"))
+            rows["residual_phase"].append(_parse_float(cell["residual_phase"], path, line,
+                                                       "residual_phase"))
+            rows["pulse_number"].append(pulse)
+            for name in flag_names:
+                rows[name].append(cell[name])
+
+    return ResidualTable.from_columns(
+        rows["mjd"], rows["site"], np.array(rows["freq_mhz"], dtype=float),
+        np.array(rows["err_us"], dtype=float), np.array(rows["residual_us"], dtype=float),
+        np.array(rows["residual_phase"], dtype=float),
+        np.array(rows["pulse_number"], dtype=np.int64),
+        {name: rows[name] for name in flag_names})
