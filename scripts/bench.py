@@ -2,7 +2,7 @@
 """Benchmarks named by the issues, printed (never asserted in tests).
 
     python scripts/bench.py                 # everything
-    python scripts/bench.py barycenter read # some sections
+    python scripts/bench.py barycentre read # some sections
     python scripts/bench.py --quick         # smaller sizes, a quick look
 
 Each heavy measurement runs in a fresh child process so peak memory
@@ -19,7 +19,6 @@ import subprocess
 import sys
 import tempfile
 import textwrap
-import time
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 SITES = os.path.join(ROOT, "timingkit", "sample_data", "sites.toml")
@@ -72,7 +71,7 @@ def write_table(path: str, n: int, start=51544.0, end=51544.0 + 40 * 365.25, see
             fh.write(f"{day[i]}.{frac[i]:015d} 1.0 {freq[i]} {sites[i]}\n")
 
 
-def bench_barycenter(n: int, tmp: str) -> None:
+def bench_barycentre(n: int, tmp: str) -> None:
     toas = os.path.join(tmp, f"bary{n}.toas")
     model = os.path.join(tmp, "model.toml")
     write_table(toas, n)
@@ -80,8 +79,8 @@ def bench_barycenter(n: int, tmp: str) -> None:
         fh.write(MODEL)
     ours = child(f"""
         t0 = time.perf_counter()
-        from timingkit.pipeline.fit_run import barycenter_files
-        barycenter_files({toas!r}, {model!r}, {os.path.join(tmp, 'ours.csv')!r})
+        from timingkit.pipeline.barycentre import barycentre_files
+        barycentre_files({toas!r}, {model!r}, {os.path.join(tmp, 'ours.csv')!r})
         out = dict(seconds=time.perf_counter() - t0)
     """)
     ref = child(f"""
@@ -95,17 +94,17 @@ def bench_barycenter(n: int, tmp: str) -> None:
         iers.conf.auto_max_age = None
         iers.conf.iers_degraded_accuracy = 'warn'
         import warnings; warnings.simplefilter('ignore')
-        from timingkit.formats.toa_table import read_toas
+        from timingkit.formats.toa_reader import read_toa_table
         from timingkit.geometry.sites import SiteTable
         from timingkit.geometry.ephemeris import builtin_ephemeris_path
-        toas = read_toas({toas!r})
+        toas = read_toa_table({toas!r})
         table = SiteTable.with_files([{SITES!r}])
         c = SkyCoord("17h53m20.1234567s", "-07d41m12.345678s", frame="icrs")
         tdb_day = np.empty(len(toas)); tdb_frac = np.empty(len(toas)); roemer = np.empty(len(toas))
         for name in np.unique(toas.site):
             idx = np.nonzero(toas.site == name)[0]
             site = table.lookup(str(name))
-            loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
+            loc = EarthLocation.from_geocentric(*site.geocentric_itrf_m, unit=u.m)
             t = Time(toas.mjd_day[idx], toas.mjd_frac[idx], format="mjd", scale="utc", location=loc)
             tdb = t.tdb
             roemer[idx] = t.light_travel_time(c, kind="barycentric", location=loc,
@@ -132,9 +131,9 @@ def bench_read(n: int, tmp: str) -> None:
     toas = os.path.join(tmp, f"read{n}.toas")
     write_table(toas, n)
     r = child(f"""
-        from timingkit.formats.toa_table import read_toas
+        from timingkit.formats.toa_reader import read_toa_table
         t0 = time.perf_counter()
-        t = read_toas({toas!r})
+        t = read_toa_table({toas!r})
         out = dict(seconds=time.perf_counter() - t0, n=len(t))
     """)
     print(f"read {r['n']:,}-line TOA table: {r['seconds']:.2f} s, peak memory "
@@ -148,15 +147,15 @@ def _fit_child(n: int, tmp: str) -> dict:
         fh.write(MODEL)
     sim = child(f"""
         t0 = time.perf_counter()
-        from timingkit.pipeline.fit_run import load_context, load_model
+        from timingkit.pipeline.inputs import load_context, load_model
         from timingkit.model.simulate import simulate_toas
-        from timingkit.formats.toa_table import write_toas
+        from timingkit.formats.toa_writer import write_toa_table
         m = load_model({model!r})
         sites, eph, clocks = load_context(m)
         toas = simulate_toas(m, 55000, 60000, {n}, 1.0, sites, eph,
                              site_names=["desert-dish", "lake-array"], freqs_mhz=[820, 1400, 2300],
                              seed=1)
-        write_toas(toas, {toas!r})
+        write_toa_table(toas, {toas!r})
         out = dict(seconds=time.perf_counter() - t0)
     """)
     # perturb the start model slightly so the fit has work to do
@@ -210,7 +209,7 @@ def bench_sites(n: int) -> None:
         earth_orientation.eop_table()     # one-time table load, paid once per process
         t0 = time.perf_counter(); pos, vel = site_gcrs_posvel(site, utc, tt)
         ours = time.perf_counter() - t0
-        loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
+        loc = EarthLocation.from_geocentric(*site.geocentric_itrf_m, unit=u.m)
         t = Time(day, mjd - day, format="mjd", scale="utc")
         t0 = time.perf_counter(); p, v = loc.get_gcrs_posvel(t); ref = time.perf_counter() - t0
         dp = np.max(np.linalg.norm(pos - p.xyz.to_value(u.m).T, axis=1))
@@ -232,7 +231,7 @@ def bench_helpers(names) -> None:
         getattr(mod, func)()
 
 
-SECTIONS = ["barycenter", "read", "fit", "sites", "binary", "glitches", "noise", "batch"]
+SECTIONS = ["barycentre", "read", "fit", "sites", "binary", "glitches", "noise", "batch"]
 
 
 def main() -> int:
@@ -243,8 +242,8 @@ def main() -> int:
     wanted = args.sections or SECTIONS
     quick = args.quick
     with tempfile.TemporaryDirectory(prefix="timingkit-bench-") as tmp:
-        if "barycenter" in wanted:
-            bench_barycenter(20_000 if quick else 200_000, tmp)
+        if "barycentre" in wanted:
+            bench_barycentre(20_000 if quick else 200_000, tmp)
         if "read" in wanted:
             bench_read(100_000 if quick else 1_000_000, tmp)
         if "sites" in wanted:

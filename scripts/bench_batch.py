@@ -82,9 +82,9 @@ def _write_model(path: Path, name: str, spin: dict, f0_offset_hz=0.0, f1_offset=
 
 def _simulate_one(task) -> str:
     folder, name, index, toas_per_source, error_us, seed = task
-    from timingkit.pipeline.fit_run import load_context, load_model
+    from timingkit.pipeline.inputs import load_context, load_model
     from timingkit.model.simulate import simulate_toas
-    from timingkit.formats.toa_table import write_toas
+    from timingkit.formats.toa_writer import write_toa_table
 
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
@@ -97,7 +97,7 @@ def _simulate_one(task) -> str:
     toas = simulate_toas(model, 58800.0, 59200.0, toas_per_source, error_us, sites, eph,
                          site_names=("desert-dish",), freqs_mhz=(820.0, 1400.0), seed=seed,
                          clocks=clocks)
-    write_toas(toas, folder / "obs.toas")
+    write_toa_table(toas, folder / "obs.toas")
     # starting model slightly off the truth, so the fit has work to do but stays
     # phase-connected (offsets << 1 cycle over the 400-day span)
     _write_model(folder / "model.toml", name, spin, f0_offset_hz=2e-9, f1_offset=-2e-18,
@@ -156,7 +156,7 @@ def _first_and_later(result) -> tuple[list[float], list[float]]:
 def bench_batch(sources: int = 200, small: int = 50, toas_per_source: int = 2000,
                 keep: str | None = None) -> dict:
     """Run the batch benchmark and print its figures; returns them as a dict."""
-    from timingkit.batch.runner import discover_sources
+    from timingkit.batch.sources import discover_sources
 
     cores = os.cpu_count() or 1
     work = Path(keep) if keep else Path(tempfile.mkdtemp(prefix="timingkit-bench-batch-"))

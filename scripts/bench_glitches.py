@@ -64,32 +64,38 @@ def _glitch_text(f0: float) -> str:
 
 
 def _timed_search(model, obs):
-    import timingkit.glitch.search as glitches
+    """Run the search with its tracking/scan and fitting stages timed: each
+    stage function is wrapped in every glitch module that calls it."""
+    from timingkit.glitch import candidates, refine, search
+    modules = (search, refine, candidates)
     stages = {"tracking+scan": 0.0, "fits": 0.0}
-    originals = {}
+    originals = []
 
     def wrap(name, stage):
-        func = getattr(glitches, name)
-        originals[name] = func
+        for module in modules:
+            func = getattr(module, name, None)
+            if func is None:
+                continue
+            originals.append((module, name, func))
 
-        def timed(*args, **kwargs):
-            t0 = time.perf_counter()
-            try:
-                return func(*args, **kwargs)
-            finally:
-                stages[stage] += time.perf_counter() - t0
-        setattr(glitches, name, timed)
+            def timed(*args, _func=func, **kwargs):
+                t0 = time.perf_counter()
+                try:
+                    return _func(*args, **kwargs)
+                finally:
+                    stages[stage] += time.perf_counter() - t0
+            setattr(module, name, timed)
 
     wrap("track_phases", "tracking+scan")
-    wrap("_scan", "tracking+scan")
-    wrap("_fit", "fits")
+    wrap("scan_pass", "tracking+scan")
+    wrap("fit_pinned", "fits")
     try:
         t0 = time.perf_counter()
-        result = glitches.search_glitches(model, obs)
+        result = search.search_glitches(model, obs)
         total = time.perf_counter() - t0
     finally:
-        for name, func in originals.items():
-            setattr(glitches, name, func)
+        for module, name, func in originals:
+            setattr(module, name, func)
     return result, total, stages
 
 

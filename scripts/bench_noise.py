@@ -107,7 +107,7 @@ def _measure(toas: int, sizes) -> dict:
     sites = SiteTable()
     truth = TimingModel.from_text(MODEL + RED)
     t0 = time.perf_counter()
-    sim = simulate_toas(truth, START, END, toas, 1.0, sites, eph, site_names=["geocenter"],
+    sim = simulate_toas(truth, START, END, toas, 1.0, sites, eph, site_names=["geocentre"],
                         freqs_mhz=[820.0, 1400.0], seed=7)
     obs = prepare_observations(sim, sites, eph)
     print(f"noise benchmark: {toas} TOAs simulated and prepared in "

@@ -10,7 +10,6 @@ repository root:  python scripts/make_sample_data.py
 from __future__ import annotations
 
 import os
-import re
 import subprocess
 import sys
 

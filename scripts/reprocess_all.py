@@ -16,10 +16,10 @@ import argparse
 import sys
 from pathlib import Path
 
-from timingkit.batch.runner import discover_sources, run_batch
+from timingkit.batch import discover_sources, run_batch
 from timingkit.cli.demo import SAMPLE_SOURCES, sample_data_dir
 from timingkit.formats.errors import FitError, InputError
-from timingkit.pipeline.fit_run import fit_files
+from timingkit.pipeline import fit_files
 
 
 def sample_manifest(folder: Path) -> Path:

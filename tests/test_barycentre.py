@@ -12,7 +12,7 @@ from astropy.utils import iers
 from timingkit.geometry.ephemeris import builtin_ephemeris_path
 from timingkit.model import TimingModel
 from timingkit.geometry.observations import prepare_observations
-from timingkit.formats.toa_table import Toas
+from timingkit.formats.toa_table import ToaTable
 
 iers.conf.auto_download = False
 iers.conf.auto_max_age = None   # the bundled table, as offline users have it
@@ -40,11 +40,11 @@ def test_tdb_and_roemer_match_astropy_2000_2040(site_name, sites, ephemeris):
     n = 120
     mjd = np.sort(rng.uniform(51544.0, 51544.0 + 40 * 365.25, n))
     day = np.floor(mjd)
-    toas = Toas.from_arrays(day, mjd - day, np.ones(n), np.full(n, np.inf),
+    toas = ToaTable.from_arrays(day, mjd - day, np.ones(n), np.full(n, np.inf),
                             np.full(n, site_name))
     obs = prepare_observations(toas, sites, ephemeris)
     site = sites.lookup(site_name)
-    loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
+    loc = EarthLocation.from_geocentric(*site.geocentric_itrf_m, unit=u.m)
     # astropy: Time.tdb with the location (erfa.dtdb with topocentric terms)
     t = Time(toas.mjd_day, toas.mjd_frac, format="mjd", scale="utc", location=loc)
     tdb = t.tdb
@@ -77,11 +77,11 @@ def test_tdb_and_roemer_match_astropy_2000_2040(site_name, sites, ephemeris):
 
 
 def test_geocenter_and_ssb_sites(sites, ephemeris):
-    # geocenter: TT given, TDB = TT + erfa.dtdb at the geocentre (astropy, no location);
+    # geocentre: TT given, TDB = TT + erfa.dtdb at the geocentre (astropy, no location);
     # ssb: the times are already TDB at the barycentre, with no geometric delays.
     mjd = np.array([55000.25, 58000.75])
     day = np.floor(mjd)
-    toas = Toas.from_arrays(day, mjd - day, [1.0, 1.0], [1400.0, np.inf], ["geocenter", "ssb"])
+    toas = ToaTable.from_arrays(day, mjd - day, [1.0, 1.0], [1400.0, np.inf], ["geocentre", "ssb"])
     obs = prepare_observations(toas, sites, ephemeris)
     tt = Time(day[0], mjd[0] - day[0], format="mjd", scale="tt")
     diff_s = ((tt.tdb.jd1 - 2400000.5) - obs.tdb.day[0]) * 86400 + (tt.tdb.jd2 - obs.tdb.frac[0]) * 86400

@@ -20,8 +20,10 @@ from pathlib import Path
 import pytest
 
 from timingkit.batch import runner as batch
-from timingkit.batch.runner import (Source, add_batch_parser, discover_sources, inputs_sha256,
-                             read_manifest, run_batch)
+from timingkit.batch.sources import Source, discover_sources, read_manifest
+from timingkit.cli.batch import add_parsers as add_batch_parser
+from timingkit.batch.fingerprint import inputs_sha256
+from timingkit.batch.runner import run_batch
 from timingkit.formats.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -455,7 +457,7 @@ def test_content_hash_follows_contents_settings_and_referenced_files(tmp_path):
     assert inputs_sha256(discover_sources(moved)[0]) == reference  # paths are not hashed
     assert inputs_sha256(Source(**{**source.__dict__, "free": ("dispersion.dm",)})) != reference
     assert inputs_sha256(Source(**{**source.__dict__, "make_plots": False})) != reference
-    assert inputs_sha256(source, fit_function="timingkit.cli.glitches.glitch_files") != reference
+    assert inputs_sha256(source, fit_function="timingkit.pipeline.glitch_run.glitch_files") != reference
     (folder / "sites.toml").write_text("[site.desert-dish]\nheight_m = 2.0\n")
     assert inputs_sha256(source) != reference  # a file named in the model's settings
 

@@ -122,7 +122,7 @@ def test_kepler_solver_is_exact_to_1e_15_rad():
 
 # ----------------------------------------------------------- model details
 
-def _obs(model, sites, ephemeris, start, end, count, seed, site="geocenter", err=1.0,
+def _obs(model, sites, ephemeris, start, end, count, seed, site="geocentre", err=1.0,
          freqs=(820.0, 1400.0), noise=True, flags=None):
     toas = simulate_toas(model, start, end, count, err, sites, ephemeris, site_names=[site],
                          freqs_mhz=list(freqs), seed=seed, add_noise=noise, flags=flags)
@@ -183,7 +183,7 @@ def test_retarded_time_is_solved_exactly(sites, ephemeris):
     model = TimingModel.from_text(DNS.replace("shapiro_range_s = 6.8e-6", "shapiro_range_s = 0"))
     obs = _obs(model, sites, ephemeris, 54500, 54600, 50, 1, noise=False)
     ev = model.evaluate(obs)
-    binary = model.extra_binaries()[0]
+    binary = model.orbit_sections()[0]
     p = {k: v.value for k, v in binary.params.items()}
     t0 = p["periastron_epoch_mjd"]
     day, frac = math.floor(t0), t0 - math.floor(t0) + binary.params["periastron_epoch_mjd"].value_lo
@@ -219,7 +219,7 @@ periastron_epoch_mjd = "58000.3"
     doc = kep.to_document()
     doc["binary"] = low_eccentricity_section(doc["binary"])
     low = TimingModel.from_text(format_model_document(doc))
-    assert low.extra_binaries()[0].model == "low_eccentricity"
+    assert low.orbit_sections()[0].model == "low_eccentricity"
     d = kep.evaluate(obs).binary_s - low.evaluate(obs).binary_s
     # neglected terms are of order x e^2 = 1.5e-10 s (Lange et al. 2001)
     assert np.max(np.abs(d)) < 1e-9
@@ -466,13 +466,13 @@ orbital_period_derivative = 0.06e-12
 def test_fit_writes_orbital_phase_and_day_of_year_plots(tmp_path, ephemeris):
     from timingkit.pipeline.fit_run import fit_files
     from timingkit.geometry.sites import SiteTable
-    from timingkit.formats.toa_table import write_toas
+    from timingkit.formats.toa_writer import write_toa_table
     sites = SiteTable.with_files([])
     text = WIDE + '\n[fit]\nfree = ["spin.frequency_hz", "binary.projected_semi_major_axis_lt_s"]\n'
     model = TimingModel.from_text(text)
     toas = simulate_toas(model, 57500, 57700, 50, 1.0, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[1400.0], seed=2)
-    write_toas(toas, str(tmp_path / "b.toas"))
+                         site_names=["geocentre"], freqs_mhz=[1400.0], seed=2)
+    write_toa_table(toas, str(tmp_path / "b.toas"))
     (tmp_path / "b.toml").write_text(text)
     fit_files(str(tmp_path / "b.toas"), str(tmp_path / "b.toml"), str(tmp_path / "out"))
     names = set(os.listdir(tmp_path / "out"))
@@ -483,8 +483,8 @@ def test_fit_writes_orbital_phase_and_day_of_year_plots(tmp_path, ephemeris):
                                      + '[fit]\nfree = ["spin.frequency_hz"]\n')
     single = TimingModel.from_text((tmp_path / "s.toml").read_text())
     toas = simulate_toas(single, 57500, 57700, 30, 1.0, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[1400.0], seed=2)
-    write_toas(toas, str(tmp_path / "s.toas"))
+                         site_names=["geocentre"], freqs_mhz=[1400.0], seed=2)
+    write_toa_table(toas, str(tmp_path / "s.toas"))
     fit_files(str(tmp_path / "s.toas"), str(tmp_path / "s.toml"), str(tmp_path / "out2"))
     names = set(os.listdir(tmp_path / "out2"))
     assert "residuals_day_of_year.png" in names and "residuals_orbital_phase.png" not in names

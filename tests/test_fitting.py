@@ -13,7 +13,7 @@ from timingkit.fit.fitter import compute_residuals, fit
 from timingkit.model import TimingModel
 from timingkit.geometry.observations import prepare_observations
 from timingkit.model.simulate import simulate_toas
-from timingkit.formats.toa_table import Toas
+from timingkit.formats.toa_table import ToaTable
 from numdiff import phase_partial
 
 MSP = '''
@@ -66,7 +66,7 @@ def test_statistical_calibration_over_60_simulations(ephemeris):
     sites = SiteTable.with_files([])
     truth = _calibration_model()
     exact = simulate_toas(truth, 57000, 59000, 150, 2.0, sites, ephemeris,
-                          site_names=["geocenter"], freqs_mhz=[700, 1400, 3000], seed=1,
+                          site_names=["geocentre"], freqs_mhz=[700, 1400, 3000], seed=1,
                           add_noise=False)
     rng = np.random.default_rng(42)
     names = truth.free_names
@@ -75,7 +75,7 @@ def test_statistical_calibration_over_60_simulations(ephemeris):
     for _ in range(60):
         noise_s = rng.normal(0, 2e-6, len(exact))
         t = exact.times().add_seconds(noise_s)
-        toas = Toas.from_arrays(t.day, t.frac, exact.err_us, exact.freq_mhz, exact.site)
+        toas = ToaTable.from_arrays(t.day, t.frac, exact.err_us, exact.freq_mhz, exact.site)
         obs = prepare_observations(toas, sites, ephemeris)
         res = fit(truth, obs)
         for n in names:
@@ -117,12 +117,12 @@ def test_pulse_column_is_honoured(ephemeris):
     sites = SiteTable.with_files([])
     truth = _calibration_model()
     toas = simulate_toas(truth, 58000, 58400, 40, 1.0, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[1400], seed=2, add_noise=False)
+                         site_names=["geocentre"], freqs_mhz=[1400], seed=2, add_noise=False)
     obs = prepare_observations(toas, sites, ephemeris)
     ev = truth.evaluate(obs)
     pulse = ev.phase_int.astype(np.int64) + 1000      # any constant shift is absorbed
     pulse[-1] += 1                                   # pin the last TOA one turn later
-    pinned = Toas.from_arrays(toas.mjd_day, toas.mjd_frac, toas.err_us, toas.freq_mhz,
+    pinned = ToaTable.from_arrays(toas.mjd_day, toas.mjd_frac, toas.err_us, toas.freq_mhz,
                               toas.site, pulse=pulse)
     obs2 = prepare_observations(pinned, sites, ephemeris)
     res = compute_residuals(truth, obs2, pulse_number=pulse.astype(float) - 1000,
@@ -138,7 +138,7 @@ def test_unconstrained_and_degenerate_parameters_are_named(ephemeris):
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(MSP.replace('["-1.2e-15"]', '["-1.2e-15", "0"]'))
     toas = simulate_toas(truth, 58000, 58300, 30, 1.0, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[1400], seed=2)
+                         site_names=["geocentre"], freqs_mhz=[1400], seed=2)
     obs = prepare_observations(toas, sites, ephemeris)
     # one observing frequency: DM is the same as a phase offset
     with pytest.raises(FitError, match="dispersion.dm"):
@@ -156,7 +156,7 @@ def test_starting_model_too_far_off_is_reported(ephemeris):
     sites = SiteTable.with_files([])
     truth = _calibration_model()
     toas = simulate_toas(truth, 57000, 59000, 200, 1.0, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[1400, 800], seed=4)
+                         site_names=["geocentre"], freqs_mhz=[1400, 800], seed=4)
     obs = prepare_observations(toas, sites, ephemeris)
     bad = _perturbed(truth, **{"spin.frequency_hz": 3e-6})   # ~500 turns over the span
     with pytest.raises(FitError, match="cannot number the pulses"):

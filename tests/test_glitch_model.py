@@ -17,7 +17,7 @@ from timingkit.model.glitch import Glitch, glitch_phase, model_glitches
 from timingkit.formats.model_file import format_model_document
 from timingkit.geometry.observations import prepare_observations
 from timingkit.model.simulate import simulate_toas
-from timingkit.formats.toa_table import Toas
+from timingkit.formats.toa_table import ToaTable
 
 DAY = 86400.0
 
@@ -64,7 +64,7 @@ ALL_FREE = ["spin.frequency_hz", "spin.frequency_derivatives.0", "glitch.0.phase
 def barycentric_obs(mjd, sites, ephemeris):
     mjd = np.asarray(mjd, float)
     day = np.floor(mjd)
-    toas = Toas.from_arrays(day, mjd - day, np.full(len(mjd), 10.0), np.full(len(mjd), np.inf),
+    toas = ToaTable.from_arrays(day, mjd - day, np.full(len(mjd), 10.0), np.full(len(mjd), np.inf),
                             np.array(["ssb"] * len(mjd)))
     return prepare_observations(toas, sites, ephemeris)
 

@@ -23,9 +23,10 @@ import numpy as np
 import pytest
 
 from timingkit.glitch.scan import _red_terms
-from timingkit.glitch.search import (_phase_data, build_windows, false_alarm_probability,
-                                gap_statistics, null_distribution, search_glitches,
-                                track_phases)
+from timingkit.glitch.candidates import phase_data
+from timingkit.glitch.scan import build_windows, false_alarm_probability, gap_statistics, null_distribution
+from timingkit.glitch.search import search_glitches
+from timingkit.glitch.tracking import track_phases
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.noise import NoiseModel, toa_times_s
@@ -150,7 +151,7 @@ def test_stated_detection_limit_includes_the_red_noise(sites, ephemeris, glitch_
 
 
 def _windows(model, obs):
-    data = _phase_data(model, obs, None)
+    data = phase_data(model, obs, None)
     chains = (track_phases(data.t_s, data.frac, data.sigma, 2e-4, 2e-12),
               track_phases(data.t_s, data.frac, data.sigma, 2e-4, 2e-12, backward=True))
     win = build_windows(data.t_s, data.sigma, chains, set(), 10, None, data.red)

@@ -13,9 +13,10 @@ significance); the sizes tested are at least 3 times above it.
 import numpy as np
 import pytest
 
-from timingkit.glitch.search import (GlitchSearchSettings, build_windows, false_alarm_probability,
-                                gap_statistics, null_distribution, search_glitches, solve_seed,
-                                track_phases)
+from timingkit.glitch.results import GlitchSearchSettings
+from timingkit.glitch.scan import build_windows, false_alarm_probability, gap_statistics, null_distribution
+from timingkit.glitch.search import search_glitches
+from timingkit.glitch.tracking import solve_seed, track_phases
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.geometry.observations import prepare_observations

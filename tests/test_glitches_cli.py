@@ -9,11 +9,11 @@ import numpy as np
 import pytest
 
 from timingkit.cli.main import main
-from timingkit.cli.glitches import glitch_files
+from timingkit.pipeline.glitch_run import glitch_files
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.simulate import simulate_toas
-from timingkit.formats.toa_table import write_toas
+from timingkit.formats.toa_writer import write_toa_table
 
 REQUIRED = {"epoch_mjd", "epoch_min_mjd", "epoch_max_mjd", "frequency_step_hz",
             "frequency_step_uncertainty_hz", "frequency_derivative_step",
@@ -47,7 +47,7 @@ def files(tmp_path_factory, sites, ephemeris):
     for name, model in (("glitch", truth), ("quiet", TimingModel.from_text(START))):
         toas = simulate_toas(model, 58000, 58730, 104, 50.0, sites, ephemeris,
                              site_names=["ssb"], freqs_mhz=[1400.0], seed=21)
-        write_toas(toas, str(folder / f"{name}.toas"))
+        write_toa_table(toas, str(folder / f"{name}.toas"))
     (folder / "start.toml").write_text(START)
     return folder
 

@@ -9,7 +9,6 @@ Simulations are invented pulsars at the barycentre (site 'ssb').
 
 import json
 import math
-import os
 
 import numpy as np
 import pytest
@@ -17,7 +16,7 @@ import scipy.stats
 
 from timingkit.cli.main import main
 from timingkit.fit.fitter import fit
-from timingkit.model import EXTRA_SECTIONS, TimingModel
+from timingkit.model import OPTIONAL_SECTIONS, TimingModel
 from timingkit.fit.model_selection import (compare_fits, f_test, information_criteria_change,
                                        next_derivative_candidate, suggest)
 from timingkit.geometry.observations import prepare_observations
@@ -181,7 +180,7 @@ def test_suggest_holds_noise_fixed_and_lists_the_derivative(sites, ephemeris):
     assert [c.addition for c in comparisons] == ["second spin-frequency derivative"]
     c = comparisons[0]
     assert c.supported and c.f_probability < 1e-6 and c.delta_aic < 0 and c.delta_bic < 0
-    if "glitch" in EXTRA_SECTIONS:      # a glitch epoch to try, by the same route
+    if "glitch" in OPTIONAL_SECTIONS:      # a glitch epoch to try, by the same route
         more = suggest(result, obs, glitch_epochs_mjd=["58000.5"])
         assert [m.addition for m in more] == ["second spin-frequency derivative",
                                               "glitch at MJD 58000.5"]
@@ -213,7 +212,7 @@ def test_suggest_frees_the_binary_term_the_data_need(sites, ephemeris):
     # an orbit whose periastron advances by 0.002 deg/yr, fitted with the
     # advance held at zero: of the fixed binary terms, freeing the advance is
     # the one supported, and its fitted value recovers the truth
-    if "binary" not in EXTRA_SECTIONS:
+    if "binary" not in OPTIONAL_SECTIONS:
         pytest.skip("the binary component is not in this installation")
     body = SPIN.format(derivs='"-1.0e-13"').split("[fit]")[0]
     free = "\n[fit]\nfree = [" + ", ".join(f'"{n}"' for n in BINARY_FREE) + "]\n"
@@ -235,7 +234,7 @@ def test_glitch_f_test_with_red_noise_needs_the_noise_model(sites, ephemeris):
     # frequency-derivative steps) at the 1 % level is fooled almost always with
     # white-noise weights, at most 5 % of the time with the noise model; a real
     # frequency step of 1e-10 Hz is preferred with the noise model
-    if "glitch" not in EXTRA_SECTIONS:
+    if "glitch" not in OPTIONAL_SECTIONS:
         pytest.skip("the glitch component ([[glitch]]) is not in this installation")
     from timingkit.fit.model_selection import glitch_candidate
     trials = 30

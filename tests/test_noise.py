@@ -195,7 +195,7 @@ def test_noise_sections_round_trip_with_uncertainties():
     assert again.parameter("red_noise.spectral_index").uncertainty == 0.4
     assert again.free_names == model.free_names
     # noise parameters take no part in the timing evaluation
-    assert all(c.kind != "noise" for c in again.components)
+    assert all(c.contribution != "noise" for c in again.sections)
 
 
 @pytest.mark.parametrize("text, field", [

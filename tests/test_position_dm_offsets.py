@@ -182,7 +182,7 @@ def test_dm_offsets_are_recovered(ephemeris):
     truth = TimingModel.from_text(DM_RANGES.replace("dm_offsets = [0.0, 0.0]",
                                                     "dm_offsets = [2e-3, -3e-3]"))
     toas = simulate_toas(truth, 56800, 58800, 300, 0.5, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[700, 1400, 3000], seed=3)
+                         site_names=["geocentre"], freqs_mhz=[700, 1400, 3000], seed=3)
     obs = prepare_observations(toas, sites, ephemeris)
     start = TimingModel.from_text(DM_RANGES)
     names = SPIN + ["dispersion.dm", "dispersion.dm_offsets.0", "dispersion.dm_offsets.1"]
@@ -202,13 +202,13 @@ def test_dm_offset_with_one_frequency_in_its_range_is_named(ephemeris):
     sites = SiteTable.with_files([])
     truth = TimingModel.from_text(DM_RANGES)
     two = simulate_toas(truth, 56800, 57900, 100, 1.0, sites, ephemeris,
-                        site_names=["geocenter"], freqs_mhz=[800, 1400], seed=4)
+                        site_names=["geocentre"], freqs_mhz=[800, 1400], seed=4)
     one = simulate_toas(truth, 57950, 58700, 60, 1.0, sites, ephemeris,
-                        site_names=["geocenter"], freqs_mhz=[1400], seed=5)
-    from timingkit.formats.toa_table import Toas
-    toas = Toas.from_arrays(np.concatenate([two.mjd_day, one.mjd_day]),
+                        site_names=["geocentre"], freqs_mhz=[1400], seed=5)
+    from timingkit.formats.toa_table import ToaTable
+    toas = ToaTable.from_arrays(np.concatenate([two.mjd_day, one.mjd_day]),
                             np.concatenate([two.mjd_frac, one.mjd_frac]), 1.0,
-                            np.concatenate([two.freq_mhz, one.freq_mhz]), "geocenter")
+                            np.concatenate([two.freq_mhz, one.freq_mhz]), "geocentre")
     obs = prepare_observations(toas, sites, ephemeris)
     with pytest.raises(FitError) as info:
         fit(truth, obs, free=SPIN + ["dispersion.dm_offsets.0", "dispersion.dm_offsets.1"])
@@ -273,9 +273,9 @@ def format_text(doc):
 def test_group_offsets_that_cannot_be_measured_are_named(ephemeris):
     from timingkit.geometry.sites import SiteTable
     sites = SiteTable.with_files([])
-    model = TimingModel.from_text(GROUPS.replace('value = "lake-array"', 'value = "geocenter"'))
+    model = TimingModel.from_text(GROUPS.replace('value = "lake-array"', 'value = "geocentre"'))
     toas = simulate_toas(model, 57000, 57300, 40, 1.0, sites, ephemeris,
-                         site_names=["geocenter"], freqs_mhz=[1400], seed=2,
+                         site_names=["geocentre"], freqs_mhz=[1400], seed=2,
                          flags={"backend": "wide-a"})
     obs = prepare_observations(toas, sites, ephemeris)
     with pytest.raises(FitError, match=r"time_offset.0.offset_s: no TOA has backend = wide-b"):

@@ -18,8 +18,8 @@ from astropy.time import Time
 from astropy.utils import iers
 
 from timingkit.formats.errors import InputError
-from timingkit.geometry.sites import (GEOCENTER, SSB, Site, SiteTable, load_site_file,
-                             site_gcrs_posvel, sites_gcrs_posvel)
+from timingkit.formats.site_file import GEOCENTRE, SSB, Site, load_site_file
+from timingkit.geometry.sites import SiteTable, site_gcrs_posvel, sites_gcrs_posvel
 from timingkit.numerics.timearray import SplitTime
 
 # Invented sites: a mid-latitude one (the example of the design brief), a
@@ -27,9 +27,9 @@ from timingkit.numerics.timearray import SplitTime
 SITE_FILE = """\
 # invented sites for the tests
 [site.desert-dish]
-itrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]
-aliases = ["dd", "Desert"]
-source = "invented for the design brief"
+geocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]
+other_names = ["dd", "Desert"]
+coordinates_from = "invented for the design brief"
 
 [site.ice-shelf]
 longitude_deg = 15.5
@@ -40,7 +40,7 @@ height_m = 480.0
 longitude_deg = -70.25
 latitude_deg = -41.75
 height_m = 2210.5
-aliases = ["sb"]
+other_names = ["sb"]
 """
 
 
@@ -92,7 +92,7 @@ def _test_epochs():
 @pytest.mark.parametrize("name", ["desert-dish", "ice-shelf", "south-bowl"])
 def test_gcrs_posvel_matches_astropy(table, name, astropy_holds_values_offline):
     site = table.lookup(name)
-    loc = EarthLocation.from_geocentric(*site.itrf_xyz_m, unit=u.m)
+    loc = EarthLocation.from_geocentric(*site.geocentric_itrf_m, unit=u.m)
     isolated, crowded = _test_epochs()
     # Isolated times take the precession-nutation series itself: only rounding
     # separates us from astropy. Crowded times are interpolated (budget
@@ -117,7 +117,7 @@ def test_gcrs_posvel_keeps_length_and_spins_at_the_earth_rate(table):
     site = table.lookup("south-bowl")
     _, utc, tt = _times(np.linspace(55000.0, 56000.0, 400))
     pos, vel = site_gcrs_posvel(site, utc, tt)
-    radius = np.linalg.norm(site.itrf_xyz_m)
+    radius = np.linalg.norm(site.geocentric_itrf_m)
     assert np.allclose(np.linalg.norm(pos, axis=1), radius, rtol=1e-12, atol=0)
     omega = 2 * math.pi * 1.00273781191135448 / 86400.0
     speed = np.linalg.norm(vel, axis=1)
@@ -129,7 +129,7 @@ def test_gcrs_posvel_keeps_length_and_spins_at_the_earth_rate(table):
 
 def test_geocenter_is_zero_and_ssb_is_refused():
     _, utc, tt = _times([58000.5, 58001.5])
-    pos, vel = site_gcrs_posvel(GEOCENTER, utc, tt)
+    pos, vel = site_gcrs_posvel(GEOCENTRE, utc, tt)
     assert np.all(pos == 0.0) and np.all(vel == 0.0) and pos.shape == (2, 3)
     with pytest.raises(ValueError, match="ssb"):
         site_gcrs_posvel(SSB, utc, tt)
@@ -148,7 +148,7 @@ def test_time_arguments_are_checked(table):
 
 def test_many_sites_at_once_equal_one_at_a_time(table):
     rng = np.random.default_rng(5)
-    names = rng.choice(np.array(["dd", "ice-shelf", "geocenter", "sb", "desert-dish"]), 300)
+    names = rng.choice(np.array(["dd", "ice-shelf", "geocentre", "sb", "desert-dish"]), 300)
     _, utc, tt = _times(rng.uniform(53000.0, 60000.0, 300))
     sites, index = table.resolve_many(names)
     pos, vel = sites_gcrs_posvel(sites, index, utc, tt)
@@ -156,9 +156,9 @@ def test_many_sites_at_once_equal_one_at_a_time(table):
         rows = np.flatnonzero(index == k)
         p1, v1 = site_gcrs_posvel(site, utc[rows], tt[rows])
         assert np.max(np.abs(pos[rows] - p1)) < 1e-6 and np.max(np.abs(vel[rows] - v1)) < 1e-9
-    assert np.all(pos[names == "geocenter"] == 0.0)
+    assert np.all(pos[names == "geocentre"] == 0.0)
     with pytest.raises(ValueError, match="ssb"):
-        sites_gcrs_posvel([SSB, GEOCENTER], np.array([1, 0]), utc[:2], tt[:2])
+        sites_gcrs_posvel([SSB, GEOCENTRE], np.array([1, 0]), utc[:2], tt[:2])
 
 
 # ---------------------------------------------------------------------------
@@ -171,13 +171,13 @@ def test_geodetic_and_itrf_round_trip_against_erfa(table):
                             "south-bowl": (-70.25, -41.75, 2210.5)}[name]
         # source: erfa.gd2gc (WGS84), the conversion the file promises
         expected = erfa.gd2gc(1, math.radians(lon), math.radians(lat), height)
-        assert np.allclose(site.itrf_xyz_m, expected, rtol=0, atol=1e-9)
+        assert np.allclose(site.geocentric_itrf_m, expected, rtol=0, atol=1e-9)
         assert abs(site.longitude_rad - math.radians(lon)) < 1e-12
         assert abs(site.latitude_rad - math.radians(lat)) < 1e-12
         assert abs(site.height_m - height) < 1e-6
     site = table.lookup("desert-dish")
     # source: erfa.gc2gd (WGS84)
-    elong, phi, height = erfa.gc2gd(1, site.itrf_xyz_m)
+    elong, phi, height = erfa.gc2gd(1, site.geocentric_itrf_m)
     assert (site.longitude_rad, site.latitude_rad, site.height_m) == (elong, phi, height)
 
 
@@ -188,9 +188,9 @@ def test_wgs84_axes_from_the_definition(tmp_path):
     path.write_text("[site.equator-zero]\nlongitude_deg = 0\nlatitude_deg = 0\nheight_m = 0\n"
                     "[site.north-pole]\nlongitude_deg = 0\nlatitude_deg = 90\nheight_m = 0\n")
     equator, pole = load_site_file(path)
-    assert np.allclose(equator.itrf_xyz_m, [6378137.0, 0.0, 0.0], atol=1e-6)
+    assert np.allclose(equator.geocentric_itrf_m, [6378137.0, 0.0, 0.0], atol=1e-6)
     b = 6378137.0 * (1 - 1 / 298.257223563)
-    assert abs(pole.itrf_xyz_m[2] - b) < 1e-6 and abs(b - 6356752.3142) < 1e-4
+    assert abs(pole.geocentric_itrf_m[2] - b) < 1e-6 and abs(b - 6356752.3142) < 1e-4
     # u, v of erfa.dtdb (SOFA: distance from the spin axis / north of the
     # equatorial plane, km)
     assert equator.spin_axis_distance_km == pytest.approx(6378.137, abs=1e-9)
@@ -201,28 +201,28 @@ def test_wgs84_axes_from_the_definition(tmp_path):
 
 def test_builtin_sites_are_the_geocenter_and_the_ssb():
     table = SiteTable()
-    assert table.names == ["geocenter", "ssb"]
-    geo = table.lookup("geocenter")
-    assert geo.kind == "geocenter" and np.all(geo.itrf_xyz_m == 0.0)
+    assert table.names == ["geocentre", "ssb"]
+    geo = table.lookup("geocentre")
+    assert geo.kind == "geocentre" and np.all(geo.geocentric_itrf_m == 0.0)
     assert geo.spin_axis_distance_km == 0.0 and geo.equator_distance_km == 0.0
-    assert table.lookup("ssb").itrf_xyz_m is None
+    assert table.lookup("ssb").geocentric_itrf_m is None
     with pytest.raises(ValueError, match="not on the Earth"):
         table.lookup("ssb").latitude_rad
     for site in table:
-        assert site.source.startswith("definition")
+        assert site.coordinates_from.startswith("definition")
 
 
 def test_site_values_are_frozen_and_compare_by_value():
     a = Site("demo-one", "earth", [6378137.0, 0.0, 0.0], ("d1",), "invented")
     b = Site("Demo-One", "earth", np.array([6378137.0, 0.0, 0.0]), ("D1",), "invented")
-    assert a == b and hash(a) == hash(b) and a.name == "demo-one" and b.aliases == ("d1",)
+    assert a == b and hash(a) == hash(b) and a.name == "demo-one" and b.other_names == ("d1",)
     with pytest.raises(ValueError):
-        a.itrf_xyz_m[0] = 1.0
+        a.geocentric_itrf_m[0] = 1.0
     with pytest.raises(ValueError, match="kind"):
         Site("x", "moon", [1.0, 2.0, 3.0])
     with pytest.raises(ValueError, match="3 finite"):
         Site("x", "earth", [1.0, 2.0])
-    with pytest.raises(ValueError, match="needs itrf_xyz_m"):
+    with pytest.raises(ValueError, match="needs geocentric_itrf_m"):
         Site("x", "earth", None)
 
 
@@ -233,28 +233,28 @@ def test_site_file_reads_both_coordinate_forms_and_sources(site_file):
     sites = {s.name: s for s in load_site_file(site_file)}
     assert set(sites) == {"desert-dish", "ice-shelf", "south-bowl"}
     dd = sites["desert-dish"]
-    assert np.array_equal(dd.itrf_xyz_m, [-2271954.4, -4399946.5, 4008782.2])
-    assert dd.aliases == ("dd", "desert") and dd.kind == "earth"
-    assert str(site_file) in dd.source and "invented for the design brief" in dd.source
-    assert "accuracy not stated" in sites["ice-shelf"].source
+    assert np.array_equal(dd.geocentric_itrf_m, [-2271954.4, -4399946.5, 4008782.2])
+    assert dd.other_names == ("dd", "desert") and dd.kind == "earth"
+    assert str(site_file) in dd.coordinates_from and "invented for the design brief" in dd.coordinates_from
+    assert "accuracy not stated" in sites["ice-shelf"].coordinates_from
 
 
 BAD_FILES = [
     # (file text, field named, words in the message)
-    ("# c\n[site.a\nitrf_xyz_m = [1, 2, 3]\n", None, "not valid TOML"),
+    ("# c\n[site.a\ngeocentric_itrf_m = [1, 2, 3]\n", None, "not valid TOML"),
     ("name = 'x'\n", "name", "unknown top-level key"),
     ("site = 3\n", "site", "table"),
     ("site.a = 5\n", "site.a", "must be a table"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\ncolour = 'red'\n",
-     "site.a.colour", "allowed keys: itrf_xyz_m"),
-    ("# c\n[site.a]\naliases = ['b']\n", "site.a", "no coordinates"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\nlatitude_deg = 3.0\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\ncolour = 'red'\n",
+     "site.a.colour", "allowed keys: geocentric_itrf_m"),
+    ("# c\n[site.a]\nother_names = ['b']\n", "site.a", "no coordinates"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nlatitude_deg = 3.0\n",
      "site.a.latitude_deg", "either"),
     ("# c\n[site.a]\nlongitude_deg = 3.0\nlatitude_deg = 4.0\n", "site.a.height_m", "lacks"),
-    ("# c\n[site.a]\nitrf_xyz_m = ['-2271954.4', -4399946.5, 4008782.2]\n",
-     "site.a.itrf_xyz_m", "must be a number"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5]\n", "site.a.itrf_xyz_m", "3 numbers"),
-    ("# c\n[site.a]\nitrf_xyz_m = 4008782.2\n", "site.a.itrf_xyz_m", "3 numbers"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = ['-2271954.4', -4399946.5, 4008782.2]\n",
+     "site.a.geocentric_itrf_m", "must be a number"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5]\n", "site.a.geocentric_itrf_m", "3 numbers"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = 4008782.2\n", "site.a.geocentric_itrf_m", "3 numbers"),
     ("# c\n[site.a]\nlongitude_deg = 3.0\nlatitude_deg = 4.0\nheight_m = true\n",
      "site.a.height_m", "must be a number"),
     ("# c\n[site.a]\nlongitude_deg = '12d'\nlatitude_deg = 4.0\nheight_m = 1.0\n",
@@ -265,18 +265,18 @@ BAD_FILES = [
      "site.a.latitude_deg", "-90..90"),
     ("# c\n[site.a]\nlongitude_deg = 3.0\nlatitude_deg = 9.0\nheight_m = 1.4e6\n",
      "site.a.height_m", "metres above"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271.9544, -4399.9465, 4008.7822]\n",
-     "site.a.itrf_xyz_m", "not kilometres"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\naliases = 'b'\n",
-     "site.a.aliases", "list of names"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\naliases = ['b c']\n",
-     "site.a.aliases", "plain site name"),
-    ("# c\n[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\nsource = 5\n",
-     "site.a.source", "text"),
-    ("# c\n[site.\"two words\"]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271.9544, -4399.9465, 4008.7822]\n",
+     "site.a.geocentric_itrf_m", "not kilometres"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = 'b'\n",
+     "site.a.other_names", "list of names"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = ['b c']\n",
+     "site.a.other_names", "plain site name"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\ncoordinates_from = 5\n",
+     "site.a.coordinates_from", "text"),
+    ("# c\n[site.\"two words\"]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n",
      "site.two words", "plain site name"),
-    ("[site.a]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\naliases = ['x']\n"
-     "# c\n[site.b]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\naliases = ['x']\n",
+    ("[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = ['x']\n"
+     "# c\n[site.b]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = ['x']\n",
      "site.b", "already used by site a"),
 ]
 
@@ -300,8 +300,8 @@ def test_missing_site_file_and_clash_with_a_builtin(tmp_path):
         load_site_file(tmp_path / "nowhere.toml")
     assert "nowhere.toml" in str(caught.value) and "cannot read" in str(caught.value)
     path = tmp_path / "clash.toml"
-    path.write_text("[site.demo-x]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\n"
-                    "aliases = ['Barycentre']\n")
+    path.write_text("[site.demo-x]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n"
+                    "other_names = ['Barycentre']\n")
     with pytest.raises(InputError) as caught:
         SiteTable.with_files([path])
     assert str(path) in str(caught.value) and "barycentre" in str(caught.value)
@@ -310,7 +310,7 @@ def test_missing_site_file_and_clash_with_a_builtin(tmp_path):
 
 def test_two_files_may_not_define_one_site_twice(tmp_path, site_file):
     other = tmp_path / "more.toml"
-    other.write_text("[site.DD]\nitrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]\n")
+    other.write_text("[site.DD]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n")
     with pytest.raises(InputError) as caught:
         SiteTable.with_files([site_file, other])
     assert str(other) in str(caught.value) and "desert-dish" in str(caught.value)
@@ -324,8 +324,8 @@ def test_lookup_by_alias_in_any_case(table):
     for name in ("DD", " dd ", "Desert-Dish", "desert", "DESERT"):
         assert table.lookup(name) is dd
     assert "SB" in table and "nowhere" not in table
-    assert table.lookup("Barycenter").kind == "ssb"
-    assert table.lookup("geocentre").kind == "geocenter"
+    assert table.lookup("Barycentre").kind == "ssb"
+    assert table.lookup("geocentre").kind == "geocentre"
 
 
 def test_unknown_site_lists_the_known_names(table):
@@ -333,13 +333,13 @@ def test_unknown_site_lists_the_known_names(table):
         table.lookup("far-hill")
     message = str(caught.value)
     assert "far-hill" in message and caught.value.field == "site"
-    for name in ("geocenter", "ssb", "desert-dish", "ice-shelf", "south-bowl", "dd", "sb"):
+    for name in ("geocentre", "ssb", "desert-dish", "ice-shelf", "south-bowl", "dd", "sb"):
         assert name in message
 
 
 def test_resolve_many_maps_names_to_shared_sites(table):
     rng = np.random.default_rng(9)
-    pool = np.array(["dd", "desert-dish", "DESERT", "ice-shelf", "ssb", "sb", "geocenter"])
+    pool = np.array(["dd", "desert-dish", "DESERT", "ice-shelf", "ssb", "sb", "geocentre"])
     names = rng.choice(pool, 50_000)
     sites, index = table.resolve_many(names)
     assert len(sites) == 5                         # three spellings of desert-dish are one

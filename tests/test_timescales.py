@@ -57,13 +57,13 @@ def test_sofa_time_scale_worked_example(tmp_path):
     from timingkit.geometry.ephemeris import load_ephemeris
     from timingkit.geometry.observations import prepare_observations
     from timingkit.geometry.sites import SiteTable
-    from timingkit.formats.toa_table import Toas
+    from timingkit.formats.toa_table import ToaTable
     site_file = tmp_path / "sites.toml"
     site_file.write_text("[site.sofa-example]\nlongitude_deg = -155.933222\n"
                          "latitude_deg = 19.48125\nheight_m = 0.0\n")
     sites = SiteTable.with_files([str(site_file)])
     utc_frac = (21 * 3600 + 24 * 60 + 37.5) / 86400.0
-    toas = Toas.from_arrays(np.array([53750.0]), np.array([utc_frac]), np.array([1.0]),
+    toas = ToaTable.from_arrays(np.array([53750.0]), np.array([utc_frac]), np.array([1.0]),
                             np.array([1400.0]), np.array(["sofa-example"]))
     obs = prepare_observations(toas, sites, load_ephemeris())
     hi, lo = obs.tdb.seconds_since(53750.0, 0.0)

@@ -19,10 +19,13 @@ import pytest
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
-from timingkit.formats import toa_table as toasmod
+from timingkit.formats import mjd_text, toa_reader
 from timingkit.formats.errors import InputError
 from timingkit.numerics.timearray import SplitTime
-from timingkit.formats.toa_table import Toas, parse_mjd_strings, read_toas, write_toas
+from timingkit.formats.toa_table import ToaTable
+from timingkit.formats.toa_writer import write_toa_table
+from timingkit.formats.mjd_text import parse_mjd_strings
+from timingkit.formats.toa_reader import read_toa_table
 
 FAST = settings(max_examples=60, deadline=None,
                 suppress_health_check=[HealthCheck.too_slow])
@@ -74,7 +77,7 @@ def mjd_texts(draw):
         whole = "0" * draw(st.integers(1, 3))
     else:
         whole = str(draw(st.integers(0, 9_999_999)))
-    nfrac = draw(st.integers(0, toasmod.MAX_FRAC_DIGITS))
+    nfrac = draw(st.integers(0, mjd_text.MAX_FRAC_DIGITS))
     frac = draw(st.text(alphabet="0123456789", min_size=nfrac, max_size=nfrac))
     # favour hard cases: long runs of 9s (carry) and 0s
     if draw(st.booleans()) and nfrac:
@@ -84,16 +87,16 @@ def mjd_texts(draw):
     # keep at most 20 significant digits: zero every digit after the 20th
     digits = whole + frac
     first = next((i for i, c in enumerate(digits) if c != "0"), len(digits))
-    cut = first + toasmod.MAX_SIGNIFICANT_DIGITS - len(whole)
+    cut = first + mjd_text.MAX_SIGNIFICANT_DIGITS - len(whole)
     if cut < len(frac):
         frac = frac[:max(cut, 0)] + "0" * (len(frac) - max(cut, 0))
-    assert _sig_digits(whole, frac) <= toasmod.MAX_SIGNIFICANT_DIGITS
+    assert _sig_digits(whole, frac) <= mjd_text.MAX_SIGNIFICANT_DIGITS
     dot = "." if (frac or draw(st.booleans())) else ""
     return whole + dot + frac
 
 
 def _random_toas(draw_data, n):
-    """A random legal Toas made from drawn values (invented data)."""
+    """A random legal ToaTable made from drawn values (invented data)."""
     texts = draw_data(st.lists(mjd_texts(), min_size=n, max_size=n))
     err = draw_data(st.lists(st.floats(min_value=1e-6, max_value=1e6, allow_nan=False),
                              min_size=n, max_size=n))
@@ -112,11 +115,11 @@ def _random_toas(draw_data, n):
     if draw_data(st.booleans()):
         pulse = draw_data(st.lists(st.integers(-10 ** 15, 10 ** 15), min_size=n, max_size=n))
     day, frac = parse_mjd_strings(texts)
-    return Toas(mjd_text=np.array(texts), mjd_day=day, mjd_frac=frac, err_us=err,
+    return ToaTable(mjd_text=np.array(texts), mjd_day=day, mjd_frac=frac, err_us=err,
                 freq_mhz=freq, site=site, pulse=pulse, flags=flags)
 
 
-def _assert_same_table(a: Toas, b: Toas) -> None:
+def _assert_same_table(a: ToaTable, b: ToaTable) -> None:
     assert len(a) == len(b)
     assert list(a.mjd_text) == list(b.mjd_text)
     np.testing.assert_array_equal(a.mjd_day, b.mjd_day)
@@ -193,7 +196,7 @@ def near_midpoints(draw):
 def test_fraction_to_double_near_midpoints(units_list):
     high = np.array([u // 10 ** 15 for u in units_list], dtype=np.int64)
     low = np.array([u % 10 ** 15 for u in units_list], dtype=np.int64)
-    got = toasmod._fraction_to_double(high, low)
+    got = mjd_text.fraction_to_double(high, low)
     for u, g in zip(units_list, got):
         assert g == float(Fraction(u, 10 ** 30)), u     # int true division rounds correctly
 
@@ -206,7 +209,7 @@ DD_ALONE_FAILS = [590280158292629530958350869696, 929977616140014673451474891408
 
 def test_fraction_to_double_where_double_double_alone_is_not_enough():
     units = np.array(DD_ALONE_FAILS, dtype=object)
-    got = toasmod._fraction_to_double(np.array([u // 10 ** 15 for u in units], np.int64),
+    got = mjd_text.fraction_to_double(np.array([u // 10 ** 15 for u in units], np.int64),
                                       np.array([u % 10 ** 15 for u in units], np.int64))
     for u, g in zip(DD_ALONE_FAILS, got):
         assert g == float(Fraction(u, 10 ** 30))
@@ -217,7 +220,7 @@ def test_fraction_to_double_settles_exact_ties_by_integers():
     mid = Fraction(1, 2) + Fraction(2.0 ** -54)
     below = int(mid * 10 ** 30)                        # truncated: just below the midpoint
     for units, expect in [(below, 0.5), (below + 1, float(np.nextafter(0.5, 1.0)))]:
-        got = toasmod._fraction_to_double(np.array([units // 10 ** 15]),
+        got = mjd_text.fraction_to_double(np.array([units // 10 ** 15]),
                                           np.array([units % 10 ** 15]))
         assert got[0] == expect
         assert got[0] == float(Fraction(units, 10 ** 30))
@@ -255,10 +258,10 @@ def test_trailing_zeros_do_not_count_as_significant():
                 min_size=1, max_size=30))
 def test_fast_and_careful_mjd_checks_agree(tokens):
     tokens = [t.replace(" ", "") for t in tokens]          # may leave empty strings
-    buf, starts, lens, _ = toasmod._token_buffer(tokens)
-    _, _, bad = toasmod._parse_mjd_tokens(buf, starts, lens)
+    buf, starts, lens, _ = mjd_text.token_buffer(tokens)
+    _, _, bad = mjd_text.parse_mjd_tokens(buf, starts, lens)
     for token, flagged in zip(tokens, bad):
-        assert flagged == (toasmod._mjd_problem(token) is not None), token
+        assert flagged == (mjd_text.mjd_problem(token) is not None), token
 
 
 @FAST
@@ -269,11 +272,11 @@ def test_fast_and_careful_mjd_checks_agree(tokens):
     min_size=1, max_size=30))
 def test_number_parse_matches_python_float(tokens):
     tokens = [t for t in tokens if t] or ["1"]
-    buf, starts, lens, _ = toasmod._token_buffer(tokens)
+    buf, starts, lens, _ = mjd_text.token_buffer(tokens)
     for name in ("err_us", "freq_mhz"):
-        values, bad = toasmod._parse_number_tokens(buf, starts, lens, name)
+        values, bad = toa_reader._parse_number_tokens(buf, starts, lens, name)
         for token, value, flagged in zip(tokens, values, bad):
-            ref, problem = toasmod._number_problem(token, name)
+            ref, problem = toa_reader._number_problem(token, name)
             assert flagged == (problem is not None), (name, token)
             if not flagged:
                 assert value == float(token), token        # Python's float: correctly rounded
@@ -284,10 +287,10 @@ def test_number_parse_matches_python_float(tokens):
                           st.text(alphabet="0123456789+-.x", min_size=1, max_size=22)),
                 min_size=1, max_size=30))
 def test_pulse_parse_matches_python_int(tokens):
-    buf, starts, lens, _ = toasmod._token_buffer(tokens)
-    values, bad = toasmod._parse_pulse_tokens(buf, starts, lens)
+    buf, starts, lens, _ = mjd_text.token_buffer(tokens)
+    values, bad = toa_reader._parse_pulse_tokens(buf, starts, lens)
     for token, value, flagged in zip(tokens, values, bad):
-        assert flagged == (toasmod._pulse_problem(token) is not None), token
+        assert flagged == (toa_reader._pulse_problem(token) is not None), token
         if not flagged:
             assert value == int(token)
 
@@ -303,7 +306,7 @@ def test_read_design_example(tmp_path):
         "mjd                      err_us  freq_mhz  site          backend\n"
         "58849.000142889802083    1.20    1400.0    desert-dish   wide-a\n"
         "58851.997000000000000    0.85    820.0     desert-dish   wide-b\n"))
-    t = read_toas(path)
+    t = read_toa_table(path)
     assert len(t) == 2
     assert list(t.mjd_text) == ["58849.000142889802083", "58851.997000000000000"]
     np.testing.assert_array_equal(t.mjd_day, [58849, 58851])
@@ -328,7 +331,7 @@ def test_commas_whitespace_order_and_line_numbers(tmp_path):
             "\n"
             "ridge-array\t\t820.25\t58850.25\t1e-1\t+7,\r\n"
             "dd 1400 58851 3 12")                       # no final newline
-    t = read_toas(_write(tmp_path, text))
+    t = read_toa_table(_write(tmp_path, text))
     assert list(t.mjd_text) == ["58849.5", "58850.25", "58851"]
     np.testing.assert_array_equal(t.mjd_day, [58849, 58850, 58851])
     np.testing.assert_array_equal(t.mjd_frac, [0.5, 0.25, 0.0])
@@ -343,7 +346,7 @@ def test_commas_whitespace_order_and_line_numbers(tmp_path):
 
 def test_non_ascii_flags_and_long_flag_values(tmp_path):
     long_value = "x" * 400
-    t = read_toas(_write(tmp_path, "mjd err_us freq_mhz site note\n"
+    t = read_toa_table(_write(tmp_path, "mjd err_us freq_mhz site note\n"
                                    f"58849.5 1 1400 désert-dish café\n"
                                    f"58849.6 1 1400 dd {long_value}\n"))
     assert list(t.site) == ["désert-dish", "dd"]
@@ -357,7 +360,7 @@ def test_many_rows_agree_with_reference(tmp_path):
                                             rng.integers(0, 10 ** 15, n).tolist())]
     errs = [f"{e:.4f}" for e in rng.uniform(0.01, 9, n)]
     body = "".join(f"{m} {e} 1400.0 desert-dish\n" for m, e in zip(texts, errs))
-    t = read_toas(_write(tmp_path, "mjd err_us freq_mhz site\n" + body))
+    t = read_toa_table(_write(tmp_path, "mjd err_us freq_mhz site\n" + body))
     for i in range(0, n, 97):
         assert (t.mjd_day[i], t.mjd_frac[i]) == _expected_parts(texts[i])
         assert t.err_us[i] == float(errs[i])
@@ -375,10 +378,10 @@ def test_write_read_round_trip_is_exact(data, n):
     with tempfile.TemporaryDirectory() as tmp:
         first = os.path.join(tmp, "a.txt")
         second = os.path.join(tmp, "b.txt")
-        write_toas(original, first)
-        back = read_toas(first)
+        write_toa_table(original, first)
+        back = read_toa_table(first)
         _assert_same_table(original, back)
-        write_toas(back, second)
+        write_toa_table(back, second)
         assert Path(first).read_bytes() == Path(second).read_bytes()
         assert sorted(os.listdir(tmp)) == ["a.txt", "b.txt"]      # no temp files left
 
@@ -387,40 +390,40 @@ def test_write_keeps_mjd_text_verbatim_and_extra_columns(tmp_path):
     path = _write(tmp_path, "mjd err_us freq_mhz site backend\n"
                             "58849.100000000000000 1.5 inf dd wide-a\n"
                             "58850 2 820 dd wide-b\n")
-    t = read_toas(path)
+    t = read_toa_table(path)
     out = tmp_path / "out.txt"
-    write_toas(t, out, extra_columns={"residual_us": np.array([0.125, -1.5]),
+    write_toa_table(t, out, extra_columns={"residual_us": np.array([0.125, -1.5]),
                                       "group": ["g1", "g2"]})
-    again = read_toas(out)
+    again = read_toa_table(out)
     assert list(again.mjd_text) == ["58849.100000000000000", "58850"]
     assert list(again.flags) == ["backend", "residual_us", "group"]
     assert list(again.flags["residual_us"]) == ["0.125", "-1.5"]
     assert "58849.100000000000000" in out.read_text()
     with pytest.raises(InputError) as info:
-        write_toas(t, out, extra_columns={"backend": ["a", "b"]})
+        write_toa_table(t, out, extra_columns={"backend": ["a", "b"]})
     assert info.value.field == "backend"
 
 
 def test_write_refuses_an_empty_table(tmp_path):
-    t = Toas.from_arrays([58849], [0.5], 1.0, 1400.0, "dd").select(np.array([False]))
+    t = ToaTable.from_arrays([58849], [0.5], 1.0, 1400.0, "dd").select(np.array([False]))
     with pytest.raises(InputError) as info:
-        write_toas(t, tmp_path / "empty.txt")
+        write_toa_table(t, tmp_path / "empty.txt")
     assert "no TOAs" in str(info.value)
     assert list(tmp_path.iterdir()) == []
 
 
 def test_write_refuses_unwritable_values_and_leaves_no_file(tmp_path):
-    t = Toas.from_arrays([58849, 58850], [0.5, 0.25], 1.0, 1400.0, "desert-dish",
+    t = ToaTable.from_arrays([58849, 58850], [0.5, 0.25], 1.0, 1400.0, "desert-dish",
                          flags={"backend": ["wide a", "ok"]})
     out = tmp_path / "out.txt"
     with pytest.raises(InputError) as info:
-        write_toas(t, out)
+        write_toa_table(t, out)
     assert info.value.field == "backend" and "'wide a'" in str(info.value)
     assert list(tmp_path.iterdir()) == []
     # an existing file is left untouched when a write fails
     out.write_text("precious\n")
     with pytest.raises(InputError):
-        write_toas(t, out)
+        write_toa_table(t, out)
     assert out.read_text() == "precious\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out.txt"]
 
@@ -432,7 +435,7 @@ def test_write_refuses_unwritable_values_and_leaves_no_file(tmp_path):
 def test_from_arrays_text_matches_parts_exactly():
     day = np.array([58849.0, 5.0, 0.0, 58849.0, 58849.0, 123456.0])
     frac = np.array([0.000142889802083, 0.1, 2.0 ** -40, 1 - 2.0 ** -53, 1.25, 0.3])
-    t = Toas.from_arrays(day, frac, [1.0] * 6, 1400.0, "desert-dish")
+    t = ToaTable.from_arrays(day, frac, [1.0] * 6, 1400.0, "desert-dish")
     # 20 significant digits: 15 decimals for a 5-digit MJD, at most 16
     assert t.mjd_text[0] == "58849.000142889802083"
     assert t.mjd_text[1] == "5.1000000000000000"
@@ -451,7 +454,7 @@ def test_from_arrays_text_matches_parts_exactly():
 @FAST
 @given(st.integers(0, 99999), st.floats(min_value=0.0, max_value=1.0, exclude_max=True))
 def test_from_arrays_is_self_consistent(day, frac):
-    t = Toas.from_arrays([day], [frac], 1.0, np.inf, "ssb")
+    t = ToaTable.from_arrays([day], [frac], 1.0, np.inf, "ssb")
     d2, f2 = parse_mjd_strings(t.mjd_text)
     assert (d2[0], f2[0]) == (t.mjd_day[0], t.mjd_frac[0])
     moved = (t.mjd_day[0] - day) + (t.mjd_frac[0] - frac)
@@ -460,24 +463,24 @@ def test_from_arrays_is_self_consistent(day, frac):
 
 def test_from_arrays_checks_values_and_given_text():
     with pytest.raises(InputError) as info:
-        Toas.from_arrays([58849], [0.5], 0.0, 1400, "dd")
+        ToaTable.from_arrays([58849], [0.5], 0.0, 1400, "dd")
     assert info.value.field == "err_us"
     with pytest.raises(InputError) as info:
-        Toas.from_arrays([58849], [0.5], 1.0, -3, "dd")
+        ToaTable.from_arrays([58849], [0.5], 1.0, -3, "dd")
     assert info.value.field == "freq_mhz"
     with pytest.raises(InputError) as info:
-        Toas.from_arrays([58849.5], [0.5], 1.0, 1400, "dd")
+        ToaTable.from_arrays([58849.5], [0.5], 1.0, 1400, "dd")
     assert info.value.field == "mjd"
-    t = Toas.from_arrays([58849], [0.5], 1.0, 1400, "dd", mjd_text=["58849.50"],
+    t = ToaTable.from_arrays([58849], [0.5], 1.0, 1400, "dd", mjd_text=["58849.50"],
                          pulse=[4], flags={"backend": "wide-a"})
     assert t.mjd_text[0] == "58849.50" and t.pulse[0] == 4
     assert list(t.flags["backend"]) == ["wide-a"]
     with pytest.raises(ValueError):
-        Toas.from_arrays([58849], [0.5], 1.0, 1400, "dd", mjd_text=["58849.5000000001"])
+        ToaTable.from_arrays([58849], [0.5], 1.0, 1400, "dd", mjd_text=["58849.5000000001"])
 
 
 def test_select_and_times(tmp_path):
-    t = read_toas(_write(tmp_path, HEADER + GOOD_ROW +
+    t = read_toa_table(_write(tmp_path, HEADER + GOOD_ROW +
                          "58850.25 0.5 820 ridge-array wide-b\n"
                          "58851.75 0.7 inf ssb wide-c\n"))
     sub = t.select(t.freq_mhz < 1000)
@@ -498,7 +501,7 @@ def test_select_and_times(tmp_path):
 
 def test_mismatched_lengths_rejected():
     with pytest.raises(ValueError):
-        Toas(mjd_text=["1.5", "2.5"], mjd_day=[1, 2], mjd_frac=[0.5, 0.5], err_us=[1.0],
+        ToaTable(mjd_text=["1.5", "2.5"], mjd_day=[1, 2], mjd_frac=[0.5, 0.5], err_us=[1.0],
              freq_mhz=[1.0, 1.0], site=["a", "b"])
 
 
@@ -509,7 +512,7 @@ def test_mismatched_lengths_rejected():
 def _error(tmp_path, text) -> InputError:
     path = _write(tmp_path, text)
     with pytest.raises(InputError) as info:
-        read_toas(path)
+        read_toa_table(path)
     err = info.value
     assert err.path == os.fspath(path)
     assert str(err).startswith(os.fspath(path))
@@ -621,10 +624,10 @@ def test_binary_files(tmp_path):
 def test_file_not_found_and_directory(tmp_path):
     missing = tmp_path / "nope.txt"
     with pytest.raises(InputError) as info:
-        read_toas(missing)
+        read_toa_table(missing)
     assert "not found" in str(info.value) and str(missing) in str(info.value)
     with pytest.raises(InputError) as info:
-        read_toas(tmp_path)
+        read_toa_table(tmp_path)
     assert "directory" in str(info.value)
 
 
@@ -632,5 +635,5 @@ def test_reading_never_modifies_the_input(tmp_path):
     content = ("\ufeff" + HEADER + GOOD_ROW).encode("utf-8")
     path = _write(tmp_path, content)
     before = os.stat(path).st_mtime_ns
-    read_toas(path)
+    read_toa_table(path)
     assert path.read_bytes() == content and os.stat(path).st_mtime_ns == before

@@ -36,3 +36,13 @@ def run_demo(outdir: str) -> int:
               "report.json)\n")
     print(f"demo done: reports and plots are in {os.path.abspath(outdir)}")
     return 0
+
+
+def add_parsers(sub) -> None:
+    p = sub.add_parser("demo", help="fit the built-in sample sources")
+    p.add_argument("-o", "--outdir", default="timingkit-demo")
+    p.set_defaults(func=cmd_demo)
+
+
+def cmd_demo(args) -> int:
+    return run_demo(args.outdir)

@@ -41,7 +41,7 @@ DEGENERACY_RCOND = 1e-10   # smallest/largest singular value of the scaled matri
 
 
 @dataclass
-class Residuals:
+class ResidualSet:
     """Timing residuals at each TOA. ``phase`` in cycles, ``time_s`` in seconds
     (phase divided by the instantaneous spin frequency); positive = late."""
     phase: np.ndarray
@@ -62,7 +62,7 @@ class Residuals:
         mean = np.sum(w * self.time_s) / np.sum(w)
         return float(np.sqrt(np.sum(w * (self.time_s - mean) ** 2) / np.sum(w)) * 1e6)
 
-    def chi2(self) -> float:
+    def chi_square(self) -> float:
         return float(np.sum((self.time_s / self.err_s) ** 2))
 
 
@@ -70,8 +70,8 @@ class Residuals:
 class FitResult:
     model: TimingModel
     prefit_model: TimingModel
-    prefit: Residuals
-    postfit: Residuals
+    prefit: ResidualSet
+    postfit: ResidualSet
     free_names: list[str]
     covariance: np.ndarray          # (k+1, k+1) including the phase offset (last)
     chi2: float
@@ -99,8 +99,8 @@ class FitResult:
 def compute_residuals(model: TimingModel, obs: Observations, pulse_number=None,
                       reference: Observations | None = None,
                       subtract_mean: bool = True,
-                      evaluation: Evaluation | None = None) -> Residuals:
-    """Residuals of ``model``; pulse numbers from the model when not given.
+                      evaluation: Evaluation | None = None) -> ResidualSet:
+    """ResidualSet of ``model``; pulse numbers from the model when not given.
     ``evaluation``: the model already evaluated on ``obs`` (saves a pass)."""
     ev = evaluation if evaluation is not None else model.evaluate(obs, reference)
     if pulse_number is None:
@@ -115,7 +115,7 @@ def compute_residuals(model: TimingModel, obs: Observations, pulse_number=None,
         mean = np.sum(w * time_s) / np.sum(w)
         time_s = time_s - mean
         phase = time_s * ev.spin_frequency_hz
-    return Residuals(phase=phase, time_s=time_s, pulse_number=pulse_number, err_s=err_s,
+    return ResidualSet(phase=phase, time_s=time_s, pulse_number=pulse_number, err_s=err_s,
                      evaluation=ev)
 
 
@@ -305,9 +305,9 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     design = model.design_matrix(final.evaluation, names) / final.evaluation.spin_frequency_hz[:, None]
     design = np.column_stack([design, 1.0 / final.evaluation.spin_frequency_hz])
     _, _, post, gls = solver(design, final.time_s)
-    postfit = Residuals(phase=post * final.evaluation.spin_frequency_hz, time_s=post,
+    postfit = ResidualSet(phase=post * final.evaluation.spin_frequency_hz, time_s=post,
                         pulse_number=pulse, err_s=err_s, evaluation=final.evaluation)
-    chi2 = postfit.chi2() if gls is None else gls.chi2
+    chi2 = postfit.chi_square() if gls is None else gls.chi2
     noise_summary = None
     if not noise.empty:
         noise_summary = _noise_summary(solver, gls, design, final.time_s, estimate, noise_rounds)
@@ -339,7 +339,7 @@ def _noise_summary(solver: _Solver, gls: GlsSolution | None, design, resid, esti
     return summary
 
 
-def _check_phase_connection(prefit: Residuals, postfit: Residuals, chi2: float, dof: int,
+def _check_phase_connection(prefit: ResidualSet, postfit: ResidualSet, chi2: float, dof: int,
                             pinned: bool = False) -> list[str]:
     """A starting model too far off leaves post-fit phases spread over the
     whole turn; say so rather than report nonsense. With pulse numbers pinned

@@ -25,8 +25,8 @@ compare timing models under the same noise.
 An addition is listed as *supported* when its F-test probability is below
 the chosen level (default 1 %); delta AIC and BIC are reported beside it.
 Candidates: the next spin-frequency derivative; each fixed parameter of a
-binary component (when the model has one); a glitch at given epochs (when
-the glitch component is available).
+binary section (when the model has one); a glitch at given epochs (when
+the glitch section is available).
 """
 
 from __future__ import annotations
@@ -40,7 +40,7 @@ import scipy.stats
 from timingkit.formats.errors import FitError, InputError
 from timingkit.fit.fitter import FitResult, fit
 from timingkit.model.parameters import Parameter
-from timingkit.model.timing_model import EXTRA_SECTIONS, TimingModel
+from timingkit.model.timing_model import OPTIONAL_SECTIONS, TimingModel
 from timingkit.geometry.observations import Observations
 
 DEFAULT_LEVEL = 0.01
@@ -136,9 +136,9 @@ def next_derivative_candidate(model: TimingModel) -> Candidate:
 
 
 def binary_candidates(model: TimingModel) -> list[Candidate]:
-    """Each fixed parameter of a binary component, freed on its own."""
+    """Each fixed parameter of a binary section, freed on its own."""
     out = []
-    for comp in model.extra_binaries():
+    for comp in model.orbit_sections():
         for p in comp.parameters():
             if p.free:
                 continue
@@ -156,8 +156,8 @@ def binary_candidates(model: TimingModel) -> list[Candidate]:
 def glitch_candidate(model: TimingModel, epoch_mjd: float | str) -> Candidate:
     """A glitch at ``epoch_mjd`` (phase, frequency and frequency-derivative
     steps free), as a new [[glitch]] table of the model file."""
-    if "glitch" not in EXTRA_SECTIONS:
-        raise InputError("glitch candidates need the glitch component ([[glitch]] sections), "
+    if "glitch" not in OPTIONAL_SECTIONS:
+        raise InputError("glitch candidates need the glitch section ([[glitch]]), "
                          "which this installation does not have", field="glitch")
     epoch = str(epoch_mjd)
 
@@ -188,7 +188,7 @@ def candidate_additions(model: TimingModel, glitch_epochs_mjd=()) -> list[Candid
 
 def _fixed_noise(model: TimingModel) -> TimingModel:
     m = model.copy()
-    for comp in m.noise_components():
+    for comp in m.noise_sections():
         for p in comp.parameters():
             p.free = False
     return m

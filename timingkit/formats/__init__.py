@@ -1,1 +1,21 @@
-"""formats."""
+"""Readers and writers of the project's own files, and the errors they raise.
+
+- ``errors``: :class:`InputError` (file, line, field) and :class:`FitError`.
+- ``textfile``: the one text-file reader (encoding, size, line errors).
+- ``mjd_text``: exact decimal MJD text <-> whole day + fraction.
+- ``toa_table``, ``toa_reader``, ``toa_writer``: the TOA table (:class:`ToaTable`).
+- ``model_file``: the TOML model file (exact decimals, key validation, atomic writes).
+- ``site_file``: :class:`Site` records and site files; the built-in ``geocentre`` and ``ssb``.
+- ``clock_table``: clock-correction tables.
+"""
+
+from timingkit import lazy_exports
+
+EXPORTS = {
+    "InputError": "errors", "FitError": "errors", "ToaTable": "toa_table", "read_toa_table":
+    "toa_reader", "write_toa_table": "toa_writer", "read_model_document": "model_file",
+    "Site": "site_file", "load_site_file": "site_file", "ClockTable": "clock_table",
+    "read_clock_table": "clock_table",
+}
+__getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
+__all__ = list(EXPORTS)

@@ -3,7 +3,7 @@
 Every TOML number is parsed as an exact ``Decimal`` (``tomllib`` with
 ``parse_float=Decimal``), and high-precision values (MJDs, the spin
 frequency) may also be given as decimal strings; neither passes through a
-binary float before the model decides what precision it needs. Components of
+binary float before the model decides what precision it needs. Model sections of
 the timing model declare the keys of their section with :class:`Key` specs;
 :func:`take_section` checks them and names unknown or malformed keys. The
 writer is hand-made (stdlib ``tomllib`` reads only) so that high-precision

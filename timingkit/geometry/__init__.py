@@ -1,1 +1,18 @@
-"""geometry."""
+"""Where and when each TOA was observed, on the way to the barycentre.
+
+- ``timescales``: UTC -> TT (astropy's leap seconds) -> TDB at the site (erfa.dtdb, gridded).
+- ``earth_orientation``: UT1-UTC, polar motion and the celestial pole from the bundled IERS tables.
+- ``sites``: :class:`SiteTable` and fast GCRS position/velocity of a site.
+- ``ephemeris``: JPL SPK ephemerides through jplephem (built-in DE421).
+- ``delays``: Roemer, Shapiro and dispersion formulae (pure functions).
+- ``observations``: per-TOA time scales and geometry, computed once per data set.
+"""
+
+from timingkit import lazy_exports
+
+EXPORTS = {
+    "SiteTable": "sites", "Ephemeris": "ephemeris", "load_ephemeris": "ephemeris",
+    "Observations": "observations", "prepare_observations": "observations",
+}
+__getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
+__all__ = list(EXPORTS)

@@ -24,7 +24,7 @@ SECONDS_PER_DAY = 86400.0
 
 # NAIF integer codes (public NAIF convention).
 BODY_CODES = {
-    "mercury": 1, "venus": 2, "earth-moon-barycenter": 3, "mars": 4,
+    "mercury": 1, "venus": 2, "earth-moon-barycentre": 3, "mars": 4,
     "jupiter": 5, "saturn": 6, "uranus": 7, "neptune": 8, "pluto": 9,
     "sun": 10, "moon": 301, "earth": 399,
 }

@@ -20,14 +20,14 @@ from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.formats.errors import InputError
 from timingkit.geometry.sites import SiteTable, sites_gcrs_posvel
 from timingkit.numerics.timearray import SplitTime
-from timingkit.formats.toa_table import Toas
+from timingkit.formats.toa_table import ToaTable
 
 PLANETS = ("venus", "jupiter", "saturn", "uranus", "neptune")
 
 
 @dataclass
 class Observations:
-    toas: Toas
+    toas: ToaTable
     tdb: SplitTime                      # TDB at the observatory
     observer_ssb_m: np.ndarray          # (N, 3)
     observer_ssb_vel_m_per_s: np.ndarray
@@ -54,7 +54,7 @@ class Observations:
             warnings=list(self.warnings))
 
 
-def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
+def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
                          clock_tables: list[ClockTable] | tuple = (),
                          planets: bool = False) -> Observations:
     """Time scales and geometry for every TOA (see module docstring)."""
@@ -79,7 +79,7 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
         if site.kind == "ssb":
             bary[idx] = True
             tdb_day[idx], tdb_frac[idx] = given.day, given.frac
-        elif site.kind == "geocenter":
+        elif site.kind == "geocentre":
             tt = given.with_scale("tt")
             tdb = timescales.tt_to_tdb(tt, tt.frac)
             tdb_day[idx], tdb_frac[idx] = tdb.day, tdb.frac
@@ -122,7 +122,7 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
     if planets:
         for body in PLANETS:
             planet_vectors[body] = observer - ephemeris.position(body, tdb_all)
-    if not clock_tables and not np.all(bary | (names == "geocenter")):
+    if not clock_tables and not np.all(bary | (names == "geocentre")):
         warnings.append("no observatory clock corrections applied: site clocks are taken as UTC "
                         "(errors of up to µs possible; supply clock tables in settings.clock)")
     return Observations(
@@ -132,7 +132,7 @@ def prepare_observations(toas: Toas, sites: SiteTable, ephemeris: Ephemeris,
         clock_corrections=sorted(set(used_clocks)), warnings=_unique(warnings))
 
 
-def _resolve_sites(toas: Toas, sites: SiteTable):
+def _resolve_sites(toas: ToaTable, sites: SiteTable):
     """Site per TOA; an unknown name is reported at its first line in the table."""
     try:
         return sites.resolve_many(toas.site)

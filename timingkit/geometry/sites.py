@@ -1,13 +1,8 @@
-"""Observing sites: the site table, site files, and a site's GCRS position.
+"""The site table and a site's GCRS position and velocity.
 
-A site is the Earth's centre (``geocenter``, TOAs in TT), the solar-system
+A site is the Earth's centre (``geocentre``, TOAs in TT), the solar-system
 barycentre (``ssb``, TOAs in TDB), or a place on the Earth given by ITRF
-coordinates in metres. Site files (TOML) add places::
-
-    [site.desert-dish]
-    itrf_xyz_m = [-2271954.4, -4399946.5, 4008782.2]  # or longitude_deg, latitude_deg, height_m
-    aliases = ["dd"]
-    source = "survey of 2019, +-0.1 m"                  # optional: where the numbers come from
+coordinates in metres (records and site files: timingkit.formats.site_file).
 
 ``site_gcrs_posvel`` turns ITRF coordinates into GCRS position and velocity
 (IAU 2006/2000A precession-nutation, CIO based; polar motion and UT1-UTC
@@ -26,278 +21,23 @@ site file and load it with ``SiteTable.with_files``.
 
 from __future__ import annotations
 
-import math
 import os
-import re
 import time
-import tomllib
 from dataclasses import dataclass, field
 from typing import Iterable, Sequence
 
 import erfa
 import numpy as np
 
-from timingkit.geometry import earth_orientation
 from timingkit.formats.errors import InputError
+from timingkit.formats.site_file import BUILTIN_SITES, Site, load_site_file
+from timingkit.geometry import earth_orientation
 from timingkit.numerics.timearray import SplitTime
 
-SITE_KINDS = ("earth", "geocenter", "ssb")
-WGS84 = 1  # erfa ellipsoid identifier
-
-_NAME = re.compile(r"^[a-z0-9][a-z0-9_.+-]*$")
-_SITE_KEYS = ("itrf_xyz_m", "longitude_deg", "latitude_deg", "height_m", "aliases", "source")
-_GEODETIC_KEYS = ("longitude_deg", "latitude_deg", "height_m")
-# Plausible geocentric distance of a place on (or just above) the Earth:
-# catches kilometres given for metres and swapped or missing digits.
-_ITRF_RADIUS_RANGE_M = (6.2e6, 6.5e6)
-_HEIGHT_RANGE_M = (-1.0e4, 1.0e5)
-
-
-@dataclass(frozen=True)
-class Site:
-    """One observing site.
-
-    ``itrf_xyz_m``: ITRF geocentric x, y, z in metres (zeros for the
-    geocenter, None for the ssb). ``source`` says where the coordinates come
-    from and how accurate they are.
-    """
-    name: str
-    kind: str
-    itrf_xyz_m: np.ndarray | None
-    aliases: tuple[str, ...] = ()
-    source: str = ""
-
-    def __post_init__(self):
-        if self.kind not in SITE_KINDS:
-            raise ValueError(f"site kind must be one of {', '.join(SITE_KINDS)}, not {self.kind!r}")
-        object.__setattr__(self, "name", self.name.lower())
-        object.__setattr__(self, "aliases", tuple(a.lower() for a in self.aliases))
-        if self.kind == "ssb":
-            if self.itrf_xyz_m is not None:
-                raise ValueError("the ssb has no ITRF position")
-            return
-        if self.kind == "earth" and self.itrf_xyz_m is None:
-            raise ValueError(f"site {self.name}: an Earth site needs itrf_xyz_m")
-        xyz = np.array(self.itrf_xyz_m if self.itrf_xyz_m is not None else np.zeros(3), dtype=float)
-        if xyz.shape != (3,) or not np.all(np.isfinite(xyz)):
-            raise ValueError(f"site {self.name}: itrf_xyz_m must be 3 finite numbers")
-        if self.kind == "geocenter" and np.any(xyz != 0.0):
-            raise ValueError("the geocenter is the ITRF origin")
-        xyz.setflags(write=False)
-        object.__setattr__(self, "itrf_xyz_m", xyz)
-
-    # Equality and hashing by value (the generated ones choke on the array).
-    def _key(self):
-        xyz = None if self.itrf_xyz_m is None else tuple(self.itrf_xyz_m.tolist())
-        return (self.name, self.kind, xyz, self.aliases, self.source)
-
-    def __eq__(self, other):
-        return isinstance(other, Site) and self._key() == other._key()
-
-    def __hash__(self):
-        return hash(self._key())
-
-    def _geodetic(self):
-        if self.kind == "ssb":
-            raise ValueError("the ssb is not on the Earth: it has no geodetic coordinates")
-        if self.kind == "geocenter":
-            return 0.0, math.nan, math.nan
-        elong, phi, height = erfa.gc2gd(WGS84, self.itrf_xyz_m)
-        return float(elong), float(phi), float(height)
-
-    @property
-    def longitude_rad(self) -> float:
-        """WGS84 longitude, east positive (0 for the geocenter: there the
-        topocentric TDB terms vanish whatever the longitude)."""
-        return self._geodetic()[0]
-
-    @property
-    def latitude_rad(self) -> float:
-        """WGS84 geodetic latitude (nan for the geocenter)."""
-        return self._geodetic()[1]
-
-    @property
-    def height_m(self) -> float:
-        """Height above the WGS84 ellipsoid (nan for the geocenter)."""
-        return self._geodetic()[2]
-
-    @property
-    def spin_axis_distance_km(self) -> float:
-        """Distance from the Earth's spin axis (``u`` of erfa.dtdb), km.
-
-        Taken from the ITRF z axis; the true axis differs by the polar motion
-        (< 1", < 30 m), far below what the TDB topocentric terms can feel.
-        """
-        if self.kind == "ssb":
-            raise ValueError("the ssb is not on the Earth")
-        x, y, _ = self.itrf_xyz_m
-        return math.hypot(x, y) / 1000.0
-
-    @property
-    def equator_distance_km(self) -> float:
-        """Distance north of the equatorial plane (``v`` of erfa.dtdb), km."""
-        if self.kind == "ssb":
-            raise ValueError("the ssb is not on the Earth")
-        return float(self.itrf_xyz_m[2]) / 1000.0
-
-
-GEOCENTER = Site("geocenter", "geocenter", np.zeros(3), ("geocentre",),
-                 "definition: the ITRF origin, the Earth's centre of mass (exact); "
-                 "TOAs at this site are in TT")
-SSB = Site("ssb", "ssb", None, ("barycentre", "barycenter"),
-           "definition: the solar-system barycentre; TOAs at this site are in TDB "
-           "and already barycentric")
-BUILTIN_SITES = (GEOCENTER, SSB)
-
-
-# ---------------------------------------------------------------------------
-# Site files
-
-def _header_line(lines: list[str], name: str) -> int | None:
-    pattern = re.compile(r"^\s*\[\s*site\s*\.\s*[\"']?" + re.escape(name) + r"[\"']?\s*\]")
-    for n, text in enumerate(lines, 1):
-        if pattern.match(text):
-            return n
-    return None
-
-
-def _number(value, path, line, fieldname, what):
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{what} must be a number, got {value!r}", path=path, line=line,
-                         field=fieldname)
-    value = float(value)
-    if not math.isfinite(value):
-        raise InputError(f"{what} must be finite, got {value!r}", path=path, line=line,
-                         field=fieldname)
-    return value
-
-
-def _check_name(name, path, line, fieldname, what):
-    if not isinstance(name, str) or not _NAME.match(name.lower()):
-        raise InputError(f"{what} {name!r} is not a plain site name: use lowercase letters, "
-                         "digits and - _ . + (starting with a letter or digit)",
-                         path=path, line=line, field=fieldname)
-    return name.lower()
-
-
-def _site_from_entry(name: str, entry, path: str, line: int | None) -> Site:
-    where = f"site.{name}"
-    if not isinstance(entry, dict):
-        raise InputError(f"[{where}] must be a table of keys, got {entry!r}", path=path,
-                         line=line, field=where)
-    unknown = [k for k in entry if k not in _SITE_KEYS]
-    if unknown:
-        raise InputError(f"unknown key '{unknown[0]}' in [{where}]; allowed keys: "
-                         + ", ".join(_SITE_KEYS), path=path, line=line,
-                         field=f"{where}.{unknown[0]}")
-    has_xyz = "itrf_xyz_m" in entry
-    geo_given = [k for k in _GEODETIC_KEYS if k in entry]
-    if has_xyz and geo_given:
-        raise InputError(f"[{where}] gives both itrf_xyz_m and {geo_given[0]}: give either "
-                         "itrf_xyz_m or longitude_deg/latitude_deg/height_m",
-                         path=path, line=line, field=f"{where}.{geo_given[0]}")
-    if not has_xyz and not geo_given:
-        raise InputError(f"[{where}] has no coordinates: give itrf_xyz_m = [x, y, z] (metres) "
-                         "or longitude_deg, latitude_deg and height_m (WGS84)",
-                         path=path, line=line, field=where)
-    if has_xyz:
-        key = f"{where}.itrf_xyz_m"
-        raw = entry["itrf_xyz_m"]
-        if not isinstance(raw, list) or len(raw) != 3:
-            raise InputError(f"itrf_xyz_m must be a list of 3 numbers [x, y, z] in metres, "
-                             f"got {raw!r}", path=path, line=line, field=key)
-        xyz = np.array([_number(v, path, line, key, "each itrf_xyz_m component") for v in raw])
-        radius = float(np.linalg.norm(xyz))
-        lo, hi = _ITRF_RADIUS_RANGE_M
-        if not lo <= radius <= hi:
-            raise InputError(f"itrf_xyz_m is {radius:.6g} m from the Earth's centre; a site "
-                             f"on the Earth is {lo:.3g} to {hi:.3g} m away (metres expected, "
-                             "not kilometres)", path=path, line=line, field=key)
-        describe = "ITRF x, y, z"
-    else:
-        missing = [k for k in _GEODETIC_KEYS if k not in entry]
-        if missing:
-            raise InputError(f"[{where}] lacks {missing[0]}: geodetic coordinates need all of "
-                             "longitude_deg, latitude_deg, height_m", path=path, line=line,
-                             field=f"{where}.{missing[0]}")
-        lon = _number(entry["longitude_deg"], path, line, f"{where}.longitude_deg", "longitude_deg")
-        lat = _number(entry["latitude_deg"], path, line, f"{where}.latitude_deg", "latitude_deg")
-        height = _number(entry["height_m"], path, line, f"{where}.height_m", "height_m")
-        if not -360.0 <= lon <= 360.0:
-            raise InputError(f"longitude_deg {lon} is outside -360..360", path=path, line=line,
-                             field=f"{where}.longitude_deg")
-        if not -90.0 <= lat <= 90.0:
-            raise InputError(f"latitude_deg {lat} is outside -90..90", path=path, line=line,
-                             field=f"{where}.latitude_deg")
-        if not _HEIGHT_RANGE_M[0] <= height <= _HEIGHT_RANGE_M[1]:
-            raise InputError(f"height_m {height} is outside {_HEIGHT_RANGE_M[0]:g}.."
-                             f"{_HEIGHT_RANGE_M[1]:g} m (metres above the WGS84 ellipsoid)",
-                             path=path, line=line, field=f"{where}.height_m")
-        xyz = erfa.gd2gc(WGS84, math.radians(lon), math.radians(lat), height)
-        describe = "WGS84 longitude, latitude, height"
-    aliases = entry.get("aliases", [])
-    if not isinstance(aliases, list):
-        raise InputError(f"aliases must be a list of names, got {aliases!r}", path=path,
-                         line=line, field=f"{where}.aliases")
-    aliases = tuple(_check_name(a, path, line, f"{where}.aliases", "alias") for a in aliases)
-    source = entry.get("source")
-    if source is None:
-        source = f"site file {path} ({describe}; accuracy not stated in the file)"
-    elif not isinstance(source, str):
-        raise InputError(f"source must be text, got {source!r}", path=path, line=line,
-                         field=f"{where}.source")
-    else:
-        source = f"site file {path}: {source}"
-    return Site(name, "earth", xyz, aliases, source)
-
-
-def load_site_file(path) -> list[Site]:
-    """Read a TOML site file; every problem is an InputError naming the file,
-    the line of the site's header where it can be found, and the key."""
-    path = os.fspath(path)
-    try:
-        with open(path, "rb") as handle:
-            raw = handle.read()
-    except OSError as exc:
-        raise InputError(f"cannot read site file: {exc.strerror or exc}", path=path) from None
-    try:
-        text = raw.decode("utf-8")
-        data = tomllib.loads(text)
-    except UnicodeDecodeError as exc:
-        raise InputError(f"site file is not UTF-8 text ({exc.reason})", path=path) from None
-    except tomllib.TOMLDecodeError as exc:
-        found = re.search(r"at line (\d+)", str(exc))
-        raise InputError(f"not valid TOML: {exc}", path=path,
-                         line=int(found.group(1)) if found else None) from None
-    unknown = [k for k in data if k != "site"]
-    if unknown:
-        raise InputError(f"unknown top-level key '{unknown[0]}': a site file holds only "
-                         "[site.NAME] tables", path=path, field=unknown[0])
-    entries = data.get("site", {})
-    if not isinstance(entries, dict):
-        raise InputError("'site' must be a table of [site.NAME] tables", path=path, field="site")
-    lines = text.splitlines()
-    sites, seen = [], {}
-    for raw_name, entry in entries.items():
-        line = _header_line(lines, raw_name)
-        name = _check_name(raw_name, path, line, f"site.{raw_name}", "site name")
-        site = _site_from_entry(name, entry, path, line)
-        for label in (site.name, *site.aliases):
-            if label in seen:
-                raise InputError(f"name '{label}' of site {site.name} is already used by site "
-                                 f"{seen[label]} in this file", path=path, line=line,
-                                 field=f"site.{raw_name}")
-            seen[label] = site.name
-        sites.append(site)
-    return sites
-
-
-# ---------------------------------------------------------------------------
-# The table
 
 @dataclass
 class SiteTable:
-    """Sites by name and alias (case-insensitive): the built-ins plus any
+    """Sites by name and other name (case-insensitive): the built-ins plus any
     site files."""
     sites: list[Site] = field(default_factory=lambda: list(BUILTIN_SITES))
 
@@ -308,15 +48,15 @@ class SiteTable:
             self._register(site)
 
     def _register(self, site: Site, path: str | None = None) -> None:
-        for label in (site.name, *site.aliases):
+        for label in (site.name, *site.other_names):
             other = self._by_label.get(label)
             if other is not None:
                 message = (f"site name '{label}' (site {site.name}) is already taken by site "
-                           f"{other.name} ({other.source})")
+                           f"{other.name} ({other.coordinates_from})")
                 if path is None:
                     raise ValueError(message)
                 raise InputError(message, path=path, field=f"site.{site.name}")
-        for label in (site.name, *site.aliases):
+        for label in (site.name, *site.other_names):
             self._by_label[label] = site
         self.sites.append(site)
 
@@ -345,11 +85,11 @@ class SiteTable:
     def _known(self) -> str:
         parts = []
         for s in self.sites:
-            parts.append(s.name + (f" (also {', '.join(s.aliases)})" if s.aliases else ""))
+            parts.append(s.name + (f" (also {', '.join(s.other_names)})" if s.other_names else ""))
         return ", ".join(parts)
 
     def lookup(self, name: str) -> Site:
-        """The site called ``name`` or one of its aliases, any case."""
+        """The site called ``name`` or one of its other_names, any case."""
         site = self._by_label.get(str(name).strip().lower())
         if site is None:
             raise InputError(f"unknown site '{name}'; known sites: {self._known()}. "
@@ -360,7 +100,7 @@ class SiteTable:
     def resolve_many(self, names) -> tuple[list[Site], np.ndarray]:
         """Map an array of site names to (distinct sites, index per name).
 
-        ``sites[index[i]]`` is the site of ``names[i]``; aliases of one site
+        ``sites[index[i]]`` is the site of ``names[i]``; other_names of one site
         share one entry. One np.unique over the names, then one look-up per
         distinct name (0.3-0.7 s for 1e6 TOAs).
         """
@@ -380,9 +120,6 @@ class SiteTable:
         return sites, label_slot[inverse.reshape(-1)]
 
 
-# ---------------------------------------------------------------------------
-# GCRS position and velocity
-
 def _check_times(utc: SplitTime, tt: SplitTime) -> None:
     if utc.scale != "utc":
         raise ValueError(f"utc must be in scale 'utc', got '{utc.scale}'")
@@ -397,7 +134,7 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     ``sites[site_index[i]]`` (the output of ``SiteTable.resolve_many``).
 
     The Earth-orientation pieces, which depend on time only, are computed
-    once for all TOAs. Geocenter rows are zero. The ssb is not an Earth
+    once for all TOAs. Geocentre rows are zero. The ssb is not an Earth
     site: ValueError if any TOA refers to it (callers treat it apart).
     Accuracy: IAU 2006/2000A, CIO based, as astropy's
     ``EarthLocation.get_gcrs_posvel``, which it matches to < 1 mm (the
@@ -419,10 +156,10 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     used = np.unique(site_index)
     if any(sites[i].kind == "ssb" for i in used):
         raise ValueError("the ssb is not an Earth site: it has no GCRS position")
-    xyz_table = np.array([np.zeros(3) if s.kind == "ssb" else s.itrf_xyz_m for s in sites])
+    xyz_table = np.array([np.zeros(3) if s.kind == "ssb" else s.geocentric_itrf_m for s in sites])
     earth = np.array([s.kind == "earth" for s in sites])[site_index]
     if not np.any(earth):
-        return pos, vel                              # geocenter only
+        return pos, vel                              # geocentre only
     rows = np.flatnonzero(earth)
     if len(rows) < n:
         utc, tt = utc[rows], tt[rows]
@@ -454,15 +191,12 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
 
 def site_gcrs_posvel(site: Site, utc: SplitTime, tt: SplitTime):
     """GCRS position (m) and velocity (m/s), each (N, 3), of one site at the
-    given UTC and TT times. Zeros for the geocenter; ValueError for the ssb.
+    given UTC and TT times. Zeros for the geocentre; ValueError for the ssb.
     See ``sites_gcrs_posvel`` for method and accuracy."""
     if site.kind == "ssb":
         raise ValueError("the ssb is not an Earth site: it has no GCRS position")
     return sites_gcrs_posvel([site], np.zeros(len(utc), dtype=np.intp), utc, tt)
 
-
-# ---------------------------------------------------------------------------
-# Benchmark helper (called from scripts/bench.py; never from tests)
 
 def bench_site_posvel(n: int = 200_000, layout: str = "sessions", seed: int = 0) -> dict:
     """Time ``site_gcrs_posvel`` against astropy's ``get_gcrs_posvel`` on the

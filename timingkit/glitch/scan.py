@@ -258,7 +258,6 @@ def null_distribution(win: GapWindows, noise, trials: int, rng) -> NullDistribut
     quantile (1 - 25/trials), where the far tail is extrapolated from."""
     if not isinstance(noise, NullNoise):
         noise = NullNoise(np.asarray(noise, dtype=float))
-    n = len(noise.sigma)
     g, width = win.left.shape
     chunk = max(1, int(3_000_000 // max(g * width, 1)))
     maxima, pooled = [], []

@@ -34,7 +34,7 @@ import numpy as np
 
 from timingkit.geometry import delays
 from timingkit.formats.errors import InputError
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.formats.model_file import Key, take_section
 from timingkit.numerics.timearray import SECONDS_PER_DAY
@@ -194,14 +194,14 @@ def ecliptic_to_equatorial(lon_rad, lat_rad, pm_lon_coslat=0.0, pm_lat=0.0, cova
                            covariance)
 
 
-# ------------------------------------------------------------------ component
+# ------------------------------------------------------------------ section
 
-class Astrometry(Component):
+class Astrometry(ModelSection):
     section = "position"
-    kind = "geometry"
+    contribution = "sky_path"
 
     def __init__(self, section: dict | None, path: str | None, default_epoch: Decimal | None,
-                 planet_shapiro: bool = False):
+                 shapiro_delay_planets: bool = False):
         if section is None:
             raise InputError("missing required section [position] (ra, dec)", path=path,
                              field="position")
@@ -213,7 +213,7 @@ class Astrometry(Component):
         s = take_section(section, "position", spec, path)
         unc = s.get("uncertainty", {})
         self.frame = frame
-        self.planet_shapiro = planet_shapiro
+        self.shapiro_delay_planets = shapiro_delay_planets
         epoch = s["epoch_mjd"] if s["epoch_mjd"] is not None else default_epoch
         if epoch is None:
             raise InputError("give position.epoch_mjd (or spin.epoch_mjd)", path=path,

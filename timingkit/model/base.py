@@ -1,11 +1,15 @@
-"""The component interface of the timing model.
+"""The section interface of the timing model.
 
-A component owns one section of the model file and some parameters. Delay
-components add to the propagation delay (seconds) and give the partial
-derivatives of their delay; phase components add pulse phase (cycles) at the
-emission time and give phase partials. The :class:`Evaluation` carries the
-intermediate quantities from one component to the next, in the order of
-DESIGN.md §2: geometry -> dispersion -> binary -> spin/glitch phase.
+A :class:`ModelSection` owns one section of the model file and its
+parameters, and says what it contributes (``contribution``): the light's
+path across the sky and the Solar System ("sky_path"), propagation delays
+such as dispersion ("propagation"), the binary orbit ("orbit"), pulse phase
+from the star's rotation ("rotation"), or noise parameters only ("noise").
+Time-shifting sections give the partial derivatives of the emission time
+(seconds); rotation sections add pulse phase (cycles) at the emission time
+and give phase partials. The :class:`Evaluation` carries the intermediate
+quantities from one section to the next, in the order of DESIGN.md §2:
+geometry -> dispersion -> binary -> spin/glitch phase.
 """
 
 from __future__ import annotations
@@ -35,29 +39,29 @@ class Evaluation:
     phase_int: np.ndarray | None = None          # integer part of the pulse phase
     phase_frac: np.ndarray | None = None         # fractional part in [-0.5, 0.5]
     spin_frequency_hz: np.ndarray | None = None  # instantaneous frequency at t_emit
-    extra: dict = field(default_factory=dict)    # scratch space for components
+    extra: dict = field(default_factory=dict)    # scratch space for the sections
 
     def zeros(self) -> np.ndarray:
         return np.zeros(len(self.obs))
 
 
-class Component:
+class ModelSection:
     """Base class. ``section`` names the model-file section."""
 
     section: str = ""
-    kind: str = "delay"   # "geometry" | "delay" | "binary" | "phase"
+    contribution: str = "propagation"   # "sky_path" | "propagation" | "orbit" | "rotation" | "noise"
 
     def parameters(self) -> list[Parameter]:
         return []
 
     def apply(self, ev: Evaluation) -> None:  # pragma: no cover - interface
-        """Add this component's contribution to ``ev``."""
+        """Add this section's contribution to ``ev``."""
         raise NotImplementedError
 
     def partials(self, ev: Evaluation, names: list[str]) -> dict[str, np.ndarray]:
-        """Geometry, delay and binary components: d(t_emit)/d(parameter) in
+        """Sky-path, propagation and orbit sections: d(t_emit)/d(parameter) in
         seconds per parameter unit (how far the emission time moves).
-        Phase components: d(phase, cycles)/d(parameter)."""
+        Rotation sections: d(phase, cycles)/d(parameter)."""
         return {}
 
     def unconstrained(self, obs: Observations, names: list[str]) -> list[str]:

@@ -1,4 +1,4 @@
-"""The binary-orbit component: ``[binary] model = ...``.
+"""The binary-orbit section: ``[binary] model = ...``.
 
 Models (formulae in :mod:`timingkit.model.binary_orbits`):
 
@@ -49,7 +49,7 @@ import numpy as np
 
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.binary_orbits import (EccentricOrbit, LowEccentricityOrbit, ShapiroForm,
                                            SOLAR_MASS_TIME_S)
 from timingkit.model.parameters import Parameter
@@ -110,9 +110,9 @@ def model_keys(model: str) -> dict:
     return keys
 
 
-class Binary(Component):
+class Binary(ModelSection):
     section = SECTION
-    kind = "binary"
+    contribution = "orbit"
 
     def __init__(self, section: dict, path: str | None):
         if not isinstance(section, dict):
@@ -314,8 +314,8 @@ def keplerian_section(low_e: dict, model: str = "keplerian") -> dict:
     return out
 
 
-def build_binary(value, path, model) -> list[Component]:
-    """EXTRA_SECTIONS builder for ``[binary]``."""
+def build_binary(value, path, model) -> list[ModelSection]:
+    """OPTIONAL_SECTIONS builder for ``[binary]``."""
     if isinstance(value, list):
         raise InputError("only one [binary] section is supported (use [binary], not "
                          "[[binary]])", path=path, field=SECTION)

@@ -258,7 +258,7 @@ class EccentricOrbit:
     def shapiro_partials(self, st: OrbitState, names) -> dict:
         w = st.work
         arg = w["s_arg"]
-        r, s = self.shapiro.range_s, self.shapiro.shape
+        r = self.shapiro.range_s
         explicit = self.shapiro.parameter_partials(-2.0 * np.log(arg), 2.0 * r * w["rho"] / arg)
         out = self._partials_of(w["ssens"], w, st.anomaly, st.shapiro_rate, names, explicit)
         for key in ("projected_semi_major_axis_lt_s",

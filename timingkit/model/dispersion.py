@@ -22,7 +22,7 @@ import numpy as np
 
 from timingkit.geometry import delays
 from timingkit.formats.errors import InputError
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.formats.model_file import Key, take_section
 
@@ -38,9 +38,9 @@ DISPERSION_KEYS = {
 DISTINCT_FREQUENCY_RATIO = 1e-3
 
 
-class Dispersion(Component):
+class Dispersion(ModelSection):
     section = "dispersion"
-    kind = "delay"
+    contribution = "propagation"
 
     def __init__(self, section: dict | None, path: str | None, default_epoch):
         s = take_section(section, "dispersion", DISPERSION_KEYS, path)

@@ -30,7 +30,7 @@ from decimal import Decimal
 import numpy as np
 
 from timingkit.formats.errors import FitError, InputError
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_parts
 from timingkit.formats.model_file import Key, take_section
 
@@ -76,11 +76,11 @@ def glitch_frequency(dt_s, frequency_step_hz, frequency_derivative_step, decays=
     return freq
 
 
-class Glitch(Component):
+class Glitch(ModelSection):
     """One glitch (see module docstring)."""
 
     section = SECTION
-    kind = "phase"
+    contribution = "rotation"
     array_section = True
 
     def __init__(self, section: dict, path: str | None, index: int):
@@ -226,7 +226,7 @@ class Glitch(Component):
 
 
 def build_glitches(value, path: str | None, model=None) -> list[Glitch]:
-    """Builder for ``EXTRA_SECTIONS['glitch']``: one component per ``[[glitch]]``."""
+    """Builder for ``OPTIONAL_SECTIONS['glitch']``: one section object per ``[[glitch]]``."""
     if isinstance(value, dict):
         raise InputError("write glitches as an array of tables, '[[glitch]]' (double "
                          "brackets), one per glitch", path=path, field=SECTION)
@@ -256,7 +256,7 @@ def glitch_section(epoch_mjd: Decimal | str | float, phase_step: float = 0.0,
 
 
 def model_glitches(model) -> list[Glitch]:
-    """The glitch components of a timing model, in file order."""
+    """The glitch sections of a timing model, in file order."""
     return [c for c in model.extra if isinstance(c, Glitch)]
 
 

@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 from timingkit.formats.errors import InputError
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter
 from timingkit.formats.model_file import Key, reject_repeated_groups, table_list, take_section
 
@@ -31,9 +31,9 @@ OFFSET_KEYS = {
 }
 
 
-class GroupOffset(Component):
+class GroupOffset(ModelSection):
     section = SECTION
-    kind = "delay"
+    contribution = "propagation"
     array_section = True
 
     def __init__(self, table: dict, index: int, path: str | None):
@@ -93,8 +93,8 @@ class GroupOffset(Component):
         return {"flag": self.flag, "value": self.value, "offset_s": self.offset.value}
 
 
-def build_group_offsets(value, path, model) -> list[Component]:
-    """EXTRA_SECTIONS builder for ``[[time_offset]]``."""
+def build_group_offsets(value, path, model) -> list[ModelSection]:
+    """OPTIONAL_SECTIONS builder for ``[[time_offset]]``."""
     comps = [GroupOffset(table, k, path)
              for k, table in enumerate(table_list(value, SECTION, path))]
     reject_repeated_groups(comps, SECTION, "tables", path)

@@ -1,4 +1,4 @@
-"""Noise components of the timing model: white-noise scaling per TOA group and
+"""Noise sections of the timing model: white-noise scaling per TOA group and
 stationary power-law red timing noise on a Fourier basis.
 
 Model-file sections (all optional)::
@@ -32,7 +32,7 @@ phi_j = P(f_j) / T (s^2), so that sum_j phi_j approximates the integral of
 P over f >= 1/T. Power below 1/T is absorbed by the spin frequency and its
 derivative, which every fit of a spinning-down pulsar includes.
 
-These components have kind "noise": they contribute parameters (dotted names
+These sections contribute "noise": they contribute parameters (dotted names
 ``white_noise.<i>.error_scale``, ``white_noise.<i>.added_error_us``,
 ``red_noise.amplitude_log10``, ``red_noise.spectral_index``) but no delay or
 phase; :class:`NoiseModel` collects them for the fitter and the simulator.
@@ -46,9 +46,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from timingkit.formats.errors import InputError
-from timingkit.model.base import Component
+from timingkit.model.base import ModelSection
 from timingkit.model.parameters import Parameter
-from timingkit.model.timing_model import EXTRA_SECTIONS
+from timingkit.model.timing_model import OPTIONAL_SECTIONS
 from timingkit.formats.model_file import Key, reject_repeated_groups, table_list, take_section
 
 SECONDS_PER_YEAR = 365.25 * 86400.0        # Julian year
@@ -131,13 +131,13 @@ def scaled_errors_us(err_us: np.ndarray, group_index: np.ndarray, error_scales,
     return np.sqrt((scale * err_us) ** 2 + added ** 2)
 
 
-# ------------------------------------------------------------- components
+# ------------------------------------------------------------- sections
 
-class WhiteNoiseGroup(Component):
+class WhiteNoiseGroup(ModelSection):
     """Error scale factor and quadrature term for TOAs whose ``flag`` equals ``value``."""
 
     section = "white_noise"
-    kind = "noise"
+    contribution = "noise"
     array_section = True
 
     def __init__(self, section: dict, path: str | None, index: int):
@@ -182,11 +182,11 @@ class WhiteNoiseGroup(Component):
         return out
 
 
-class RedNoise(Component):
+class RedNoise(ModelSection):
     """Stationary power-law red timing noise (module docstring)."""
 
     section = "red_noise"
-    kind = "noise"
+    contribution = "noise"
 
     def __init__(self, section: dict, path: str | None):
         s = take_section(section, "red_noise", RED_NOISE_KEYS, path)
@@ -248,19 +248,19 @@ class RedNoise(Component):
         return out
 
 
-def _build_white_noise(value, path, model) -> list[Component]:
+def _build_white_noise(value, path, model) -> list[ModelSection]:
     groups = [WhiteNoiseGroup(item, path, i)
               for i, item in enumerate(table_list(value, "white_noise", path))]
     reject_repeated_groups(groups, "white_noise", "groups", path)
     return groups
 
 
-def _build_red_noise(value, path, model) -> list[Component]:
+def _build_red_noise(value, path, model) -> list[ModelSection]:
     return [RedNoise(value, path)]
 
 
-EXTRA_SECTIONS["white_noise"] = _build_white_noise
-EXTRA_SECTIONS["red_noise"] = _build_red_noise
+OPTIONAL_SECTIONS["white_noise"] = _build_white_noise
+OPTIONAL_SECTIONS["red_noise"] = _build_red_noise
 
 
 # ------------------------------------------------------------- the collection
@@ -275,7 +275,7 @@ def toa_times_s(obs) -> np.ndarray:
 
 @dataclass
 class NoiseModel:
-    """The noise components of a timing model, for the fitter and simulator."""
+    """The noise sections of a timing model, for the fitter and simulator."""
 
     white: list[WhiteNoiseGroup]
     red: RedNoise | None
@@ -283,7 +283,7 @@ class NoiseModel:
 
     @classmethod
     def from_timing_model(cls, model) -> "NoiseModel":
-        comps = model.noise_components()
+        comps = model.noise_sections()
         return cls(white=[c for c in comps if isinstance(c, WhiteNoiseGroup)],
                    red=next((c for c in comps if isinstance(c, RedNoise)), None),
                    path=model.path)

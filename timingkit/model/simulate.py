@@ -22,7 +22,7 @@ from timingkit.model.timing_model import TimingModel
 from timingkit.geometry.observations import Observations, prepare_observations
 from timingkit.geometry.sites import SiteTable
 from timingkit.numerics.timearray import SplitTime
-from timingkit.formats.toa_table import Toas
+from timingkit.formats.toa_table import ToaTable
 
 MAX_NEWTON_STEPS = 6
 CONVERGED_S = 1e-11
@@ -49,11 +49,11 @@ def _observations(toas, sites, ephemeris, clocks, planets) -> Observations:
 
 def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: int,
                   error_us: float | np.ndarray, sites: SiteTable, ephemeris: Ephemeris,
-                  site_names=("geocenter",), freqs_mhz=(1400.0,), seed: int | None = None,
+                  site_names=("geocentre",), freqs_mhz=(1400.0,), seed: int | None = None,
                   clocks: list[ClockTable] | tuple = (), flags: dict | None = None,
                   add_noise: bool = True, reference: Observations | None = None,
                   times: tuple[np.ndarray, np.ndarray] | None = None,
-                  noise: NoiseModel | None = None) -> Toas:
+                  noise: NoiseModel | None = None) -> ToaTable:
     """TOAs at which ``model`` predicts integer phase, with Gaussian noise of
     ``error_us`` (1 sigma, also written as the TOA uncertainty).
 
@@ -84,9 +84,9 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
     blank = np.full(count, "", dtype="<U1")
     for _ in range(MAX_NEWTON_STEPS):
         # a bare table for the iterations (text is made once, at the end)
-        toas = Toas(mjd_text=blank, mjd_day=day, mjd_frac=frac, err_us=err_us,
+        toas = ToaTable(mjd_text=blank, mjd_day=day, mjd_frac=frac, err_us=err_us,
                     freq_mhz=freq_col, site=site_col, flags=flag_cols)
-        obs = _observations(toas, sites, ephemeris, clocks, model.settings["planet_shapiro"])
+        obs = _observations(toas, sites, ephemeris, clocks, model.settings["shapiro_delay_planets"])
         ev = model.evaluate(obs, reference)
         shift_s = -ev.phase_frac / ev.spin_frequency_hz
         t = SplitTime(day, frac, "utc").add_seconds(shift_s)
@@ -101,4 +101,4 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
             offset_s = offset_s + noise.red_realisation_s(toa_times_s(obs), rng)
         t = SplitTime(day, frac, "utc").add_seconds(offset_s)
         day, frac = t.day, t.frac
-    return Toas.from_arrays(day, frac, err_us, freq_col, site_col, flags=flag_cols)
+    return ToaTable.from_arrays(day, frac, err_us, freq_col, site_col, flags=flag_cols)

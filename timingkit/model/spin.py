@@ -15,7 +15,7 @@ import numpy as np
 
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.formats.model_file import Key, take_section
 
@@ -36,9 +36,9 @@ def spin_phase_dd(dt_hi, dt_lo, frequency_hi, frequency_lo, derivatives):
     return ddmath.dd_horner(coeffs, dt_hi, dt_lo)
 
 
-class Spin(Component):
+class Spin(ModelSection):
     section = "spin"
-    kind = "phase"
+    contribution = "rotation"
 
     def __init__(self, section: dict | None, path: str | None):
         if section is None:

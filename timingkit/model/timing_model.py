@@ -1,4 +1,4 @@
-"""The timing model: its components, parameters by dotted name, free flags,
+"""The timing model: its sections, parameters by dotted name, free flags,
 evaluation of pulse phase at each TOA and the analytic design matrix."""
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ import numpy as np
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
 from timingkit.model.astrometry import Astrometry
-from timingkit.model.base import Component, Evaluation
+from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.dispersion import Dispersion
 from timingkit.model.binary import build_binary
 from timingkit.model.glitch import build_glitches
@@ -29,7 +29,7 @@ SETTINGS_KEYS = {
     "ephemeris": Key("text", default="builtin"),
     "sites": Key("list_text", default=list),
     "clock": Key("list_text", default=list),
-    "planet_shapiro": Key("bool", default=False),
+    "shapiro_delay_planets": Key("bool", default=False),
 }
 PHASE_ZERO_KEYS = {
     "mjd": Key("mjd", required=True),
@@ -37,10 +37,10 @@ PHASE_ZERO_KEYS = {
     "freq_mhz": Key("text", default="inf"),
 }
 
-# Optional components contributed by other modules: section name ->
-# builder(section_value, path, model) -> list[Component]. Modules that add a
-# component register it here (see timingkit.model.__init__).
-EXTRA_SECTIONS: dict[str, object] = {"glitch": build_glitches, "binary": build_binary,
+# Optional sections contributed by other modules: section name ->
+# builder(section_value, path, model) -> list[ModelSection]. Modules that add a
+# section register it here (see timingkit.model.__init__).
+OPTIONAL_SECTIONS: dict[str, object] = {"glitch": build_glitches, "binary": build_binary,
                                       "time_offset": build_group_offsets}
 
 CORE_SECTIONS = ("name", "position", "spin", "dispersion", "phase_zero", "fit", "settings")
@@ -57,7 +57,7 @@ class TimingModel:
         if isinstance(data.get("settings", {}).get("sites"), str):
             data["settings"] = dict(data["settings"])
             data["settings"]["sites"] = [data["settings"]["sites"]]
-        legal = set(CORE_SECTIONS) | set(EXTRA_SECTIONS)
+        legal = set(CORE_SECTIONS) | set(OPTIONAL_SECTIONS)
         unknown = [k for k in data if k not in legal]
         if unknown:
             raise InputError(f"unknown section or key {', '.join(map(repr, unknown))}; legal: "
@@ -69,14 +69,14 @@ class TimingModel:
                                      allow_uncertainty=False)
         self.spin = Spin(data.get("spin"), path)
         self.astrometry = Astrometry(data.get("position"), path, self.spin.epoch,
-                                     planet_shapiro=self.settings["planet_shapiro"])
+                                     shapiro_delay_planets=self.settings["shapiro_delay_planets"])
         self.dispersion = Dispersion(data.get("dispersion"), path, self.spin.epoch)
         self.phase_zero = None
         if "phase_zero" in data:
             self.phase_zero = take_section(data["phase_zero"], "phase_zero", PHASE_ZERO_KEYS,
                                            path, allow_uncertainty=False)
-        self.extra: list[Component] = []
-        for section, builder in EXTRA_SECTIONS.items():
+        self.extra: list[ModelSection] = []
+        for section, builder in OPTIONAL_SECTIONS.items():
             if section in data:
                 self.extra.extend(builder(data[section], path, self))
         fit = take_section(data.get("fit"), "fit", FIT_KEYS, path, allow_uncertainty=False)
@@ -101,27 +101,27 @@ class TimingModel:
 
     # ------------------------------------------------------------- parameters
     @property
-    def components(self) -> list[Component]:
-        return [self.astrometry, self.dispersion, *self.extra_delays(), *self.extra_binaries(),
-                self.spin, *self.extra_phases()]
+    def sections(self) -> list[ModelSection]:
+        return [self.astrometry, self.dispersion, *self.propagation_sections(), *self.orbit_sections(),
+                self.spin, *self.rotation_sections()]
 
-    def extra_delays(self):
-        return [c for c in self.extra if c.kind == "delay"]
+    def propagation_sections(self):
+        return [c for c in self.extra if c.contribution == "propagation"]
 
-    def extra_binaries(self):
-        return [c for c in self.extra if c.kind == "binary"]
+    def orbit_sections(self):
+        return [c for c in self.extra if c.contribution == "orbit"]
 
-    def extra_phases(self):
-        return [c for c in self.extra if c.kind == "phase"]
+    def rotation_sections(self):
+        return [c for c in self.extra if c.contribution == "rotation"]
 
-    def noise_components(self):
-        """Components of kind "noise" (white-noise scaling, red noise): they hold
+    def noise_sections(self):
+        """Sections contributing "noise" (white-noise scaling, red noise): they hold
         parameters but add no delay or phase; the fitter reads them."""
-        return [c for c in self.extra if c.kind == "noise"]
+        return [c for c in self.extra if c.contribution == "noise"]
 
     def parameters(self) -> list[Parameter]:
         out = []
-        for comp in [*self.components, *self.noise_components()]:
+        for comp in [*self.sections, *self.noise_sections()]:
             out.extend(comp.parameters())
         return out
 
@@ -146,14 +146,14 @@ class TimingModel:
 
     def unconstrained(self, obs: Observations, names: list[str]) -> list[str]:
         """Reasons, naming parameters, why some free parameters cannot be
-        measured from these TOAs at all (asked of each component)."""
+        measured from these TOAs at all (asked of each section)."""
         out = []
-        for comp in self.components:
+        for comp in self.sections:
             out.extend(comp.unconstrained(obs, names))
         return out
 
-    def owner(self, name: str) -> Component:
-        for comp in [*self.components, *self.noise_components()]:
+    def owner(self, name: str) -> ModelSection:
+        for comp in [*self.sections, *self.noise_sections()]:
             if any(p.name == name for p in comp.parameters()):
                 return comp
         raise KeyError(name)
@@ -167,16 +167,16 @@ class TimingModel:
         ev.other_delay_s = ev.zeros()
         ev.binary_s = ev.zeros()
         self.dispersion.apply(ev)
-        for comp in self.extra_delays():
+        for comp in self.propagation_sections():
             comp.apply(ev)
         offset = ev.roemer_s - ev.shapiro_s - ev.dispersion_s - ev.other_delay_s
         ev.t_bary = obs.tdb.add_seconds(offset)
-        for comp in self.extra_binaries():
+        for comp in self.orbit_sections():
             comp.apply(ev)           # sets/extends ev.binary_s from ev.t_bary
         ev.emit_offset_s = offset - ev.binary_s
         ev.t_emit = obs.tdb.add_seconds(ev.emit_offset_s)
         self.spin.apply(ev)
-        for comp in self.extra_phases():
+        for comp in self.rotation_sections():
             comp.apply(ev)           # adds to ev.phase_frac / spin_frequency_hz
         if reference is not None:
             ref = self.evaluate(reference)
@@ -192,7 +192,7 @@ class TimingModel:
         """Columns d(phase)/d(parameter), cycles per parameter unit, (N, k)."""
         out = np.zeros((len(ev.obs), len(names)))
         by_comp: dict[int, list[str]] = {}
-        comps = self.components
+        comps = self.sections
         for name in names:
             comp = self.owner(name)
             by_comp.setdefault(id(comp), []).append(name)
@@ -203,9 +203,9 @@ class TimingModel:
             cols = comp.partials(ev, wanted)
             for name in wanted:
                 col = cols[name]
-                if comp.kind in ("geometry", "delay") and "emit_per_bary" in ev.extra:
+                if comp.contribution in ("sky_path", "propagation") and "emit_per_bary" in ev.extra:
                     col = col * ev.extra["emit_per_bary"]   # through the orbit's time warp
-                if comp.kind != "phase":
+                if comp.contribution != "rotation":
                     col = col * ev.spin_frequency_hz
                 out[:, names.index(name)] = col
         return out
@@ -233,7 +233,7 @@ class TimingModel:
         return doc
 
     def _add_uncertainties(self, doc: dict) -> None:
-        for comp in [*self.components, *self.noise_components()]:
+        for comp in [*self.sections, *self.noise_sections()]:
             params = [p for p in comp.parameters() if p.uncertainty is not None]
             if not params:
                 continue
@@ -279,4 +279,4 @@ class TimingModel:
         return out
 
 
-__all__ = ["TimingModel", "EXTRA_SECTIONS", "Decimal", "mjd_decimal", "mjd_parts"]
+__all__ = ["TimingModel", "OPTIONAL_SECTIONS", "Decimal", "mjd_decimal", "mjd_parts"]

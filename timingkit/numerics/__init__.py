@@ -1,1 +1,13 @@
-"""numerics."""
+"""Arithmetic every stage builds on; imports nothing else of timingkit.
+
+- ``ddmath``: double-double arithmetic (two-sum, two-product, Horner) for spin phase.
+- ``timearray``: :class:`SplitTime`, the one two-part time (whole MJD day + fraction).
+"""
+
+from timingkit import lazy_exports
+
+EXPORTS = {
+    "SplitTime": "timearray",
+}
+__getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
+__all__ = list(EXPORTS)

@@ -1,1 +1,17 @@
-"""outputs."""
+"""What a fit writes: report.json, residual tables, figures, the overview page.
+
+- ``report``: report.json and the terminal summary.
+- ``residual_table``: residuals.csv (read and write) and atomic output folders.
+- ``plotting``: matplotlib figures (Agg, no pyplot state).
+- ``noise_outputs``: the power spectrum and the red-noise part of the report.
+- ``overview_page``: the self-contained HTML overview of a batch.
+"""
+
+from timingkit import lazy_exports
+
+EXPORTS = {
+    "build_report": "report", "write_json": "report", "ResidualTable": "residual_table",
+    "plot_residuals": "plotting",
+}
+__getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
+__all__ = list(EXPORTS)

@@ -91,10 +91,10 @@ def noise_report_entry(result: FitResult) -> dict:
 def residual_power_spectrum(result: FitResult, count: int | None = None):
     """(frequencies in 1/yr, measured power, model power), powers in µs^2 yr,
     at the red-noise basis frequencies (module docstring). Needs a fit with
-    a [red_noise] component."""
+    a [red_noise] section."""
     summary = result.noise
     if summary is None or summary.red_frequencies_hz is None:
-        raise ValueError("the power spectrum needs a fit with a red-noise component")
+        raise ValueError("the power spectrum needs a fit with a [red_noise] section")
     freqs = summary.red_frequencies_hz if count is None else summary.red_frequencies_hz[:count]
     t = summary.times_s
     w = 1.0 / summary.err_s ** 2

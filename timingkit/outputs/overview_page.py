@@ -169,7 +169,7 @@ def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[st
                      f'src="{ppdot}"></figure>')
     else:
         parts.append('<p class="note">No P&ndash;Pdot diagram was made.</p>')
-    parts.append("<h2>Residuals</h2>")
+    parts.append("<h2>ResidualSet</h2>")
     for index, row in enumerate(rows):
         name = str(row.get("source", ""))
         anchor = html.escape(name)

@@ -5,7 +5,7 @@ Every function builds its own ``matplotlib.figure.Figure`` on an Agg canvas
 worker processes and notebooks), returns it, and, when ``path`` is given,
 saves it there. The format comes from the suffix (``.png``, ``.pdf``, ``.svg``,
 ...); the file is written to a temporary name and renamed, so a failed save
-never leaves half a figure. Residuals are drawn in µs (DESIGN.md §3).
+never leaves half a figure. ResidualSet are drawn in µs (DESIGN.md §3).
 """
 
 from __future__ import annotations
@@ -167,7 +167,7 @@ def _stats_text(table: ResidualTable) -> str:
 
 
 def _draw_residual_panel(ax, x, table: ResidualTable, style: dict) -> None:
-    """Residuals (µs) with 1σ error bars against ``x``, coloured per ``style``."""
+    """ResidualSet (µs) with 1σ error bars against ``x``, coloured per ``style``."""
     ax.axhline(0.0, color="0.55", linewidth=0.6, zorder=0)
     if style["kind"] == "category":
         values = _category_values(table, style["color_by"])
@@ -241,7 +241,7 @@ def plot_residuals(postfit: ResidualTable, prefit: ResidualTable | None = None,
                    color_by: str = "site", title: str | None = None,
                    frequency_hz: float | None = None, path=None, *,
                    figsize=None, dpi: float = 100) -> Figure:
-    """Residuals (µs) against MJD with 1σ error bars.
+    """ResidualSet (µs) against MJD with 1σ error bars.
 
     With ``prefit``: two stacked panels (pre-fit above, post-fit below, shared
     MJD axis). ``color_by``: 'site', 'backend', 'freq' (continuous colour map
@@ -265,7 +265,7 @@ def plot_residuals_vs_orbital_phase(table: ResidualTable, orbital_phase, path=No
                                     color_by: str = "site", title: str | None = None,
                                     frequency_hz: float | None = None, figsize=None,
                                     dpi: float = 100) -> Figure:
-    """Residuals (µs) against orbital phase (cycles, as given, wrapped into [0, 1))."""
+    """ResidualSet (µs) against orbital phase (cycles, as given, wrapped into [0, 1))."""
     orbital_phase = np.atleast_1d(np.asarray(orbital_phase, dtype=float))
     if orbital_phase.shape != (len(table),):
         raise ValueError(f"orbital_phase has {orbital_phase.size} values, table has {len(table)}")
@@ -279,7 +279,7 @@ def plot_residuals_vs_orbital_phase(table: ResidualTable, orbital_phase, path=No
 def plot_residuals_vs_day_of_year(table: ResidualTable, path=None, *, color_by: str = "site",
                                   title: str | None = None, frequency_hz: float | None = None,
                                   figsize=None, dpi: float = 100) -> Figure:
-    """Residuals (µs) against day of year (annual signatures: position, parallax errors)."""
+    """ResidualSet (µs) against day of year (annual signatures: position, parallax errors)."""
     figure = _residual_figure([(table, None)], lambda t: day_of_year(t.mjd),
                               "day of year (1 = 1 January 0h)", color_by, title,
                               frequency_hz, figsize, dpi)

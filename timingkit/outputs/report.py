@@ -11,8 +11,8 @@ import numpy as np
 from timingkit.physics import spin as derived_mod
 from timingkit.physics.binary_report import extra_report_sections
 from timingkit.physics.binary_report import summary_lines as binary_summary_lines
-from timingkit.fit.fitter import FitResult, Residuals
-from timingkit.model.astrometry import RAD_TO_MAS, angle_entry, format_dec, format_ra
+from timingkit.fit.fitter import FitResult, ResidualSet
+from timingkit.model.astrometry import angle_entry, format_dec, format_ra
 from timingkit.model.timing_model import TimingModel
 from timingkit.formats.model_file import atomic_write_text
 from timingkit.outputs.noise_outputs import noise_report_entry
@@ -109,7 +109,7 @@ def settings_entry(obs: Observations) -> dict:
             "clock_corrections": "; ".join(obs.clock_corrections) or "none applied"}
 
 
-def residual_table(obs: Observations, res: Residuals) -> ResidualTable:
+def residual_table(obs: Observations, res: ResidualSet) -> ResidualTable:
     toas = obs.toas
     return ResidualTable(
         mjd_text=toas.mjd_text, mjd=toas.mjd_day + toas.mjd_frac, site=toas.site,

@@ -1,1 +1,22 @@
-"""pipeline."""
+"""From files to results: the functions the command line and the batch runner call.
+
+- ``inputs``: :func:`load_inputs` (read, check and barycentre one source).
+- ``fit_run``: :func:`fit_files` and :func:`residual_files` (fit or evaluate, write outputs).
+- ``barycentre``: :func:`barycentre_files` (per-TOA time scales and delays as CSV).
+- ``glitch_run``: :func:`glitch_files` (glitch search and fit, same signature as fit_files).
+
+::
+
+    from timingkit.pipeline import fit_files
+    report = fit_files("psr.toas", "psr.toml", "out/")
+"""
+
+from timingkit import lazy_exports
+
+EXPORTS = {
+    "fit_files": "fit_run", "residual_files": "fit_run", "write_fit_outputs": "fit_run",
+    "load_inputs": "inputs", "load_model": "inputs", "Inputs": "inputs", "barycentre_files":
+    "barycentre", "glitch_files": "glitch_run",
+}
+__getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
+__all__ = list(EXPORTS)

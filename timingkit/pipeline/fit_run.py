@@ -9,88 +9,13 @@ are also the simplest Python entry points::
 
 from __future__ import annotations
 
-import csv
-import io
 import os
-from dataclasses import dataclass
 
-import numpy as np
 
-from timingkit.numerics import ddmath
-from timingkit.formats.clock_table import ClockTable, read_clock_table
-from timingkit.geometry.ephemeris import Ephemeris, load_ephemeris
-from timingkit.formats.errors import InputError
 from timingkit.fit.fitter import FitResult, compute_residuals, fit
-from timingkit.model.timing_model import TimingModel
-from timingkit.formats.model_file import atomic_write_text
-from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.observations import Observations
 from timingkit.outputs.report import build_report, residual_table, settings_entry, write_json
-from timingkit.geometry.sites import SiteTable
-from timingkit.formats.toa_table import Toas, read_toas
-
-
-@dataclass
-class Inputs:
-    toas: Toas
-    model: TimingModel
-    sites: SiteTable
-    ephemeris: Ephemeris
-    clocks: list[ClockTable]
-    obs: Observations | None = None
-    reference: Observations | None = None
-
-
-def _resolve(path: str, base: str) -> str:
-    return path if os.path.isabs(path) else os.path.join(base, path)
-
-
-def load_model(model_path: str, free=(), fix=()) -> TimingModel:
-    model = TimingModel.from_file(model_path)
-    model.set_free(free, True)
-    model.set_free(fix, False)
-    return model
-
-
-def load_context(model: TimingModel, sites_paths=(), ephemeris=None, clock_paths=()):
-    """Site table, ephemeris and clock tables named by the model's settings
-    (relative to the model file) and by the caller (relative to the cwd)."""
-    base = model.base_dir
-    site_files = [_resolve(p, base) for p in model.settings["sites"]] + list(sites_paths)
-    sites = SiteTable.with_files(site_files)
-    eph = load_ephemeris(ephemeris) if ephemeris else load_ephemeris(model.settings["ephemeris"],
-                                                                      base_dir=base)
-    clock_files = [_resolve(p, base) for p in model.settings["clock"]] + list(clock_paths)
-    clocks = [read_clock_table(p) for p in clock_files]
-    return sites, eph, clocks
-
-
-def reference_observations(model: TimingModel, sites, eph, clocks) -> Observations | None:
-    pz = model.phase_zero
-    if pz is None:
-        return None
-    from timingkit.model.parameters import mjd_parts
-    day, frac = mjd_parts(pz["mjd"])
-    try:
-        freq = float(pz["freq_mhz"])
-    except ValueError:
-        raise InputError("expected a frequency in MHz or 'inf'", path=model.path,
-                         field="phase_zero.freq_mhz") from None
-    toas = Toas.from_arrays(np.array([day]), np.array([frac]), np.array([1.0]),
-                            np.array([freq]), np.array([pz["site"]]))
-    return prepare_observations(toas, sites, eph, clocks, planets=model.settings["planet_shapiro"])
-
-
-def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths=(),
-                ephemeris=None, clock_paths=()) -> Inputs:
-    """Read and check every input, then compute time scales and geometry."""
-    model = load_model(model_path, free, fix)
-    sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
-    toas = read_toas(toas_path)
-    inputs = Inputs(toas=toas, model=model, sites=sites, ephemeris=eph, clocks=clocks)
-    inputs.obs = prepare_observations(toas, sites, eph, clocks,
-                                      planets=model.settings["planet_shapiro"])
-    inputs.reference = reference_observations(model, sites, eph, clocks)
-    return inputs
+from timingkit.pipeline.inputs import Inputs, load_inputs
 
 
 def _fitted_comment(report: dict) -> str:
@@ -195,7 +120,7 @@ def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
 
 def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=None,
                    clock_paths=(), make_plots=True, color_by="site") -> dict:
-    """Residuals of the model as given (no fit); writes residuals.csv/.png and
+    """ResidualSet of the model as given (no fit); writes residuals.csv/.png and
     a report.json with the statistics."""
     inputs = load_inputs(toas_path, model_path, sites_paths=sites_paths, ephemeris=ephemeris,
                          clock_paths=clock_paths)
@@ -204,8 +129,8 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
     os.makedirs(outdir, exist_ok=True)
     table.write_csv(os.path.join(outdir, "residuals.csv"))
     stats = {"source": inputs.model.name, "toas": len(inputs.obs), "fitted": False,
-             "chi2": res.chi2(), "dof": len(inputs.obs) - 1,
-             "reduced_chi2": res.chi2() / max(len(inputs.obs) - 1, 1),
+             "chi2": res.chi_square(), "dof": len(inputs.obs) - 1,
+             "reduced_chi2": res.chi_square() / max(len(inputs.obs) - 1, 1),
              "rms_us": res.rms_us(), "weighted_rms_us": res.weighted_rms_us(),
              "settings": settings_entry(inputs.obs), "warnings": inputs.obs.warnings}
     if make_plots:
@@ -215,45 +140,3 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
                        path=os.path.join(outdir, "residuals.png"))
     write_json(os.path.join(outdir, "report.json"), stats)
     return stats
-
-
-BARYCENTER_COLUMNS = ["mjd", "site", "freq_mhz", "tdb_mjd", "roemer_s", "shapiro_s",
-                      "dispersion_s", "binary_s", "barycentric_mjd"]
-
-
-def barycenter_rows(inputs: Inputs):
-    """Per-TOA time scales and delays (DESIGN.md §5 columns)."""
-    ev = inputs.model.evaluate(inputs.obs)
-    obs = inputs.obs
-    total = ev.roemer_s - ev.shapiro_s - ev.dispersion_s - ev.other_delay_s - ev.binary_s
-    bary = obs.tdb.add_seconds(total)
-    return {
-        "mjd": obs.toas.mjd_text, "site": obs.toas.site, "freq_mhz": obs.toas.freq_mhz,
-        "tdb_mjd": obs.tdb.mjd_strings(15), "roemer_s": ev.roemer_s, "shapiro_s": ev.shapiro_s,
-        "dispersion_s": ev.dispersion_s, "binary_s": ev.binary_s,
-        "barycentric_mjd": bary.mjd_strings(15),
-    }
-
-
-def barycenter_files(toas_path, model_path, csv_path=None, *, sites_paths=(), ephemeris=None,
-                     clock_paths=()) -> str:
-    """Write the barycentring table to ``csv_path`` (or return it as text)."""
-    inputs = load_inputs(toas_path, model_path, sites_paths=sites_paths, ephemeris=ephemeris,
-                         clock_paths=clock_paths)
-    rows = barycenter_rows(inputs)
-    # one %-format per row: ~4x faster than csv.writer for 1e5-1e6 rows, and the
-    # fields are plain (no quoting needed: site names and MJDs have no commas)
-    fmt = "%s,%s,%r,%s,%.12f,%.15e,%.15e,%.15e,%s"
-    lines = [",".join(BARYCENTER_COLUMNS)]
-    lines.extend(fmt % row for row in zip(
-        rows["mjd"], rows["site"], rows["freq_mhz"].tolist(), rows["tdb_mjd"],
-        rows["roemer_s"].tolist(), rows["shapiro_s"].tolist(), rows["dispersion_s"].tolist(),
-        rows["binary_s"].tolist(), rows["barycentric_mjd"]))
-    text = "\n".join(lines) + "\n"
-    if csv_path is not None:
-        atomic_write_text(csv_path, text)
-    return text
-
-
-__all__ = ["fit_files", "residual_files", "barycenter_files", "load_inputs", "Inputs",
-           "ddmath"]

@@ -1,0 +1,122 @@
+"""``timingkit fit``, ``residuals``, ``barycentre`` and ``plot``: one source's TOAs
+against its model."""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+
+from timingkit.cli.options import add_input_options, progress_enabled
+from timingkit.formats.errors import InputError
+
+
+def add_parsers(sub) -> None:
+    p = sub.add_parser("fit", help="fit a timing model to TOAs")
+    add_input_options(p)
+    p.add_argument("-o", "--outdir", default="timingkit-fit", help="output folder")
+    p.add_argument("--free", nargs="+", default=[], metavar="P", help="parameters to fit")
+    p.add_argument("--fix", nargs="+", default=[], metavar="P", help="parameters to hold fixed")
+    p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
+    p.add_argument("--no-plot", action="store_true", help="skip residuals.png")
+    p.add_argument("--suggest", action="store_true",
+                   help="also try adding a frequency derivative, freeing fixed binary terms and "
+                        "glitches at --glitch-candidate epochs; list those the data support "
+                        "(F-test, delta AIC/BIC)")
+    p.add_argument("--suggest-level", type=float, default=0.01, metavar="P",
+                   help="F-test probability below which an addition is supported (default 0.01)")
+    p.add_argument("--glitch-candidate", action="append", default=[], metavar="MJD",
+                   help="with --suggest: also try a glitch at this epoch; may be repeated")
+    p.set_defaults(func=cmd_fit)
+
+    p = sub.add_parser("residuals", help="residuals of a model without fitting")
+    add_input_options(p)
+    p.add_argument("-o", "--outdir", default="timingkit-residuals")
+    p.add_argument("--color-by", default="site")
+    p.set_defaults(func=cmd_residuals)
+
+    p = sub.add_parser("barycentre", aliases=["barycenter"],
+                       help="per-TOA time scales and delays as CSV")
+    add_input_options(p)
+    p.add_argument("-o", "--output", metavar="CSV", help="output CSV (default: standard output)")
+    p.set_defaults(func=cmd_barycentre)
+
+    p = sub.add_parser("plot", help="plot residuals from a fit output folder")
+    p.add_argument("outdir", help="folder written by 'fit' or 'residuals'")
+    p.add_argument("--color-by", default="site")
+    p.add_argument("-o", "--output", metavar="PNG", help="figure file (.png or .pdf)")
+    p.set_defaults(func=cmd_plot)
+
+
+def cmd_fit(args) -> int:
+    from timingkit.pipeline.fit_run import fit_files
+    from timingkit.outputs.report import summary_text
+    if args.glitch_candidate and not args.suggest:
+        raise InputError("--glitch-candidate needs --suggest", field="--glitch-candidate")
+    if not 0.0 < args.suggest_level < 1.0:
+        raise InputError(f"--suggest-level must lie between 0 and 1, found {args.suggest_level}",
+                         field="--suggest-level")
+    report = fit_files(args.toas, args.model, args.outdir, free=args.free, fix=args.fix,
+                       sites_paths=args.sites, ephemeris=args.ephemeris, clock_paths=args.clock,
+                       make_plots=not args.no_plot, color_by=args.color_by,
+                       progress=progress_enabled(), suggest=args.suggest,
+                       suggest_level=args.suggest_level,
+                       glitch_epochs_mjd=args.glitch_candidate)
+    print(summary_text(report))
+    spectrum = "" if args.no_plot or "red_noise" not in report.get("noise", {}) else \
+        "power_spectrum.png, "
+    print(f"\nwrote {args.outdir}/: fitted.toml, residuals.csv, "
+          f"{'' if args.no_plot else 'residuals.png, '}{spectrum}report.json")
+    return 0
+
+
+def cmd_residuals(args) -> int:
+    from timingkit.pipeline.fit_run import residual_files
+    stats = residual_files(args.toas, args.model, args.outdir, sites_paths=args.sites,
+                           ephemeris=args.ephemeris, clock_paths=args.clock,
+                           color_by=args.color_by)
+    print(f"{stats['source']}: {stats['toas']} TOAs, rms {stats['rms_us']:.4g} µs, weighted rms "
+          f"{stats['weighted_rms_us']:.4g} µs, reduced chi2 {stats['reduced_chi2']:.3f} (no fit)")
+    for w in stats["warnings"]:
+        print(f"warning: {w}")
+    print(f"wrote {args.outdir}/: residuals.csv, residuals.png, report.json")
+    return 0
+
+
+def cmd_barycentre(args) -> int:
+    from timingkit.pipeline.barycentre import barycentre_files
+    text = barycentre_files(args.toas, args.model, args.output, sites_paths=args.sites,
+                            ephemeris=args.ephemeris, clock_paths=args.clock)
+    if args.output is None:
+        sys.stdout.write(text)
+    else:
+        print(f"wrote {args.output}", file=sys.stderr)
+    return 0
+
+
+def cmd_plot(args) -> int:
+    from timingkit.outputs.plotting import plot_residuals
+    from timingkit.outputs.residual_table import ResidualTable
+    post_path = os.path.join(args.outdir, "residuals.csv")
+    if not os.path.exists(post_path):
+        raise InputError("no residuals.csv here: give a folder written by 'timingkit fit'",
+                         path=args.outdir)
+    post = ResidualTable.read_csv(post_path)
+    pre_path = os.path.join(args.outdir, "prefit_residuals.csv")
+    pre = ResidualTable.read_csv(pre_path) if os.path.exists(pre_path) else None
+    freq = None
+    report_path = os.path.join(args.outdir, "report.json")
+    title = None
+    if os.path.exists(report_path):
+        with open(report_path) as fh:
+            rep = json.load(fh)
+        title = rep.get("source")
+        try:
+            freq = float(rep["parameters"]["spin.frequency_hz"]["value"])
+        except (KeyError, TypeError, ValueError):
+            freq = None
+    out = args.output or os.path.join(args.outdir, "residuals.png")
+    plot_residuals(post, prefit=pre, color_by=args.color_by, title=title, frequency_hz=freq,
+                   path=out)
+    print(f"wrote {out}")
+    return 0

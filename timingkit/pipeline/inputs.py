@@ -1,0 +1,83 @@
+"""Read one source's inputs: the TOA table, the model and what it names (sites, clock
+tables, ephemeris), checked and barycentred once (:func:`load_inputs`).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+
+import numpy as np
+
+from timingkit.formats.clock_table import ClockTable, read_clock_table
+from timingkit.geometry.ephemeris import Ephemeris, load_ephemeris
+from timingkit.formats.errors import InputError
+from timingkit.model.timing_model import TimingModel
+from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.sites import SiteTable
+from timingkit.formats.toa_table import ToaTable
+from timingkit.formats.toa_reader import read_toa_table
+
+
+@dataclass
+class Inputs:
+    toas: ToaTable
+    model: TimingModel
+    sites: SiteTable
+    ephemeris: Ephemeris
+    clocks: list[ClockTable]
+    obs: Observations | None = None
+    reference: Observations | None = None
+
+
+def _resolve(path: str, base: str) -> str:
+    return path if os.path.isabs(path) else os.path.join(base, path)
+
+
+def load_model(model_path: str, free=(), fix=()) -> TimingModel:
+    model = TimingModel.from_file(model_path)
+    model.set_free(free, True)
+    model.set_free(fix, False)
+    return model
+
+
+def load_context(model: TimingModel, sites_paths=(), ephemeris=None, clock_paths=()):
+    """Site table, ephemeris and clock tables named by the model's settings
+    (relative to the model file) and by the caller (relative to the cwd)."""
+    base = model.base_dir
+    site_files = [_resolve(p, base) for p in model.settings["sites"]] + list(sites_paths)
+    sites = SiteTable.with_files(site_files)
+    eph = load_ephemeris(ephemeris) if ephemeris else load_ephemeris(model.settings["ephemeris"],
+                                                                      base_dir=base)
+    clock_files = [_resolve(p, base) for p in model.settings["clock"]] + list(clock_paths)
+    clocks = [read_clock_table(p) for p in clock_files]
+    return sites, eph, clocks
+
+
+def reference_observations(model: TimingModel, sites, eph, clocks) -> Observations | None:
+    pz = model.phase_zero
+    if pz is None:
+        return None
+    from timingkit.model.parameters import mjd_parts
+    day, frac = mjd_parts(pz["mjd"])
+    try:
+        freq = float(pz["freq_mhz"])
+    except ValueError:
+        raise InputError("expected a frequency in MHz or 'inf'", path=model.path,
+                         field="phase_zero.freq_mhz") from None
+    toas = ToaTable.from_arrays(np.array([day]), np.array([frac]), np.array([1.0]),
+                            np.array([freq]), np.array([pz["site"]]))
+    return prepare_observations(toas, sites, eph, clocks, planets=model.settings["shapiro_delay_planets"])
+
+
+def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths=(),
+                ephemeris=None, clock_paths=()) -> Inputs:
+    """Read and check every input, then compute time scales and geometry."""
+    model = load_model(model_path, free, fix)
+    sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
+    toas = read_toa_table(toas_path)
+    inputs = Inputs(toas=toas, model=model, sites=sites, ephemeris=eph, clocks=clocks)
+    inputs.obs = prepare_observations(toas, sites, eph, clocks,
+                                      planets=model.settings["shapiro_delay_planets"])
+    inputs.reference = reference_observations(model, sites, eph, clocks)
+    return inputs
