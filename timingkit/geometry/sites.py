@@ -129,7 +129,8 @@ def _check_times(utc: SplitTime, tt: SplitTime) -> None:
         raise ValueError(f"utc and tt differ in length ({len(utc)} vs {len(tt)})")
 
 
-def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: SplitTime):
+def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: SplitTime,
+                      direct: bool = False):
     """GCRS position (m) and velocity (m/s), shape (N, 3), of TOA i at site
     ``sites[site_index[i]]`` (the output of ``SiteTable.resolve_many``).
 
@@ -142,7 +143,8 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     celestial-pole offsets dX, dY are not applied (as in astropy); at
     ~0.2 mas (from memory) they are worth ~1 cm. Outside the bundled IERS
     table UT1-UTC is held and the pole put at the mean pole, as astropy
-    does (see earth_orientation.coverage_warnings).
+    does (see earth_orientation.coverage_warnings). ``direct``: the
+    precession-nutation series at every time, not interpolated.
     """
     _check_times(utc, tt)
     site_index = np.asarray(site_index, dtype=np.intp).reshape(-1)
@@ -168,7 +170,7 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     dut1, xp, yp = earth_orientation.eop_values(utc)
     era = erfa.era00(*earth_orientation.ut1_jd(utc, dut1))
     rpom = erfa.pom00(xp, yp, erfa.sp00(tt.jd1, tt.jd2))       # TIRS -> ITRS
-    x, y, s = earth_orientation.cip_xys(tt)
+    x, y, s = earth_orientation.cip_xys(tt, direct=direct)
     rc2i = erfa.c2ixys(x, y, s)                                # GCRS -> CIRS
 
     # ITRS -> TIRS (transpose of rpom), TIRS -> CIRS (rotate by -ERA about the

@@ -37,6 +37,18 @@ def utc_to_tt(utc: SplitTime) -> SplitTime:
         return _from_jd(t.jd1, t.jd2, "tt")
 
 
+def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
+    """TT - UTC (s) of times converted by ``utc_to_tt``, without the rounding
+    of the two-part TT (up to ~5 ps): since 1972 TAI - UTC is a whole number
+    of seconds (IERS), so TT - UTC = n + 32.184 s exactly, and a value within
+    1 ns of that is taken as exact (leap-second days and earlier dates keep
+    astropy's value)."""
+    hi, lo = tt.seconds_since(utc.day, utc.frac)
+    raw = hi + lo
+    snapped = np.round(raw - 32.184) + 32.184
+    return np.where(np.abs(raw - snapped) < 1e-9, snapped, raw)
+
+
 def tt_to_utc(tt: SplitTime) -> SplitTime:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
@@ -51,7 +63,7 @@ DIRECT_BELOW = 4          # evaluate erfa.dtdb directly when N < DIRECT_BELOW * 
 
 def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
                    longitude_rad: float = 0.0, spin_axis_distance_km: float = 0.0,
-                   equator_distance_km: float = 0.0) -> np.ndarray:
+                   equator_distance_km: float = 0.0, direct: bool = False) -> np.ndarray:
     """TDB - TT in seconds at a site (erfa.dtdb; geocentric when distances are 0).
 
     erfa.dtdb is exactly G(t) + u [C(t) sin(s) + S(t) cos(s)] + v B(t), with
@@ -59,8 +71,9 @@ def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
     the topocentric terms of Moyer 1981 as coded in SOFA). For many TOAs these
     four functions are evaluated by erfa on a 1-day grid and interpolated by
     cubic spline (measured error < 2e-11 s = 20 ps; the shortest FB90 periods are
-    ~2 weeks); few TOAs are evaluated directly. Written out here because the
-    full series per TOA costs ~10 µs each (10 s per million TOAs).
+    ~2 weeks); few TOAs, or all with ``direct``, are evaluated directly. Written
+    out here because the full series per TOA costs ~10 µs each (10 s per million
+    TOAs).
     """
     ut = np.broadcast_to(np.asarray(ut1_fraction_of_day, dtype=float), tt.day.shape)
     # site coordinates may be scalars or one value per TOA
@@ -73,7 +86,7 @@ def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
     mjd = tt.day + tt.frac
     lo, hi = float(np.min(mjd)) - 2.0, float(np.max(mjd)) + 2.0
     nodes = np.arange(np.floor(lo), np.ceil(hi) + GRID_STEP_DAYS, GRID_STEP_DAYS)
-    if len(mjd) < DIRECT_BELOW * len(nodes):
+    if direct or len(mjd) < DIRECT_BELOW * len(nodes):
         return erfa.dtdb(jd1, jd2, ut, longitude_rad, spin_axis_distance_km,
                          equator_distance_km)
     from scipy.interpolate import CubicSpline
@@ -101,10 +114,12 @@ def tdb_minus_tt_s(tt: SplitTime, ut1_fraction_of_day: np.ndarray,
 
 
 def tt_to_tdb(tt: SplitTime, ut1_fraction_of_day, longitude_rad=0.0,
-              spin_axis_distance_km=0.0, equator_distance_km=0.0) -> SplitTime:
-    """TT -> TDB at the site given by its longitude and the (u, v) distances."""
+              spin_axis_distance_km=0.0, equator_distance_km=0.0,
+              direct: bool = False) -> SplitTime:
+    """TT -> TDB at the site given by its longitude and the (u, v) distances
+    (``direct``: the series at every time, no interpolation)."""
     delta = tdb_minus_tt_s(tt, ut1_fraction_of_day, longitude_rad,
-                           spin_axis_distance_km, equator_distance_km)
+                           spin_axis_distance_km, equator_distance_km, direct)
     return tt.add_seconds(delta).with_scale("tdb")
 
 

@@ -69,10 +69,12 @@ class Spin(ModelSection):
 
     def dt_seconds(self, ev: Evaluation):
         """Emission time minus the spin epoch, double-double seconds: the exact
-        TDB difference plus the (double) sum of delays, never rounded to a
-        single float time on the way."""
+        TDB difference plus the (double) sum of delays and of what the two-part
+        TDB lost to rounding, never rounded to a single float time on the way."""
         hi, lo = ev.obs.tdb.seconds_since(self.epoch_day, self.epoch_frac)
-        return ddmath.dd_add_d(hi, lo, ev.emit_offset_s)
+        lost = ev.obs.tdb_correction_s
+        return ddmath.dd_add_d(hi, lo, ev.emit_offset_s if lost is None
+                               else ev.emit_offset_s + lost)
 
     def apply(self, ev: Evaluation) -> None:
         dt_hi, dt_lo = self.dt_seconds(ev)

@@ -1,0 +1,63 @@
+"""The full timing model's pulse phase at times at a site: what the fitter
+computes for a TOA there, with every delay (geometry, dispersion, binary,
+glitches), evaluated exactly (no interpolated Earth-orientation or TDB
+series, so a time's phase does not depend on the other times asked with it).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from timingkit.formats.clock_table import ClockTable
+from timingkit.formats.toa_table import ToaTable
+from timingkit.geometry.ephemeris import Ephemeris
+from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.sites import SiteTable
+from timingkit.model.base import Evaluation
+from timingkit.model.timing_model import TimingModel
+from timingkit.numerics.timearray import SplitTime
+
+
+@dataclass
+class PhaseContext:
+    """What a model needs besides itself to give phases at a site: the site
+    table, ephemeris, clock tables, and the model's phase-zero arrival
+    (``reference``, from its [phase_zero] section, or None)."""
+
+    sites: SiteTable
+    ephemeris: Ephemeris
+    clocks: list[ClockTable] = field(default_factory=list)
+    reference: Observations | None = None
+
+
+def evaluate_at(model: TimingModel, times: SplitTime, site, freq_mhz,
+                context: PhaseContext) -> Evaluation:
+    """The model evaluated at ``times`` (UTC at the site, the TOA-table
+    convention) at ``site`` and ``freq_mhz`` (a value or one per time)."""
+    n = len(times)
+    toas = ToaTable(mjd_text=np.full(n, "", dtype="<U1"), mjd_day=times.day,
+                    mjd_frac=times.frac, err_us=np.ones(n),
+                    freq_mhz=np.broadcast_to(np.asarray(freq_mhz, dtype=float), (n,)).copy(),
+                    site=np.broadcast_to(np.asarray(site, dtype=str), (n,)).copy())
+    obs = prepare_observations(toas, context.sites, context.ephemeris, context.clocks,
+                               planets=model.settings["shapiro_delay_planets"], exact=True)
+    return model.evaluate(obs, context.reference)
+
+
+def model_phase_at(model: TimingModel, times: SplitTime, site, freq_mhz,
+                context: PhaseContext) -> tuple[np.ndarray, np.ndarray]:
+    """(integer, fraction in [-0.5, 0.5]) pulse phase of the model at each time."""
+    ev = evaluate_at(model, times, site, freq_mhz, context)
+    return ev.phase_int, ev.phase_frac
+
+
+def nearest_arrivals(model: TimingModel, times: SplitTime, site, freq_mhz,
+                     context: PhaseContext, steps: int = 3) -> SplitTime:
+    """The pulse arrivals (times of integer model phase) nearest ``times``, by
+    Newton steps with the spin frequency; three steps leave < 1e-13 s."""
+    for _ in range(steps):
+        ev = evaluate_at(model, times, site, freq_mhz, context)
+        times = times.add_seconds(-ev.phase_frac / ev.spin_frequency_hz)
+    return times
