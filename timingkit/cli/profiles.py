@@ -1,4 +1,128 @@
-"""placeholder"""
+"""``timingkit profile-toas`` (TOAs from folded profiles) and
+``timingkit simulate-profiles`` (test and demo profiles)."""
 
-def add_parsers(sub):
-    pass
+from __future__ import annotations
+
+import os
+import sys
+
+from timingkit.formats.errors import InputError
+
+
+def add_parsers(sub) -> None:
+    p = sub.add_parser("profile-toas", help="TOAs from folded profiles (phase-gradient fit "
+                                            "against a template)")
+    p.add_argument("profiles", nargs="+", help="profile files (.npz, one observation each)")
+    p.add_argument("--template", required=True, metavar="FILE|auto",
+                   help="template file (.npz), or 'auto' to build one from the profiles")
+    p.add_argument("--write-template", metavar="FILE",
+                   help="where --template auto writes its template (default: TOAS with "
+                        ".template.npz)")
+    p.add_argument("--per-channel", action="store_true", help="one TOA per channel")
+    p.add_argument("--per-subint", action="store_true", help="one TOA per sub-integration")
+    p.add_argument("--min-snr", type=float, default=8.0, metavar="S",
+                   help="no TOA from a profile below this S/N (default 8)")
+    p.add_argument("-o", "--output", required=True, metavar="TOAS")
+    p.set_defaults(func=cmd_profile_toas)
+
+    s = sub.add_parser("simulate-profiles", help="simulate folded profiles of a model, folded "
+                                                 "with a deliberately imperfect predictor")
+    s.add_argument("model", help="the true timing model (TOML)")
+    s.add_argument("--folding-model", metavar="FILE",
+                   help="model the folding predictors are made from (default: MODEL with "
+                        "the offsets below)")
+    s.add_argument("--folding-frequency-offset-hz", type=float, default=None, metavar="DF",
+                   help="spin-frequency error of the folding model (default: 0.05 cycles "
+                        "over the span)")
+    s.add_argument("--folding-dm-offset", type=float, default=0.0, metavar="DDM",
+                   help="DM error of the folding model, pc cm^-3 (default 0)")
+    s.add_argument("--site", required=True, metavar="NAME")
+    s.add_argument("--start", type=float, required=True, metavar="MJD")
+    s.add_argument("--end", type=float, required=True, metavar="MJD")
+    s.add_argument("--count", type=int, required=True, metavar="N", help="observations")
+    s.add_argument("--freq-mhz", type=float, nargs="+", default=[1400.0], metavar="F",
+                   help="centre frequencies, used in turn (default 1400)")
+    s.add_argument("--channels", type=int, default=1, metavar="C")
+    s.add_argument("--bandwidth-mhz", type=float, default=100.0, metavar="B")
+    s.add_argument("--subints", type=int, default=1, metavar="S")
+    s.add_argument("--duration-s", type=float, default=600.0, metavar="T")
+    s.add_argument("--bins", type=int, default=1024, metavar="N")
+    s.add_argument("--snr", type=float, default=100.0, metavar="S",
+                   help="S/N of each whole observation (default 100)")
+    s.add_argument("--template", metavar="FILE", help="template (default: built-in, invented)")
+    s.add_argument("--seed", type=int, default=None)
+    s.add_argument("--sites", action="append", default=[], metavar="FILE")
+    s.add_argument("--ephemeris", metavar="BSP")
+    s.add_argument("-o", "--outdir", required=True, metavar="DIR")
+    s.set_defaults(func=cmd_simulate_profiles)
+
+
+def cmd_profile_toas(args) -> int:
+    from timingkit.formats.profile_file import (read_profile_file, read_template_file,
+                                                write_template_file)
+    from timingkit.formats.toa_writer import write_toa_table
+    from timingkit.profiles.templates import auto_template, resample
+    from timingkit.profiles.toas import gather_profiles, time_profiles
+    sets = [read_profile_file(path) for path in args.profiles]
+    timed = gather_profiles(sets, args.per_channel, args.per_subint)
+    bins = timed.profiles.shape[1]
+    if args.template == "auto":
+        template = auto_template(list(timed.profiles), bins)
+        template_path = args.write_template or os.path.splitext(args.output)[0] + ".template.npz"
+    else:
+        template = read_template_file(args.template)
+        template_path = None
+    result = time_profiles(timed, resample(template.profile, bins), args.min_snr)
+    if template_path:
+        write_template_file(template, template_path)
+    write_toa_table(result.toas, args.output)
+    for line in result.skipped:
+        print(f"skipped {line}", file=sys.stderr)
+    made = f"; template ({len(template.components)} components) written to {template_path}" \
+        if template_path else ""
+    print(f"wrote {len(result.toas)} TOAs from {len(timed.profiles)} profiles in "
+          f"{len(sets)} files to {args.output}{made}")
+    return 0
+
+
+def cmd_simulate_profiles(args) -> int:
+    from timingkit.formats.profile_file import (read_template_file, write_profile_file,
+                                                write_template_file)
+    from timingkit.pipeline.inputs import load_context, load_model, reference_observations
+    from timingkit.predict.model_phase import PhaseContext
+    from timingkit.profiles.simulate import ProfileSimulation, simulate_profiles
+    from timingkit.profiles.templates import builtin_template, resample
+    from timingkit.formats.profile_file import Template
+    true = load_model(args.model)
+    sites, eph, clocks = load_context(true, args.sites, args.ephemeris)
+    context = PhaseContext(sites, eph, clocks, reference_observations(true, sites, eph, clocks))
+    if args.folding_model:
+        folding = load_model(args.folding_model)
+    else:
+        folding = true.copy()
+        offset = args.folding_frequency_offset_hz
+        if offset is None:
+            offset = 0.05 / max((args.end - args.start) * 86400.0, 1.0)
+        folding.parameter("spin.frequency_hz").add(offset)
+        folding.parameter("dispersion.dm").add(args.folding_dm_offset)
+    if args.template:
+        template = read_template_file(args.template)
+        template = Template(resample(template.profile, args.bins), template.components)
+    else:
+        template = builtin_template(args.bins)
+    sim = ProfileSimulation(site=args.site, start_mjd=args.start, end_mjd=args.end,
+                            count=args.count, centre_freqs_mhz=tuple(args.freq_mhz),
+                            channels=args.channels, bandwidth_mhz=args.bandwidth_mhz,
+                            subints=args.subints, duration_s=args.duration_s, bins=args.bins,
+                            snr=args.snr, seed=args.seed)
+    sets = simulate_profiles(true, folding, sim, context, template)
+    if os.path.exists(args.outdir) and not os.path.isdir(args.outdir):
+        raise InputError("exists and is not a folder", path=args.outdir)
+    os.makedirs(args.outdir, exist_ok=True)
+    write_template_file(template, os.path.join(args.outdir, "template.npz"))
+    width = len(str(len(sets)))
+    for k, ps in enumerate(sets, start=1):
+        write_profile_file(ps, os.path.join(args.outdir, f"obs-{k:0{width}d}.npz"))
+    print(f"wrote {len(sets)} profile files ({args.subints} sub-integration(s) x "
+          f"{args.channels} channel(s) x {args.bins} bins) and template.npz to {args.outdir}")
+    return 0
