@@ -40,13 +40,17 @@ def utc_to_tt(utc: SplitTime) -> SplitTime:
 def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
     """TT - UTC (s) of times converted by ``utc_to_tt``, without the rounding
     of the two-part TT (up to ~5 ps): since 1972 TAI - UTC is a whole number
-    of seconds (IERS), so TT - UTC = n + 32.184 s exactly, and a value within
-    1 ns of that is taken as exact (leap-second days and earlier dates keep
-    astropy's value)."""
+    of seconds (IERS), so TT - UTC = n + 32.184 s exactly, plus f x (+-1 s) on a
+    day with a leap second (the MJD fraction f is of the 86401-s day). A value
+    within 1 ns of that is taken as exact; earlier dates keep astropy's value."""
     hi, lo = tt.seconds_since(utc.day, utc.frac)
     raw = hi + lo
-    snapped = np.round(raw - 32.184) + 32.184
-    return np.where(np.abs(raw - snapped) < 1e-9, snapped, raw)
+    out = raw.copy()
+    for leap in (-1.0, 1.0, 0.0):
+        stretch = utc.frac * leap
+        exact = np.round(raw - 32.184 - stretch) + 32.184 + stretch
+        out = np.where(np.abs(raw - exact) < 1e-9, exact, out)
+    return out
 
 
 def tt_to_utc(tt: SplitTime) -> SplitTime:

@@ -82,6 +82,9 @@ def fit_shifts(profiles: np.ndarray, template: np.ndarray) -> ShiftFit:
     """Phase-gradient fit of each profile (rows of ``profiles``, (M, N) or (N,))
     against ``template`` (any number of bins; the common harmonics are used)."""
     profiles = np.atleast_2d(np.asarray(profiles, dtype=float))
+    if len(profiles) == 1:      # scipy.optimize.newton is vectorised for 2+ starting points
+        one = fit_shifts(np.repeat(profiles, 2, axis=0), template)
+        return ShiftFit(*(getattr(one, name)[:1] for name in ShiftFit.__dataclass_fields__))
     n = profiles.shape[-1]
     t = harmonics(template)
     p = harmonics(profiles, t.shape[-1])

@@ -94,10 +94,14 @@ def _fit_components(average: np.ndarray, sigma: float) -> tuple[np.ndarray, floa
     params = np.array([np.median(average)])
     chi2 = float(np.sum((average - params[0]) ** 2) / sigma ** 2)
     penalty = 3 * np.log(n)
+    width = max(4.0 / n, 0.02)
+    kernel = np.fft.rfft(components_profile([[0.5 / n, width, 1.0]], n))
     for _ in range(MAX_COMPONENTS):
         residual = average - _model(params, phases)
-        j = int(np.argmax(residual))
-        guess = np.r_[params, phases[j], np.log(max(4.0 / n, 0.02)), residual[j]]
+        # the next component where the residual, smoothed to a typical width, peaks
+        smoothed = np.fft.irfft(np.fft.rfft(residual) * np.conj(kernel), n=n)
+        j = int(np.argmax(smoothed))
+        guess = np.r_[params, phases[j], np.log(width), max(residual[j], 0.0)]
         lower = np.r_[-np.inf, np.tile([-np.inf, np.log(1.0 / n), 0.0], len(guess) // 3)]
         upper = np.r_[np.inf, np.tile([np.inf, np.log(0.5), np.inf], len(guess) // 3)]
         fit = scipy.optimize.least_squares(
