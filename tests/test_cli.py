@@ -38,6 +38,13 @@ def test_demo_runs_end_to_end_and_recovers_the_true_models(tmp_path):
                          capture_output=True, text=True, timeout=600)
     assert res.returncode == 0, res.stderr
     assert "demo done" in res.stdout
+    # the profile loop: profiles, template and TOAs written, the fit back on the truth
+    loop = out / "profile-loop"
+    assert (loop / "template.npz").exists() and len(list(loop.glob("obs-*.npz"))) == 24
+    assert len((loop / "profile.toas").read_text().splitlines()) == 2 + 24
+    after = [float(line.split()[-3]) for line in res.stdout.splitlines()
+             if "sigma from the truth before" in line]
+    assert len(after) == 2 and all(abs(a) < 4 for a in after)
     for name in SOURCES:
         folder = out / name
         for f in ("fitted.toml", "residuals.csv", "residuals.png", "report.json"):
