@@ -221,6 +221,82 @@ def bench_sites(n: int) -> None:
           f"{r['dp'] * 100:.2f} cm, {r['dv'] * 1000:.3f} mm/s (limits 3 cm, 1 mm/s)")
 
 
+def bench_predict(n: int, tmp: str) -> None:
+    model = os.path.join(tmp, "model.toml")
+    with open(model, "w") as fh:
+        fh.write(MODEL)
+    r = child(f"""
+        import numpy as np
+        from timingkit.pipeline.inputs import load_context, load_model
+        from timingkit.predict import PhaseContext, build_predictor, model_phase_at
+        from timingkit.numerics.timearray import SplitTime
+        m = load_model({model!r})
+        sites, eph, clocks = load_context(m)
+        ctx = PhaseContext(sites, eph, clocks)
+        t0 = time.perf_counter()
+        p = build_predictor(m, "desert-dish", "60000", "60001", 1400.0, ctx)
+        build = time.perf_counter() - t0
+        rng = np.random.default_rng(0)
+        frac = rng.uniform(0, 1, {n})
+        day = np.full({n}, 60000.0)
+        p.phase((day[:1000], frac[:1000]))                  # warm up
+        ordered = np.sort(frac)
+        t0, c0 = time.perf_counter(), time.process_time(); p.phase((day, ordered))
+        phase_s, phase_cpu = time.perf_counter() - t0, time.process_time() - c0
+        t0, c0 = time.perf_counter(), time.process_time(); whole, fraction = p.phase((day, frac))
+        random_s, random_cpu = time.perf_counter() - t0, time.process_time() - c0
+        t0 = time.perf_counter(); p.frequency_hz((day, ordered))
+        freq_s = time.perf_counter() - t0
+        check = SplitTime(day[:2000], frac[:2000], "utc")
+        mi, mf = model_phase_at(m, check, "desert-dish", 1400.0, ctx)
+        err = float(np.max(np.abs((whole[:2000] - mi) + (fraction[:2000] - mf))))
+        out = dict(build=build, segments=len(p), phase_s=phase_s, phase_cpu=phase_cpu,
+                   random_s=random_s, random_cpu=random_cpu, freq_s=freq_s, err=err)
+    """)
+    print(f"phase predictor (287 Hz MSP, 1 day at desert-dish): built in {r['build']:.2f} s "
+          f"({r['segments']} segments); {n:,} phases in {r['phase_s']:.2f} s "
+          f"({r['phase_cpu']:.2f} s CPU) in time order, {r['random_s']:.2f} s "
+          f"({r['random_cpu']:.2f} s CPU) shuffled; frequencies {r['freq_s']:.2f} s (target "
+          f"well under 1 s); largest difference from the full model at 2,000 times "
+          f"{r['err']:.1e} cycles (target 1e-9)")
+
+
+def bench_profiles(n: int, tmp: str) -> None:
+    r = child(f"""
+        import glob, os
+        import numpy as np
+        from timingkit.profiles.phase_gradient import fit_shifts, shift_profiles
+        from timingkit.profiles.templates import builtin_template
+        template = builtin_template(1024).profile
+        rng = np.random.default_rng(1)
+        clean = shift_profiles(np.broadcast_to(template, ({n}, 1024)), rng.uniform(-.5, .5, {n}))
+        profiles = 5.0 + 3.0 * clean + rng.normal(0, 1, clean.shape)
+        t0, c0 = time.perf_counter(), time.process_time(); fit_shifts(profiles, template)
+        memory, memory_cpu = time.perf_counter() - t0, time.process_time() - c0
+        from timingkit.formats.profile_file import ProfileSet, write_profile_file
+        folder = {os.path.join(tmp, "profiles")!r}
+        os.makedirs(folder, exist_ok=True)
+        for k in range(50):        # 50 files of 4 sub-integrations x 8 channels
+            write_profile_file(ProfileSet(
+                site="desert-dish", centre_freq_mhz=1400.0, dedispersion_dm=20.0,
+                channel_freq_mhz=1400.0 + np.arange(8) * 10.0,
+                reference_mjd=[f"60000.{{k:02d}}{{j}}" for j in range(4)],
+                folding_frequency_hz=np.full(4, 287.0),
+                data=profiles[k * 32:(k + 1) * 32].reshape(4, 8, 1024)),
+                os.path.join(folder, f"obs-{{k:02d}}.npz"))
+        from timingkit.cli.main import main
+        t0 = time.perf_counter()
+        main(["profile-toas", *sorted(glob.glob(folder + "/*.npz")), "--template", "auto",
+              "--per-channel", "--per-subint", "-o", os.path.join(folder, "out.toas")])
+        files = time.perf_counter() - t0
+        out = dict(memory=memory, memory_cpu=memory_cpu, files=files)
+    """)
+    print(f"profile TOAs, 1,024-bin profiles: phase-gradient fit of {n:,} in memory "
+          f"{n / r['memory']:,.0f} profiles/s ({n / r['memory_cpu']:,.0f} per CPU second); "
+          "50 files x 32 profiles to a TOA table with an "
+          f"auto template (command, incl. start-up) {1600 / r['files']:,.0f} profiles/s")
+
+
 def bench_helpers(names) -> None:
     for module, func in names:
         try:
@@ -231,7 +307,8 @@ def bench_helpers(names) -> None:
         getattr(mod, func)()
 
 
-SECTIONS = ["barycentre", "read", "fit", "sites", "binary", "glitches", "noise", "batch"]
+SECTIONS = ["barycentre", "read", "fit", "sites", "predict", "profiles", "binary", "glitches",
+            "noise", "batch"]
 
 
 def main() -> int:
@@ -250,6 +327,10 @@ def main() -> int:
             bench_sites(20_000 if quick else 200_000)
         if "fit" in wanted:
             bench_fit([10_000, 100_000] if quick else [100_000, 1_000_000], tmp)
+        if "predict" in wanted:
+            bench_predict(100_000 if quick else 1_000_000, tmp)
+        if "profiles" in wanted:
+            bench_profiles(2_000 if quick else 10_000, tmp)
         extra = {"binary": ("bench_binary", "bench_binary"),
                  "glitches": ("bench_glitches", "bench_glitches"),
                  "noise": ("bench_noise", "bench_noise"),

@@ -22,7 +22,7 @@ from timingkit.numerics.timearray import SplitTime
 # A time may lie this far outside its segment (days, ~0.9 ns) and still count
 # as inside: the float look-up cannot place times closer to an edge than that.
 EDGE_TOLERANCE_DAYS = 1e-14
-CHUNK = 65536                 # times evaluated together (bounds the gathered coefficients)
+CHUNK = 16384                 # times evaluated together
 
 
 def split_mjd(mjd) -> tuple[np.ndarray, np.ndarray]:
@@ -109,16 +109,20 @@ class PhasePredictor:
     def locate(self, mjd):
         """(segment index, x hi, x lo) of each time; InputError outside."""
         day, frac = split_mjd(mjd)
+        idx, x_hi, x_lo, outside = self._locate_parts(day, frac)
+        if np.any(outside):
+            self._outside_error(day, frac, outside, mjd)
+        return idx, x_hi, x_lo
+
+    def _locate_parts(self, day, frac):
         d = self.data
         idx = np.searchsorted(self._start_mjd, day + frac, side="right") - 1
-        idx = np.clip(idx, 0, len(d) - 1)
+        np.clip(idx, 0, len(d) - 1, out=idx)
         x_hi, x_lo, offset = segment_x(day, frac, d.start_day[idx], d.start_frac[idx],
                                        self.two_over_length[idx])
         outside = ((offset < -EDGE_TOLERANCE_DAYS)
                    | (offset > self.length_days[idx] + EDGE_TOLERANCE_DAYS))
-        if np.any(outside):
-            self._outside_error(day, frac, outside, mjd)
-        return idx, x_hi, x_lo
+        return idx, x_hi, x_lo, outside
 
     def _outside_error(self, day, frac, outside, given) -> None:
         i = int(np.flatnonzero(outside)[0])
@@ -140,33 +144,51 @@ class PhasePredictor:
         return bool(np.all((d.start_day[1:] == d.end_day[:-1])
                            & (d.start_frac[1:] == d.end_frac[:-1])))
 
+    def _by_segment(self, idx: np.ndarray, x: np.ndarray, coefficients: np.ndarray) -> np.ndarray:
+        """Chebyshev series of each time's own segment, one numpy chebval per
+        segment present (times sorted by segment first when they are not)."""
+        order = None if np.all(idx[1:] >= idx[:-1]) else np.argsort(idx, kind="stable")
+        seg = idx if order is None else idx[order]
+        xs = x if order is None else x[order]
+        edges = np.r_[0, np.flatnonzero(seg[1:] != seg[:-1]) + 1, len(seg)]
+        out = np.empty(len(xs))
+        for a, b in zip(edges[:-1], edges[1:]):
+            out[a:b] = chebyshev.chebval(xs[a:b], coefficients[seg[a]])
+        if order is not None:
+            out[order] = out.copy()
+        return out
+
+    def _chunks(self, mjd):
+        """(slice, segment index, x hi, x lo) per block of CHUNK times: small
+        blocks keep numpy's temporaries in cache (several times faster)."""
+        day, frac = split_mjd(mjd)
+        for start in range(0, len(day), CHUNK):
+            part = slice(start, start + CHUNK)
+            idx, x_hi, x_lo, outside = self._locate_parts(day[part], frac[part])
+            if np.any(outside):
+                full = np.zeros(len(day), dtype=bool)
+                full[part] = outside
+                self._outside_error(day, frac, full, mjd)
+            yield part, idx, x_hi, x_lo
+
     def phase(self, mjd) -> tuple[np.ndarray, np.ndarray]:
         """Pulse phase at each time: (integer cycles, int64; fraction in [0, 1))."""
-        idx, x_hi, x_lo = self.locate(mjd)
-        whole = np.empty(len(idx), dtype=np.int64)
-        fraction = np.empty(len(idx))
-        for s in range(0, len(idx), CHUNK):
-            i, xh, xl = idx[s:s + CHUNK], x_hi[s:s + CHUNK], x_lo[s:s + CHUNK]
-            hi, lo = ddmath.dd_mul_d(xh, xl, self._linear[i])
-            hi, lo = ddmath.dd_add_d(hi, lo, self.data.phase_fraction[i])
-            hi, lo = ddmath.dd_add_d(hi, lo, chebyshev.chebval(xh, self._others[i].T,
-                                                               tensor=False))
-            n = np.floor(hi)
-            f = (hi - n) + lo              # hi - n is exact
-            carry = np.floor(f)
-            whole[s:s + CHUNK] = self.data.phase_integer[i] + (n + carry).astype(np.int64)
-            fraction[s:s + CHUNK] = f - carry
-        return whole, fraction
+        whole_out, fraction_out = [], []
+        for _, idx, x_hi, x_lo in self._chunks(mjd):
+            hi, lo = ddmath.dd_mul_d(x_hi, x_lo, self._linear[idx])
+            hi, lo = ddmath.dd_add_d(hi, lo, self.data.phase_fraction[idx])
+            hi, lo = ddmath.dd_add_d(hi, lo, self._by_segment(idx, x_hi, self._others))
+            whole = np.floor(hi)
+            fraction = (hi - whole) + lo              # hi - whole is exact
+            carry = np.floor(fraction)
+            whole_out.append(self.data.phase_integer[idx] + (whole + carry).astype(np.int64))
+            fraction_out.append(fraction - carry)
+        return np.concatenate(whole_out), np.concatenate(fraction_out)
 
     def frequency_hz(self, mjd) -> np.ndarray:
         """Apparent spin frequency (Hz) at each time: the phase rate at the site."""
-        idx, x_hi, _ = self.locate(mjd)
-        out = np.empty(len(idx))
-        for s in range(0, len(idx), CHUNK):
-            i = idx[s:s + CHUNK]
-            rate = chebyshev.chebval(x_hi[s:s + CHUNK], self._derivative[i].T, tensor=False)
-            out[s:s + CHUNK] = rate * self._per_second[i]
-        return out
+        return np.concatenate([self._by_segment(idx, x_hi, self._derivative) * self._per_second[idx]
+                               for _, idx, x_hi, _ in self._chunks(mjd)])
 
     def segment_table(self) -> list[dict]:
         """One row per segment: edges, minutes, degree, apparent frequency and
