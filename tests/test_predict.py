@@ -27,35 +27,25 @@ pm_dec_mas_per_yr = -3.3
 parallax_mas = 1.4
 epoch_mjd = "60000"
 """
-MSP_700 = 'name = "invented-700hz"\n' + POSITION + """
-[spin]
-epoch_mjd = "60000"
-frequency_hz = "700.1234567890123456"
-frequency_derivatives = ["-2.2e-15"]
-[dispersion]
-dm = 31.2
-"""
-YOUNG_GLITCH = 'name = "invented-young"\n' + POSITION + """
-[spin]
-epoch_mjd = "60000"
-frequency_hz = "11.34567890123456"
-frequency_derivatives = ["-2.1e-11", "3e-22"]
-[dispersion]
-dm = 140.5
+
+
+def _source(name, frequency_hz, derivatives, dm, extra=""):
+    """An invented source's model text: position, spin, dispersion, ``extra``."""
+    return (f'name = "{name}"\n{POSITION}\n[spin]\nepoch_mjd = "60000"\n'
+            f'frequency_hz = "{frequency_hz}"\nfrequency_derivatives = {derivatives}\n'
+            f"[dispersion]\ndm = {dm}\n{extra}")
+
+
+MSP_700 = _source("invented-700hz", "700.1234567890123456", '["-2.2e-15"]', 31.2)
+YOUNG_GLITCH = _source("invented-young", "11.34567890123456", '["-2.1e-11", "3e-22"]', 140.5, """
 [[glitch]]
 epoch_mjd = "60000.61"
 frequency_step_hz = 2.4e-6
 frequency_derivative_step = -1.2e-13
 decaying_frequency_step_hz = 1.5e-7
 decay_time_days = 3.0
-"""
-BINARY_2H = 'name = "invented-binary"\n' + POSITION + """
-[spin]
-epoch_mjd = "60000"
-frequency_hz = "245.678901234567"
-frequency_derivatives = ["-8e-16"]
-[dispersion]
-dm = 12.3
+""")
+BINARY_2H = _source("invented-binary", "245.678901234567", '["-8e-16"]', 12.3, """
 [binary]
 model = "low_eccentricity"
 orbital_period_days = "0.0833333"
@@ -65,7 +55,7 @@ e_cos_omega = -1e-5
 ascending_node_epoch_mjd = "60000.1"
 companion_mass_msun = 0.2
 sin_inclination = 0.9
-"""
+""")
 
 
 @pytest.fixture(scope="module")
@@ -125,6 +115,7 @@ def test_700hz_precision_needs_the_split_reference_phase(context):
     # cycles; the integer + fraction + relative series keeps 1e-9.
     model = TimingModel.from_text(MSP_700.replace('epoch_mjd = "60000"\nfrequency_hz',
                                                   'epoch_mjd = "58000"\nfrequency_hz'))
+    assert model.spin.epoch_day == 58000
     predictor = build_predictor(model, "desert-dish", "60000.3", "60000.6", 1400.0, context)
     times = _random_times(60000.3, 60000.6, 1000, seed=9)
     n, f = predictor.phase(times)

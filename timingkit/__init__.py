@@ -1,8 +1,9 @@
 """timingkit: pulsar timing from arrival times to a fitted timing model.
 
 The package is laid out by stage, each folder importing only from the ones
-before it: numerics, formats, geometry, model, fit, glitch, physics,
-outputs, pipeline, batch, cli (DEVELOPERS.md has the module map). The most
+before it: numerics, formats, geometry, model, predict, fit, glitch,
+profiles, physics, outputs, pipeline, batch, cli (DEVELOPERS.md has the
+module map). The most
 used entry points::
 
     from timingkit.pipeline import fit_files, load_inputs

@@ -1,5 +1,5 @@
 """The ``timingkit`` command line: ``main`` (in :mod:`timingkit.cli.main`) and one module per
-subcommand group (fit, derive, simulate, glitches, batch, convert, demo)."""
+subcommand group (fit, derive, simulate, glitches, batch, convert, predict, profiles, demo)."""
 
 
 def main(argv=None) -> int:

@@ -7,6 +7,8 @@
 - ``model_file``: the TOML model file (exact decimals, key validation, atomic writes).
 - ``site_file``: :class:`Site` records and site files; the built-in ``geocentre`` and ``ssb``.
 - ``clock_table``: clock-correction tables.
+- ``predictor_file``: phase-predictor files (JSON Chebyshev segments).
+- ``profile_file``: folded-profile and template files (.npz).
 """
 
 from timingkit import lazy_exports
@@ -15,7 +17,9 @@ EXPORTS = {
     "InputError": "errors", "FitError": "errors", "ToaTable": "toa_table", "read_toa_table":
     "toa_reader", "write_toa_table": "toa_writer", "read_model_document": "model_file",
     "Site": "site_file", "load_site_file": "site_file", "ClockTable": "clock_table",
-    "read_clock_table": "clock_table",
+    "read_clock_table": "clock_table", "read_predictor_file": "predictor_file",
+    "write_predictor_file": "predictor_file", "ProfileSet": "profile_file",
+    "read_profile_file": "profile_file", "write_profile_file": "profile_file",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

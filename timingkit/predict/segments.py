@@ -24,7 +24,7 @@ from timingkit.formats.mjd_text import format_mjd, parse_mjd_strings
 from timingkit.geometry import timescales
 from timingkit.model.glitch import model_glitches
 from timingkit.model.timing_model import TimingModel
-from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
+from timingkit.numerics.timearray import SplitTime
 from timingkit.predict.model_phase import PhaseContext, evaluate_at
 
 GLITCH_NEWTON_STEPS = 5        # site arrival of a glitch epoch to < 1e-9 s
@@ -160,4 +160,4 @@ def seconds_per_day_of(segments: Segments) -> np.ndarray:
     return np.array([lengths[int(d)] for d in segments.start_day])
 
 
-__all__ = ["Segments", "cut_points", "plan_segments", "seconds_per_day_of", "SECONDS_PER_DAY"]
+__all__ = ["Segments", "cut_points", "plan_segments", "seconds_per_day_of"]
