@@ -161,6 +161,12 @@ def test_leap_second_day(context):
     edge = ["57753.999999", "57754.000001"]
     f = predictor.frequency_hz(edge)
     assert abs(f[1] - f[0]) < 1e-9 * f[0]
+    # at the geocentre times are TT: no leap seconds there
+    geocentric = build_predictor(model, "geocentre", "57753.8", "57754.2", 1400.0, context)
+    assert set(geocentric.data.seconds_per_day.tolist()) == {86400.0}
+    assert geocentric.data.time_scale.startswith("TT")
+    diff = _difference(geocentric, model, times, "geocentre", 1400.0, context)
+    assert np.max(np.abs(diff)) < TARGET_CYCLES
 
 
 def test_fixed_segments_and_degree(context):

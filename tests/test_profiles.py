@@ -204,3 +204,7 @@ def test_profile_commands(tmp_path, capsys):
     assert main(["profile-toas", files[0], "--template", str(sim / "template.npz"),
                  "--min-snr", "1000", "-o", str(tmp_path / "x.toas")]) == 2
     assert "no profile reaches" in capsys.readouterr().err
+    assert main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
+                 "--start", "60000", "--end", "60010", "--count", "2", "--freq-mhz", "350",
+                 "--bandwidth-mhz", "800", "-o", str(tmp_path / "bad")]) == 2
+    assert "bandwidth" in capsys.readouterr().err and not (tmp_path / "bad").exists()

@@ -70,6 +70,7 @@ class PredictorData:
     created_by: str = ""
     model_file: str = ""
     warnings: list[str] = field(default_factory=list)
+    time_scale: str = TIME_SCALE
     path: str | None = None
 
     def __post_init__(self):
@@ -99,7 +100,7 @@ def predictor_text(data: PredictorData) -> str:
     """The JSON text: the header keys indented, one line per segment."""
     freq = "inf" if math.isinf(data.freq_mhz) else float(data.freq_mhz)
     header = {"format": FORMAT_NAME, "version": FORMAT_VERSION, "source": data.source,
-              "site": data.site, "freq_mhz": freq, "time_scale": TIME_SCALE,
+              "site": data.site, "freq_mhz": freq, "time_scale": data.time_scale,
               "accuracy_cycles": _or_null(data.accuracy_cycles),
               "estimated_max_error_cycles": _or_null(data.estimated_max_error_cycles),
               "created_by": data.created_by, "model_file": data.model_file,
@@ -179,7 +180,8 @@ def parse_predictor_text(text: str, path: str | None = None) -> PredictorData:
         accuracy_cycles=_number(doc, "accuracy_cycles", path),
         estimated_max_error_cycles=_number(doc, "estimated_max_error_cycles", path),
         created_by=str(doc.get("created_by", "")), model_file=str(doc.get("model_file", "")),
-        warnings=[str(w) for w in doc.get("warnings", [])], path=path)
+        warnings=[str(w) for w in doc.get("warnings", [])],
+        time_scale=str(doc.get("time_scale", TIME_SCALE)), path=path)
     _check_order(data, path, text)
     return data
 

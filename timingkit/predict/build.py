@@ -33,6 +33,8 @@ from timingkit.predict.segments import (Segments, cut_points, plan_segments,
                                         seconds_per_day_of)
 
 DEFAULT_ACCURACY_CYCLES = 1e-9
+OTHER_TIME_SCALES = {"geocentre": "TT (the TOA-table convention for site geocentre)",
+                     "ssb": "TDB (the TOA-table convention for site ssb)"}
 AUTO_FIT_DEGREE = 16            # degree fitted when the degree is chosen automatically
 MAX_DEGREE = 30
 MIN_SEGMENT_S = 10.0
@@ -163,7 +165,8 @@ def build_predictor(model: TimingModel, site: str, start_mjd: str, end_mjd: str,
     start_text, end_text = str(start_mjd).strip(), str(end_mjd).strip()
     start, end = _check_request(start_text, end_text, freq_mhz, segment_minutes, degree,
                                 accuracy_cycles)
-    site_name = context.sites.lookup(site).name
+    site_record = context.sites.lookup(site)
+    site_name = site_record.name
     warnings: list[str] = []
     cuts = cut_points(model, site_name, freq_mhz, start, end, context)
     if segment_minutes is not None:
@@ -183,10 +186,14 @@ def build_predictor(model: TimingModel, site: str, start_mjd: str, end_mjd: str,
         pending = pending.select(~finished).bisected()
     fits = _concatenate(done)
     error = float(np.max(fits.measured + fits.rounding))
+    # times at the geocentre are TT and at the barycentre TDB: no leap seconds
+    uniform = site_record.kind in ("geocentre", "ssb")
     data = _data(fits.segments, fits.phase_integer, fits.phase_fraction,
                  fits.coefficients[:, :int(fits.degrees.max()) + 1], fits.degrees,
+                 seconds_per_day=np.full(len(fits.segments), SECONDS_PER_DAY) if uniform else None,
                  source=model.name, site=site_name, freq_mhz=float(freq_mhz),
                  accuracy_cycles=float(accuracy_cycles), estimated_max_error_cycles=error,
                  created_by=f"timingkit {__version__}", model_file=str(model.path or ""),
-                 warnings=warnings)
+                 warnings=warnings, **({"time_scale": OTHER_TIME_SCALES[site_record.kind]}
+                                       if uniform else {}))
     return PhasePredictor(data)
