@@ -241,14 +241,14 @@ def bench_site_posvel(n: int = 200_000, layout: str = "sessions", seed: int = 0)
             t_tt = t_utc.tt
             utc = SplitTime(day, mjd - day, "utc")
             tt = SplitTime(t_tt.jd1 - 2400000.5, t_tt.jd2, "tt").normalized()
-            t0 = time.process_time()
+            start = time.process_time()
             pos, vel = site_gcrs_posvel(site, utc, tt)
-            ours = time.process_time() - t0
+            ours = time.process_time() - start
             loc = EarthLocation.from_geocentric(*xyz, unit=u.m)
             t_fresh = Time(day, mjd - day, format="mjd", scale="utc")
-            t0 = time.process_time()
+            start = time.process_time()
             apos, avel = loc.get_gcrs_posvel(t_fresh)
-            theirs = time.process_time() - t0
+            theirs = time.process_time() - start
     finally:
         iers.conf.auto_max_age = old_age
     dpos = np.linalg.norm(pos - apos.xyz.to_value(u.m).T, axis=1).max()
