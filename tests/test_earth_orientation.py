@@ -217,3 +217,29 @@ def test_disk_cache_reproduces_the_bundled_table(tmp_path, monkeypatch):
         assert cached.predicted_from_mjd == fresh.predicted_from_mjd
     finally:
         eo.eop_table.cache_clear()
+
+
+def test_one_interpolation_of_the_table_per_data_set(sites, ephemeris, monkeypatch):
+    # prepare_observations needs UT1-UTC for TDB and (UT1-UTC, pole) for the
+    # site positions: one look-up serves both, and the positions are those of
+    # a separate look-up.
+    from timingkit.formats.toa_table import ToaTable
+    from timingkit.geometry.observations import prepare_observations
+    from timingkit.geometry.sites import sites_gcrs_posvel
+    mjd = np.linspace(58000.0, 58300.0, 30)
+    day = np.floor(mjd)
+    names = np.array(["desert-dish", "lake-array", "geocentre"] * 10)
+    toas = ToaTable.from_arrays(day, mjd - day, np.ones(30), np.full(30, 1400.0), names)
+    calls = []
+    original = eo._interp_rows
+    monkeypatch.setattr(eo, "_interp_rows", lambda *a: calls.append(1) or original(*a))
+    obs = prepare_observations(toas, sites, ephemeris)
+    assert len(calls) == 1
+    earth = names != "geocentre"
+    unique, index = sites.resolve_many(names[earth])
+    utc = SplitTime(day[earth], (mjd - day)[earth], "utc")
+    from timingkit.geometry.timescales import utc_to_tt
+    pos, _ = sites_gcrs_posvel(unique, index, utc, utc_to_tt(utc))
+    earth_pos, _ = ephemeris.posvel("earth", obs.tdb[earth])
+    # (1e-4 m: the rounding of 1.5e11-m barycentric vectors)
+    assert np.max(np.abs(obs.observer_ssb_m[earth] - earth_pos - pos)) < 1e-4

@@ -161,3 +161,20 @@ def test_starting_model_too_far_off_is_reported(ephemeris):
     bad = _perturbed(truth, **{"spin.frequency_hz": 3e-6})   # ~500 turns over the span
     with pytest.raises(FitError, match="cannot number the pulses"):
         fit(bad, obs)
+
+
+def test_the_prefit_evaluation_serves_the_first_iteration(sites, ephemeris, monkeypatch):
+    # One evaluation for the pre-fit residuals and the first linearisation,
+    # one per further iteration, one for the final residuals: a fit that
+    # evaluated the pre-fit model twice would count one more.
+    truth = _calibration_model()
+    toas = simulate_toas(truth, 58000, 58400, 60, 1.0, sites, ephemeris,
+                         site_names=["desert-dish"], freqs_mhz=[820, 1400], seed=4)
+    obs = prepare_observations(toas, sites, ephemeris)
+    calls = []
+    original = TimingModel.evaluate
+    monkeypatch.setattr(TimingModel, "evaluate",
+                        lambda self, *a, **k: calls.append(1) or original(self, *a, **k))
+    res = fit(_perturbed(truth, **{"spin.frequency_hz": 1e-9}), obs)
+    assert res.iterations >= 2
+    assert len(calls) == res.iterations + 1

