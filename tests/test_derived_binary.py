@@ -49,22 +49,22 @@ def test_hulse_taylor_mass_function():
     assert f["unit"] == "M_sun" and f["uncertainty"] is None
     # Same from Kepler's third law with astropy's GM_sun, written out:
     # f = (2 pi / Pb)^2 (a sin i)^3 / G M_sun.
-    pb = HT_ORBITAL_PERIOD_DAYS * u.day
+    period = HT_ORBITAL_PERIOD_DAYS * u.day
     a_sini = HT_PROJECTED_AXIS_LT_S * u.s * const.c
-    kepler = ((2 * np.pi / pb) ** 2 * a_sini ** 3 / const.GM_sun).decompose()
+    kepler = ((2 * np.pi / period) ** 2 * a_sini ** 3 / const.GM_sun).decompose()
     assert f["value"] == approx(float(kepler), rel=1e-9)
 
 
 def test_mass_function_uncertainty_finite_difference():
-    x0, pb0 = HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS
+    x0, period0 = HT_PROJECTED_AXIS_LT_S, HT_ORBITAL_PERIOD_DAYS
     sx, sp = 1e-4, 1e-6
-    f = mass_function(x0, pb0, projected_semi_major_axis_err_lt_s=sx, orbital_period_err_days=sp)
+    f = mass_function(x0, period0, projected_semi_major_axis_err_lt_s=sx, orbital_period_err_days=sp)
 
-    def fm(x, pb):
-        return mass_function(x, pb)["value"]
+    def fm(x, period):
+        return mass_function(x, period)["value"]
     h = 1e-7
-    dfx = (fm(x0 + h, pb0) - fm(x0 - h, pb0)) / (2 * h)
-    dfp = (fm(x0, pb0 + h) - fm(x0, pb0 - h)) / (2 * h)
+    dfx = (fm(x0 + h, period0) - fm(x0 - h, period0)) / (2 * h)
+    dfp = (fm(x0, period0 + h) - fm(x0, period0 - h)) / (2 * h)
     assert f["uncertainty"] == approx(math.hypot(dfx * sx, dfp * sp), rel=1e-5)
 
 
@@ -92,14 +92,14 @@ def test_double_pulsar_companion_mass_from_shapiro_shape():
 
 
 def test_companion_mass_uncertainty_against_finite_differences():
-    f0, i0, mp0 = 0.1322, 50.0, 1.44
+    f_msun, i0, mp0 = 0.1322, 50.0, 1.44
     sf, si, sm = 1e-4, 0.5, 0.01
-    q = companion_mass(f0, inclination_deg=i0, pulsar_mass_msun=mp0, mass_function_err_msun=sf,
+    q = companion_mass(f_msun, inclination_deg=i0, pulsar_mass_msun=mp0, mass_function_err_msun=sf,
                        inclination_err_deg=si, pulsar_mass_err_msun=sm)
 
-    def m(f=f0, i=i0, mp=mp0):
+    def m(f=f_msun, i=i0, mp=mp0):
         return companion_mass(f, inclination_deg=i, pulsar_mass_msun=mp)["value"]
-    grads = [(m(f=f0 + 1e-7) - m(f=f0 - 1e-7)) / 2e-7 * sf,
+    grads = [(m(f=f_msun + 1e-7) - m(f=f_msun - 1e-7)) / 2e-7 * sf,
              (m(i=i0 + 1e-5) - m(i=i0 - 1e-5)) / 2e-5 * si,
              (m(mp=mp0 + 1e-6) - m(mp=mp0 - 1e-6)) / 2e-6 * sm]
     assert q["uncertainty"] == approx(math.sqrt(sum(g * g for g in grads)), rel=1e-5)
@@ -157,14 +157,14 @@ def test_post_keplerian_uncertainties_against_finite_differences():
                       (value(key, mp, mc + h) - value(key, mp, mc - h)) / (2 * h)])
         assert q["uncertainty"] == approx(math.sqrt(g @ cov @ g), rel=1e-4, abs=1e-30), key
     # Uncertainty of the total mass from omega_dot (finite differences, Pb and e).
-    w0, pb0, e0 = HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY
-    m = total_mass_from_periastron_advance(w0, pb0, e0, periastron_advance_err_deg_per_yr=7e-6,
+    w0, period0, e0 = HT_PERIASTRON_ADVANCE_DEG_YR, HT_ORBITAL_PERIOD_DAYS, HT_ECCENTRICITY
+    m = total_mass_from_periastron_advance(w0, period0, e0, periastron_advance_err_deg_per_yr=7e-6,
                                            eccentricity_err=3e-7, orbital_period_err_days=1e-8)
 
-    def total(w=w0, pb=pb0, e=e0):
-        return total_mass_from_periastron_advance(w, pb, e)["value"]
+    def total(w=w0, period=period0, e=e0):
+        return total_mass_from_periastron_advance(w, period, e)["value"]
     g = [(total(w=w0 + 1e-6) - total(w=w0 - 1e-6)) / 2e-6 * 7e-6,
-         (total(pb=pb0 + 1e-8) - total(pb=pb0 - 1e-8)) / 2e-8 * 1e-8,
+         (total(period=period0 + 1e-8) - total(period=period0 - 1e-8)) / 2e-8 * 1e-8,
          (total(e=e0 + 1e-7) - total(e=e0 - 1e-7)) / 2e-7 * 3e-7]
     assert m["uncertainty"] == approx(math.sqrt(sum(x * x for x in g)), rel=1e-4)
 

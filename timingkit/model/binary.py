@@ -305,9 +305,9 @@ def keplerian_section(low_e: dict, model: str = "keplerian") -> dict:
     for key in _COMMON:
         if key in low_e:
             out[key] = low_e[key]
+    periastron_epoch = ascending_node_epoch + period_days * Decimal(repr(w / (2 * math.pi)))
     out.update({"eccentricity": e, "periastron_longitude_deg": math.degrees(w),
-                "periastron_epoch_mjd": str(ascending_node_epoch
-                                                 + period_days * Decimal(repr(w / (2 * math.pi))))})
+                "periastron_epoch_mjd": str(periastron_epoch)})
     if model != "keplerian":
         for key in (*_SHAPIRO_RANGE, *_SHAPIRO_MASS):
             if key in low_e:
