@@ -34,28 +34,8 @@ ROOT = Path(__file__).resolve().parents[1]
 SITE_FILE = ROOT / "timingkit" / "sample_data" / "sites.toml"
 JULIAN_YEAR_S = 365.25 * 86400.0
 
-MODEL_TEMPLATE = """name = "{name}"
-
-[position]
-ra = "{ra_h:02d}h{ra_m:02d}m{ra_s:07.4f}s"
-dec = "{dec_sign}{dec_d:02d}d{dec_m:02d}m{dec_s:06.3f}s"
-epoch_mjd = "59000"
-
-[spin]
-epoch_mjd = "59000"
-frequency_hz = "{f0}"
-frequency_derivatives = ["{f1}"]
-
-[dispersion]
-dm = {dm}
-epoch_mjd = "59000"
-
-[fit]
-free = ["spin.frequency_hz", "spin.frequency_derivatives.0", "dispersion.dm"]
-
-[settings]
-sites = "sites.toml"
-"""
+sys.path.insert(0, str(ROOT / "scripts"))
+from sample_models import model_text  # noqa: E402
 
 
 def simulated_spin(index: int) -> dict:
@@ -66,18 +46,21 @@ def simulated_spin(index: int) -> dict:
     period_s = 10 ** (-2.7 + 3.0 * golden)
     age_yr = 10 ** (4.0 + 5.0 * ((index * 0.41421356237) % 1.0))
     period_derivative = period_s / (2.0 * age_yr * JULIAN_YEAR_S)
-    f0 = 1.0 / period_s
-    f1 = -period_derivative / period_s ** 2
-    return {"f0": f0, "f1": f1, "dm": round(10.0 + 7.3 * index % 200, 3),
-            "ra_h": index % 24, "ra_m": (7 * index) % 60, "ra_s": (13.1 * index) % 60,
-            "dec_sign": "+" if index % 2 else "-", "dec_d": (11 * index) % 60,
-            "dec_m": (17 * index) % 60, "dec_s": (19.7 * index) % 60}
+    ra = f"{index % 24:02d}h{(7 * index) % 60:02d}m{(13.1 * index) % 60:07.4f}s"
+    dec = (f"{'+' if index % 2 else '-'}{(11 * index) % 60:02d}d{(17 * index) % 60:02d}m"
+           f"{(19.7 * index) % 60:06.3f}s")
+    return {"frequency_hz": 1.0 / period_s,
+            "frequency_derivative": -period_derivative / period_s ** 2,
+            "dm": round(10.0 + 7.3 * index % 200, 3),
+            "position": f'ra = "{ra}"\ndec = "{dec}"'}
 
 
-def _write_model(path: Path, name: str, spin: dict, f0_offset_hz=0.0, f1_offset=0.0, dm_offset=0.0):
-    values = dict(spin, name=name, f0=repr(spin["f0"] + f0_offset_hz),
-                  f1=repr(spin["f1"] + f1_offset), dm=repr(spin["dm"] + dm_offset))
-    path.write_text(MODEL_TEMPLATE.format(**values), encoding="utf-8")
+def _write_model(path: Path, name: str, spin: dict, frequency_offset_hz=0.0,
+                 derivative_offset=0.0, dm_offset=0.0):
+    text = model_text(name, spin["position"], repr(spin["frequency_hz"] + frequency_offset_hz),
+                      [repr(spin["frequency_derivative"] + derivative_offset)],
+                      repr(spin["dm"] + dm_offset))
+    path.write_text(text, encoding="utf-8")
 
 
 def _simulate_one(task) -> str:
@@ -100,8 +83,8 @@ def _simulate_one(task) -> str:
     write_toa_table(toas, folder / "obs.toas")
     # starting model slightly off the truth, so the fit has work to do but stays
     # phase-connected (offsets << 1 cycle over the 400-day span)
-    _write_model(folder / "model.toml", name, spin, f0_offset_hz=2e-9, f1_offset=-2e-18,
-                 dm_offset=0.01)
+    _write_model(folder / "model.toml", name, spin, frequency_offset_hz=2e-9,
+                 derivative_offset=-2e-18, dm_offset=0.01)
     return name
 
 

@@ -19,7 +19,7 @@ iers.conf.auto_max_age = None   # the bundled table, as offline users have it
 iers.conf.iers_degraded_accuracy = "warn"
 
 C = 299792458.0
-DIRECTIONS = [("05h12m33.4567s", "+21d02m11.234s"), ("17h53m20.12s", "-07d41m12.3s"),
+DIRECTIONS = [("11h53m40.0s", "+00d47m12.0s"), ("13h21m09.47s", "+41d06m38.2s"),
               ("00h01m02.0s", "+89d10m00.0s"), ("12h30m00.0s", "-60d00m00.0s")]
 
 

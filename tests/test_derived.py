@@ -30,6 +30,11 @@ YOUNG_1993 = (30.2254370, [-3.862251e-10, 1.2426e-20])
 # The same pulsar, catalogue-style ephemeris whose nu_ddot carries the 45-yr mean
 # braking index 2.342(1) of Lyne et al. 2015 (MNRAS 446, 857), from memory.
 YOUNG_LONG = (29.946923, [-3.77535e-10, 1.1147e-20])
+# The published pulsars above serve only the catalogue checks. Identities,
+# error propagation and cautions use the invented young pulsar of the demo
+# (sample_data/demo-young.true.toml) and its invented slow pulsar.
+INVENTED_YOUNG = (18.473162904, [-2.2068e-11, 6.2e-23])
+INVENTED_SLOW = (0.58743018265, [-1.0873e-15])
 
 SPIN_KEYS = ["period_s", "period_derivative", "characteristic_age_yr",
              "surface_dipole_field_gauss", "surface_dipole_field_tesla",
@@ -37,9 +42,9 @@ SPIN_KEYS = ["period_s", "period_derivative", "characteristic_age_yr",
 
 
 def test_keys_order_and_shape_follow_design():
-    d = derive_spin(VELA_NU_HZ, [VELA_NUDOT])
+    d = derive_spin(*INVENTED_SLOW)
     assert list(d) == SPIN_KEYS          # DESIGN.md section 5, no nu_ddot
-    d2 = derive_spin(*YOUNG_1993)
+    d2 = derive_spin(*INVENTED_YOUNG)
     assert list(d2) == SPIN_KEYS + ["braking_index"]
     for q in d2.values():
         assert set(q) >= {"value", "uncertainty", "unit", "assumptions"}
@@ -63,7 +68,7 @@ def test_vela_against_catalogue():
 
 def test_young_remnant_pulsar_against_catalogue():
     d = derive_spin(*YOUNG_LONG)
-    # ATNF catalogue for this pulsar, from memory: P = 0.0333924 s,
+    # ATNF catalogue (Manchester et al. 2005) for this pulsar, from memory: P = 0.0333924 s,
     # Pdot = 4.2097e-13, age 1.26 kyr, B_s 3.79e12 G, Edot 4.5e38 erg/s.
     assert d["period_s"]["value"] == approx(0.0333924, rel=1e-6)
     assert d["period_derivative"]["value"] == approx(4.2097e-13, rel=1e-4)
@@ -95,8 +100,8 @@ def test_surface_field_constant_from_first_principles():
 def test_light_cylinder_field_from_geometry():
     # B_lc = B_s (R / R_lc)^3, R_lc = c P / (2 pi), R = 10 km
     # (Lorimer & Kramer 2005 sect. 3.x, from memory); c from astropy.
-    for nu, nudot in [(VELA_NU_HZ, VELA_NUDOT), YOUNG_LONG[:1] + (YOUNG_LONG[1][0],)]:
-        d = derive_spin(nu, [nudot])
+    for nu, derivatives in (INVENTED_YOUNG, INVENTED_SLOW):
+        d = derive_spin(nu, derivatives[:1])
         p = d["period_s"]["value"]
         r_lc_cm = (const.c * p * u.s / (2 * math.pi)).to_value(u.cm)
         expect = d["surface_dipole_field_gauss"]["value"] * (1e6 / r_lc_cm) ** 3
@@ -111,7 +116,7 @@ def test_light_cylinder_field_from_geometry():
 def test_edot_against_rotational_energy_loss():
     # Edot = -d/dt (I Omega^2 / 2) = -4 pi^2 I nu nu_dot (Lorimer & Kramer 2005
     # eq. 3.5, from memory), written in terms of P, Pdot: 4 pi^2 I Pdot / P^3.
-    d = derive_spin(VELA_NU_HZ, [VELA_NUDOT])
+    d = derive_spin(INVENTED_YOUNG[0], INVENTED_YOUNG[1][:1])
     p, pdot = d["period_s"]["value"], d["period_derivative"]["value"]
     assert d["spin_down_luminosity_erg_per_s"]["value"] == approx(
         4 * math.pi ** 2 * 1e45 * pdot / p ** 3, rel=1e-12)
@@ -126,8 +131,8 @@ def _covariance(sig, corr):
 
 # Deliberately large, strongly correlated errors so that every term of the
 # Jacobian and every off-diagonal covariance element matters.
-NU0, NUDOT0, NUDDOT0 = 29.9, -3.8e-10, 1.1e-20
-SIG = [NU0 * 1.5e-4, 3.8e-10 * 2e-4, 1.1e-20 * 3e-4]
+NU0, (NUDOT0, NUDDOT0) = INVENTED_YOUNG
+SIG = [NU0 * 1.5e-4, -NUDOT0 * 2e-4, NUDDOT0 * 3e-4]
 CORR = [[1.0, 0.8, -0.5], [0.8, 1.0, -0.6], [-0.5, -0.6, 1.0]]
 COV = _covariance(SIG, CORR)
 
@@ -177,11 +182,12 @@ def test_covariance_without_nuddot_block():
 
 
 def test_from_period_matches_frequency_form():
-    d_nu = derive_spin(VELA_NU_HZ, [VELA_NUDOT], np.diag([1e-10 ** 2, 1e-15 ** 2]))
-    p = 1 / VELA_NU_HZ
-    pdot = period_derivative_from(VELA_NU_HZ, VELA_NUDOT)
+    nu, nudot = INVENTED_YOUNG[0], INVENTED_YOUNG[1][0]
+    d_nu = derive_spin(nu, [nudot], np.diag([1e-10 ** 2, 1e-15 ** 2]))
+    p = 1 / nu
+    pdot = period_derivative_from(nu, nudot)
     # P-space covariance from the same linear map, built here by hand.
-    jac = np.array([[-p ** 2, 0], [-2 * VELA_NUDOT * p ** 3, -p ** 2]])
+    jac = np.array([[-p ** 2, 0], [-2 * nudot * p ** 3, -p ** 2]])
     cov_p = jac @ np.diag([1e-10 ** 2, 1e-15 ** 2]) @ jac.T
     d_p = derive_spin_from_period(p, pdot, cov_p)
     for k in d_nu:
@@ -209,14 +215,14 @@ def test_spin_up_gives_notes_not_nan():
 
 
 def test_cautions():
-    young = derive_spin(*YOUNG_1993, covariance=np.diag([1e-20, 1e-36, (0.5e-20) ** 2]))
+    young = derive_spin(*INVENTED_YOUNG, covariance=np.diag([1e-20, 1e-36, (2.5e-23) ** 2]))
     c = cautions_for(young)
     assert c[0] == ASSUMPTIONS
     assert "orthogonal" in ASSUMPTIONS and "10 km" in ASSUMPTIONS and "1e45" in ASSUMPTIONS
     assert "braking index n = 3" in ASSUMPTIONS
     joined = " ".join(c)
     assert "timing noise" in joined and "sigma from zero" in joined
-    assert "recycled" not in joined          # 33 ms is not recycled
+    assert "recycled" not in joined          # 54 ms is not recycled
     # Old millisecond pulsar with a tiny Pdot: age beyond the Universe.
     msp = derive_spin(300.0, [-1e-17])
     joined = " ".join(cautions_for(msp))

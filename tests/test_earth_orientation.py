@@ -86,8 +86,9 @@ def test_polar_motion_matches_astropy_table_and_mean_pole_outside():
     assert np.max(np.abs(yp - ref_y)) * RAD_TO_UAS < 1e-6
     # inside the table the values are the table's own interpolation, too
     # source: astropy 8.0 IERS_Auto.pm_xy
-    px, py = iers.IERS_Auto.open().pm_xy(theirs_t[:300])
-    assert np.max(np.abs(xp[:300] - px.to_value("rad"))) * RAD_TO_UAS < 1e-6
+    pole_x, pole_y = iers.IERS_Auto.open().pm_xy(theirs_t[:300])
+    assert np.max(np.abs(xp[:300] - pole_x.to_value("rad"))) * RAD_TO_UAS < 1e-6
+    assert np.max(np.abs(yp[:300] - pole_y.to_value("rad"))) * RAD_TO_UAS < 1e-6
     # outside: the IERS 50-year mean pole (0.035", 0.29"), astropy's default
     assert np.allclose(np.r_[xp[300:], yp[300:]] * RAD_TO_UAS / 1e6,
                        [0.035] * 3 + [0.29] * 3, atol=1e-12)
@@ -217,3 +218,29 @@ def test_disk_cache_reproduces_the_bundled_table(tmp_path, monkeypatch):
         assert cached.predicted_from_mjd == fresh.predicted_from_mjd
     finally:
         eo.eop_table.cache_clear()
+
+
+def test_one_interpolation_of_the_table_per_data_set(sites, ephemeris, monkeypatch):
+    # prepare_observations needs UT1-UTC for TDB and (UT1-UTC, pole) for the
+    # site positions: one look-up serves both, and the positions are those of
+    # a separate look-up.
+    from timingkit.formats.toa_table import ToaTable
+    from timingkit.geometry.observations import prepare_observations
+    from timingkit.geometry.sites import sites_gcrs_posvel
+    mjd = np.linspace(58000.0, 58300.0, 30)
+    day = np.floor(mjd)
+    names = np.array(["desert-dish", "lake-array", "geocentre"] * 10)
+    toas = ToaTable.from_arrays(day, mjd - day, np.ones(30), np.full(30, 1400.0), names)
+    calls = []
+    original = eo._interp_rows
+    monkeypatch.setattr(eo, "_interp_rows", lambda *a: calls.append(1) or original(*a))
+    obs = prepare_observations(toas, sites, ephemeris)
+    assert len(calls) == 1
+    earth = names != "geocentre"
+    unique, index = sites.resolve_many(names[earth])
+    utc = SplitTime(day[earth], (mjd - day)[earth], "utc")
+    from timingkit.geometry.timescales import utc_to_tt
+    pos, _ = sites_gcrs_posvel(unique, index, utc, utc_to_tt(utc))
+    earth_pos, _ = ephemeris.posvel("earth", obs.tdb[earth])
+    # (1e-4 m: the rounding of 1.5e11-m barycentric vectors)
+    assert np.max(np.abs(obs.observer_ssb_m[earth] - earth_pos - pos)) < 1e-4

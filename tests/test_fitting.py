@@ -19,8 +19,8 @@ from numdiff import phase_partial
 MSP = '''
 name = "sim-msp"
 [position]
-ra = "17h53m20.1234567s"
-dec = "-07d41m12.345678s"
+ra = "13h21m09.4712836s"
+dec = "+41d06m38.20419s"
 [spin]
 epoch_mjd = "58000"
 frequency_hz = "700.123456789012345678"
@@ -93,8 +93,8 @@ def test_statistical_calibration_over_60_simulations(ephemeris):
 
 def test_design_matrix_matches_numerical_derivatives(sites, ephemeris):
     truth = TimingModel.from_text(MSP.replace(
-        'dec = "-07d41m12.345678s"',
-        'dec = "-07d41m12.345678s"\nparallax_mas = 1.0\npm_ra_cosdec_mas_per_yr = 5.0'))
+        'dec = "+41d06m38.20419s"',
+        'dec = "+41d06m38.20419s"\nparallax_mas = 1.0\npm_ra_cosdec_mas_per_yr = 5.0'))
     toas = simulate_toas(truth, 58000, 58800, 60, 1.0, sites, ephemeris,
                          site_names=["desert-dish"], freqs_mhz=[800, 1600], seed=5,
                          add_noise=False)
@@ -161,3 +161,20 @@ def test_starting_model_too_far_off_is_reported(ephemeris):
     bad = _perturbed(truth, **{"spin.frequency_hz": 3e-6})   # ~500 turns over the span
     with pytest.raises(FitError, match="cannot number the pulses"):
         fit(bad, obs)
+
+
+def test_the_prefit_evaluation_serves_the_first_iteration(sites, ephemeris, monkeypatch):
+    # One evaluation for the pre-fit residuals and the first linearisation,
+    # one per further iteration, one for the final residuals: a fit that
+    # evaluated the pre-fit model twice would count one more.
+    truth = _calibration_model()
+    toas = simulate_toas(truth, 58000, 58400, 60, 1.0, sites, ephemeris,
+                         site_names=["desert-dish"], freqs_mhz=[820, 1400], seed=4)
+    obs = prepare_observations(toas, sites, ephemeris)
+    calls = []
+    original = TimingModel.evaluate
+    monkeypatch.setattr(TimingModel, "evaluate",
+                        lambda self, *a, **k: calls.append(1) or original(self, *a, **k))
+    res = fit(_perturbed(truth, **{"spin.frequency_hz": 1e-9}), obs)
+    assert res.iterations >= 2
+    assert len(calls) == res.iterations + 1

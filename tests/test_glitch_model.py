@@ -16,21 +16,12 @@ from timingkit.model import TimingModel
 from timingkit.model.glitch import Glitch, glitch_phase, model_glitches
 from timingkit.formats.model_file import format_model_document
 from timingkit.geometry.observations import prepare_observations
-from timingkit.model.simulate import simulate_toas
 from timingkit.formats.toa_table import ToaTable
+from conftest import young_pulsar_text
 
 DAY = 86400.0
 
-BASE = """
-name = "demo-young"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "9.87654321012345"
-frequency_derivatives = ["-1.2e-11"]
-"""
+BASE = young_pulsar_text(9.54321012345678, -1.2e-11, free=())
 
 ONE_GLITCH = BASE + """
 [[glitch]]
@@ -199,11 +190,9 @@ def test_single_table_instead_of_array_is_explained():
     assert info.value.field == "glitch.0.epoch_mjd"
 
 
-def test_fit_recovers_every_glitch_parameter_within_3_sigma(sites, ephemeris):
+def test_fit_recovers_every_glitch_parameter_within_3_sigma(observe_at_ssb):
     truth = TimingModel.from_text(ONE_GLITCH)
-    toas = simulate_toas(truth, 58000, 59100, 160, 50.0, sites, ephemeris, site_names=["ssb"],
-                         freqs_mhz=[1400.0], seed=11)
-    obs = prepare_observations(toas, sites, ephemeris)
+    obs = observe_at_ssb(truth, 58000, 59100, 160, 50.0, 11)
     start = truth.copy()
     start.parameter("glitch.0.decay_time_days").add(15.0)
     start.parameter("glitch.0.decaying_frequency_step_hz").add(-3e-8)

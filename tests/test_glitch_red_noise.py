@@ -30,26 +30,14 @@ from timingkit.glitch.tracking import track_phases
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.noise import NoiseModel, toa_times_s
-from timingkit.geometry.observations import prepare_observations
-from timingkit.model.simulate import simulate_toas
+from conftest import glitch_text, young_pulsar_text
 
 START_MJD = 58000.0
 YEARS, CADENCE_DAYS, ERR_US = 3.0, 14.0, 30.0
 F_HZ, FDOT = 10.0, -1e-11
 REALISATIONS = 40
 
-SPIN = f"""
-name = "demo-young"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "{F_HZ!r}"
-frequency_derivatives = ["{FDOT!r}"]
-[fit]
-free = ["spin.frequency_hz", "spin.frequency_derivatives.0"]
-"""
+SPIN = young_pulsar_text(F_HZ, FDOT)
 RED = """
 [red_noise]
 amplitude_log10 = -10.75
@@ -58,17 +46,10 @@ frequencies = 30
 """
 
 
-def glitch_text(epoch, step_hz, fdot_step):
-    return (f'\n[[glitch]]\nepoch_mjd = "{epoch:.6f}"\nfrequency_step_hz = {step_hz!r}\n'
-            f"frequency_derivative_step = {fdot_step!r}\n")
-
-
-def simulate(sites, ephemeris, seed, glitches=()):
+def simulate(observe, seed, glitches=()):
     days = 365.25 * YEARS
     truth = TimingModel.from_text(SPIN + RED + "".join(glitch_text(*g) for g in glitches))
-    toas = simulate_toas(truth, START_MJD, START_MJD + days, int(days / CADENCE_DAYS), ERR_US,
-                         sites, ephemeris, site_names=["ssb"], freqs_mhz=[1400.0], seed=seed)
-    return prepare_observations(toas, sites, ephemeris)
+    return observe(truth, START_MJD, START_MJD + days, int(days / CADENCE_DAYS), ERR_US, seed)
 
 
 def with_noise_model():
@@ -80,8 +61,8 @@ def without_noise_model():
 
 
 @pytest.fixture(scope="module")
-def glitch_free(sites, ephemeris):
-    return [simulate(sites, ephemeris, 6000 + k) for k in range(REALISATIONS)]
+def glitch_free(observe_at_ssb):
+    return [simulate(observe_at_ssb, 6000 + k) for k in range(REALISATIONS)]
 
 
 def test_red_noise_is_well_above_white_in_these_simulations(glitch_free):
@@ -124,13 +105,13 @@ def found(candidates, epoch, step_hz):
 
 
 @pytest.mark.parametrize("size", [1e-8, 1e-6])
-def test_injected_glitch_is_found_with_red_noise_present(sites, ephemeris, size):
+def test_injected_glitch_is_found_with_red_noise_present(observe_at_ssb, size):
     step = size * F_HZ
     for k in range(10):
         rng = np.random.default_rng(8000 + k)
         days = 365.25 * YEARS
         epoch = round(rng.uniform(START_MJD + 0.3 * days, START_MJD + 0.7 * days), 6)
-        obs = simulate(sites, ephemeris, 8000 + k, [(epoch, step, 1e-3 * FDOT)])
+        obs = simulate(observe_at_ssb, 8000 + k, [(epoch, step, 1e-3 * FDOT)])
         result = search_glitches(with_noise_model(), obs)
         limit = result.detection_limit["fractional_size"]
         assert size >= 30 * limit                    # well above the stated limit
@@ -141,7 +122,7 @@ def test_injected_glitch_is_found_with_red_noise_present(sites, ephemeris, size)
         assert result.fit.noise.method == "generalised least squares"
 
 
-def test_stated_detection_limit_includes_the_red_noise(sites, ephemeris, glitch_free):
+def test_stated_detection_limit_includes_the_red_noise(observe_at_ssb, glitch_free):
     obs = glitch_free[0]
     red = search_glitches(with_noise_model(), obs).detection_limit
     white = search_glitches(without_noise_model(), obs).detection_limit
@@ -200,15 +181,13 @@ def _offsets(data, win, idx):
     return np.where(idx >= 0, t_days[np.maximum(idx, 0)] - mid[:, None], 0.0)
 
 
-def test_scaled_white_errors_weight_the_search(sites, ephemeris):
+def test_scaled_white_errors_weight_the_search(observe_at_ssb):
     # [[white_noise]] groups scale the uncertainties the search weights with:
     # the gap statistic is invariant to a common error scale and the null draws
     # use the same random numbers, so the stated detection limit grows by
     # exactly the scale factor (white noise only: no red section)
     truth = TimingModel.from_text(SPIN)
-    toas = simulate_toas(truth, START_MJD, START_MJD + 700.0, 50, ERR_US, sites, ephemeris,
-                         site_names=["ssb"], freqs_mhz=[1400.0], seed=11)
-    obs = prepare_observations(toas, sites, ephemeris)
+    obs = observe_at_ssb(truth, START_MJD, START_MJD + 700.0, 50, ERR_US, 11)
     scaled = TimingModel.from_text(SPIN + "\n[[white_noise]]\nerror_scale = 2.5\n")
     plain = search_glitches(truth, obs).detection_limit["frequency_step_hz"]
     wide = search_glitches(scaled, obs).detection_limit["frequency_step_hz"]
@@ -216,12 +195,12 @@ def test_scaled_white_errors_weight_the_search(sites, ephemeris):
     assert "scaled" in search_glitches(scaled, obs).null_noise
 
 
-def test_false_alarm_probability_is_calibrated_under_red_noise(sites, ephemeris):
+def test_false_alarm_probability_is_calibrated_under_red_noise(observe_at_ssb):
     # uniform false-alarm probability of the largest gap statistic on glitch-free
     # red-noise data with the noise model's null (binomial bounds, 100 data sets)
     faps = []
     for k in range(100):
-        obs = simulate(sites, ephemeris, 9000 + k)
+        obs = simulate(observe_at_ssb, 9000 + k)
         data, chains, win = _windows(with_noise_model(), obs)
         stat, *_ = gap_statistics(win, data.frac + chains[0].offsets,
                                   data.frac + chains[1].offsets)

@@ -19,43 +19,21 @@ from timingkit.glitch.search import search_glitches
 from timingkit.glitch.tracking import solve_seed, track_phases
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
-from timingkit.geometry.observations import prepare_observations
-from timingkit.model.simulate import simulate_toas
+from conftest import glitch_text, young_pulsar_text
 
 START_MJD = 58000.0
 
-BASE = """
-name = "demo-young"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "{f!r}"
-frequency_derivatives = ["{fdot!r}"]
-[fit]
-free = ["spin.frequency_hz", "spin.frequency_derivatives.0"]
-"""
 
-
-def glitch_text(epoch, step_hz, fdot_step, amplitude=None, tau_days=None):
-    text = (f'\n[[glitch]]\nepoch_mjd = "{epoch:.6f}"\nfrequency_step_hz = {step_hz!r}\n'
-            f"frequency_derivative_step = {fdot_step!r}\n")
-    if amplitude is not None:
-        text += f"decaying_frequency_step_hz = {amplitude!r}\ndecay_time_days = {tau_days!r}\n"
-    return text
-
-
-def simulate(sites, ephemeris, glitches=(), f=10.0, fdot=-1e-11, years=2.0, cadence_days=7.0,
+def simulate(observe, glitches=(), f=10.0, fdot=-1e-11, years=2.0, cadence_days=7.0,
              err_us=50.0, seed=1):
-    """(starting model without glitches, observations, truth model)."""
+    """(starting model without glitches, observations, truth model); ``observe``
+    is the ``observe_at_ssb`` fixture."""
     days = 365.25 * years
-    truth = TimingModel.from_text(BASE.format(f=f, fdot=fdot)
+    truth = TimingModel.from_text(young_pulsar_text(f, fdot)
                                   + "".join(glitch_text(*g) for g in glitches))
-    start = TimingModel.from_text(BASE.format(f=f, fdot=fdot))
-    toas = simulate_toas(truth, START_MJD, START_MJD + days, int(days / cadence_days), err_us,
-                         sites, ephemeris, site_names=["ssb"], freqs_mhz=[1400.0], seed=seed)
-    return start, prepare_observations(toas, sites, ephemeris), truth
+    start = TimingModel.from_text(young_pulsar_text(f, fdot))
+    obs = observe(truth, START_MJD, START_MJD + days, int(days / cadence_days), err_us, seed)
+    return start, obs, truth
 
 
 def found(candidates, epoch, step_hz):
@@ -79,7 +57,7 @@ CONFIGS = [
 
 @pytest.mark.slow
 @pytest.mark.parametrize("size, f, cadence, err_us, years", CONFIGS)
-def test_injected_glitches_are_found_bracketed_and_measured(sites, ephemeris, size, f, cadence,
+def test_injected_glitches_are_found_bracketed_and_measured(observe_at_ssb, size, f, cadence,
                                                             err_us, years):
     fdot = -1e-11 if f < 20 else -3e-11
     successes, extra, limits = 0, 0, []
@@ -88,7 +66,7 @@ def test_injected_glitches_are_found_bracketed_and_measured(sites, ephemeris, si
         days = 365.25 * years
         epoch = round(rng.uniform(START_MJD + 0.3 * days, START_MJD + 0.7 * days), 6)
         step = size * f
-        start, obs, _ = simulate(sites, ephemeris, [(epoch, step, 1e-3 * fdot)], f=f, fdot=fdot,
+        start, obs, _ = simulate(observe_at_ssb, [(epoch, step, 1e-3 * fdot)], f=f, fdot=fdot,
                                  years=years, cadence_days=cadence, err_us=err_us, seed=1000 + k)
         result = search_glitches(start, obs)
         successes += bool(found(result.candidates, epoch, step))
@@ -102,11 +80,11 @@ def test_injected_glitches_are_found_bracketed_and_measured(sites, ephemeris, si
 
 
 @pytest.mark.slow
-def test_glitch_free_data_rarely_give_candidates(sites, ephemeris):
+def test_glitch_free_data_rarely_give_candidates(observe_at_ssb):
     with_candidates = 0
     for k in range(40):
         weekly = k % 2 == 0
-        start, obs, _ = simulate(sites, ephemeris, (), years=2.0 if weekly else 6.0,
+        start, obs, _ = simulate(observe_at_ssb, (), years=2.0 if weekly else 6.0,
                                  cadence_days=7.0 if weekly else 30.0,
                                  err_us=50.0 if weekly else 100.0, seed=5000 + k)
         result = search_glitches(start, obs)
@@ -117,13 +95,13 @@ def test_glitch_free_data_rarely_give_candidates(sites, ephemeris):
 
 
 @pytest.mark.slow
-def test_false_alarm_probability_is_calibrated_on_glitch_free_data(sites, ephemeris):
+def test_false_alarm_probability_is_calibrated_on_glitch_free_data(observe_at_ssb):
     # an honest null: the global false-alarm probability of the largest gap statistic
     # is uniform on glitch-free data, so P(FAP < q) ~ q (binomial bounds, 150 data sets)
     settings = GlitchSearchSettings(null_trials=400)
     faps = []
     for k in range(150):
-        start, obs, _ = simulate(sites, ephemeris, (), years=1.5, cadence_days=7.0,
+        start, obs, _ = simulate(observe_at_ssb, (), years=1.5, cadence_days=7.0,
                                  err_us=30.0, seed=7000 + k)
         ev = start.evaluate(obs)
         order = np.argsort(ev.extra["spin_dt_s"])
@@ -143,13 +121,13 @@ def test_false_alarm_probability_is_calibrated_on_glitch_free_data(sites, epheme
     assert np.mean(faps < 0.01) <= 0.04
 
 
-def test_two_glitches_a_year_apart_are_both_found(sites, ephemeris):
+def test_two_glitches_a_year_apart_are_both_found(observe_at_ssb):
     for k in range(6):
         rng = np.random.default_rng(3000 + k)
         e1 = round(START_MJD + rng.uniform(200.0, 300.0), 5)
         e2 = e1 + 365.25
         s1, s2 = 10 ** rng.uniform(-9, -5) * 10.0, 10 ** rng.uniform(-9, -5) * 10.0
-        start, obs, _ = simulate(sites, ephemeris, [(e1, s1, -1e-14), (e2, s2, -2e-14)],
+        start, obs, _ = simulate(observe_at_ssb, [(e1, s1, -1e-14), (e2, s2, -2e-14)],
                                  years=3.0, cadence_days=14.0, err_us=30.0, seed=3000 + k)
         result = search_glitches(start, obs)
         assert found(result.candidates, e1, s1), (k, e1, s1)
@@ -158,12 +136,12 @@ def test_two_glitches_a_year_apart_are_both_found(sites, ephemeris):
         assert len(model_glitches(result.model)) == 2
 
 
-def test_decaying_part_is_fitted_with_amplitude_and_time_scale(sites, ephemeris):
+def test_decaying_part_is_fitted_with_amplitude_and_time_scale(observe_at_ssb):
     amplitude, tau = 1e-7, 100.0
     for k in range(5):
         rng = np.random.default_rng(3000 + k)
         epoch = round(START_MJD + rng.uniform(250.0, 350.0), 5)
-        start, obs, _ = simulate(sites, ephemeris, [(epoch, 1e-6, -1e-14, amplitude, tau)],
+        start, obs, _ = simulate(observe_at_ssb, [(epoch, 1e-6, -1e-14, amplitude, tau)],
                                  years=3.0, cadence_days=7.0, err_us=50.0, seed=3000 + k)
         result = search_glitches(start, obs)
         assert len(result.candidates) == 1
@@ -174,10 +152,10 @@ def test_decaying_part_is_fitted_with_amplitude_and_time_scale(sites, ephemeris)
         assert term["decay_time_uncertainty_days"] < 20.0     # measured, not just allowed
 
 
-def test_phase_stays_connected_across_a_glitch_of_many_turns(sites, ephemeris):
+def test_phase_stays_connected_across_a_glitch_of_many_turns(observe_at_ssb):
     # 1e-5 of 10 Hz with monthly TOAs: the phase runs away by ~100 turns per gap
     epoch, step = 59000.3, 1e-4
-    start, obs, truth = simulate(sites, ephemeris, [(epoch, step, -1e-14)], years=6.0,
+    start, obs, truth = simulate(observe_at_ssb, [(epoch, step, -1e-14)], years=6.0,
                                  cadence_days=30.0, err_us=100.0, seed=42)
     result = search_glitches(start, obs)
     assert found(result.candidates, epoch, step)
@@ -210,9 +188,9 @@ def test_seed_solution_recovers_scrambled_pulse_counts():
     assert solve_seed(t, rho, np.full(8, 1e-3), 1e-6, 1e-12) is None
 
 
-def test_known_epochs_are_tested_instead_of_searched(sites, ephemeris):
+def test_known_epochs_are_tested_instead_of_searched(observe_at_ssb):
     epoch, step = 58400.3, 1e-7
-    start, obs, _ = simulate(sites, ephemeris, [(epoch, step, -1e-14)], seed=8)
+    start, obs, _ = simulate(observe_at_ssb, [(epoch, step, -1e-14)], seed=8)
     result = search_glitches(start, obs, GlitchSearchSettings(known_epochs_mjd=[epoch, 58550.0]))
     assert len(result.candidates) == 2
     real = found(result.candidates, epoch, step)
@@ -223,9 +201,9 @@ def test_known_epochs_are_tested_instead_of_searched(sites, ephemeris):
     assert abs(other.frequency_step_hz) < 3 * other.frequency_step_uncertainty_hz
 
 
-def test_steps_are_reported_in_the_stated_units(sites, ephemeris):
+def test_steps_are_reported_in_the_stated_units(observe_at_ssb):
     epoch, step, fdot_step = 58400.3, 2e-6, -2e-14
-    start, obs, _ = simulate(sites, ephemeris, [(epoch, step, fdot_step)], seed=9)
+    start, obs, _ = simulate(observe_at_ssb, [(epoch, step, fdot_step)], seed=9)
     result = search_glitches(start, obs)
     (c,) = result.candidates
     data = result.to_json()
@@ -244,9 +222,9 @@ def test_steps_are_reported_in_the_stated_units(sites, ephemeris):
     assert g.frequency_derivative_step.value == entry["frequency_derivative_step"]
 
 
-def test_glitch_already_in_the_model_is_kept_not_reported(sites, ephemeris):
+def test_glitch_already_in_the_model_is_kept_not_reported(observe_at_ssb):
     epoch, step = 58400.3, 1e-6
-    start, obs, truth = simulate(sites, ephemeris, [(epoch, step, -1e-14)], seed=10)
+    start, obs, truth = simulate(observe_at_ssb, [(epoch, step, -1e-14)], seed=10)
     truth.set_free(["glitch.0.frequency_step_hz", "glitch.0.phase_step"])
     result = search_glitches(truth, obs)
     assert result.candidates == []

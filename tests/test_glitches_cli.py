@@ -14,30 +14,16 @@ from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.simulate import simulate_toas
 from timingkit.formats.toa_writer import write_toa_table
+from conftest import glitch_text, young_pulsar_text
 
 REQUIRED = {"epoch_mjd", "epoch_min_mjd", "epoch_max_mjd", "frequency_step_hz",
             "frequency_step_uncertainty_hz", "frequency_derivative_step",
             "frequency_derivative_step_uncertainty", "fractional_size", "false_alarm_probability"}
 
-START = """name = "demo-young"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "10.0"
-frequency_derivatives = ["-1e-11"]
-[fit]
-free = ["spin.frequency_hz", "spin.frequency_derivatives.0"]
-"""
+START = young_pulsar_text(10.0, -1e-11)
 
 EPOCH, STEP = 58400.3, 1e-6
-GLITCH = f"""
-[[glitch]]
-epoch_mjd = "{EPOCH}"
-frequency_step_hz = {STEP}
-frequency_derivative_step = -1e-14
-"""
+GLITCH = glitch_text(EPOCH, STEP, -1e-14)
 
 
 @pytest.fixture(scope="module")

@@ -25,11 +25,11 @@ from timingkit.model.simulate import simulate_toas
 SPIN = '''
 name = "sim-select"
 [position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
+ra = "07h41m27.392s"
+dec = "-03d26m51.48s"
 [spin]
 epoch_mjd = "58000"
-frequency_hz = "10.123456789"
+frequency_hz = "10.6173"
 frequency_derivatives = [{derivs}]
 [fit]
 free = ["spin.frequency_hz", "spin.frequency_derivatives.0"]

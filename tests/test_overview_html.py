@@ -95,13 +95,13 @@ def _png(path: Path, color: str) -> Path:
 def page_inputs(tmp_path):
     rows = [
         {"source": "demo-young", "status": "ok", "toas": 120, "rms_us": 2.5,
-         "frequency_hz": "29.946923012345678901", "period_s": 0.0333924, "message": ""},
+         "frequency_hz": "18.473162904173582641", "period_s": 0.0541326, "message": ""},
         {"source": "demo-old", "status": "ok", "toas": 80, "rms_us": 10.25,
          "frequency_hz": "1.2345", "period_s": 0.81004455, "message": "no clock corrections"},
         {"source": "demo-<b>bold</b>", "status": "failed", "toas": None, "rms_us": None,
          "frequency_hz": None, "period_s": None, "message": "bad mjd at line 3 & more"},
         {"source": "demo-fast", "status": "ok", "toas": 200, "rms_us": 0.3,
-         "frequency_hz": "641.9282", "period_s": 0.001557807, "message": ""},
+         "frequency_hz": "566.8415", "period_s": 0.001764162, "message": ""},
     ]
     plots = {"demo-young": _png(tmp_path / "a.png", "C0"), "demo-old": _png(tmp_path / "b.png", "C1"),
              "demo-fast": _png(tmp_path / "c.png", "C2")}
@@ -136,8 +136,8 @@ def test_table_has_one_row_per_source_and_escapes_text(page_inputs):
     assert "bad mjd at line 3 &amp; more" in text
     # high-precision frequency shown with every digit; a float rounded for display,
     # with its exact value kept for sorting
-    assert ">29.946923012345678901<" in text
-    assert 'data-value="0.0333924">0.0333924<' in text
+    assert ">18.473162904173582641<" in text
+    assert 'data-value="0.0541326">0.0541326<' in text
     assert 'data-value="0.81004455">0.810045<' in text
 
 

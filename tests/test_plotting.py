@@ -35,7 +35,7 @@ def make_table(residual_scale=1.0, flags=True, seed=3, n=14):
         extra = {"backend": np.array(["wide-a", "wide-b"])[np.arange(n) % 2],
                  "receiver": np.array(["low", "high"])[(np.arange(n) // 7) % 2]}
     return ResidualTable.from_columns(["%.13f" % m for m in mjd], sites, freq, err, residual,
-                                      residual * 1e-6 * 29.9, np.arange(n) * 1000, extra)
+                                      residual * 1e-6 * 18.47, np.arange(n) * 1000, extra)
 
 
 def panels(figure):
@@ -70,14 +70,14 @@ def test_every_plot_writes_png_and_pdf(tmp_path):
     track_mjd = np.linspace(58800, 59500, 8)
     freqs_per_yr = np.logspace(-1, 1, 12)
     makers = {
-        "residuals": lambda p: plotting.plot_residuals(post, pre, frequency_hz=29.9, path=p),
+        "residuals": lambda p: plotting.plot_residuals(post, pre, frequency_hz=18.47, path=p),
         "orbital": lambda p: plotting.plot_residuals_vs_orbital_phase(
             post, rng.uniform(0, 1, len(post)), path=p),
         "doy": lambda p: plotting.plot_residuals_vs_day_of_year(post, path=p),
         "ppdot": lambda p: plotting.plot_ppdot([0.033, 1.0], [4e-13, 1e-15],
                                                ["demo-young", "demo-one"], path=p),
         "glitch": lambda p: plotting.plot_glitch_search(
-            post.mjd, post.residual_us, post.err_us, track_mjd, 29.9 + 1e-8 * track_mjd,
+            post.mjd, post.residual_us, post.err_us, track_mjd, 18.47 + 1e-8 * track_mjd,
             np.full(8, 1e-9), np.full(8, -3e-10), np.full(8, 1e-13), [59100.0], path=p),
         "spectrum": lambda p: plotting.plot_power_spectrum(
             freqs_per_yr, freqs_per_yr ** -3.0, freqs_per_yr ** -3.0, path=p),
@@ -133,7 +133,7 @@ def test_no_pyplot_and_thread_safe(tmp_path):
 
 def test_panel_count_with_prefit_and_phase_axis():
     post, pre = make_table(), make_table(residual_scale=20.0)
-    figure = plotting.plot_residuals(post, pre, frequency_hz=29.9)
+    figure = plotting.plot_residuals(post, pre, frequency_hz=18.47)
     main = panels(figure)
     assert len(main) == 2
     # One secondary (pulse-cycle) axis on each panel: 2 panels + 2 twins.
@@ -147,12 +147,12 @@ def test_panel_count_with_prefit_and_phase_axis():
 
     assert len(panels(plotting.plot_residuals(post, pre))) == 2
     assert all(not ax.child_axes for ax in panels(plotting.plot_residuals(post, pre)))
-    single = plotting.plot_residuals(post, frequency_hz=29.9)
+    single = plotting.plot_residuals(post, frequency_hz=18.47)
     assert len(panels(single)) == 1 and len(panels(single)[0].child_axes) == 1
 
 
 def test_axis_labels_have_units():
-    figure = plotting.plot_residuals(make_table(), make_table(), frequency_hz=29.9)
+    figure = plotting.plot_residuals(make_table(), make_table(), frequency_hz=18.47)
     top, bottom = panels(figure)
     assert "µs" in top.get_ylabel() and "µs" in bottom.get_ylabel()
     assert "MJD" in bottom.get_xlabel()
@@ -160,17 +160,17 @@ def test_axis_labels_have_units():
 
 
 def test_phase_axis_conversion_numbers():
-    to_cycles, to_us = plotting.phase_axis_functions(29.9)
-    # 1 µs at 29.9 Hz is 29.9e-6 cycles; one full turn is 1/29.9 s = 33444.816 µs.
-    assert to_cycles(1.0) == pytest.approx(29.9e-6, rel=1e-14, abs=0)
-    assert to_us(1.0) == pytest.approx(1e6 / 29.9, rel=1e-14, abs=0)
+    to_cycles, to_us = plotting.phase_axis_functions(18.47)
+    # 1 µs at 18.47 Hz is 18.47e-6 cycles; one full turn is 1/18.47 s = 54141.852 µs.
+    assert to_cycles(1.0) == pytest.approx(18.47e-6, rel=1e-14, abs=0)
+    assert to_us(1.0) == pytest.approx(1e6 / 18.47, rel=1e-14, abs=0)
     assert np.allclose(to_us(to_cycles(np.array([-5.0, 0.0, 123.4]))), [-5.0, 0.0, 123.4],
                        rtol=1e-14, atol=0)
     with pytest.raises(InputError):
         plotting.phase_axis_functions(0.0)
 
 
-@pytest.mark.parametrize("frequency_hz", [29.9, 716.35])
+@pytest.mark.parametrize("frequency_hz", [18.47, 700.0])
 def test_drawn_secondary_axis_matches_us_to_cycles(frequency_hz):
     figure = plotting.plot_residuals(make_table(), frequency_hz=frequency_hz)
     figure.canvas.draw()
@@ -394,17 +394,17 @@ def test_ppdot_without_skips_has_no_skip_note():
 
 def glitch_inputs(step_hz=1.2e-6):
     track_mjd = np.linspace(59000.0, 59600.0, 7)
-    base = 29.9
+    base = 18.47
     freq = base + np.where(track_mjd > 59250.0, step_hz, 0.0)
     return dict(mjd=np.linspace(59000, 59600, 20), residual_us=np.linspace(-5, 5, 20),
                 err_us=np.full(20, 1.0), track_mjd=track_mjd, track_freq_hz=freq,
-                track_freq_err_hz=np.full(7, 2e-9), track_fdot=np.full(7, -3.7e-10),
+                track_freq_err_hz=np.full(7, 2e-9), track_fdot=np.full(7, -2.2e-11),
                 track_fdot_err=np.full(7, 1e-14), candidate_epochs_mjd=[59300.0, 59450.5])
 
 
 def test_glitch_search_three_shared_panels():
     inputs = glitch_inputs()
-    figure = plotting.plot_glitch_search(**inputs, frequency_reference_hz=29.9)
+    figure = plotting.plot_glitch_search(**inputs, frequency_reference_hz=18.47)
     axes = figure.axes
     assert len(axes) == 3
     assert axes[0].get_shared_x_axes().joined(axes[0], axes[2])
@@ -426,12 +426,12 @@ def test_glitch_search_default_reference_and_hz_units():
     inputs = glitch_inputs(step_hz=0.05)
     figure = plotting.plot_glitch_search(**inputs)
     middle = figure.axes[1]
-    # Default reference: median of the track (29.95 Hz here); offsets >= 1 mHz shown in Hz.
+    # Default reference: median of the track (18.52 Hz here); offsets >= 1 mHz shown in Hz.
     assert "(Hz)" in middle.get_ylabel() and "nHz" not in middle.get_ylabel()
     [track] = middle.containers
     assert np.allclose(track.lines[0].get_ydata(), [-0.05, -0.05, -0.05, 0, 0, 0, 0])
     [ref] = [t for t in middle.texts if t.get_gid() == "frequency_reference"]
-    assert "29.95 Hz" in ref.get_text()
+    assert "18.52 Hz" in ref.get_text()
 
 
 # --------------------------------------------------------------------------- spectrum

@@ -23,8 +23,8 @@ MAS = math.pi / (180 * 3600e3)
 SOURCE = '''
 name = "sim-astrometric"
 [position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
+ra = "07h41m27.392s"
+dec = "-03d26m51.48s"
 pm_ra_cosdec_mas_per_yr = 12.0
 pm_dec_mas_per_yr = -7.0
 parallax_mas = 1.5
@@ -68,8 +68,8 @@ def test_position_fit_recovers_mas_offsets_proper_motion_and_parallax(astrometri
     # the offsets were large against the precision reached, so this is a real recovery
     assert res.model.parameter("position.ra").uncertainty < 0.3 * MAS
     assert res.model.parameter("position.dec").uncertainty < 1.5 * MAS
-    px = res.model.parameter("position.parallax_mas")
-    assert px.value > 10 * px.uncertainty
+    parallax = res.model.parameter("position.parallax_mas")
+    assert parallax.value > 10 * parallax.uncertainty
 
 
 def test_obliquity_and_rotation_against_erfa_and_astropy():
@@ -142,7 +142,7 @@ def test_position_report_gives_both_frames_in_sexagesimal_degrees_and_mas(astrom
         res.model.parameter("position.ecliptic_longitude_deg").uncertainty * 3600e3)
     pos = rep["position"]
     assert pos["frame_of_model"] == "ecliptic"
-    assert pos["equatorial"]["ra"].startswith("05h12m33.45")
+    assert pos["equatorial"]["ra"].startswith("07h41m27.39")
     assert pos["equatorial"]["dec_uncertainty_mas"] > 0
     assert pos["ecliptic"]["ecliptic_latitude_uncertainty_mas"] == pytest.approx(
         res.model.parameter("position.ecliptic_latitude_deg").uncertainty * 3600e3, rel=1e-9)
@@ -150,15 +150,15 @@ def test_position_report_gives_both_frames_in_sexagesimal_degrees_and_mas(astrom
 
 def test_bad_position_sections_name_the_field():
     with pytest.raises(InputError) as info:
-        TimingModel.from_text(SOURCE.replace('ra = "05h12m33.4567s"', 'frame = "galactic"\nra = "05h"'))
+        TimingModel.from_text(SOURCE.replace('ra = "07h41m27.392s"', 'frame = "galactic"\nra = "05h"'))
     assert info.value.field == "position.frame" and "ecliptic" in str(info.value)
     with pytest.raises(InputError) as info:
-        TimingModel.from_text(SOURCE.replace('ra = "05h12m33.4567s"',
-                                             'frame = "ecliptic"\nra = "05h12m33.4567s"'))
+        TimingModel.from_text(SOURCE.replace('ra = "07h41m27.392s"',
+                                             'frame = "ecliptic"\nra = "07h41m27.392s"'))
     assert "unknown key" in str(info.value)
-    ecl = SOURCE.replace('ra = "05h12m33.4567s"\ndec = "+21d02m11.234s"\n'
+    ecl = SOURCE.replace('ra = "07h41m27.392s"\ndec = "-03d26m51.48s"\n'
                          'pm_ra_cosdec_mas_per_yr = 12.0\npm_dec_mas_per_yr = -7.0',
-                         'frame = "ecliptic"\necliptic_longitude_deg = 78.9\n'
+                         'frame = "ecliptic"\necliptic_longitude_deg = 117.4\n'
                          'ecliptic_latitude_deg = 95.0')
     with pytest.raises(InputError) as info:
         TimingModel.from_text(ecl)
@@ -348,9 +348,9 @@ def test_sexagesimal_reader_agrees_with_astropy_angle():
     # give astropy.coordinates.Angle's value (an independent parser) to 1e-15 rad.
     from astropy.coordinates import Angle
     from timingkit.model.astrometry import parse_angle
-    for text, unit in [("05h12m33.4567s", "hourangle"), ("17:53:20.1234567", "hourangle"),
-                       ("23h59m59.999999s", "hourangle"), ("+21d02m11.234s", "deg"),
-                       ("-07d41m12.345678s", "deg"), ("-00:30:00.5", "deg"),
+    for text, unit in [("07h41m27.392s", "hourangle"), ("17:53:20.1234567", "hourangle"),
+                       ("23h59m59.999999s", "hourangle"), ("-03d26m51.48s", "deg"),
+                       ("+41d06m38.20419s", "deg"), ("-00:30:00.5", "deg"),
                        ("89d59m59.9999s", "deg")]:
         assert abs(parse_angle(text, unit, "f", None) - Angle(text, unit=unit).radian) < 1e-15
     import pytest

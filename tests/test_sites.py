@@ -8,6 +8,7 @@ All sites here are invented.
 
 import math
 import warnings
+from pathlib import Path
 
 import astropy.units as u
 import erfa
@@ -22,19 +23,21 @@ from timingkit.formats.site_file import GEOCENTRE, SSB, Site, load_site_file
 from timingkit.geometry.sites import SiteTable, site_gcrs_posvel, sites_gcrs_posvel
 from timingkit.numerics.timearray import SplitTime
 
-# Invented sites: a mid-latitude one (the example of the design brief), a
-# far-northern and a southern one given geodetically.
+# Invented sites, each more than 200 km from any real radio or gamma-ray
+# observatory: a mid-latitude one given by its ITRF vector (the sample
+# desert-dish: erfa.gd2gc of 104.62 E, 43.87 N, 1420 m), a far-northern
+# one on an Arctic ice shelf and a southern one given geodetically.
 SITE_FILE = """\
 # invented sites for the tests
 [site.desert-dish]
-geocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]
+geocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]
 other_names = ["dd", "Desert"]
-coordinates_from = "invented for the design brief"
+coordinates_from = "invented for the tests"
 
 [site.ice-shelf]
-longitude_deg = 15.5
-latitude_deg = 78.2
-height_m = 480.0
+longitude_deg = -80.5
+latitude_deg = 82.6
+height_m = 40.0
 
 [site.south-bowl]
 longitude_deg = -70.25
@@ -167,7 +170,7 @@ def test_many_sites_at_once_equal_one_at_a_time(table):
 def test_geodetic_and_itrf_round_trip_against_erfa(table):
     for name in ("ice-shelf", "south-bowl"):
         site = table.lookup(name)
-        lon, lat, height = {"ice-shelf": (15.5, 78.2, 480.0),
+        lon, lat, height = {"ice-shelf": (-80.5, 82.6, 40.0),
                             "south-bowl": (-70.25, -41.75, 2210.5)}[name]
         # source: erfa.gd2gc (WGS84), the conversion the file promises
         expected = erfa.gd2gc(1, math.radians(lon), math.radians(lat), height)
@@ -233,9 +236,9 @@ def test_site_file_reads_both_coordinate_forms_and_sources(site_file):
     sites = {s.name: s for s in load_site_file(site_file)}
     assert set(sites) == {"desert-dish", "ice-shelf", "south-bowl"}
     dd = sites["desert-dish"]
-    assert np.array_equal(dd.geocentric_itrf_m, [-2271954.4, -4399946.5, 4008782.2])
+    assert np.array_equal(dd.geocentric_itrf_m, [-1162719.1, 4457368.2, 4398673.9])
     assert dd.other_names == ("dd", "desert") and dd.kind == "earth"
-    assert str(site_file) in dd.coordinates_from and "invented for the design brief" in dd.coordinates_from
+    assert str(site_file) in dd.coordinates_from and "invented for the tests" in dd.coordinates_from
     assert "accuracy not stated" in sites["ice-shelf"].coordinates_from
 
 
@@ -245,16 +248,16 @@ BAD_FILES = [
     ("name = 'x'\n", "name", "unknown top-level key"),
     ("site = 3\n", "site", "table"),
     ("site.a = 5\n", "site.a", "must be a table"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\ncolour = 'red'\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\ncolour = 'red'\n",
      "site.a.colour", "allowed keys: geocentric_itrf_m"),
     ("# c\n[site.a]\nother_names = ['b']\n", "site.a", "no coordinates"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nlatitude_deg = 3.0\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\nlatitude_deg = 3.0\n",
      "site.a.latitude_deg", "either"),
     ("# c\n[site.a]\nlongitude_deg = 3.0\nlatitude_deg = 4.0\n", "site.a.height_m", "lacks"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = ['-2271954.4', -4399946.5, 4008782.2]\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = ['-1162719.1', 4457368.2, 4398673.9]\n",
      "site.a.geocentric_itrf_m", "must be a number"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5]\n", "site.a.geocentric_itrf_m", "3 numbers"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = 4008782.2\n", "site.a.geocentric_itrf_m", "3 numbers"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2]\n", "site.a.geocentric_itrf_m", "3 numbers"),
+    ("# c\n[site.a]\ngeocentric_itrf_m = 4398673.9\n", "site.a.geocentric_itrf_m", "3 numbers"),
     ("# c\n[site.a]\nlongitude_deg = 3.0\nlatitude_deg = 4.0\nheight_m = true\n",
      "site.a.height_m", "must be a number"),
     ("# c\n[site.a]\nlongitude_deg = '12d'\nlatitude_deg = 4.0\nheight_m = 1.0\n",
@@ -265,18 +268,18 @@ BAD_FILES = [
      "site.a.latitude_deg", "-90..90"),
     ("# c\n[site.a]\nlongitude_deg = 3.0\nlatitude_deg = 9.0\nheight_m = 1.4e6\n",
      "site.a.height_m", "metres above"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271.9544, -4399.9465, 4008.7822]\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162.7191, 4457.3682, 4398.6739]\n",
      "site.a.geocentric_itrf_m", "not kilometres"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = 'b'\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\nother_names = 'b'\n",
      "site.a.other_names", "list of names"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = ['b c']\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\nother_names = ['b c']\n",
      "site.a.other_names", "plain site name"),
-    ("# c\n[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\ncoordinates_from = 5\n",
+    ("# c\n[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\ncoordinates_from = 5\n",
      "site.a.coordinates_from", "text"),
-    ("# c\n[site.\"two words\"]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n",
+    ("# c\n[site.\"two words\"]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\n",
      "site.two words", "plain site name"),
-    ("[site.a]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = ['x']\n"
-     "# c\n[site.b]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\nother_names = ['x']\n",
+    ("[site.a]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\nother_names = ['x']\n"
+     "# c\n[site.b]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\nother_names = ['x']\n",
      "site.b", "already used by site a"),
 ]
 
@@ -298,9 +301,9 @@ def test_bad_site_files_name_file_site_and_key(tmp_path, text, field, words):
 def test_missing_site_file_and_clash_with_a_builtin(tmp_path):
     with pytest.raises(InputError) as caught:
         load_site_file(tmp_path / "nowhere.toml")
-    assert "nowhere.toml" in str(caught.value) and "cannot read" in str(caught.value)
+    assert "nowhere.toml" in str(caught.value) and "site file not found" in str(caught.value)
     path = tmp_path / "clash.toml"
-    path.write_text("[site.demo-x]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n"
+    path.write_text("[site.demo-x]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\n"
                     "other_names = ['Barycentre']\n")
     with pytest.raises(InputError) as caught:
         SiteTable.with_files([path])
@@ -310,7 +313,7 @@ def test_missing_site_file_and_clash_with_a_builtin(tmp_path):
 
 def test_two_files_may_not_define_one_site_twice(tmp_path, site_file):
     other = tmp_path / "more.toml"
-    other.write_text("[site.DD]\ngeocentric_itrf_m = [-2271954.4, -4399946.5, 4008782.2]\n")
+    other.write_text("[site.DD]\ngeocentric_itrf_m = [-1162719.1, 4457368.2, 4398673.9]\n")
     with pytest.raises(InputError) as caught:
         SiteTable.with_files([site_file, other])
     assert str(other) in str(caught.value) and "desert-dish" in str(caught.value)
@@ -351,3 +354,16 @@ def test_resolve_many_maps_names_to_shared_sites(table):
     assert [sites[i] for i in index] == [table.lookup(n) for n in names[:10]]
     with pytest.raises(InputError, match="far-hill"):
         table.resolve_many(np.array(["dd", "far-hill"]))
+
+
+def test_sample_sites_lie_at_plausible_heights():
+    # Every invented sample site (sample_data/sites.toml) at a geodetic height
+    # between -100 m and 5,000 m: land surfaces lie within that range of the
+    # WGS84 ellipsoid almost everywhere (a vector typed wrong by a few km
+    # would put a site underground or in the air).
+    path = Path(__file__).resolve().parents[1] / "sample_data" / "sites.toml"
+    sites = load_site_file(path)
+    assert len(sites) >= 3
+    assert any(s.geocentric_itrf_m[2] < 0 for s in sites)      # both hemispheres
+    for site in sites:
+        assert -100.0 <= site.height_m <= 5000.0, (site.name, site.height_m)

@@ -455,8 +455,8 @@ def test_from_arrays_text_matches_parts_exactly():
 @given(st.integers(0, 99999), st.floats(min_value=0.0, max_value=1.0, exclude_max=True))
 def test_from_arrays_is_self_consistent(day, frac):
     t = ToaTable.from_arrays([day], [frac], 1.0, np.inf, "ssb")
-    d2, f2 = parse_mjd_strings(t.mjd_text)
-    assert (d2[0], f2[0]) == (t.mjd_day[0], t.mjd_frac[0])
+    parsed_day, parsed_frac = parse_mjd_strings(t.mjd_text)
+    assert (parsed_day[0], parsed_frac[0]) == (t.mjd_day[0], t.mjd_frac[0])
     moved = (t.mjd_day[0] - day) + (t.mjd_frac[0] - frac)
     assert abs(moved) <= 5.1e-16 * (1 if day >= 10000 else 0.1) + 1.2e-16
 

@@ -11,6 +11,7 @@ from pathlib import Path
 from typing import Sequence
 
 from timingkit.formats.errors import InputError
+from timingkit.formats.textfile import read_toml_file
 
 
 # A source folder holds exactly one TOA table: a file named ``toas.txt`` or ending ``.toas``.
@@ -121,15 +122,7 @@ def read_manifest(path) -> list[Source]:
     """
     path = Path(path).expanduser()
     where = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the manifest ({exc})", path=where) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        line = getattr(exc, "lineno", None) or _line_from_toml_message(str(exc))
-        raise InputError(f"not valid TOML ({exc})", path=where, line=line) from None
+    data = read_toml_file(where, "batch manifest")
     unknown = sorted(set(data) - {"defaults", "source"})
     if unknown:
         raise InputError(f"unknown top-level key(s) {', '.join(unknown)}; legal: [defaults], "
@@ -174,11 +167,6 @@ def read_manifest(path) -> list[Source]:
             make_plots=_manifest_bool(merged, "make_plots", where, label),
         ))
     return sources
-
-
-def _line_from_toml_message(message: str) -> int | None:
-    match = re.search(r"line (\d+)", message)
-    return int(match.group(1)) if match else None
 
 
 def _check_keys(table: dict, legal: Sequence[str], where: str, label: str) -> None:

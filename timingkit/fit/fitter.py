@@ -202,12 +202,16 @@ class _Solver:
 
 
 def _timing_iterations(model, obs, pulse, reference, names, solver, max_iterations,
-                       tolerance_sigma, progress, done):
-    """Linearise and solve until the changes fall below tolerance_sigma."""
+                       tolerance_sigma, progress, done, evaluation=None):
+    """Linearise and solve until the changes fall below tolerance_sigma.
+    ``evaluation``: ``model`` already evaluated on ``obs``, used by the first
+    iteration (the pre-fit evaluation is not repeated)."""
     converged = False
     iterations = 0
     for iterations in range(1, max_iterations + 1):
-        res = compute_residuals(model, obs, pulse, reference, subtract_mean=False)
+        res = compute_residuals(model, obs, pulse, reference, subtract_mean=False,
+                                evaluation=evaluation)
+        evaluation = None
         ev = res.evaluation
         design = model.design_matrix(ev, names) / ev.spin_frequency_hz[:, None]
         design = np.column_stack([design, 1.0 / ev.spin_frequency_hz])
@@ -276,10 +280,12 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     estimate = None
     noise_rounds = 0
     settled = not noise_names
+    evaluation = ev0          # the model is unchanged until the first solve
     while True:
         cov, its, converged, design, resid = _timing_iterations(
             model, obs, pulse, reference, names, solver, max_iterations, tolerance_sigma,
-            progress, iterations)
+            progress, iterations, evaluation)
+        evaluation = None
         iterations += its
         if settled:
             break

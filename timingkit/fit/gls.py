@@ -83,9 +83,9 @@ def _qr_r(matrix: np.ndarray) -> np.ndarray:
 
 def _stacked_factor(a_f_scaled, a_m, b):
     """R of [[I, 0, 0], [A_f', A_m', b]] (prior rows first: they may dominate)."""
-    m2 = a_f_scaled.shape[1]
+    n_basis = a_f_scaled.shape[1]
     p = a_m.shape[1]
-    prior = np.hstack([np.eye(m2), np.zeros((m2, p + 1))])
+    prior = np.hstack([np.eye(n_basis), np.zeros((n_basis, p + 1))])
     data = np.hstack([a_f_scaled, a_m, b[:, None]])
     return _qr_r(np.vstack([prior, data]))
 
@@ -115,31 +115,31 @@ class FourierFactor:
         self.err_s = err_s
         self.basis = basis
         self.sqrt_phi = np.sqrt(prior_var_s2)
-        self.m2 = m2 = basis.shape[1]
-        stacked = np.empty((m2 + len(err_s), m2), order="F")
-        stacked[:m2] = np.eye(m2)
-        stacked[m2:] = basis * (self.sqrt_phi[None, :] / err_s[:, None])
+        self.n_basis = n_basis = basis.shape[1]
+        stacked = np.empty((n_basis + len(err_s), n_basis), order="F")
+        stacked[:n_basis] = np.eye(n_basis)
+        stacked[n_basis:] = basis * (self.sqrt_phi[None, :] / err_s[:, None])
         geqrf, self._ormqr = scipy.linalg.lapack.get_lapack_funcs(("geqrf", "ormqr"),
                                                                    (stacked,))
         lwork = int(geqrf(stacked, lwork=-1)[2][0])
         self.qr, self.tau, _, info = geqrf(stacked, lwork=max(lwork, 1), overwrite_a=True)
         if info != 0:
             raise FitError(f"QR factorisation of the red-noise basis failed (LAPACK info {info})")
-        self.r = np.triu(self.qr[:m2, :m2])
+        self.r = np.triu(self.qr[:n_basis, :n_basis])
         self.log_det_r = 2.0 * float(np.sum(np.log(np.abs(np.diag(self.r)))))
 
     def project(self, w_data: np.ndarray):
         """(C, E): Q^T applied to ``w`` (zero prior rows, data rows ``w_data``),
         split into the rows of the factor's columns and the rest."""
-        m2 = self.m2
-        w = np.zeros((m2 + w_data.shape[0], w_data.shape[1]), order="F")
-        w[m2:] = w_data
+        n_basis = self.n_basis
+        w = np.zeros((n_basis + w_data.shape[0], w_data.shape[1]), order="F")
+        w[n_basis:] = w_data
         lwork = int(self._ormqr("L", "T", self.qr, self.tau, w, lwork=-1)[1][0])
         cq, _, info = self._ormqr("L", "T", self.qr, self.tau, w, lwork=max(lwork, 1),
                                   overwrite_c=True)
         if info != 0:
             raise FitError(f"applying the red-noise QR failed (LAPACK info {info})")
-        return cq[:m2], cq[m2:]
+        return cq[:n_basis], cq[n_basis:]
 
 
 def gls_solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray,
@@ -154,10 +154,10 @@ def gls_solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray,
     a_m, norms, _ = _weighted_columns(design_s, None, err_s, names)
     w = np.column_stack([a_m, resid_s / err_s])
     if basis is None:
-        m2, c, e = 0, np.zeros((0, p + 1)), w
+        n_basis, c, e = 0, np.zeros((0, p + 1)), w
     else:
         factor = factor if factor is not None else FourierFactor(err_s, basis, prior_var_s2)
-        m2 = basis.shape[1]
+        n_basis = basis.shape[1]
         c, e = factor.project(w)
     r_e = _qr_r(e)                       # R of the timing block after the red noise
     r_mm, qtb_m = r_e[:p, :p], r_e[:p, p]
@@ -173,7 +173,7 @@ def gls_solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray,
     delta = x_m / norms
     cov = ((vt.T / s ** 2) @ vt) / np.outer(norms, norms)
     log_det_sigma = 2.0 * float(np.sum(np.log(s)) + np.sum(np.log(norms)))
-    if m2:
+    if n_basis:
         x_f = scipy.linalg.solve_triangular(factor.r, c[:, p] - c[:, :p] @ x_m)
         coef = x_f * factor.sqrt_phi
         red = basis @ coef
@@ -211,15 +211,15 @@ class RedLikelihood:
         self.n, self.p = design_s.shape
         names = [f"column {j}" for j in range(self.p)]
         a_m, norms, a_f = _weighted_columns(design_s, basis, err_s, names)
-        self.m2 = a_f.shape[1]
+        self.n_basis = a_f.shape[1]
         self.log_norms = float(np.sum(np.log(norms)))
         self.log_det_white = 2.0 * float(np.sum(np.log(err_s)))
         self.data_r = _qr_r(np.hstack([a_f, a_m, (resid_s / err_s)[:, None]]))
 
     def __call__(self, prior_var_s2: np.ndarray) -> float:
         scale = np.concatenate([np.sqrt(prior_var_s2), np.ones(self.p + 1)])
-        m2, p = self.m2, self.p
-        prior = np.hstack([np.eye(m2), np.zeros((m2, p + 1))])
+        n_basis, p = self.n_basis, self.p
+        prior = np.hstack([np.eye(n_basis), np.zeros((n_basis, p + 1))])
         r = _qr_r(np.vstack([prior, self.data_r * scale[None, :]]))
         return _log_likelihood_from_factor(r, self.n, p, self.log_det_white, self.log_norms)[1]
 

@@ -8,8 +8,9 @@ extended fit (the base plus dk = nu_b - nu_e parameters) with chi2_e on nu_e,
 
 and the probability that pure noise gives an F at least this large is the
 upper tail of Fisher's F distribution with (dk, nu_e) degrees of freedom
-(e.g. Bevington & Robinson, *Data Reduction and Error Analysis for the
-Physical Sciences*, 3rd ed., sec. 11.4 -- from memory); a small probability
+(Bevington & Robinson, *Data Reduction and Error Analysis for the
+Physical Sciences*, 3rd ed. 2003, ch. 11, the F test for an additional
+term); a small probability
 means the added parameters are needed. The tail is scipy.stats.f.sf.
 
 With Gaussian errors of known scale, -2 ln L_max = chi2 + constant, so

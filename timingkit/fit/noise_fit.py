@@ -199,7 +199,7 @@ def _uncertainties(objective, y, names, bounds, coords):
     """Inverse-Hessian uncertainties in natural units (module docstring)."""
     notes = []
     k = len(names)
-    f0 = objective(y)
+    best_value = objective(y)
     steps = np.empty(k)
     active = []
     for i in range(k):
@@ -214,7 +214,8 @@ def _uncertainties(objective, y, names, bounds, coords):
         # second derivative with a trial step, then a step of ~0.2 sigma
         for _ in range(3):
             h = min(h, 0.5 * (y[i] - lo), 0.5 * (hi - y[i]))
-            d2 = (_shifted(objective, y, i, h) - 2 * f0 + _shifted(objective, y, i, -h)) / h ** 2
+            d2 = (_shifted(objective, y, i, h) - 2 * best_value
+                  + _shifted(objective, y, i, -h)) / h ** 2
             if not (np.isfinite(d2) and d2 > 0):
                 break
             new_h = HESSIAN_STEP_SIGMA / math.sqrt(d2)
@@ -235,7 +236,7 @@ def _uncertainties(objective, y, names, bounds, coords):
                 hess[a, b] = hess[b, a]
                 continue
             if i == j:
-                hess[a, a] = (_shifted(objective, y, i, steps[i]) - 2 * f0
+                hess[a, a] = (_shifted(objective, y, i, steps[i]) - 2 * best_value
                               + _shifted(objective, y, i, -steps[i])) / steps[i] ** 2
             else:
                 hess[a, b] = (_shifted2(objective, y, i, steps[i], j, steps[j])

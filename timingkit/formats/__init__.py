@@ -1,7 +1,8 @@
 """Readers and writers of the project's own files, and the errors they raise.
 
 - ``errors``: :class:`InputError` (file, line, field) and :class:`FitError`.
-- ``textfile``: the one text-file reader (encoding, size, line errors).
+- ``textfile``: the one text-file reader (encoding, size, line errors) and TOML reader
+  (syntax errors with their line), used by the model, site and batch-manifest files.
 - ``mjd_text``: exact decimal MJD text <-> whole day + fraction.
 - ``toa_table``, ``toa_reader``, ``toa_writer``: the TOA table (:class:`ToaTable`).
 - ``model_file``: the TOML model file (exact decimals, key validation, atomic writes).
@@ -20,6 +21,7 @@ EXPORTS = {
     "read_clock_table": "clock_table", "read_predictor_file": "predictor_file",
     "write_predictor_file": "predictor_file", "ProfileSet": "profile_file",
     "read_profile_file": "profile_file", "write_profile_file": "profile_file",
+    "read_text_file": "textfile", "read_toml_file": "textfile",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

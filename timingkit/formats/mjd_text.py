@@ -116,13 +116,14 @@ def parse_mjd_tokens(buf: np.ndarray, starts: np.ndarray, lens: np.ndarray):
         sig = last - first + 1 - ((first < MAX_INT_DIGITS) & (last > MAX_INT_DIGITS))
         bad[many] |= nonzero.any(axis=1) & (sig > MAX_SIGNIFICANT_DIGITS)
     day = horner_digits(digits[:, :MAX_INT_DIGITS]).astype(np.float64)
-    f0 = MAX_INT_DIGITS + 1
-    high = horner_digits(digits[:, f0:f0 + _CHUNK])
+    fraction_start = MAX_INT_DIGITS + 1
+    high = horner_digits(digits[:, fraction_start:fraction_start + _CHUNK])
     # up to 15 fraction digits: one IEEE division of exact doubles is correctly rounded
     frac = high.astype(np.float64) / 1e15
     long_rows = np.flatnonzero(nfrac > _CHUNK)
     if len(long_rows):
-        low = horner_digits(digits[long_rows, f0 + _CHUNK:f0 + 2 * _CHUNK])
+        low = horner_digits(digits[long_rows, fraction_start + _CHUNK:
+                                   fraction_start + 2 * _CHUNK])
         frac[long_rows] = fraction_to_double(high[long_rows], low)
     carry = frac >= 1.0
     if carry.any():

@@ -21,7 +21,7 @@ from decimal import Decimal, InvalidOperation
 from typing import Any
 
 from timingkit.formats.errors import InputError
-from timingkit.formats.textfile import read_text_file
+from timingkit.formats.textfile import parse_toml, read_text_file
 
 KINDS = ("text", "decimal", "number", "integer", "bool", "list_decimal", "list_number",
          "list_text", "list_list_number", "mjd", "table")
@@ -56,18 +56,7 @@ def read_model_document(path: str) -> ModelDocument:
 
 
 def parse_model_text(text: str, path: str | None = None) -> ModelDocument:
-    try:
-        data = tomllib.loads(text, parse_float=Decimal)
-    except tomllib.TOMLDecodeError as exc:
-        line = None
-        msg = str(exc)
-        if "(at line " in msg:
-            try:
-                line = int(msg.split("(at line ")[1].split(",")[0])
-            except ValueError:
-                line = None
-            msg = msg.split(" (at line ")[0]
-        raise InputError(f"not valid TOML: {msg}", path=path, line=line) from None
+    data = parse_toml(text, path, parse_float=Decimal)
     if not data:
         raise InputError("model file is empty", path=path)
     return ModelDocument(data=data, path=path)

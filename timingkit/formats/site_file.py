@@ -15,13 +15,13 @@ from __future__ import annotations
 import math
 import os
 import re
-import tomllib
 from dataclasses import dataclass
 
 import erfa
 import numpy as np
 
 from timingkit.formats.errors import InputError
+from timingkit.formats.textfile import parse_toml, read_text_file
 
 SITE_KINDS = ("earth", "geocentre", "ssb")
 
@@ -250,20 +250,8 @@ def load_site_file(path) -> list[Site]:
     """Read a TOML site file; every problem is an InputError naming the file,
     the line of the site's header where it can be found, and the key."""
     path = os.fspath(path)
-    try:
-        with open(path, "rb") as handle:
-            raw = handle.read()
-    except OSError as exc:
-        raise InputError(f"cannot read site file: {exc.strerror or exc}", path=path) from None
-    try:
-        text = raw.decode("utf-8")
-        data = tomllib.loads(text)
-    except UnicodeDecodeError as exc:
-        raise InputError(f"site file is not UTF-8 text ({exc.reason})", path=path) from None
-    except tomllib.TOMLDecodeError as exc:
-        found = re.search(r"at line (\d+)", str(exc))
-        raise InputError(f"not valid TOML: {exc}", path=path,
-                         line=int(found.group(1)) if found else None) from None
+    text = read_text_file(path, "site file")
+    data = parse_toml(text, path)
     unknown = [k for k in data if k != "site"]
     if unknown:
         raise InputError(f"unknown top-level key '{unknown[0]}': a site file holds only "

@@ -18,8 +18,8 @@ JULIAN_YEAR_S = 365.25 * 86400.0
 
 # GM/c^3 in seconds. Sun: IAU 2015 Resolution B3 nominal solar mass parameter
 # 1.3271244e20 m^3 s^-2 -> 4.925490947 µs. Planets: system GM values of the
-# JPL DE430/DE440 ephemerides (Folkner et al. 2014), from memory to 6 digits,
-# which is ample for a delay of at most a few ns.
+# JPL DE430 ephemeris (Folkner et al. 2014, IPN Progress Report 42-196, table
+# of planetary GM), rounded to 7-9 digits, ample for a delay of a few ns.
 GM_OVER_C3_S = {
     "sun": 1.3271244e20 / SPEED_OF_LIGHT_M_PER_S ** 3,
     "venus": 3.24858592e14 / SPEED_OF_LIGHT_M_PER_S ** 3,

@@ -238,8 +238,8 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
             f"({_mjd_to_date(tab.first_mjd)} to {_mjd_to_date(tab.last_mjd)}; {tab.source})")
     held = ("UT1-UTC is held at the table's {edge} value and the pole is put at the IERS "
             "50-year mean (x = 0.035\", y = 0.29\"), as astropy does. ")
-    cost = ("UT1-UTC has historically drifted by up to about 1 s per year (from memory: the "
-            "rate that called for a leap second every year or so); each 0.1 s of UT1 error "
+    cost = ("UT1-UTC has drifted by up to about 1 s per year (the bundled leap-second table "
+            "starts every year from 1972 to 1980 with one); each 0.1 s of UT1 error "
             "moves an equatorial site by 46 m along its daily path (up to 0.16 µs of "
             "Roemer delay), and the mean pole may be off by a few tenths of an arcsec "
             "(~10 m, ~30 ns). A newer astropy-iers-data package extends the table.")
@@ -259,7 +259,8 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
                    f"the bundled IERS table (from MJD {tab.predicted_from_mjd:.0f}, "
                    f"{_mjd_to_date(tab.predicted_from_mjd)}): those UT1-UTC and pole values are "
                    "IERS Bulletin A predictions, whose UT1-UTC error grows to roughly 0.02 s "
-                   "a year ahead (from memory), i.e. ~10 m at the site, ~30 ns.")
+                   "a year ahead (the table's own error column), i.e. ~10 m at the site, "
+                   "~30 ns.")
     return out
 
 

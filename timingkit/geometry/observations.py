@@ -112,8 +112,8 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
         tt = timescales.utc_to_tt(utc)
         warnings.extend(timescales.leap_second_warnings(utc))
         warnings.extend(earth_orientation.coverage_warnings(utc))
-        dut1 = earth_orientation.ut1_minus_utc_s(utc)
-        ut1_frac = np.mod(utc.frac + dut1 / 86400.0, 1.0)
+        eop = earth_orientation.eop_values(utc)      # one interpolation serves TDB and GCRS
+        ut1_frac = np.mod(utc.frac + eop[0] / 86400.0, 1.0)
         k_rows = site_index[rows]
         lon = np.array([s.longitude_rad if s.kind == "earth" else 0.0 for s in unique_sites])
         u_km = np.array([s.spin_axis_distance_km if s.kind == "earth" else 0.0
@@ -125,7 +125,7 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
         tdb = tt.add_seconds(delta)
         tdb_day[rows], tdb_frac[rows] = tdb.day, tdb.frac
         offset_s[rows] += timescales.tt_minus_utc_s(utc, tt) + delta
-        pos, vel = sites_gcrs_posvel(unique_sites, k_rows, utc, tt, direct=exact)
+        pos, vel = sites_gcrs_posvel(unique_sites, k_rows, utc, tt, eop, direct=exact)
         site_pos[rows] = pos
         site_vel[rows] = vel
     tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")

@@ -130,9 +130,11 @@ def _check_times(utc: SplitTime, tt: SplitTime) -> None:
 
 
 def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: SplitTime,
-                      direct: bool = False):
+                      eop=None, direct: bool = False):
     """GCRS position (m) and velocity (m/s), shape (N, 3), of TOA i at site
     ``sites[site_index[i]]`` (the output of ``SiteTable.resolve_many``).
+    ``eop``: ``earth_orientation.eop_values(utc)`` when the caller already
+    has it (the table is then not interpolated again).
 
     The Earth-orientation pieces, which depend on time only, are computed
     once for all TOAs. Geocentre rows are zero. The ssb is not an Earth
@@ -141,7 +143,8 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     ``EarthLocation.get_gcrs_posvel``, which it matches to < 1 mm (the
     interpolation budget of ``earth_orientation.cip_xys``). The observed
     celestial-pole offsets dX, dY are not applied (as in astropy); at
-    ~0.2 mas (from memory) they are worth ~1 cm. Outside the bundled IERS
+    0.2 mas rms, 0.7 mas at most (IERS finals2000A, 2010-2024) they are worth
+    ~1 cm, 2 cm at most. Outside the bundled IERS
     table UT1-UTC is held and the pole put at the mean pole, as astropy
     does (see earth_orientation.coverage_warnings). ``direct``: the
     precession-nutation series at every time, not interpolated.
@@ -165,9 +168,10 @@ def sites_gcrs_posvel(sites: Sequence[Site], site_index, utc: SplitTime, tt: Spl
     rows = np.flatnonzero(earth)
     if len(rows) < n:
         utc, tt = utc[rows], tt[rows]
+        eop = None if eop is None else tuple(np.asarray(v)[rows] for v in eop)
     r_itrs = xyz_table[site_index[rows]]
 
-    dut1, xp, yp = earth_orientation.eop_values(utc)
+    dut1, xp, yp = earth_orientation.eop_values(utc) if eop is None else eop
     era = erfa.era00(*earth_orientation.ut1_jd(utc, dut1))
     rpom = erfa.pom00(xp, yp, erfa.sp00(tt.jd1, tt.jd2))       # TIRS -> ITRS
     x, y, s = earth_orientation.cip_xys(tt, direct=direct)
@@ -243,14 +247,14 @@ def bench_site_posvel(n: int = 200_000, layout: str = "sessions", seed: int = 0)
             t_tt = t_utc.tt
             utc = SplitTime(day, mjd - day, "utc")
             tt = SplitTime(t_tt.jd1 - 2400000.5, t_tt.jd2, "tt").normalized()
-            t0 = time.process_time()
+            start = time.process_time()
             pos, vel = site_gcrs_posvel(site, utc, tt)
-            ours = time.process_time() - t0
+            ours = time.process_time() - start
             loc = EarthLocation.from_geocentric(*xyz, unit=u.m)
             t_fresh = Time(day, mjd - day, format="mjd", scale="utc")
-            t0 = time.process_time()
+            start = time.process_time()
             apos, avel = loc.get_gcrs_posvel(t_fresh)
-            theirs = time.process_time() - t0
+            theirs = time.process_time() - start
     finally:
         iers.conf.auto_max_age = old_age
     dpos = np.linalg.norm(pos - apos.xyz.to_value(u.m).T, axis=1).max()

@@ -79,10 +79,10 @@ def phase_data(model: TimingModel, obs: Observations, reference) -> PhaseData:
 
 
 def search_ranges(model: TimingModel, settings: GlitchSearchSettings):
-    f0 = model.spin.frequency.value
-    fdot = model.spin.derivatives[0].value if model.spin.derivatives else 0.0
-    return (settings.max_fractional_step * f0,
-            max(FDOT_FRACTIONAL_RANGE * abs(fdot), FDOT_RANGE_FLOOR))
+    frequency_hz = model.spin.frequency.value
+    frequency_derivative = model.spin.derivatives[0].value if model.spin.derivatives else 0.0
+    return (settings.max_fractional_step * frequency_hz,
+            max(FDOT_FRACTIONAL_RANGE * abs(frequency_derivative), FDOT_RANGE_FLOOR))
 
 
 @dataclass

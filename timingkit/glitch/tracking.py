@@ -271,8 +271,8 @@ def _bridge(t_s, sigma, r, conn, piece):
         near_c, near_p = conn[:TRACK_WINDOW_TOAS], piece[-TRACK_WINDOW_TOAS:]
     if len(near_c) < 4:
         return None
-    t0 = t_s[near_p[0]] if piece[0] > conn[-1] else t_s[near_p[-1]]
-    xc = (t_s[near_c] - t0) / SECONDS_PER_DAY
+    reference_s = t_s[near_p[0]] if piece[0] > conn[-1] else t_s[near_p[-1]]
+    xc = (t_s[near_c] - reference_s) / SECONDS_PER_DAY
     params, cov, chi2c = _quadratic_fit(xc, r[near_c], 1.0 / sigma[near_c] ** 2)
     scale = max(1.0, chi2c / max(len(near_c) - 3, 1))
     p_ref = near_p[0] if piece[0] > conn[-1] else near_p[-1]
@@ -282,7 +282,7 @@ def _bridge(t_s, sigma, r, conn, piece):
     spread = int(min(200, math.ceil(6 * sig) + 1))
     ks = k0 + np.arange(-spread, spread + 1)
     both = np.concatenate([near_c, near_p])
-    x = (t_s[both] - t0) / SECONDS_PER_DAY
+    x = (t_s[both] - reference_s) / SECONDS_PER_DAY
     w = 1.0 / sigma[both] ** 2
     a = _design(x)
     ginv = np.linalg.inv(a.T @ (a * w[:, None]))

@@ -104,7 +104,7 @@ def _parse_sexagesimal(text: str, unit: str):
 
 def parse_angle(text: str, unit: str, field: str, path: str | None) -> float:
     """Right ascension (hours) or declination (degrees) in radians, from
-    sexagesimal ('05h12m33.4s', '05:12:33.4') or decimal degrees ('78.14d')."""
+    sexagesimal ('07h41m27.4s', '07:41:27.4') or decimal degrees ('78.14d')."""
     try:
         fast = _parse_sexagesimal(text, unit)
         if fast is not None:
@@ -112,8 +112,8 @@ def parse_angle(text: str, unit: str, field: str, path: str | None) -> float:
         from astropy.coordinates import Angle
         ang = Angle(text, unit=unit)
     except Exception:
-        raise InputError(f"cannot read angle {text!r} (e.g. '05h12m33.4567s' or '05:12:33.4567'"
-                         f" for ra, '+21d02m11.234s' for dec)", path=path, field=field) from None
+        raise InputError(f"cannot read angle {text!r} (e.g. '07h41m27.392s' or '07:41:27.392'"
+                         f" for ra, '-03d26m51.48s' for dec)", path=path, field=field) from None
     return float(ang.radian)
 
 

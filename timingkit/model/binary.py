@@ -13,18 +13,18 @@ Model-file keys (units in the names)::
 
     [binary]
     model = "relativistic"
-    orbital_period_days = 0.3229974            # all models
-    orbital_period_derivative = -2.4e-12       # s/s
-    projected_semi_major_axis_lt_s = 2.3418
+    orbital_period_days = "0.7843"             # all models (an invented source)
+    orbital_period_derivative = -1.1e-13       # s/s
+    projected_semi_major_axis_lt_s = 2.876
     projected_semi_major_axis_derivative_lt_s_per_s = 0.0
-    eccentricity = 0.617                       # keplerian, relativistic
+    eccentricity = 0.392                       # keplerian, relativistic
     eccentricity_derivative_per_s = 0.0
-    periastron_longitude_deg = 292.5
-    periastron_advance_deg_per_yr = 4.23
-    periastron_epoch_mjd = "52144.90097849"
-    einstein_delay_amplitude_s = 0.0043
-    shapiro_range_s = 6.8e-6                   # relativistic, low_eccentricity
-    shapiro_shape = 0.73                       #   (or companion_mass_msun + sin_inclination)
+    periastron_longitude_deg = 148.5
+    periastron_advance_deg_per_yr = 0.684
+    periastron_epoch_mjd = "55000.2"
+    einstein_delay_amplitude_s = 0.0036
+    shapiro_range_s = 6.6e-6                   # relativistic, low_eccentricity
+    shapiro_shape = 0.95                       #   (or companion_mass_msun + sin_inclination)
     # low_eccentricity instead of eccentricity/periastron_*:
     # e_sin_omega, e_cos_omega, e_sin_omega_derivative_per_s,
     # e_cos_omega_derivative_per_s, ascending_node_epoch_mjd
@@ -278,15 +278,15 @@ def low_eccentricity_section(keplerian: dict) -> dict:
     (exact at the epoch; rates of e and w are not carried over)."""
     e = float(keplerian["eccentricity"])
     w = math.radians(float(keplerian["periastron_longitude_deg"]))
-    pb = Decimal(str(keplerian["orbital_period_days"]))
-    t0 = Decimal(str(keplerian["periastron_epoch_mjd"]))
-    tasc = t0 - pb * Decimal(repr(w / (2 * math.pi)))
+    period_days = Decimal(str(keplerian["orbital_period_days"]))
+    periastron_epoch = Decimal(str(keplerian["periastron_epoch_mjd"]))
+    ascending_node_epoch = periastron_epoch - period_days * Decimal(repr(w / (2 * math.pi)))
     out = {"model": "low_eccentricity"}
     for key in _COMMON:
         if key in keplerian:
             out[key] = keplerian[key]
     out.update({"e_sin_omega": e * math.sin(w), "e_cos_omega": e * math.cos(w),
-                "ascending_node_epoch_mjd": str(tasc)})
+                "ascending_node_epoch_mjd": str(ascending_node_epoch)})
     for key in (*_SHAPIRO_RANGE, *_SHAPIRO_MASS):
         if key in keplerian:
             out[key] = keplerian[key]
@@ -299,14 +299,15 @@ def keplerian_section(low_e: dict, model: str = "keplerian") -> dict:
     eta, kappa = float(low_e.get("e_sin_omega", 0.0)), float(low_e.get("e_cos_omega", 0.0))
     e = math.hypot(eta, kappa)
     w = math.atan2(eta, kappa) % (2 * math.pi)
-    pb = Decimal(str(low_e["orbital_period_days"]))
-    tasc = Decimal(str(low_e["ascending_node_epoch_mjd"]))
+    period_days = Decimal(str(low_e["orbital_period_days"]))
+    ascending_node_epoch = Decimal(str(low_e["ascending_node_epoch_mjd"]))
     out = {"model": model}
     for key in _COMMON:
         if key in low_e:
             out[key] = low_e[key]
+    periastron_epoch = ascending_node_epoch + period_days * Decimal(repr(w / (2 * math.pi)))
     out.update({"eccentricity": e, "periastron_longitude_deg": math.degrees(w),
-                "periastron_epoch_mjd": str(tasc + pb * Decimal(repr(w / (2 * math.pi))))})
+                "periastron_epoch_mjd": str(periastron_epoch)})
     if model != "keplerian":
         for key in (*_SHAPIRO_RANGE, *_SHAPIRO_MASS):
             if key in low_e:

@@ -57,7 +57,7 @@ class MeanAnomaly:
     dt: np.ndarray            # seconds since the epoch (double)
     orbits: np.ndarray        # dt / Pb (double)
     d_dt: np.ndarray          # dM/d(dt), rad/s
-    d_pb_days: np.ndarray     # dM/dPb, rad/day
+    d_period_days: np.ndarray # dM/dPb, rad/day
     d_period_dot: np.ndarray       # dM/d(orbital period derivative), rad
 
     @property
@@ -65,18 +65,18 @@ class MeanAnomaly:
         return self.turns + self.wrapped / TWO_PI
 
 
-def mean_anomaly(dt_hi, dt_lo, pb_days: float, period_dot: float) -> MeanAnomaly:
-    pb_s = pb_days * SECONDS_PER_DAY
-    q_hi, q_lo = ddmath.dd_div_d(dt_hi, dt_lo, pb_s)
+def mean_anomaly(dt_hi, dt_lo, period_days: float, period_dot: float) -> MeanAnomaly:
+    period_s = period_days * SECONDS_PER_DAY
+    q_hi, q_lo = ddmath.dd_div_d(dt_hi, dt_lo, period_s)
     whole = np.round(q_hi)
     frac = (q_hi - whole) + q_lo
     orbits = q_hi + q_lo
     m, k = wrap_angle(TWO_PI * frac - math.pi * period_dot * orbits ** 2)
-    n = TWO_PI / pb_s
+    n = TWO_PI / period_s
     return MeanAnomaly(
         wrapped=m, turns=whole + k, dt=dt_hi + dt_lo, orbits=orbits,
         d_dt=n * (1.0 - period_dot * orbits),
-        d_pb_days=n * (-orbits + period_dot * orbits ** 2) * SECONDS_PER_DAY,
+        d_period_days=n * (-orbits + period_dot * orbits ** 2) * SECONDS_PER_DAY,
         d_period_dot=-math.pi * orbits ** 2)
 
 
@@ -146,8 +146,8 @@ class EccentricOrbit:
         return self.p[key].value if key in self.p else 0.0
 
     def state(self, dt_hi, dt_lo, guess=None) -> OrbitState:
-        pb = self._v("orbital_period_days")
-        ma = mean_anomaly(dt_hi, dt_lo, pb, self._v("orbital_period_derivative"))
+        period_days = self._v("orbital_period_days")
+        ma = mean_anomaly(dt_hi, dt_lo, period_days, self._v("orbital_period_derivative"))
         dt = ma.dt
         e = self._v("eccentricity") + self._v("eccentricity_derivative_per_s") * dt
         if np.any(e < 0) or np.any(e >= 1):
@@ -160,39 +160,39 @@ class EccentricOrbit:
         if guess is not None:   # the previous state: move its E by dM / (1 - e cos E)
             prev = guess.anomaly
             d_m = (ma.wrapped - prev.wrapped) + TWO_PI * (ma.turns - prev.turns)
-            g = guess.work["ecc_wrapped"] + TWO_PI * (prev.turns - ma.turns) \
+            g = guess.work["anomaly_wrapped"] + TWO_PI * (prev.turns - ma.turns) \
                 + d_m / guess.work["den"]
-        ecc = solve_kepler(ma.wrapped, e, g)
-        s_e, c_e = np.sin(ecc), np.cos(ecc)
+        ecc_anomaly = solve_kepler(ma.wrapped, e, g)
+        s_e, c_e = np.sin(ecc_anomaly), np.cos(ecc_anomaly)
         den = 1.0 - e * c_e
         r1 = np.sqrt(1.0 - e * e)
-        wdot = self._v("periastron_advance_deg_per_yr") * DEG_PER_YR_TO_RAD_PER_S
+        advance_rad_per_s = self._v("periastron_advance_deg_per_yr") * DEG_PER_YR_TO_RAD_PER_S
         w0 = self._v("periastron_longitude_deg") * DEG
-        pb_s = pb * SECONDS_PER_DAY
+        period_s = period_days * SECONDS_PER_DAY
         if self.advance == "linear":
-            omega = w0 + wdot * dt
+            omega = w0 + advance_rad_per_s * dt
             w_e_anom = w_ecc = 0.0
             nu = None
         else:
-            k = wdot * pb_s / TWO_PI
-            nu = true_anomaly(ecc, e) + TWO_PI * ma.turns
+            k = advance_rad_per_s * period_s / TWO_PI
+            nu = true_anomaly(ecc_anomaly, e) + TWO_PI * ma.turns
             omega = w0 + k * nu
             w_e_anom = k * r1 / den
             w_ecc = k * s_e / (r1 * den)
         s_w, c_w = np.sin(omega), np.cos(omega)
-        gamma = self._v("einstein_delay_amplitude_s")
+        einstein_s = self._v("einstein_delay_amplitude_s")
         rho = s_w * (c_e - e) + r1 * c_w * s_e
         rho_E = -s_w * s_e + r1 * c_w * c_e
         rho_e = -s_w - e / r1 * c_w * s_e
         rho_w = c_w * (c_e - e) - r1 * s_w * s_e
-        work = dict(ecc_wrapped=ecc, e=e, x=x, den=den, r1=r1, s_e=s_e, c_e=c_e, nu=nu, w_e_anom=w_e_anom,
-                    w_ecc=w_ecc, wdot=wdot, rho=rho, rho_E=rho_E, rho_e=rho_e, rho_w=rho_w,
-                    pb_s=pb_s)
-        delay = x * rho + gamma * s_e
-        sens = dict(E=x * rho_E + gamma * c_e, e=x * rho_e, w=x * rho_w, x=rho)
+        work = dict(anomaly_wrapped=ecc_anomaly, e=e, x=x, den=den, r1=r1, s_e=s_e, c_e=c_e,
+                    nu=nu, w_e_anom=w_e_anom, w_ecc=w_ecc, advance_rad_per_s=advance_rad_per_s,
+                    rho=rho, rho_E=rho_E, rho_e=rho_e, rho_w=rho_w, period_s=period_s)
+        delay = x * rho + einstein_s * s_e
+        sens = dict(E=x * rho_E + einstein_s * c_e, e=x * rho_e, w=x * rho_w, x=rho)
         work["sens"] = sens
         st = OrbitState(anomaly=ma, delay_s=delay, rate=self._rate(sens, work, ma),
-                        eccentric_anomaly=ecc + TWO_PI * ma.turns, work=work)
+                        eccentric_anomaly=ecc_anomaly + TWO_PI * ma.turns, work=work)
         if self.shapiro is not None:
             r, s = self.shapiro.range_s, self.shapiro.shape
             arg = 1.0 - e * c_e - s * rho
@@ -217,7 +217,7 @@ class EccentricOrbit:
         rate = d_m * ma.d_dt + d_e * self._v("eccentricity_derivative_per_s") \
             + sens["x"] * self._v("projected_semi_major_axis_derivative_lt_s_per_s")
         if self.advance == "linear":
-            rate = rate + sens["w"] * work["wdot"]
+            rate = rate + sens["w"] * work["advance_rad_per_s"]
         return rate
 
     def _partials_of(self, sens, work, ma, rate, names, explicit) -> dict:
@@ -230,10 +230,11 @@ class EccentricOrbit:
             if key in wanted:
                 out[key] = value
 
-        extra_pb = 0.0
+        extra_period = 0.0
         if self.advance == "true_anomaly":
-            extra_pb = sens["w"] * work["nu"] * work["wdot"] * SECONDS_PER_DAY / TWO_PI
-        put("orbital_period_days", d_m * ma.d_pb_days + extra_pb)
+            extra_period = (sens["w"] * work["nu"] * work["advance_rad_per_s"]
+                            * SECONDS_PER_DAY / TWO_PI)
+        put("orbital_period_days", d_m * ma.d_period_days + extra_period)
         put("orbital_period_derivative", d_m * ma.d_period_dot)
         put("projected_semi_major_axis_lt_s", sens["x"] + 0.0 * dt)
         put("projected_semi_major_axis_derivative_lt_s_per_s", sens["x"] * dt)
@@ -244,7 +245,7 @@ class EccentricOrbit:
             put("periastron_advance_deg_per_yr", sens["w"] * DEG_PER_YR_TO_RAD_PER_S * dt)
         else:
             put("periastron_advance_deg_per_yr",
-                sens["w"] * work["nu"] * DEG_PER_YR_TO_RAD_PER_S * work["pb_s"] / TWO_PI)
+                sens["w"] * work["nu"] * DEG_PER_YR_TO_RAD_PER_S * work["period_s"] / TWO_PI)
         put(self.epoch_key, -SECONDS_PER_DAY * rate)
         for key, value in explicit.items():
             put(key, value)
@@ -313,7 +314,7 @@ class LowEccentricityOrbit:
     def _partials_of(self, sens, ma, rate, names, explicit) -> dict:
         dt = ma.dt
         table = {
-            "orbital_period_days": lambda: sens["phi"] * ma.d_pb_days,
+            "orbital_period_days": lambda: sens["phi"] * ma.d_period_days,
             "orbital_period_derivative": lambda: sens["phi"] * ma.d_period_dot,
             "projected_semi_major_axis_lt_s": lambda: sens["x"] + 0.0 * dt,
             "projected_semi_major_axis_derivative_lt_s_per_s": lambda: sens["x"] * dt,

@@ -32,7 +32,7 @@ import numpy as np
 from timingkit.formats.errors import FitError, InputError
 from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_parts
-from timingkit.formats.model_file import Key, take_section
+from timingkit.formats.model_file import Key, table_list, take_section
 
 SECONDS_PER_DAY = 86400.0
 SECTION = "glitch"
@@ -84,9 +84,6 @@ class Glitch(ModelSection):
     array_section = True
 
     def __init__(self, section: dict, path: str | None, index: int):
-        if not isinstance(section, dict):
-            raise InputError("each [[glitch]] entry must be a table", path=path,
-                             field=f"{SECTION}.{index}")
         where = f"{SECTION}.{index}"
         s = take_section(section, where, _spec(section), path)
         unc = s.get("uncertainty", {})
@@ -227,12 +224,10 @@ class Glitch(ModelSection):
 
 def build_glitches(value, path: str | None, model=None) -> list[Glitch]:
     """Builder for ``OPTIONAL_SECTIONS['glitch']``: one section object per ``[[glitch]]``."""
-    if isinstance(value, dict):
+    if isinstance(value, dict):   # stricter than table_list: one glitch is still [[glitch]]
         raise InputError("write glitches as an array of tables, '[[glitch]]' (double "
                          "brackets), one per glitch", path=path, field=SECTION)
-    if not isinstance(value, list):
-        raise InputError("expected '[[glitch]]' tables", path=path, field=SECTION)
-    return [Glitch(item, path, i) for i, item in enumerate(value)]
+    return [Glitch(item, path, i) for i, item in enumerate(table_list(value, SECTION, path))]
 
 
 def glitch_section(epoch_mjd: Decimal | str | float, phase_step: float = 0.0,

@@ -34,7 +34,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from timingkit.physics.spin import (SECONDS_PER_JULIAN_YEAR, derive_spin_from_period,
-                               quantity)
+                                    finite_number, quantity)
 from timingkit.formats.errors import InputError
 
 # GM_sun / c^3 in seconds from the IAU 2015 Resolution B3 nominal solar mass
@@ -49,18 +49,18 @@ MAS_RAD = math.pi / (180.0 * 3600.0 * 1000.0)
 # pulsar seen edge-on (the pulsar catalogue uses 1.35 M_sun).
 CANONICAL_PULSAR_MASS_MSUN = 1.4
 
-# Galactic constants for the acceleration model.  From memory: Reid et al.
-# 2019 (ApJ 885, 131) give R0 = 8.15 +- 0.15 kpc and Theta0 = 236 +- 7 km/s
-# from maser parallaxes.  Pass your own dict to override.
+# Galactic constants for the acceleration model: Reid et al. 2019 (ApJ 885,
+# 131) give R0 = 8.15 +- 0.15 kpc and Theta0 = 236 +- 7 km/s from maser
+# parallaxes.  Pass your own dict to override.
 GALACTIC_CONSTANTS = {
     "distance_to_centre_kpc": 8.15,
     "circular_speed_km_per_s": 236.0,
-    "source": "Reid et al. 2019, ApJ 885, 131 (values from memory)",
+    "source": "Reid et al. 2019, ApJ 885, 131",
 }
 # Vertical acceleration K_z(z) = (2.27 z + 3.68 (1 - exp(-4.31 z))) 1e-9
-# cm s^-2, z in kpc: the Holmberg & Flynn (2004) fit as used for pulsar
-# kinematic corrections (e.g. Lazaridis et al. 2009); from memory; fitted
-# for |z| <~ 1.5 kpc.
+# cm s^-2, z in kpc: the Holmberg & Flynn (2004, MNRAS 352, 440) model in
+# the form used for pulsar kinematic corrections by Lazaridis et al. (2009,
+# MNRAS 400, 805); fitted for |z| <~ 1.5 kpc.
 _KZ_LINEAR, _KZ_STEP, _KZ_SCALE_PER_KPC = 2.27e-9, 3.68e-9, 4.31
 _KZ_VALID_KPC = 1.5
 
@@ -71,12 +71,7 @@ _GR = ("general relativity, point masses (Damour & Deruelle 1986; Taylor & "
 # --- small helpers ----------------------------------------------------------
 def _num(x: Any, field: str, *, positive: bool = False,
          nonnegative: bool = False) -> float:
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        raise InputError(f"expected a number, got {x!r}", field=field) from None
-    if not math.isfinite(v):
-        raise InputError(f"expected a finite number, got {x!r}", field=field)
+    v = finite_number(x, field)
     if positive and v <= 0:
         raise InputError(f"must be positive, got {v!r}", field=field)
     if nonnegative and v < 0:
@@ -139,12 +134,12 @@ def mass_function(projected_semi_major_axis_lt_s: float, orbital_period_days: fl
     x in light-seconds, P_b in days, T_sun = GM_sun/c^3 (IAU 2015 B3).
     """
     x = _num(projected_semi_major_axis_lt_s, "projected_semi_major_axis_lt_s", positive=True)
-    pb_days = _num(orbital_period_days, "orbital_period_days", positive=True)
-    pb = pb_days * SECONDS_PER_DAY
-    f = 4.0 * math.pi ** 2 * x ** 3 / (SOLAR_MASS_TIME_S * pb ** 2)
+    period_days = _num(orbital_period_days, "orbital_period_days", positive=True)
+    period_s = period_days * SECONDS_PER_DAY
+    f = 4.0 * math.pi ** 2 * x ** 3 / (SOLAR_MASS_TIME_S * period_s ** 2)
     unc = _independent([
         (3.0 * f / x, _err(projected_semi_major_axis_err_lt_s, "projected_semi_major_axis_err_lt_s")),
-        (-2.0 * f / pb_days, _err(orbital_period_err_days, "orbital_period_err_days")),
+        (-2.0 * f / period_days, _err(orbital_period_err_days, "orbital_period_err_days")),
     ])
     return quantity(f, unc, "M_sun", "Keplerian orbit; f = (m_c sin i)^3 / (m_p + m_c)^2")
 
@@ -225,16 +220,17 @@ def total_mass_from_periastron_advance(
     (Taylor & Weisberg 1982, ApJ 253, 908; Lorimer & Kramer 2005 sect. 8.4),
     solved for M.  Years are Julian.
     """
-    wdot = _num(periastron_advance_deg_per_yr, "periastron_advance_deg_per_yr", positive=True)
-    pb_days = _num(orbital_period_days, "orbital_period_days", positive=True)
+    advance_deg_per_yr = _num(periastron_advance_deg_per_yr, "periastron_advance_deg_per_yr",
+                              positive=True)
+    period_days = _num(orbital_period_days, "orbital_period_days", positive=True)
     e = _eccentricity(eccentricity)
-    wdot_rad_s = math.radians(wdot) / SECONDS_PER_JULIAN_YEAR
-    pb = pb_days * SECONDS_PER_DAY
-    m = (wdot_rad_s * (1.0 - e ** 2) / 3.0) ** 1.5 * (pb / (2.0 * math.pi)) ** 2.5 \
+    advance_rad_per_s = math.radians(advance_deg_per_yr) / SECONDS_PER_JULIAN_YEAR
+    period_s = period_days * SECONDS_PER_DAY
+    m = (advance_rad_per_s * (1.0 - e ** 2) / 3.0) ** 1.5 * (period_s / (2.0 * math.pi)) ** 2.5 \
         / SOLAR_MASS_TIME_S
     unc = _independent([
-        (1.5 * m / wdot, _err(periastron_advance_err_deg_per_yr, "periastron_advance_err_deg_per_yr")),
-        (2.5 * m / pb_days, _err(orbital_period_err_days, "orbital_period_err_days")),
+        (1.5 * m / advance_deg_per_yr, _err(periastron_advance_err_deg_per_yr, "periastron_advance_err_deg_per_yr")),
+        (2.5 * m / period_days, _err(orbital_period_err_days, "orbital_period_err_days")),
         (-3.0 * e * m / (1.0 - e ** 2), _err(eccentricity_err, "eccentricity_err")),
     ])
     return quantity(m, unc, "M_sun", _GR + "; periastron advance purely relativistic "
@@ -274,25 +270,25 @@ def post_keplerian_gr(pulsar_mass_msun: float, companion_mass_msun: float,
     """
     mp = _num(pulsar_mass_msun, "pulsar_mass_msun", positive=True)
     mc = _num(companion_mass_msun, "companion_mass_msun", positive=True)
-    pb = _num(orbital_period_days, "orbital_period_days", positive=True) * SECONDS_PER_DAY
+    period_s = _num(orbital_period_days, "orbital_period_days", positive=True) * SECONDS_PER_DAY
     e = _eccentricity(eccentricity)
     cov = _mass_cov(mass_covariance)
     T = SOLAR_MASS_TIME_S
     M = mp + mc
-    n = 2.0 * math.pi / pb
+    n = 2.0 * math.pi / period_s
     out: dict[str, dict[str, Any]] = {}
 
-    wdot = 3.0 * n ** (5 / 3) * (T * M) ** (2 / 3) / (1.0 - e ** 2)
-    wdot_deg_yr = math.degrees(wdot) * SECONDS_PER_JULIAN_YEAR
-    g = 2.0 / 3.0 * wdot_deg_yr / M
+    advance_rad_per_s = 3.0 * n ** (5 / 3) * (T * M) ** (2 / 3) / (1.0 - e ** 2)
+    advance_deg_per_yr = math.degrees(advance_rad_per_s) * SECONDS_PER_JULIAN_YEAR
+    g = 2.0 / 3.0 * advance_deg_per_yr / M
     out["periastron_advance_deg_per_yr"] = quantity(
-        wdot_deg_yr, _with_masses((g, g), cov), "deg/yr", _GR)
+        advance_deg_per_yr, _with_masses((g, g), cov), "deg/yr", _GR)
 
-    gamma = e * n ** (-1 / 3) * T ** (2 / 3) * M ** (-4 / 3) * mc * (mp + 2.0 * mc)
+    einstein_s = e * n ** (-1 / 3) * T ** (2 / 3) * M ** (-4 / 3) * mc * (mp + 2.0 * mc)
     dln_mp = -4.0 / (3.0 * M) + 1.0 / (mp + 2.0 * mc)
     dln_mc = -4.0 / (3.0 * M) + 1.0 / mc + 2.0 / (mp + 2.0 * mc)
     out["einstein_delay_amplitude_s"] = quantity(
-        gamma, _with_masses((gamma * dln_mp, gamma * dln_mc), cov), "s",
+        einstein_s, _with_masses((einstein_s * dln_mp, einstein_s * dln_mc), cov), "s",
         _GR + "; gravitational redshift plus second-order Doppler amplitude")
 
     fe, _ = _enhancement(e)

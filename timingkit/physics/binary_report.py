@@ -58,15 +58,16 @@ def _eccentricity(binary: Binary):
     return e, math.hypot(h * (sh or 0.0), k * (sk or 0.0)) / e
 
 
-def masses_from_advance_and_einstein(wdot_deg_yr: float, gamma_s: float, pb_days: float,
-                                     e: float) -> tuple[float, float, float]:
+def masses_from_advance_and_einstein(advance_deg_per_yr: float, einstein_s: float,
+                                     period_days: float, e: float) -> tuple[float, float, float]:
     """(total, companion, pulsar) masses in M_sun from the periastron advance
     and the Einstein amplitude in GR (Taylor & Weisberg 1989, ApJ 345, 434):
     M from omega_dot, then gamma = e n^-1/3 T^2/3 M^-4/3 m_c (M + m_c)
     solved for m_c (the positive root of the quadratic)."""
-    total = dbin.total_mass_from_periastron_advance(wdot_deg_yr, pb_days, e)["value"]
-    n = 2.0 * math.pi / (pb_days * SECONDS_PER_DAY)
-    c = gamma_s * total ** (4.0 / 3.0) * n ** (1.0 / 3.0) / (e * SOLAR_MASS_TIME_S ** (2.0 / 3.0))
+    total = dbin.total_mass_from_periastron_advance(advance_deg_per_yr, period_days, e)["value"]
+    n = 2.0 * math.pi / (period_days * SECONDS_PER_DAY)
+    c = (einstein_s * total ** (4.0 / 3.0) * n ** (1.0 / 3.0)
+         / (e * SOLAR_MASS_TIME_S ** (2.0 / 3.0)))
     companion = (-total + math.sqrt(total ** 2 + 4.0 * c)) / 2.0
     return total, companion, total - companion
 
@@ -78,12 +79,12 @@ def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dic
         return None
     out: dict = {}
     cautions: list[str] = []
-    pb, spb = _value_err(binary, "orbital_period_days")
+    period_days, period_err_days = _value_err(binary, "orbital_period_days")
     x, sx = _value_err(binary, "projected_semi_major_axis_lt_s")
     e, se = _eccentricity(binary)
     if x > 0:
-        f = dbin.mass_function(x, pb, projected_semi_major_axis_err_lt_s=sx,
-                               orbital_period_err_days=spb)
+        f = dbin.mass_function(x, period_days, projected_semi_major_axis_err_lt_s=sx,
+                               orbital_period_err_days=period_err_days)
         out["mass_function_msun"] = f
         out["minimum_companion_mass_msun"] = dbin.minimum_companion_mass(
             f["value"], mass_function_err_msun=f["uncertainty"])
@@ -91,16 +92,18 @@ def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dic
             f["value"], inclination_deg=60.0, mass_function_err_msun=f["uncertainty"])
         cautions.append("minimum / median companion masses assume a 1.4 M_sun pulsar and "
                         "sin i = 1 / i = 60 deg (common practice)")
-    wdot, swdot = _value_err(binary, "periastron_advance_deg_per_yr")
-    if wdot > 0 and e > 0:
+    advance_deg_per_yr, advance_err = _value_err(binary, "periastron_advance_deg_per_yr")
+    if advance_deg_per_yr > 0 and e > 0:
         out["total_mass_msun"] = dbin.total_mass_from_periastron_advance(
-            wdot, pb, e, periastron_advance_err_deg_per_yr=swdot, orbital_period_err_days=spb,
+            advance_deg_per_yr, period_days, e, periastron_advance_err_deg_per_yr=advance_err,
+            orbital_period_err_days=period_err_days,
             eccentricity_err=se)
         cautions.append("total mass assumes the periastron advance is purely relativistic")
-    gamma, sgamma = _value_err(binary, "einstein_delay_amplitude_s")
+    einstein_s, einstein_err_s = _value_err(binary, "einstein_delay_amplitude_s")
     period_dot, period_dot_err = _value_err(binary, "orbital_period_derivative")
-    if "total_mass_msun" in out and gamma > 0:
-        _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, period_dot, period_dot_err)
+    if "total_mass_msun" in out and einstein_s > 0:
+        inputs = [(advance_deg_per_yr, advance_err), (einstein_s, einstein_err_s), (e, se)]
+        _masses_from_einstein(out, inputs, period_days, period_dot, period_dot_err)
     shapiro = binary.orbit.shapiro
     if shapiro is not None and shapiro.range_s > 0:
         range_key, shape_key = shapiro.names
@@ -112,21 +115,24 @@ def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dic
             "companion Shapiro delay range r = G m_c / c^3 (GR)")
         out["sin_inclination_from_shapiro"] = quantity(s, ss, "", "Shapiro shape s = sin i (GR)")
     if distance is not None:
-        _orbital_kinematics(out, binary, pb, period_dot, period_dot_err, distance)
+        _orbital_kinematics(out, binary, period_days, period_dot, period_dot_err, distance)
     if binary.model == "low_eccentricity":
         cautions.extend(binary.warnings())
     return {"model": binary.model, "quantities": out, "cautions": cautions}
 
 
-def _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, period_dot, period_dot_err):
-    total, mc, mp = masses_from_advance_and_einstein(wdot, gamma, pb, e)
+def _masses_from_einstein(out, inputs, period_days, period_dot, period_dot_err):
+    """``inputs``: (value, uncertainty) of the periastron advance (deg/yr), the
+    Einstein amplitude (s) and the eccentricity."""
+    (advance_deg_per_yr, _), (einstein_s, _), (e, _) = inputs
+    total, mc, mp = masses_from_advance_and_einstein(advance_deg_per_yr, einstein_s,
+                                                     period_days, e)
     if not (mc > 0 and mp > 0):
         out["pulsar_mass_msun"] = quantity(None, None, "M_sun", "GR from periastron advance "
                                            "and Einstein amplitude",
                                            "no positive masses for these values")
         return
-    # first-order propagation by central differences over (w_dot, gamma, e)
-    inputs = [(wdot, swdot), (gamma, sgamma), (e, se)]
+    # first-order propagation by central differences over (advance, Einstein amplitude, e)
     jac = np.zeros((2, 3))
     for j, (v, _) in enumerate(inputs):
         h = abs(v) * 1e-6 or 1e-12
@@ -134,8 +140,8 @@ def _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, period_dot, p
         args_m = list(args_p)
         args_p[j] += h
         args_m[j] -= h
-        plus = masses_from_advance_and_einstein(args_p[0], args_p[1], pb, args_p[2])
-        minus = masses_from_advance_and_einstein(args_m[0], args_m[1], pb, args_m[2])
+        plus = masses_from_advance_and_einstein(args_p[0], args_p[1], period_days, args_p[2])
+        minus = masses_from_advance_and_einstein(args_m[0], args_m[1], period_days, args_m[2])
         jac[:, j] = [(plus[2] - minus[2]) / (2 * h), (plus[1] - minus[1]) / (2 * h)]
     have = any(s is not None for _, s in inputs)
     cov = jac @ np.diag([(s or 0.0) ** 2 for _, s in inputs]) @ jac.T if have else None
@@ -144,7 +150,7 @@ def _masses_from_gamma(out, wdot, swdot, gamma, sgamma, pb, e, se, period_dot, p
            "amplitude at that total mass (Taylor & Weisberg 1989)")
     out["pulsar_mass_msun"] = quantity(mp, sig[0], "M_sun", why)
     out["companion_mass_msun"] = quantity(mc, sig[1], "M_sun", why)
-    decay = dbin.orbital_decay_gr(mp, mc, pb, e, mass_covariance=cov)
+    decay = dbin.orbital_decay_gr(mp, mc, period_days, e, mass_covariance=cov)
     out["orbital_period_derivative_gr"] = decay
     if period_dot != 0:
         err = None
@@ -164,9 +170,10 @@ def distance_for(model, result=None) -> dict | None:
     if astro.distance_kpc is not None:
         return {"value_kpc": astro.distance_kpc, "uncertainty_kpc": astro.distance_uncertainty_kpc,
                 "source": "position.distance_kpc"}
-    px, spx = astro.parallax.value, astro.parallax.uncertainty
-    if px > 0:
-        return {"value_kpc": 1.0 / px, "uncertainty_kpc": None if spx is None else spx / px ** 2,
+    parallax_mas, parallax_err_mas = astro.parallax.value, astro.parallax.uncertainty
+    if parallax_mas > 0:
+        err = None if parallax_err_mas is None else parallax_err_mas / parallax_mas ** 2
+        return {"value_kpc": 1.0 / parallax_mas, "uncertainty_kpc": err,
                 "source": "1 / parallax (no Lutz-Kelker or other bias correction)"}
     return None
 
@@ -183,13 +190,13 @@ def _proper_motion(model, result=None):
     return mu, err, l_deg, b_deg
 
 
-def _orbital_kinematics(out, binary, pb, period_dot, period_dot_err, distance):
+def _orbital_kinematics(out, binary, period_days, period_dot, period_dot_err, distance):
     mu, smu, l_deg, b_deg = distance["proper_motion"]
     d, sd = distance["value_kpc"], distance["uncertainty_kpc"]
-    pb_s = pb * SECONDS_PER_DAY
-    shk = dbin.shklovskii_period_derivative(pb_s, mu, d, proper_motion_err_mas_per_yr=smu,
+    period_s = period_days * SECONDS_PER_DAY
+    shk = dbin.shklovskii_period_derivative(period_s, mu, d, proper_motion_err_mas_per_yr=smu,
                                             distance_err_kpc=sd)
-    gal = dbin.galactic_period_derivative(pb_s, l_deg, b_deg, d, distance_err_kpc=sd)
+    gal = dbin.galactic_period_derivative(period_s, l_deg, b_deg, d, distance_err_kpc=sd)
     kin = shk["value"] + gal["value"]
     terms = [s for s in (shk["uncertainty"], gal["uncertainty"]) if s is not None]
     skin = math.sqrt(sum(s * s for s in terms)) if terms else None

@@ -42,9 +42,9 @@ SURFACE_FIELD_COEFF_GAUSS = 3.2e19
 # Field at the light cylinder for a dipole falling off as r^-3:
 # B_lc = B_s (R / R_lc)^3 with R_lc = c P / (2 pi), hence
 # B_lc = K R^3 (2 pi / c)^3 P^-5/2 Pdot^1/2 = 2.946e8 G P^-5/2 Pdot^1/2
-# (P in s), i.e. 9.32 G P^-5/2 (Pdot / 1e-15)^1/2.  The handbook quotes
-# "9.2 G" for that normalised form (from memory); we derive the constant
-# from R, K and c above rather than copy the rounded figure.
+# (P in s), i.e. 9.32 G P^-5/2 (Pdot / 1e-15)^1/2.  The handbook gives a
+# rounded coefficient for that normalised form (Lorimer & Kramer 2005, ch. 3,
+# beside eq. 3.15); we derive the constant from R, K and c above instead.
 LIGHT_CYLINDER_FIELD_COEFF_GAUSS = (
     SURFACE_FIELD_COEFF_GAUSS * NEUTRON_STAR_RADIUS_CM ** 3
     * (2.0 * math.pi / SPEED_OF_LIGHT_CM_PER_S) ** 3)
@@ -109,7 +109,8 @@ def quantity(value: float | None, uncertainty: float | None, unit: str,
             "unit": unit, "assumptions": assumptions, "note": note}
 
 
-def _finite_float(x: Any, field: str) -> float:
+def finite_number(x: Any, field: str) -> float:
+    """``x`` as a float; InputError naming ``field`` if it is not a finite number."""
     try:
         v = float(x)
     except (TypeError, ValueError):
@@ -168,11 +169,11 @@ def derive_spin(frequency_hz: float, frequency_derivatives: Sequence[float],
     Accuracy: the formulae are exact given their assumptions; the
     uncertainties are first-order.
     """
-    nu = _finite_float(frequency_hz, "frequency_hz")
+    nu = finite_number(frequency_hz, "frequency_hz")
     if nu <= 0:
         raise InputError(f"spin frequency must be positive, got {nu!r} Hz",
                          field="frequency_hz")
-    derivs = [_finite_float(x, f"frequency_derivatives.{i}")
+    derivs = [finite_number(x, f"frequency_derivatives.{i}")
               for i, x in enumerate(frequency_derivatives or [])]
     has_nudot = len(derivs) >= 1
     has_nuddot = len(derivs) >= 2
@@ -235,8 +236,9 @@ def derive_spin(frequency_hz: float, frequency_derivatives: Sequence[float],
         power_gradient(b_tesla, -1.5, 0.5))
 
     # Edot = 4 pi^2 I Pdot / P^3 = -4 pi^2 I nu nu_dot.
-    edot = -4.0 * math.pi ** 2 * MOMENT_OF_INERTIA_G_CM2 * nu * nudot
-    put("spin_down_luminosity_erg_per_s", edot, power_gradient(edot, 1.0, 1.0))
+    luminosity_erg_per_s = -4.0 * math.pi ** 2 * MOMENT_OF_INERTIA_G_CM2 * nu * nudot
+    put("spin_down_luminosity_erg_per_s", luminosity_erg_per_s,
+        power_gradient(luminosity_erg_per_s, 1.0, 1.0))
 
     # B_lc = K_lc P^-5/2 Pdot^1/2 = K_lc nu^3/2 (-nu_dot)^1/2.
     b_lc = LIGHT_CYLINDER_FIELD_COEFF_GAUSS * math.sqrt(-nudot * nu ** 3)
@@ -259,8 +261,8 @@ def spin_from_period(period_s: float, period_derivative: float,
     """Convert (P [s], Pdot [s/s]) and their 2x2 covariance to
     (nu [Hz], [nu_dot [Hz/s]], covariance of (nu, nu_dot)). Exact transform;
     the covariance is propagated to first order."""
-    p = _finite_float(period_s, "period_s")
-    pdot = _finite_float(period_derivative, "period_derivative")
+    p = finite_number(period_s, "period_s")
+    pdot = finite_number(period_derivative, "period_derivative")
     if p <= 0:
         raise InputError(f"period must be positive, got {p!r} s", field="period_s")
     nu, nudot = 1.0 / p, -pdot / p ** 2
