@@ -54,7 +54,11 @@ def test_outputs_of_a_glitch_run(files, tmp_path, capsys):
     assert c["epoch_min_mjd"] <= c["epoch_mjd"] <= c["epoch_max_mjd"]
     assert abs(c["frequency_step_hz"] - STEP) <= 3 * c["frequency_step_uncertainty_hz"]
     assert c["fractional_size"] == pytest.approx(STEP / 10.0, rel=1e-3)
-    assert 0.0 <= c["false_alarm_probability"] < 1e-6
+    # beyond every one of the 1000 noise simulations: the bound, flagged as such
+    assert c["false_alarm_probability"] == pytest.approx(1 / 1001)
+    assert c["false_alarm_probability_upper_limit"] is True
+    assert "upper limit" in c["false_alarm_probability_method"]
+    assert "false-alarm probability < 0.001" in printed
     # the fitted model carries the glitch and reads back
     fitted = TimingModel.from_file(str(out / "fitted.toml"))
     (g,) = model_glitches(fitted)

@@ -99,7 +99,8 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
             f"{c['frequency_step_uncertainty_hz']:.2g} Hz (fractional {c['fractional_size']:.3g}),"
             f" frequency-derivative step {c['frequency_derivative_step']:.3g} ± "
             f"{c['frequency_derivative_step_uncertainty']:.2g} Hz/s, false-alarm probability "
-            + ("n/a" if fap is None else f"{fap:.2g}"))
+            + _fap_text(fap, c.get("false_alarm_probability_upper_limit"),
+                        found["settings"]["null_trials"]))
         for d in c.get("decaying_terms", []):
             lines.append(f"    decaying step {d['decaying_frequency_step_hz']:.4g} ± "
                          f"{d['decaying_frequency_step_uncertainty_hz']:.2g} Hz, time-scale "
@@ -116,3 +117,11 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
     lines.append(f"wrote {os.path.dirname(glitch_path) or '.'}/: {GLITCH_FILE}, fitted.toml, "
                  f"{figures}residuals.csv, report.json")
     return "\n".join(lines)
+
+
+def _fap_text(fap, upper: bool, trials: int) -> str:
+    if fap is None:
+        return "n/a"
+    if upper:
+        return f"< {fap:.2g} (none of {trials} noise simulations reached it)"
+    return f"{fap:.2g}"

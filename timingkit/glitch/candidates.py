@@ -19,8 +19,8 @@ from timingkit.glitch.scan import (
     detection_limit,
     false_alarm_probability,
     gap_statistics,
-    local_survival,
     null_distribution,
+    reported_false_alarm,
     threshold_statistic,
 )
 from timingkit.glitch.tracking import SECONDS_PER_DAY
@@ -106,6 +106,11 @@ class AcceptedGlitch:
     decay_tried: bool = False             # decaying terms tried
     placed: bool = False                  # placement among nearby gaps done (or not needed)
     rechecked: bool = False               # forced: re-tracked without it after a fit
+    steps_checked: bool = False           # found by the scan: its fitted steps tested
+    fit_statistic: float | None = None    # likelihood ratio of its fitted steps ...
+    fit_dof: int | None = None            # ... and its degrees of freedom
+    fap_upper_limit: bool = False         # fap is 1/(trials + 1): no simulation reached it
+    fap_method: str | None = None         # how fap was obtained (scan.reported_false_alarm)
 
 
 def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
@@ -121,13 +126,23 @@ def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
     notes: list[str] = []
     f_ref = float(np.median(data.frequency_hz))
 
-    def estimate(win, k, stat_value, fap, known=False):
+    def estimate(win, k, stat_value, null, known=False):
         stat, d, c, _, _ = gap_statistics(win, r_fwd, r_bwd)
+        fap, upper, method = reported_false_alarm(null, float(stat_value), local=known)
         return AcceptedGlitch(gap=int(win.gaps[k]), fap=fap, stat=float(stat_value),
                          df_hz=float(-d[k, 0] / SECONDS_PER_DAY),
                          df_err_hz=float(math.sqrt(c[k, 0, 0]) / SECONDS_PER_DAY),
                          dfdot=float(-d[k, 1] / SECONDS_PER_DAY ** 2), known=known,
-                         search_pass=search_pass)
+                         search_pass=search_pass, fap_upper_limit=upper, fap_method=method)
+
+    trials = int(settings.null_trials)
+    if threshold < 1.0 / (trials + 1):
+        notes.append(f"the threshold of {settings.min_significance:g} sigma (false-alarm "
+                     f"probability {threshold:.2g}) lies below what {trials} noise simulations "
+                     "resolve: candidates were accepted by the per-gap 2-dof chi-square tail "
+                     "extrapolated beyond the simulations, and their false-alarm probabilities "
+                     f"are given as upper limits; use at least {math.ceil(20 / threshold)} "
+                     "null trials to measure them")
 
     if known_gaps is not None:
         for gap in known_gaps:
@@ -146,9 +161,8 @@ def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
                 continue
             k = int(hit[0])
             stat, *_ = gap_statistics(win, r_fwd, r_bwd)
-            null = null_distribution(win, data.null_noise, int(settings.null_trials), rng)
-            local = local_survival(null.pooled, float(stat[k]))
-            accepted.append(estimate(win, k, stat[k], float(local), known=True))
+            null = null_distribution(win, data.null_noise, trials, rng)
+            accepted.append(estimate(win, k, stat[k], null, known=True))
             if not limit:
                 limit = detection_limit(win, threshold_statistic(null, threshold), f_ref)
         return accepted, limit, notes
@@ -161,7 +175,6 @@ def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
         stat, *_ = gap_statistics(win, r_fwd, r_bwd)
         k = int(np.argmax(stat))
         # a short null run settles clear cases; borderline ones get the full run
-        trials = int(settings.null_trials)
         null = null_distribution(win, data.null_noise, min(trials, QUICK_NULL_TRIALS), rng)
         fap = false_alarm_probability(null, float(stat[k]))
         if trials > QUICK_NULL_TRIALS and threshold / 30 < fap < min(0.5, 30 * threshold):
@@ -171,7 +184,9 @@ def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
             limit = detection_limit(win, threshold_statistic(null, threshold), f_ref)
         if fap > threshold:
             break
-        accepted.append(estimate(win, k, stat[k], fap))
+        if len(null.maxima) < trials:     # the reported value comes from the full run
+            null = null_distribution(win, data.null_noise, trials, rng)
+        accepted.append(estimate(win, k, stat[k], null))
         barriers.add(int(win.gaps[k]))
     return accepted, limit, notes
 

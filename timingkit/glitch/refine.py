@@ -152,20 +152,73 @@ def hold_decay_times(model, epoch):
         p.free = False
 
 
+def decay_or_none(res, epoch, obs, reference, pulse, settings):
+    """:func:`try_decay` on the glitch at ``epoch``, over the span up to the next
+    glitch (or the last TOA)."""
+    t_g = glitch_time_s(res.model, glitch_at(res.model, epoch))
+    later = [glitch_time_s(res.model, g) for g in model_glitches(res.model)]
+    later = [t for t in later if t > t_g + 1.0]
+    end = min(later) if later else float(np.max(phase_data(res.model, obs, reference).t_s))
+    return try_decay(res, obs, reference, pulse, epoch, settings, (end - t_g) / SECONDS_PER_DAY)
+
+
 def add_decays(res, accepted, obs, reference, pulse, settings):
     """One decaying term tried on each glitch in ``accepted`` (in turn)."""
     for acc in accepted:
         if acc.forced:
             continue
-        t_g = glitch_time_s(res.model, glitch_at(res.model, acc.epoch))
-        later = [glitch_time_s(res.model, g) for g in model_glitches(res.model)]
-        later = [t for t in later if t > t_g + 1.0]
-        end = min(later) if later else float(np.max(phase_data(res.model, obs, reference).t_s))
-        better = try_decay(res, obs, reference, pulse, acc.epoch, settings,
-                            (end - t_g) / SECONDS_PER_DAY)
+        better = decay_or_none(res, acc.epoch, obs, reference, pulse, settings)
         if better is not None:
             res = better
     return res
+
+
+def without_glitch(model: TimingModel, epoch) -> TimingModel:
+    """Copy of ``model`` without the glitch at ``epoch`` (the others' free flags kept)."""
+    sections = [s for s, h in zip(glitch_sections_of(model), model_glitches(model))
+                if h.epoch != epoch]
+    free = free_flags(model)
+    free.pop(epoch, None)
+    return rebuild_with_glitches(model, sections, free)
+
+
+def fit_without(res: FitResult, epoch, obs, reference, pulse, settings):
+    """The fit without the glitch at ``epoch`` (the same pulse numbers: the counts
+    are data, so the other terms must take up the turns it gave) and the
+    likelihood-ratio statistic of the glitch's own fitted steps:
+    (chi-square without it - with it) / max(1, reduced chi-square), against a
+    chi-square with the glitch's free parameters as degrees of freedom. When the
+    glitch before it has no decaying term, one is tried there first (its recovery
+    is what a spurious glitch just after it mimics). Returns (fit, statistic,
+    degrees of freedom), or None when the fit without it fails."""
+    g = glitch_at(res.model, epoch)
+    dof = max(1, sum(1 for p in g.parameters() if p.free))
+    trial = without_glitch(res.model, epoch)
+    free_times = [p for h in model_glitches(trial) for p in h.decay_times if p.free]
+    for p in free_times:      # time-scales held first (a linear fit), then freed
+        p.free = False
+    try:
+        fitted = fit_pinned(trial, obs, reference, pulse)
+    except FitError:
+        return None
+    if free_times:
+        released = fitted.model.copy()
+        names = {p.name for p in free_times}
+        for p in released.parameters():
+            p.free = p.free or p.name in names
+        try:
+            fitted = fit_pinned(released, obs, reference, pulse)
+        except FitError:
+            pass              # the held time-scales' fit: chi-square an upper bound
+    t_g = glitch_time_s(res.model, g)
+    before = [h for h in model_glitches(fitted.model) if glitch_time_s(fitted.model, h) < t_g]
+    if settings.fit_decays and before:
+        previous = max(before, key=lambda h: glitch_time_s(fitted.model, h))
+        if not previous.decays:
+            better = decay_or_none(fitted, previous.epoch, obs, reference, pulse, settings)
+            fitted = better if better is not None else fitted
+    statistic = (fitted.chi2 - res.chi2) / max(1.0, res.reduced_chi2)
+    return fitted, float(statistic), dof
 
 
 def placement_fit(res: FitResult, epoch, gap: int, data: PhaseData, obs, reference, pulse):

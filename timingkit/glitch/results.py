@@ -144,6 +144,10 @@ class GlitchCandidate:
     known: bool = False
     forced: bool = False
     search_pass: int = 1
+    false_alarm_probability_upper_limit: bool = False
+    false_alarm_probability_method: str | None = None
+    fitted_steps_chi2: float | None = None      # likelihood ratio of its own fitted steps
+    fitted_steps_dof: int | None = None
 
     def to_json(self) -> dict:
         return {
@@ -157,10 +161,15 @@ class GlitchCandidate:
             "frequency_derivative_step_uncertainty": self.frequency_derivative_step_uncertainty,
             "fractional_size": self.fractional_size,
             "false_alarm_probability": self.false_alarm_probability,
+            "false_alarm_probability_upper_limit": self.false_alarm_probability_upper_limit,
+            "false_alarm_probability_method": self.false_alarm_probability_method,
+            "fitted_steps_chi2": self.fitted_steps_chi2,
+            "fitted_steps_dof": self.fitted_steps_dof,
             "permanent_fractional_size": self.permanent_fractional_size,
             "phase_step": self.phase_step, "phase_step_uncertainty": self.phase_step_uncertainty,
             "decaying_terms": self.decaying_terms,
             "significance_sigma": self.significance_sigma,
+            "significance_lower_limit": self.false_alarm_probability_upper_limit,
             "detection_chi2": self.detection_chi2,
             "window_frequency_step_hz": self.window_frequency_step_hz,
             "window_frequency_step_uncertainty_hz": self.window_frequency_step_uncertainty_hz,
@@ -174,7 +183,12 @@ class GlitchCandidate:
 UNITS = {"epoch_mjd": "MJD (TDB at the pulsar)", "frequency_step_hz": "Hz",
          "frequency_derivative_step": "Hz/s", "phase_step": "cycles",
          "fractional_size": "(frequency step incl. decaying terms) / spin frequency",
-         "decay_time_days": "days", "false_alarm_probability": "global, for the whole search"}
+         "decay_time_days": "days",
+         "false_alarm_probability": "global, for the whole search, from noise simulations "
+                                    "(never below 1/(trials + 1); an upper limit when flagged); "
+                                    "per gap for a known epoch",
+         "fitted_steps_chi2": "chi-square increase without the glitch (scaled by the reduced "
+                              "chi-square when above 1), fitted_steps_dof degrees of freedom"}
 
 
 @dataclass

@@ -297,6 +297,36 @@ def false_alarm_probability(null: NullDistribution, value: float) -> float:
     return float(-np.expm1(null.n_effective * np.log1p(-min(s, 1 - 1e-16))))
 
 
+TAIL_EXCEEDANCES = 20     # fewer simulated maxima above a value: the tail model interpolates
+
+
+def reported_false_alarm(null: NullDistribution, value: float, local: bool = False):
+    """The false-alarm probability as reported, never below 1/(N + 1) for N
+    simulations: (probability, upper limit?, how it was obtained). ``local``: the
+    per-gap probability of a known epoch (pooled gaps) instead of the global one.
+    Below the simulated range no tail model is calibrated, so the value is then
+    the bound 1/(N + 1), flagged as an upper limit."""
+    n = len(null.maxima)
+    floor = 1.0 / (n + 1)
+    if local:
+        fap = local_survival(null.pooled, value)
+        method = (f"simulation: share of the per-gap statistics of {n} noise realisations "
+                  "(all gaps pooled) at or above the value")
+    else:
+        exceed = int(np.sum(null.maxima >= value))
+        fap = false_alarm_probability(null, value)
+        method = (f"simulation: {exceed} of {n} noise realisations had a larger maximum"
+                  if exceed >= TAIL_EXCEEDANCES else
+                  f"simulation tail: {exceed} of {n} noise realisations had a larger maximum; "
+                  "smoothed by the per-gap 2-dof chi-square tail and the effective number of "
+                  "independent gaps, within the simulated range")
+    if fap < floor:
+        return floor, True, (f"upper limit: beyond what {n} noise realisations resolve "
+                             f"(none reached the value); below 1/({n} + 1) no tail model is "
+                             "calibrated")
+    return float(fap), False, method
+
+
 def gaussian_sigma(fap: float) -> float:
     return float(math.sqrt(2.0) * scipy.special.erfcinv(min(max(fap, 1e-300), 1.0)))
 

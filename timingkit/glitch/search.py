@@ -64,6 +64,7 @@ unless named ``_days`` or ``_mjd``.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from decimal import Decimal
 
@@ -95,6 +96,7 @@ from timingkit.glitch.refine import (
     ADEQUATE_REDUCED_CHI2,
     add_decays,
     carry_pulses,
+    fit_without,
     fit_pinned,
     free_flags,
     glitch_keys,
@@ -103,6 +105,7 @@ from timingkit.glitch.refine import (
     localise,
     rebuild_with_glitches,
     refine_epochs,
+    without_glitch,
 )
 from timingkit.glitch.results import (
     LOST_CONNECTION_WARNING,
@@ -146,6 +149,18 @@ def _settle(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse, 
                 res, pulse = localise(res, acc, data, obs, reference, barriers, pulse)
                 barriers = (barriers - {before}) | {acc.gap}
             acc.placed = True
+    else:
+        # a glitch put in the wrong gap by the change point spoils the whole fit: a
+        # move is kept only when it makes the model fit
+        barriers = sync_gaps(found, res.model, data)
+        for acc in [a for a in found if not (a.placed or a.forced or a.known)]:
+            trial = dataclasses.replace(acc)
+            moved, moved_pulse = localise(res, trial, data, obs, reference, barriers, pulse)
+            if moved.reduced_chi2 <= ADEQUATE_REDUCED_CHI2:
+                barriers = (barriers - {acc.gap}) | {trial.gap}
+                acc.__dict__.update(trial.__dict__)
+                acc.placed = True
+                res, pulse = moved, moved_pulse
     sync_gaps(found, res.model, data)
     res, pulse = refine_epochs(res, found, obs, reference, pulse)
     return res, pulse
@@ -167,11 +182,7 @@ def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, refe
         if not err or abs(step) > FORCED_STEP_Z * err:
             continue
         n_free = sum(1 for p in g.parameters() if p.free)
-        sections = [s for s, h in zip(glitch_sections_of(res.model), model_glitches(res.model))
-                    if h.epoch != acc.epoch]
-        free = free_flags(res.model)
-        free.pop(acc.epoch, None)
-        trial = rebuild_with_glitches(res.model, sections, free)
+        trial = without_glitch(res.model, acc.epoch)
         try:
             # the same counts first (the fit moves the other terms into place), then a
             # fresh numbering against that fit, which must connect across the gap
@@ -204,6 +215,46 @@ def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, refe
                         "glitches were fitted; with them in the model it holds, so no glitch "
                         "was forced there")
     return res, pulse
+
+
+def _drop_insignificant(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse,
+                        settings, warnings):
+    """A candidate is significant only if its own fitted steps are: each new
+    candidate found by the scan (not forced, not a known epoch) is kept only when
+    the fit without it (:func:`timingkit.glitch.refine.fit_without`: with a
+    decaying term tried on the glitch before it) is worse by more than the search
+    threshold. A change point in the frequency track just after a glitch is often
+    its unmodelled recovery; once the recovery is fitted nothing is left there.
+    Returns (fit, pulses, number dropped)."""
+    dropped = 0
+    for acc in sorted([a for a in found if not (a.forced or a.known or a.steps_checked)
+                       and a.epoch is not None], key=lambda a: a.epoch):
+        acc.steps_checked = True
+        trial = fit_without(res, acc.epoch, obs, reference, pulse, settings)
+        if trial is None:
+            continue
+        fitted, statistic, dof = trial
+        acc.fit_statistic, acc.fit_dof = statistic, dof
+        if not fitted.converged or statistic >= scipy.stats.chi2.isf(
+                settings.false_alarm_threshold, dof):
+            continue
+        found.remove(acc)
+        dropped += 1
+        gain = (f"improve the fit by only {statistic:.1f} in chi-square for {dof} parameters"
+                if statistic > 0 else "do not improve the fit")
+        warnings.append(
+            f"a change in the frequency track near MJD {float(acc.epoch):.2f} (global "
+            f"false-alarm probability of the scan {_fap_text(acc)}) was not kept as a glitch: "
+            f"fitted, its own steps {gain}, below the search threshold (often the "
+            "unmodelled recovery of an earlier glitch)")
+        res = fitted
+    return res, pulse, dropped
+
+
+def _fap_text(acc: AcceptedGlitch) -> str:
+    if acc.fap is None:
+        return "n/a"
+    return ("< " if acc.fap_upper_limit else "") + f"{acc.fap:.2g}"
 
 
 def search_glitches(model: TimingModel, obs: Observations,
@@ -321,9 +372,11 @@ def search_glitches(model: TimingModel, obs: Observations,
         res, pulse = _settle(res, found, use_obs, reference, pulse, settings)
         res, pulse = _drop_unneeded_forced(res, found, use_obs, reference, pulse, settings,
                                            (f_range, fdot_range), warnings)
+        res, pulse, _ = _drop_insignificant(res, found, use_obs, reference, pulse, settings,
+                                            warnings)
         current, result_fit = res.model, res
-        if known_t is not None:
-            break
+        if known_t is not None or not any(a.search_pass == search_pass for a in found):
+            break       # nothing new is significant
     if result_fit is None:
         try:
             result_fit = fit_pinned(current, use_obs, reference)
@@ -401,7 +454,10 @@ def _candidates(model, res, found: list[AcceptedGlitch]) -> list[GlitchCandidate
             window_frequency_step_hz=acc.df_hz,
             window_frequency_step_uncertainty_hz=acc.df_err_hz,
             bracket_toa_mjd=(text_a, text_b), epoch_choice=choice, model_index=g.array_index,
-            known=acc.known, forced=acc.forced, search_pass=acc.search_pass))
+            known=acc.known, forced=acc.forced, search_pass=acc.search_pass,
+            false_alarm_probability_upper_limit=acc.fap_upper_limit,
+            false_alarm_probability_method=acc.fap_method,
+            fitted_steps_chi2=acc.fit_statistic, fitted_steps_dof=acc.fit_dof))
     out.sort(key=lambda c: c.epoch_mjd)
     return out
 
