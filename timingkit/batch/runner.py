@@ -260,7 +260,7 @@ def _require_dask():
     try:
         import dask.distributed as distributed
     except ImportError:
-        raise InputError(f"--cluster needs Dask, which is not installed; {CLUSTER_INSTALL_HINT}",
+        raise InputError(f"a Dask cluster needs Dask, which is not installed; {CLUSTER_INSTALL_HINT}",
                          field="cluster") from None
     return distributed
 

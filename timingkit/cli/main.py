@@ -41,6 +41,8 @@ def main(argv=None) -> int:
     except (InputError, FitError) as exc:
         if args.debug:
             raise
+        from timingkit.cli.options import name_options
+        name_options(exc)
         print(f"timingkit: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:

@@ -253,6 +253,7 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     model = model.copy()
     prefit_model = model.copy()
     if free is not None:
+        free = [free] if isinstance(free, str) else list(free)   # a string is one name
         for p in model.parameters():
             p.free = p.name in free
     noise = NoiseModel.from_timing_model(model)
@@ -260,7 +261,8 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     names = [name for name in model.free_names if name not in noise_names]
     n = len(obs)
     if not names and not noise_names:
-        raise FitError("no free parameters: list some in [fit] free or with --free "
+        raise FitError("no free parameters: list some in the model's [fit] free, or name "
+                       "some to free when fitting "
                        f"(this model has: {', '.join(model.parameter_names())})")
     if n < len(names) + 1:
         raise FitError(f"only {n} TOAs for {len(names)} free parameters plus the phase offset: "

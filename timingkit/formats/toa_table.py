@@ -10,6 +10,7 @@ import numpy as np
 
 from timingkit.formats.errors import InputError
 from timingkit.formats.mjd_text import MAX_INT_DIGITS, format_mjd, parse_mjd_strings
+from timingkit.formats.quantities import in_unit, is_quantity, is_time, time_to_mjd_parts
 
 REQUIRED_COLUMNS = ("mjd", "err_us", "freq_mhz", "site")
 SPLIT_RE = re.compile(r"[ \t\r\n\v\f,]+")   # field separators: runs of whitespace and/or commas
@@ -108,10 +109,16 @@ class ToaTable:
         return SplitTime(self.mjd_day.copy(), self.mjd_frac.copy(), scale="utc")
 
     @classmethod
-    def from_arrays(cls, mjd_day, mjd_frac, err_us, freq_mhz, site, flags=None,
-                    pulse=None, mjd_text=None) -> "ToaTable":
+    def from_arrays(cls, mjd_day, mjd_frac=None, err_us=None, freq_mhz=None, site=None,
+                    flags=None, pulse=None, mjd_text=None) -> "ToaTable":
         """A table made in code (simulations, selections written back).
 
+        The times are whole MJD days ``mjd_day`` plus fractions ``mjd_frac``, or
+        an astropy ``Time`` as ``mjd_day`` (``mjd_frac`` omitted), converted to
+        each row's scale (UTC at a ground site, TT at the geocentre, TDB at the
+        barycentre) without loss. ``err_us`` and ``freq_mhz`` are numbers in µs
+        and MHz, or astropy quantities, converted (a quantity of another kind
+        is refused).
         ``mjd_day``/``mjd_frac`` are renormalised so the fraction is in [0, 1).
         Without ``mjd_text`` the text is made with 20 significant digits (15
         decimals for 5-digit MJDs, at most 16), and the parts are then set
@@ -120,15 +127,36 @@ class ToaTable:
         to exactly the given parts. ``err_us``, ``freq_mhz``, ``site`` and
         flag values may be scalars (repeated for every TOA).
         """
+        missing = [name for name, v in (("err_us", err_us), ("freq_mhz", freq_mhz),
+                                        ("site", site)) if v is None]
+        if missing:
+            raise InputError(f"give {', '.join(missing)} for the TOAs", field=missing[0])
+        err_us = in_unit(err_us, "us", "err_us")
+        freq_mhz = in_unit(freq_mhz, "MHz", "freq_mhz")
+        if is_time(mjd_day):
+            if mjd_frac is not None:
+                raise InputError("with an astropy Time give no separate MJD fraction",
+                                 field="mjd_frac")
+            sites_in = np.atleast_1d(np.asarray(site, dtype=str))
+            n_rows = max(len(mjd_day) if not mjd_day.isscalar else 1, len(sites_in))
+            mjd_day, mjd_frac = time_to_mjd_parts(
+                mjd_day, np.broadcast_to(sites_in, (n_rows,)))
+        elif is_quantity(mjd_day) or is_quantity(mjd_frac):
+            raise InputError("an MJD given as a quantity is ambiguous (which time scale?): "
+                             "give whole days and fractions as numbers, or an astropy Time",
+                             field="mjd")
         day = np.atleast_1d(np.asarray(mjd_day, dtype=np.float64))
-        frac = np.atleast_1d(np.asarray(mjd_frac, dtype=np.float64))
+        frac = np.atleast_1d(np.asarray(0.0 if mjd_frac is None else mjd_frac,
+                                        dtype=np.float64))
         day, frac = np.broadcast_arrays(day, frac)
         n = len(day)
         if not (np.all(np.isfinite(day)) and np.all(np.isfinite(frac))):
             raise InputError("MJD day and fraction must be finite", field="mjd")
         if np.any(day != np.round(day)):
             i = int(np.flatnonzero(day != np.round(day))[0])
-            raise InputError(f"mjd_day must be whole days (row {i}: {day[i]!r})", field="mjd")
+            raise InputError(f"mjd_day must be whole days (row {i}: {day[i]!r}); give the "
+                             "fraction of the day separately, or an astropy Time (one "
+                             "float64 MJD holds the time only to ~1 µs)", field="mjd")
         shift = np.floor(frac)
         day = day + shift
         frac = frac - shift

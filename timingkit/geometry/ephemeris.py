@@ -79,7 +79,8 @@ class Ephemeris:
             raise InputError(
                 f"{int(bad.sum())} TOA(s) lie outside the ephemeris span "
                 f"MJD {lo:.1f}-{hi:.1f} of {self.label} (first: MJD {tdb.mjd[first]:.6f}); "
-                "use an ephemeris covering the data (settings.ephemeris or --ephemeris)",
+                "use an ephemeris covering the data (settings.ephemeris in the model, or the "
+                "ephemeris option)",
                 path=where)
 
     def posvel(self, body: str, tdb: SplitTime) -> tuple[np.ndarray, np.ndarray]:

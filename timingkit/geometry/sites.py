@@ -93,7 +93,8 @@ class SiteTable:
         site = self._by_label.get(str(name).strip().lower())
         if site is None:
             raise InputError(f"unknown site '{name}'; known sites: {self._known()}. "
-                             "Add sites with a site file (settings.sites or --sites).",
+                             "Add sites with a site file (settings.sites in the model, or the sites "
+                             "option).",
                              field="site")
         return site
 

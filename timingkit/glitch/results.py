@@ -79,20 +79,20 @@ class GlitchSearchSettings:
     def __post_init__(self):
         if self.window_toas is not None and self.window_days is not None:
             raise InputError("give either a window in TOAs or in days, not both",
-                             field="--window-toas/--window-days")
+                             field="window_toas/window_days")
         if self.window_toas is None and self.window_days is None:
             self.window_toas = DEFAULT_WINDOW_TOAS
         if self.window_toas is not None and (int(self.window_toas) != self.window_toas
                                              or self.window_toas < MIN_WINDOW_TOAS):
             raise InputError(f"window must be an integer of at least {MIN_WINDOW_TOAS} TOAs, "
-                             f"found {self.window_toas}", field="--window-toas")
+                             f"found {self.window_toas}", field="window_toas")
         if self.window_days is not None and not (self.window_days > 0 and
                                                  math.isfinite(self.window_days)):
             raise InputError(f"window must be > 0 days, found {self.window_days}",
-                             field="--window-days")
+                             field="window_days")
         if not (self.min_significance > 0 and math.isfinite(self.min_significance)):
             raise InputError(f"minimum significance must be > 0 sigma, found "
-                             f"{self.min_significance}", field="--min-significance")
+                             f"{self.min_significance}", field="min_significance")
         if int(self.null_trials) < 100:
             raise InputError("use at least 100 null trials", field="null_trials")
         if not 0 < self.max_fractional_step < 1e-2:

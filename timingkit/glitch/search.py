@@ -306,7 +306,7 @@ def search_glitches(model: TimingModel, obs: Observations,
                 j = int(np.searchsorted(data.t_s, e) - 1)
                 if j < 0 or j >= n - 1:
                     raise InputError(f"known glitch epoch MJD {spin_epoch + e / SECONDS_PER_DAY:.6f}"
-                                     " is outside the span of the TOAs", field="--known-epochs")
+                                     " is outside the span of the TOAs", field="known_epochs_mjd")
                 known_gaps.append(j)
             known_gaps = sorted(set(known_gaps))
         accepted, limit, notes = scan_pass(data, chains, existing, settings, rng, known_gaps,

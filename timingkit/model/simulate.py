@@ -17,6 +17,7 @@ import numpy as np
 from timingkit.formats.clock_table import ClockTable
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.formats.errors import InputError
+from timingkit.formats.quantities import in_unit
 from timingkit.model.noise import NoiseModel, toa_times_s
 from timingkit.model.timing_model import TimingModel
 from timingkit.geometry.observations import Observations, prepare_observations
@@ -65,6 +66,9 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
     first from the seeded generator, so a seed gives the same white noise with
     or without red noise."""
     rng = np.random.default_rng(seed)
+    error_us = in_unit(error_us, "us", "error_us")
+    freqs_mhz = in_unit(freqs_mhz, "MHz", "freqs_mhz")
+    freqs_mhz = np.atleast_1d(freqs_mhz)
     if times is None:
         day, frac = arrival_times(start_mjd, end_mjd, count, rng)
     else:

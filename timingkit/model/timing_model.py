@@ -141,8 +141,11 @@ class TimingModel:
         return [p.name for p in self.parameters() if p.free]
 
     def set_free(self, names, free: bool = True) -> None:
+        """Free (or fix) the parameters ``names``: a list of names, or one name."""
+        if isinstance(names, str):
+            names = [names]
         for name in names:
-            self.parameter(name, field="--free" if free else "--fix").free = free
+            self.parameter(name, field="free" if free else "fix").free = free
 
     def unconstrained(self, obs: Observations, names: list[str]) -> list[str]:
         """Reasons, naming parameters, why some free parameters cannot be
