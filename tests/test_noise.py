@@ -381,7 +381,14 @@ def test_noise_only_fit_and_report_entry(sites, ephemeris):
     assert rep["parameters"]["red_noise.amplitude_log10"]["uncertainty"] == \
         red["amplitude_log10"]["uncertainty"]
     assert any("power-law" in c for c in rep["cautions"])
-    assert rep["free_parameters"] == 1
+    # the header's count matches the list of fitted parameters (timing and noise)
+    assert rep["free_parameters"] == 2 and rep["free_timing_parameters"] == 1
+    from timingkit.outputs.report import summary_text
+    text = summary_text(rep)
+    assert "2 free parameters (1 timing, 1 noise)" in text.splitlines()[0]
+    listed = text.split("fitted parameters:")[1].split("derived")[0].strip().splitlines()
+    assert [line.split()[0] for line in listed] == ["spin.frequency_hz",
+                                                    "red_noise.amplitude_log10"]
 
 
 def test_noise_realisations_have_the_model_covariance(sites, ephemeris):

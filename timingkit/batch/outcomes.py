@@ -8,6 +8,7 @@ from pathlib import Path
 
 
 STATUS_OK, STATUS_FAILED = "ok", "failed"
+STATUS_NOT_CONVERGED = "not_converged"   # outputs written, the fit did not converge
 
 
 MAX_REASON_CHARS = 300   # a failure's reason is cut to this many characters
@@ -15,7 +16,8 @@ MAX_REASON_CHARS = 300   # a failure's reason is cut to this many characters
 
 @dataclass
 class SourceOutcome:
-    """How one source ended: status ``ok`` or ``failed``; ``reused`` when resume kept
+    """How one source ended: status ``ok``, ``not_converged`` (outputs written and
+    marked) or ``failed``; ``reused`` when resume kept
     the previous result; ``elapsed_s`` and ``worker`` (host:pid) of the fit."""
     name: str
     status: str
@@ -45,14 +47,19 @@ class BatchResult:
         return [o.name for o in self.outcomes if o.status == STATUS_FAILED]
 
     @property
+    def not_converged(self) -> list[str]:
+        return [o.name for o in self.outcomes if o.status == STATUS_NOT_CONVERGED]
+
+    @property
     def refitted(self) -> list[str]:
         """Sources handed to a worker in this run (not kept by resume, not unrunnable)."""
         return [o.name for o in self.outcomes if not o.reused and o.worker]
 
     @property
     def exit_status(self) -> int:
-        """0 when every source succeeded, 3 when some failed (CLI convention)."""
-        return 0 if not self.failed else 3
+        """0 when every source succeeded, 3 when some failed, else 4 when some fits
+        did not converge (CLI convention)."""
+        return 3 if self.failed else 4 if self.not_converged else 0
 
 
 def one_line(text: str) -> str:

@@ -14,7 +14,14 @@ from typing import Any
 
 from timingkit.physics.spin import ASSUMPTIONS as DERIVED_ASSUMPTIONS
 from timingkit.outputs.residual_table import atomic_output
-from timingkit.batch.outcomes import STATUS_FAILED, STATUS_OK, BatchResult, SourceOutcome, one_line
+from timingkit.batch.outcomes import (
+    STATUS_FAILED,
+    STATUS_NOT_CONVERGED,
+    STATUS_OK,
+    BatchResult,
+    SourceOutcome,
+    one_line,
+)
 
 
 SUMMARY_COLUMNS = (
@@ -84,6 +91,8 @@ def summary_row(folder: Path, outcome: SourceOutcome, report: dict | None) -> di
     row.update(source=outcome.name, status=outcome.status, message=outcome.message)
     if outcome.status != STATUS_OK or report is None:
         return row
+    if report.get("converged") is False:
+        outcome.status = row["status"] = STATUS_NOT_CONVERGED
     parameters = report.get("parameters", {})
     derived = report.get("derived", {})
     row.update(
@@ -138,7 +147,7 @@ def write_summaries(result: BatchResult, software: dict[str, str],
         "columns": list(SUMMARY_COLUMNS),
         "sources": result.rows,
         "counts": {"sources": len(result.rows), "ok": len(result.succeeded),
-                   "failed": len(result.failed),
+                   "failed": len(result.failed), "not_converged": len(result.not_converged),
                    "reused": sum(o.reused for o in result.outcomes)},
         "engine": result.engine,
         "elapsed_s": round(result.elapsed_s, 3),
@@ -165,6 +174,8 @@ def write_summaries(result: BatchResult, software: dict[str, str],
         note=(f"{len(result.succeeded)} of {len(result.rows)} source(s) fitted"
               + (f" ({document['counts']['reused']} kept unchanged from the previous run)"
                  if document["counts"]["reused"] else "")
+              + (f", {len(result.not_converged)} did not converge"
+                 if result.not_converged else "")
               + f", {len(result.failed)} failed; engine: {result.engine}; timingkit "
               f"{software.get('timingkit', '?')}; written {document['created_utc']}"))
     return files

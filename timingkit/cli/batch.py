@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 
 from timingkit.formats.errors import InputError
-from timingkit.batch.outcomes import STATUS_FAILED
+from timingkit.batch.outcomes import STATUS_FAILED, STATUS_NOT_CONVERGED
 from timingkit.batch.runner import run_batch
 
 
@@ -16,7 +16,8 @@ def add_parsers(subparsers):
         "batch", help="fit many sources (process pool or Dask cluster)",
         description="Fit every source of a manifest or of a directory of source folders; "
                     "write one folder per source plus summary.csv, summary.json, ppdot.png "
-                    "and overview.html. Exit 0: all fitted; 3: some failed; 2: bad input.")
+                    "and overview.html. Exit 0: all fitted; 3: some failed; 4: none failed but "
+                    "some fits did not converge; 2: bad input.")
     parser.add_argument("inputs", metavar="MANIFEST_OR_DIR",
                         help="TOML manifest ([defaults], [[source]] name/toas/model) or a "
                              "directory whose subfolders each hold a TOA table and a model")
@@ -53,10 +54,13 @@ def run_batch_command(args) -> int:
     reused = sum(o.reused for o in result.outcomes)
     print(f"{len(result.succeeded)} of {len(result.outcomes)} source(s) fitted"
           + (f" ({reused} unchanged, kept)" if reused else "")
+          + (f", {len(result.not_converged)} did NOT converge" if result.not_converged else "")
           + f", {len(result.failed)} failed, in {result.elapsed_s:.1f} s"
           + (f" on {result.engine}" if result.refitted else ""))
     for outcome in result.outcomes:
         if outcome.status == STATUS_FAILED:
             print(f"  failed: {outcome.name}: {outcome.message}")
+        elif outcome.status == STATUS_NOT_CONVERGED:
+            print(f"  not converged: {outcome.name} (outputs marked as not converged)")
     print(f"summary: {result.files['summary_csv']}\noverview: {result.files['overview_html']}")
     return result.exit_status

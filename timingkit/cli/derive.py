@@ -1,4 +1,5 @@
-"""``timingkit derive``: the physics that follows from a model's spin parameters."""
+"""``timingkit derive``: the physics that follows from a model: spin, binary and
+kinematic quantities, as ``timingkit fit`` shows them."""
 
 from __future__ import annotations
 
@@ -6,33 +7,36 @@ import json
 
 
 def add_parsers(sub) -> None:
-    p = sub.add_parser("derive", help="derived physics of a timing model")
+    p = sub.add_parser("derive", help="derived physics of a timing model (spin, binary, "
+                                      "kinematic)")
     p.add_argument("model", help="timing model (TOML)")
     p.add_argument("--json", action="store_true", help="print JSON")
     p.set_defaults(func=cmd_derive)
 
 
-def cmd_derive(args) -> int:
-    from timingkit.pipeline.inputs import load_model
-    from timingkit.outputs.report import derived_for, write_json  # noqa: F401
+def derived_report(model) -> dict:
+    """The derived sections of a fit report, from the model's own values and
+    uncertainties (no fit: the parameters are taken as uncorrelated)."""
+    from timingkit.outputs.report import derived_for
     from timingkit.physics import spin as derived_mod
+    from timingkit.physics.binary_report import extra_report_sections
+    derived = derived_for(model)
+    report = {"source": model.name, "derived": derived, "assumptions": derived_mod.ASSUMPTIONS,
+              "cautions": derived_mod.cautions_for(derived)}
+    report.update(extra_report_sections(model, derived))
+    return report
+
+
+def cmd_derive(args) -> int:
+    from timingkit.outputs.report import _clean, derived_lines
+    from timingkit.pipeline.inputs import load_model
     model = load_model(args.model)
-    d = derived_for(model)
+    report = derived_report(model)
     if args.json:
-        from timingkit.outputs.report import _clean
-        print(json.dumps(_clean({"source": model.name, "derived": d,
-                                 "assumptions": derived_mod.ASSUMPTIONS,
-                                 "cautions": derived_mod.cautions_for(d)}), indent=2))
+        print(json.dumps(_clean(report), indent=2))
         return 0
-    print(f"{model.name}: derived from the spin parameters")
-    for key, q in d.items():
-        if q["value"] is None:
-            print(f"  {key:36s} —  ({q.get('note') or 'not available'})")
-        else:
-            unc = "" if q["uncertainty"] is None else f" ± {q['uncertainty']:.3g}"
-            print(f"  {key:36s} {q['value']:.6g}{unc} {q['unit']}")
-    print(f"  assumptions: {derived_mod.ASSUMPTIONS}")
-    for c in derived_mod.cautions_for(d):
-        if c != derived_mod.ASSUMPTIONS:
-            print(f"  caution: {c}")
+    print(f"{model.name}: derived from the model's values and uncertainties "
+          "(taken as uncorrelated: a fit report uses the fitted covariance)")
+    print("\n".join(line[2:] if line.startswith("  ") else line
+                    for line in derived_lines(report)))
     return 0

@@ -7,7 +7,13 @@ import json
 import os
 import sys
 
-from timingkit.cli.options import add_input_options, progress_enabled
+from timingkit.cli.options import (
+    EXIT_NOT_CONVERGED,
+    add_free_fix_options,
+    add_input_options,
+    converged_status,
+    progress_enabled,
+)
 from timingkit.formats.errors import InputError
 
 
@@ -15,8 +21,8 @@ def add_parsers(sub) -> None:
     p = sub.add_parser("fit", help="fit a timing model to TOAs")
     add_input_options(p)
     p.add_argument("-o", "--outdir", default="timingkit-fit", help="output folder")
-    p.add_argument("--free", nargs="+", default=[], metavar="P", help="parameters to fit")
-    p.add_argument("--fix", nargs="+", default=[], metavar="P", help="parameters to hold fixed")
+    add_free_fix_options(p, "parameters to fit besides the model's [fit] free",
+                         "parameters to hold fixed")
     p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
     p.add_argument("--no-plot", action="store_true", help="skip residuals.png")
     p.add_argument("--suggest", action="store_true",
@@ -25,6 +31,9 @@ def add_parsers(sub) -> None:
                         "(F-test, delta AIC/BIC)")
     p.add_argument("--suggest-level", type=float, default=0.01, metavar="P",
                    help="F-test probability below which an addition is supported (default 0.01)")
+    p.add_argument("--max-iterations", type=int, default=20, metavar="N",
+                   help="linearised fit iterations before giving up (default 20); a fit that "
+                        f"has not converged by then exits with status {EXIT_NOT_CONVERGED}")
     p.add_argument("--glitch-candidate", action="append", default=[], metavar="MJD",
                    help="with --suggest: also try a glitch at this epoch; may be repeated")
     p.set_defaults(func=cmd_fit)
@@ -53,6 +62,9 @@ def cmd_fit(args) -> int:
     from timingkit.outputs.report import summary_text
     if args.glitch_candidate and not args.suggest:
         raise InputError("--glitch-candidate needs --suggest", field="--glitch-candidate")
+    if args.max_iterations < 1:
+        raise InputError(f"--max-iterations must be at least 1, found {args.max_iterations}",
+                         field="--max-iterations")
     if not 0.0 < args.suggest_level < 1.0:
         raise InputError(f"--suggest-level must lie between 0 and 1, found {args.suggest_level}",
                          field="--suggest-level")
@@ -61,13 +73,14 @@ def cmd_fit(args) -> int:
                        make_plots=not args.no_plot, color_by=args.color_by,
                        progress=progress_enabled(), suggest=args.suggest,
                        suggest_level=args.suggest_level,
-                       glitch_epochs_mjd=args.glitch_candidate)
+                       glitch_epochs_mjd=args.glitch_candidate,
+                       max_iterations=args.max_iterations)
     print(summary_text(report))
     spectrum = "" if args.no_plot or "red_noise" not in report.get("noise", {}) else \
         "power_spectrum.png, "
     print(f"\nwrote {args.outdir}/: fitted.toml, residuals.csv, "
           f"{'' if args.no_plot else 'residuals.png, '}{spectrum}report.json")
-    return 0
+    return converged_status(report)
 
 
 def cmd_residuals(args) -> int:

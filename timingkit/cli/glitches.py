@@ -16,6 +16,7 @@ from __future__ import annotations
 import argparse
 import os
 
+from timingkit.cli.options import add_free_fix_options, converged_status, number_list
 from timingkit.glitch.results import DEFAULT_MIN_SIGNIFICANCE, DEFAULT_NULL_TRIALS, GlitchSearchSettings
 from timingkit.pipeline.glitch_run import FIGURE_FILE, GLITCH_FILE, glitch_files
 
@@ -48,8 +49,10 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--min-significance", type=float, default=DEFAULT_MIN_SIGNIFICANCE,
                    metavar="S", help="accept candidates whose global false-alarm probability "
                    f"is below the Gaussian S-sigma two-sided tail (default {DEFAULT_MIN_SIGNIFICANCE})")
-    p.add_argument("--known-epochs", nargs="+", type=_mjd, metavar="MJD",
-                   help="test and fit glitches at these epochs (TDB) instead of searching")
+    p.add_argument("--known-epochs", action="extend", type=number_list(_mjd),
+                   metavar="MJD[,MJD...]",
+                   help="test and fit glitches at these epochs (TDB) instead of searching: a "
+                        "comma list and/or repeated")
     p.add_argument("--null-trials", type=int, default=DEFAULT_NULL_TRIALS, metavar="N",
                    help=f"noise simulations for the false-alarm probabilities "
                         f"(default {DEFAULT_NULL_TRIALS})")
@@ -57,8 +60,7 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
                    help="do not try decaying frequency steps")
     p.add_argument("--seed", type=int, default=GlitchSearchSettings.seed,
                    help="random seed of the null simulations")
-    p.add_argument("--free", nargs="+", default=[], metavar="P", help="also fit these")
-    p.add_argument("--fix", nargs="+", default=[], metavar="P", help="hold these fixed")
+    add_free_fix_options(p, "also fit these", "hold these fixed")
     p.add_argument("--sites", action="append", default=[], metavar="FILE",
                    help="extra site file (TOML); may be repeated")
     p.add_argument("--ephemeris", metavar="BSP", help="JPL SPK ephemeris file")
@@ -80,7 +82,7 @@ def cmd_glitches(args) -> int:
                           clock_paths=args.clock, make_plots=not args.no_plot,
                           color_by=args.color_by, settings=settings)
     print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot))
-    return 0
+    return converged_status(report)
 
 
 def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
@@ -90,7 +92,8 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
     n = len(found["candidates"])
     lines = [f"{report['source']}: {report['toas']} TOAs, {n} glitch candidate"
              f"{'' if n == 1 else 's'}; fitted model reduced chi2 {report['reduced_chi2']:.3f}, "
-             f"weighted rms {report['weighted_rms_us']:.4g} µs"]
+             f"weighted rms {report['weighted_rms_us']:.4g} µs"
+             + ("" if report.get("converged", True) else " (fit NOT CONVERGED)")]
     for c in found["candidates"]:
         fap = c["false_alarm_probability"]
         lines.append(
@@ -111,8 +114,9 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
                      f"{limit['fractional_size']:.2g}")
     if n:
         lines.append(f"  note: {found.get('assumptions', '')}")
+    from timingkit.fit.fitter import LOUD_WARNINGS
     for w in report.get("warnings", []):
-        lines.append(f"warning: {w}")
+        lines.append(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
     figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""
     lines.append(f"wrote {os.path.dirname(glitch_path) or '.'}/: {GLITCH_FILE}, fitted.toml, "
                  f"{figures}residuals.csv, report.json")

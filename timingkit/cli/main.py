@@ -1,13 +1,16 @@
 """The ``timingkit`` command: one subcommand group per module of this folder.
 
 Exit status: 0 success, 2 bad input (one message, no traceback unless
---debug), 1 internal failure (3 from ``batch`` when some sources failed).
+--debug), 1 internal failure, 3 from ``batch`` when some sources failed, 4 when a
+fit did not converge (outputs written and marked as not converged; from
+``batch``: some sources did not converge, none failed).
 """
 
 from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 
 from timingkit import __version__
@@ -33,11 +36,26 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _quiet_after_broken_pipe() -> int:
+    """The reader of our output went away (``| head``): stop quietly. Further
+    writes, including the flush at exit, go to the null device."""
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+    return 0
+
+
 def main(argv=None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     try:
-        return int(args.func(args) or 0)
+        status = int(args.func(args) or 0)
+        sys.stdout.flush()
+        return status
+    except BrokenPipeError:
+        return _quiet_after_broken_pipe()
     except (InputError, FitError) as exc:
         if args.debug:
             raise

@@ -5,6 +5,32 @@ from __future__ import annotations
 import argparse
 
 
+def comma_list(text: str) -> list[str]:
+    """An option value that is a comma-separated list (``a,b,c``)."""
+    items = [item.strip() for item in text.split(",")]
+    if not all(items):
+        raise argparse.ArgumentTypeError(f"expected names separated by commas, found {text!r}")
+    return items
+
+
+def number_list(kind):
+    """A comma-separated list of numbers checked by ``kind`` (a function of one text)."""
+    def parse(text: str) -> list:
+        return [kind(item) for item in comma_list(text)]
+    parse.__name__ = getattr(kind, "__name__", "number")
+    return parse
+
+
+def add_free_fix_options(p: argparse.ArgumentParser, free_help: str, fix_help: str) -> None:
+    """--free and --fix: one value each, a comma list, and repeatable, so they never
+    take the positional arguments that follow them."""
+    p.add_argument("--free", action="extend", type=comma_list, default=[], metavar="P[,P...]",
+                   help=f"{free_help}: a comma list and/or repeated, e.g. --free "
+                        "spin.frequency_hz,dispersion.dm --free position.ra")
+    p.add_argument("--fix", action="extend", type=comma_list, default=[], metavar="P[,P...]",
+                   help=f"{fix_help}: a comma list and/or repeated, like --free")
+
+
 def add_input_options(p: argparse.ArgumentParser) -> None:
     """TOAS and MODEL, plus the files a model may need besides its own settings."""
     p.add_argument("toas", help="TOA table (plain text)")
@@ -15,6 +41,14 @@ def add_input_options(p: argparse.ArgumentParser) -> None:
                    help="JPL SPK ephemeris file (default: the model's settings, else built-in DE421)")
     p.add_argument("--clock", action="append", default=[], metavar="FILE",
                    help="clock-correction table; may be repeated")
+
+
+EXIT_NOT_CONVERGED = 4     # outputs written, every one marked as not converged
+
+
+def converged_status(report: dict) -> int:
+    """Exit status of a command that wrote a fit: 0, or EXIT_NOT_CONVERGED."""
+    return 0 if report.get("converged", True) else EXIT_NOT_CONVERGED
 
 
 # Python argument names (the library's error fields) and the options that set them

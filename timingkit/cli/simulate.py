@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from timingkit.cli.options import number_list
 from timingkit.formats.errors import InputError
 
 
@@ -14,7 +15,9 @@ def add_parsers(sub) -> None:
     p.add_argument("--error-us", type=float, required=True, metavar="E")
     p.add_argument("--site", action="append", required=True, metavar="S",
                    help="site name; repeat to alternate sites")
-    p.add_argument("--freq-mhz", type=float, nargs="+", default=[1400.0], metavar="F")
+    p.add_argument("--freq-mhz", action="extend", type=number_list(float), default=None,
+                   metavar="F[,F...]", help="observing frequencies to cycle through, MHz: a "
+                                            "comma list and/or repeated (default 1400)")
     p.add_argument("--seed", type=int, default=None)
     p.add_argument("--sites", action="append", default=[], metavar="FILE")
     p.add_argument("--ephemeris", metavar="BSP")
@@ -52,7 +55,7 @@ def cmd_simulate(args) -> int:
         flags[name] = values.split(",")
     noise = _simulated_noise(model, args)
     toas = simulate_toas(model, args.start, args.end, args.count, args.error_us, sites, eph,
-                         site_names=args.site, freqs_mhz=args.freq_mhz, seed=args.seed,
+                         site_names=args.site, freqs_mhz=args.freq_mhz or [1400.0], seed=args.seed,
                          clocks=clocks, flags=flags, add_noise=not args.no_noise,
                          reference=reference_observations(model, sites, eph, clocks),
                          noise=noise)

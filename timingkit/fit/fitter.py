@@ -21,6 +21,7 @@ weighted least squares above.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -38,6 +39,13 @@ OFFSET_NAME = "phase_offset_cycles"
 MAX_NOISE_ROUNDS = 6            # alternations of timing fit and noise estimation
 NOISE_TOLERANCE_SIGMA = 0.1     # noise parameters settled when they move less than this
 DEGENERACY_RCOND = 1e-10   # smallest/largest singular value of the scaled matrix
+POOR_FIT_HIGH, POOR_FIT_LOW = 2.0, 0.5   # reduced chi-square this far from 1 ...
+POOR_FIT_PROBABILITY = 1e-3              # ... and this unlikely by chance is a poor fit
+NEAR_DEGENERATE_CORRELATION = 0.9999
+# beginnings of the warnings a summary shows first, in capitals
+NOT_CONVERGED_WARNING = "fit did not converge"
+POOR_FIT_WARNING = "poor fit"
+LOUD_WARNINGS = (NOT_CONVERGED_WARNING, POOR_FIT_WARNING)
 
 
 @dataclass
@@ -303,8 +311,10 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
         warnings.extend(estimate.warnings)
     err_s = solver.err_s
     if not converged:
-        warnings.append(f"fit did not converge in {max_iterations} iterations "
-                        "(parameter changes still above 1e-3 sigma)")
+        warnings.append(f"{NOT_CONVERGED_WARNING} in {max_iterations} iterations (parameter "
+                        f"changes still above {tolerance_sigma:g} sigma): the values written are "
+                        "not a solution; improve the starting model, fit fewer parameters or "
+                        "a shorter span first")
     sig = np.sqrt(np.diag(cov))
     for name, s in zip(names, sig[:-1]):
         model.parameter(name).uncertainty = float(s)
@@ -322,6 +332,8 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
     dof = n - len(columns)
     pinned = obs.toas.pulse is not None
     warnings.extend(_check_phase_connection(prefit, postfit, chi2, dof, pinned))
+    warnings.extend(goodness_warnings(chi2, dof, red_noise=noise.red is not None))
+    warnings.extend(_correlation_warnings(cov, names))
     return FitResult(model=model, prefit_model=prefit_model, prefit=prefit, postfit=postfit,
                      free_names=names, covariance=cov, chi2=chi2, dof=dof,
                      iterations=iterations, converged=converged, warnings=warnings,
@@ -345,6 +357,48 @@ def _noise_summary(solver: _Solver, gls: GlsSolution | None, design, resid, esti
         summary.red_span_s = solver.span_s
         summary.times_s = solver.times_s
     return summary
+
+
+def goodness_warnings(chi2: float, dof: int, red_noise: bool = False) -> list[str]:
+    """A loud warning when the reduced chi-square is far from 1 (beyond
+    POOR_FIT_HIGH / POOR_FIT_LOW) and that far by chance less often than
+    POOR_FIT_PROBABILITY (chi-square distribution with ``dof``)."""
+    if dof <= 0 or not np.isfinite(chi2):
+        return []
+    import scipy.stats
+    reduced = chi2 / dof
+    spread = math.sqrt(2.0 / dof)
+    if reduced > POOR_FIT_HIGH and scipy.stats.chi2.sf(chi2, dof) < POOR_FIT_PROBABILITY:
+        remedies = ("[[white_noise]] terms (error scale, added error) if the TOA uncertainties "
+                    "are underestimated, " + ("" if red_noise else "a [red_noise] section for "
+                    "timing noise, ") + "a glitch search (timingkit glitches) when the "
+                    "residuals jump or turn, or model terms still missing (ask the fit for "
+                    "suggestions)")
+        return [f"{POOR_FIT_WARNING}: reduced chi-square {reduced:.4g} for {dof} degrees of "
+                f"freedom (expected 1 ± {spread:.2g}): the model and the TOA uncertainties do "
+                "not describe the data, and the parameter uncertainties are too small by "
+                f"about a factor {math.sqrt(reduced):.2g}; consider " + remedies]
+    if reduced < POOR_FIT_LOW and scipy.stats.chi2.cdf(chi2, dof) < POOR_FIT_PROBABILITY:
+        return [f"{POOR_FIT_WARNING}: reduced chi-square {reduced:.4g} for {dof} degrees of "
+                f"freedom (expected 1 ± {spread:.2g}): the TOA uncertainties look overestimated "
+                "(or the TOAs are not independent), so the parameter uncertainties are too "
+                "large"]
+    return []
+
+
+def _correlation_warnings(cov: np.ndarray, names: list[str]) -> list[str]:
+    """Pairs of fitted parameters correlated beyond NEAR_DEGENERATE_CORRELATION."""
+    sig = np.sqrt(np.diag(cov))[:len(names)]
+    if len(names) < 2 or not np.all(sig > 0):
+        return []
+    corr = cov[:len(names), :len(names)] / np.outer(sig, sig)
+    i, j = np.nonzero(np.triu(np.abs(corr) > NEAR_DEGENERATE_CORRELATION, 1))
+    pairs = [f"{names[a]} and {names[b]} ({corr[a, b]:+.5f})" for a, b in zip(i, j)]
+    if not pairs:
+        return []
+    return [f"nearly degenerate fit: {'; '.join(pairs)} are almost fully correlated, so their "
+            "values and uncertainties are unreliable; fix one of each pair or add data that "
+            "separate them"]
 
 
 def _check_phase_connection(prefit: ResidualSet, postfit: ResidualSet, chi2: float, dof: int,

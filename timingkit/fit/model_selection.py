@@ -40,7 +40,7 @@ import scipy.stats
 
 from timingkit.formats.errors import FitError, InputError
 from timingkit.fit.fitter import FitResult, fit
-from timingkit.model.parameters import Parameter
+from timingkit.model.parameters import Parameter, derivative_unit
 from timingkit.model.timing_model import OPTIONAL_SECTIONS, TimingModel
 from timingkit.geometry.observations import Observations
 
@@ -127,7 +127,7 @@ def next_derivative_candidate(model: TimingModel) -> Candidate:
 
     def build(m: TimingModel) -> TimingModel:
         m = m.copy()
-        p = Parameter(name, 0.0, f"Hz/s^{k + 1}", high_precision=True,
+        p = Parameter(name, 0.0, derivative_unit("Hz", k + 1), high_precision=True,
                       description=f"frequency derivative {k + 1}")
         m.spin.derivatives.append(p)
         m.parameter(name).free = True

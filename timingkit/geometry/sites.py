@@ -48,6 +48,9 @@ class SiteTable:
             self._register(site)
 
     def _register(self, site: Site, path: str | None = None) -> None:
+        known = self._by_label.get(site.name)
+        if known is not None and known._key()[:4] == site._key()[:4]:
+            return       # the same site again (the same file named twice, or a copy): once
         for label in (site.name, *site.other_names):
             other = self._by_label.get(label)
             if other is not None:
@@ -62,9 +65,16 @@ class SiteTable:
 
     @classmethod
     def with_files(cls, paths: Iterable) -> "SiteTable":
-        """Built-ins plus the sites of each file (names must not clash)."""
+        """Built-ins plus the sites of each file (names must not clash). A file
+        named more than once (by the model and by the caller, say) is read once;
+        a site defined identically in two files is one site."""
         table = cls()
+        seen: set[str] = set()
         for path in paths:
+            key = os.path.normcase(os.path.realpath(os.fspath(path)))
+            if key in seen:
+                continue
+            seen.add(key)
             for site in load_site_file(path):
                 table._register(site, path=os.fspath(path))
         return table

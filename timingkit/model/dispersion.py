@@ -23,7 +23,7 @@ import numpy as np
 from timingkit.geometry import delays
 from timingkit.formats.errors import InputError
 from timingkit.model.base import ModelSection, Evaluation
-from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
+from timingkit.model.parameters import Parameter, derivative_unit, mjd_decimal, mjd_parts
 from timingkit.formats.model_file import Key, take_section
 
 DISPERSION_KEYS = {
@@ -53,7 +53,7 @@ class Dispersion(ModelSection):
                             description="dispersion measure")
         dunc = unc.get("derivatives") or []
         self.derivatives = [
-            Parameter(f"dispersion.derivatives.{k}", v, f"pc cm^-3/yr^{k + 1}",
+            Parameter(f"dispersion.derivatives.{k}", v, derivative_unit("pc cm^-3", k + 1, "yr"),
                       uncertainty=_entry(dunc, k))
             for k, v in enumerate(s["derivatives"])]
         self.offset_ranges = _check_ranges(s["dm_offset_ranges_mjd"], path)

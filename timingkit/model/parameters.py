@@ -54,6 +54,11 @@ class Parameter:
         return repr(self.value)
 
 
+def derivative_unit(unit: str, order: int, per: str = "s") -> str:
+    """Unit of the ``order``-th time derivative: ``Hz/s``, ``Hz/s^2``, ..."""
+    return f"{unit}/{per}" if order == 1 else f"{unit}/{per}^{order}"
+
+
 def mjd_parts(value: Decimal) -> tuple[float, float]:
     """Exact split of a decimal MJD into (whole day, fraction as float64)."""
     day = int(value // 1)

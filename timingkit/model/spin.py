@@ -16,7 +16,7 @@ import numpy as np
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
 from timingkit.model.base import ModelSection, Evaluation
-from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
+from timingkit.model.parameters import Parameter, derivative_unit, mjd_decimal, mjd_parts
 from timingkit.formats.model_file import Key, take_section
 
 SPIN_KEYS = {
@@ -57,7 +57,7 @@ class Spin(ModelSection):
         dunc = unc.get("frequency_derivatives") or []
         self.derivatives = []
         for k, value in enumerate(s["frequency_derivatives"]):
-            p = Parameter(f"spin.frequency_derivatives.{k}", 0.0, f"Hz/s^{k + 1}",
+            p = Parameter(f"spin.frequency_derivatives.{k}", 0.0, derivative_unit("Hz", k + 1),
                           high_precision=True,
                           uncertainty=_finite(dunc[k]) if k < len(dunc) else None,
                           description=f"frequency derivative {k + 1}")

@@ -10,12 +10,12 @@ import numpy as np
 
 from timingkit.physics import spin as derived_mod
 from timingkit.physics.binary_report import extra_report_sections
-from timingkit.physics.binary_report import summary_lines as binary_summary_lines
-from timingkit.fit.fitter import FitResult, ResidualSet
+from timingkit.fit.fitter import LOUD_WARNINGS, FitResult, ResidualSet
 from timingkit.model.astrometry import angle_entry, format_dec, format_ra
 from timingkit.model.timing_model import TimingModel
 from timingkit.formats.model_file import atomic_write_text
 from timingkit.outputs.noise_outputs import noise_report_entry
+from timingkit.outputs.numbers import angle_text, format_quantity, format_value
 from timingkit.geometry.observations import Observations
 from timingkit.outputs.residual_table import ResidualTable
 
@@ -46,24 +46,21 @@ def parameter_entry(model: TimingModel, name: str, prefit: TimingModel | None = 
 
 
 def derived_for(model: TimingModel, result: FitResult | None = None) -> dict:
-    """Derived physics from the model's spin; covariance from the fit when the
-    spin terms were fitted, else the model's own uncertainties (diagonal)."""
+    """Derived physics from the model's spin: the fit's covariance for the spin
+    terms it fitted, the model's own uncertainties (uncorrelated) for the others;
+    a quantity that needs a term without an uncertainty gets none."""
     spin = model.spin
-    names = [spin.frequency.name] + [p.name for p in spin.derivatives[:2]]
-    values = [spin.frequency.value] + [p.value for p in spin.derivatives[:2]]
-    cov = np.zeros((len(names), len(names)))
-    have = True
-    for i, name in enumerate(names):
-        p = model.parameter(name)
-        if p.uncertainty is None:
-            have = False
-        else:
-            cov[i, i] = p.uncertainty ** 2
-    if result is not None and all(n in result.free_names for n in names):
-        idx = [result.free_names.index(n) for n in names]
-        cov = result.covariance[np.ix_(idx, idx)]
-        have = True
-    return derived_mod.derive_spin(values[0], values[1:], cov if have else None)
+    params = [spin.frequency] + list(spin.derivatives[:2])
+    cov = np.diag([(p.uncertainty or 0.0) ** 2 for p in params])
+    measured = [p.uncertainty is not None and p.uncertainty > 0 for p in params]
+    if result is not None:
+        fitted = [(k, result.free_names.index(p.name)) for k, p in enumerate(params)
+                  if p.name in result.free_names]
+        for a, ia in fitted:
+            for b, ib in fitted:
+                cov[a, b] = result.covariance[ia, ib]
+    return derived_mod.derive_spin(params[0].value, [p.value for p in params[1:]],
+                                   cov if any(measured) else None, measured=measured)
 
 
 def build_report(result: FitResult, obs: Observations, source_path: str | None = None) -> dict:
@@ -75,7 +72,8 @@ def build_report(result: FitResult, obs: Observations, source_path: str | None =
     report = {
         "source": model.name,
         "toas": int(len(obs)),
-        "free_parameters": len(result.free_names),
+        "free_parameters": len(model.free_names),     # timing and noise
+        "free_timing_parameters": len(result.free_names),
         "chi2": float(result.chi2),
         "dof": int(result.dof),
         "reduced_chi2": float(result.reduced_chi2),
@@ -112,7 +110,8 @@ def settings_entry(obs: Observations) -> dict:
 def residual_table(obs: Observations, res: ResidualSet) -> ResidualTable:
     toas = obs.toas
     return ResidualTable(
-        mjd_text=toas.mjd_text, mjd=toas.mjd_day + toas.mjd_frac, site=toas.site,
+        mjd_text=toas.mjd_text, mjd=toas.mjd_day + toas.mjd_frac,
+        site=obs.site_names,            # other names merged into the site's name
         freq_mhz=toas.freq_mhz, err_us=toas.err_us, residual_us=res.time_s * 1e6,
         residual_phase=res.phase, pulse_number=np.round(res.pulse_number).astype(np.int64),
         flags=dict(toas.flags))
@@ -136,8 +135,8 @@ def _clean(x):
 
 
 def _noise_value(entry: dict) -> str:
-    unc = "" if entry.get("uncertainty") is None else f" ± {entry['uncertainty']:.3g}"
-    return f"{entry['value']:.4g}{unc}" + (" (fitted)" if entry.get("free") else "")
+    return format_value(entry["value"], entry.get("uncertainty")) + \
+        (" (fitted)" if entry.get("free") else "")
 
 
 def noise_summary_lines(noise: dict) -> list[str]:
@@ -156,33 +155,71 @@ def noise_summary_lines(noise: dict) -> list[str]:
     return lines
 
 
-def summary_text(report: dict) -> str:
-    """Short human summary of a fit report for the terminal."""
-    lines = [f"source {report['source']}: {report['toas']} TOAs, "
-             f"{report['free_parameters']} free parameters, {report['iterations']} iterations"
-             + ("" if report["converged"] else " (NOT converged)"),
-             f"  chi2 = {report['chi2']:.2f} for {report['dof']} dof "
-             f"(reduced {report['reduced_chi2']:.3f}); rms {report['rms_us']:.4g} µs, "
-             f"weighted rms {report['weighted_rms_us']:.4g} µs (pre-fit rms "
-             f"{report['prefit_rms_us']:.4g} µs)", "", "  fitted parameters:"]
-    for name, e in report["parameters"].items():
-        if not e["free"]:
+def parameter_line(name: str, entry: dict) -> str:
+    """One fitted parameter for the terminal: rounded to its uncertainty."""
+    if entry.get("value") is not None and "(uncertainty in mas)" in str(entry.get("unit", "")):
+        return f"    {name:40s} {angle_text(name, entry['degrees'], entry['uncertainty'])}"
+    return f"    {name:40s} " + format_quantity(entry["value"], entry.get("uncertainty"),
+                                               entry.get("unit"))
+
+
+def quantity_lines(quantities: dict, width: int = 40) -> list[str]:
+    """Derived quantities (value, uncertainty, unit, note) for the terminal: a
+    value whose inputs carry no uncertainty is shown without one, and says so."""
+    lines = []
+    for key, q in quantities.items():
+        if q.get("value") is None:
+            lines.append(f"    {key:{width}s} —  ({q.get('note') or 'not available'})")
             continue
-        unc = "" if e["uncertainty"] is None else f" ± {e['uncertainty']:.3g}"
-        lines.append(f"    {name:40s} {e['value']}{unc}  {e.get('unit', '')}")
-    lines.append("")
-    lines.append("  derived (assumptions below):")
-    for key, q in report["derived"].items():
-        if q["value"] is None:
-            lines.append(f"    {key:40s} —  ({q.get('note') or 'not available'})")
+        text = format_quantity(q["value"], q.get("uncertainty"), q.get("unit"))
+        if not q.get("uncertainty"):
+            text += "  (no uncertainty: inputs not measured)"
+        lines.append(f"    {key:{width}s} {text}")
+    return lines
+
+
+def derived_lines(report: dict) -> list[str]:
+    """The derived spin, binary and kinematic quantities with the assumptions and
+    cautions (the same for ``fit`` and ``derive``)."""
+    lines = ["  derived (assumptions below):"] + quantity_lines(report["derived"])
+    for key, title in (("derived_binary", "binary"), ("derived_kinematic", "kinematic")):
+        sec = report.get(key)
+        if not sec:
             continue
-        unc = "" if q["uncertainty"] is None else f" ± {q['uncertainty']:.3g}"
-        lines.append(f"    {key:40s} {q['value']:.6g}{unc}")
-    lines.extend(binary_summary_lines(report))
+        lines.append(f"  derived ({title}{', ' + sec['model'] if 'model' in sec else ''}):")
+        if key == "derived_kinematic":
+            lines.append(f"    {'distance_kpc':40s} "
+                         + format_quantity(sec["distance_kpc"], sec["distance_uncertainty_kpc"],
+                                           "kpc") + f"  ({sec['distance_source']})")
+        lines += quantity_lines(sec["quantities"])
+        for c in sec.get("cautions", []):
+            lines.append(f"  caution: {c}")
     lines.append(f"  assumptions: {report['assumptions']}")
     for c in report.get("cautions", []):
         if c != report["assumptions"]:
             lines.append(f"  caution: {c}")
+    return lines
+
+
+def summary_text(report: dict) -> str:
+    """Short human summary of a fit report for the terminal."""
+    free = [name for name, e in report["parameters"].items() if e["free"]]
+    timing = report.get("free_timing_parameters", len(free))
+    split = f" ({timing} timing, {len(free) - timing} noise)" if timing != len(free) else ""
+    lines = [f"source {report['source']}: {report['toas']} TOAs, "
+             f"{len(free)} free parameter{'' if len(free) == 1 else 's'}{split}, "
+             f"{report['iterations']} iterations"
+             + ("" if report["converged"] else " (NOT CONVERGED)")]
+    for w in report["warnings"]:
+        if w.startswith(LOUD_WARNINGS):
+            lines.append(f"  WARNING: {w}")
+    lines += [f"  chi2 = {report['chi2']:.2f} for {report['dof']} dof "
+              f"(reduced {report['reduced_chi2']:.3f}); rms {report['rms_us']:.4g} µs, "
+              f"weighted rms {report['weighted_rms_us']:.4g} µs (pre-fit rms "
+              f"{report['prefit_rms_us']:.4g} µs)", "", "  fitted parameters:"]
+    lines += [parameter_line(name, report["parameters"][name]) for name in free]
+    lines.append("")
+    lines += derived_lines(report)
     if "noise" in report:
         lines.extend(noise_summary_lines(report["noise"]))
     if "suggestions" in report:
@@ -191,5 +228,6 @@ def summary_text(report: dict) -> str:
     s = report["settings"]
     lines.append(f"  ephemeris: {s['ephemeris']}; clock corrections: {s['clock_corrections']}")
     for w in report["warnings"]:
-        lines.append(f"  warning: {w}")
+        if not w.startswith(LOUD_WARNINGS):
+            lines.append(f"  warning: {w}")
     return "\n".join(lines)

@@ -185,6 +185,7 @@ def _proper_motion(model, result=None):
     err = None
     if "pm_lon_coslat_err" in icrs and mu > 0:
         err = math.hypot(mu_a * icrs["pm_lon_coslat_err"], mu_d * icrs["pm_lat_err"]) / mu
+        err = err or None          # a proper motion held fixed is not measured: no "± 0"
     l_deg, b_deg = dbin.galactic_from_icrs(math.degrees(icrs["lon_rad"]),
                                            math.degrees(icrs["lat_rad"]))
     return mu, err, l_deg, b_deg
@@ -256,24 +257,5 @@ def extra_report_sections(model, spin_derived: dict | None, result=None) -> dict
     return out
 
 
-def summary_lines(report: dict) -> list[str]:
-    """Terminal lines for the sections above (used by report.summary_text)."""
-    lines = []
-    for key, title in (("derived_binary", "binary"), ("derived_kinematic", "kinematic")):
-        sec = report.get(key)
-        if not sec:
-            continue
-        lines.append(f"  derived ({title}{', ' + sec['model'] if 'model' in sec else ''}):")
-        for name, q in sec["quantities"].items():
-            if q.get("value") is None:
-                lines.append(f"    {name:40s} —  ({q.get('note') or 'not available'})")
-                continue
-            unc = "" if q.get("uncertainty") is None else f" ± {q['uncertainty']:.3g}"
-            lines.append(f"    {name:40s} {q['value']:.6g}{unc} {q.get('unit', '')}".rstrip())
-        for c in sec.get("cautions", []):
-            lines.append(f"  caution: {c}")
-    return lines
-
-
 __all__ = ["extra_report_sections", "derive_binary", "derive_kinematic", "distance_for",
-           "masses_from_advance_and_einstein", "summary_lines"]
+           "masses_from_advance_and_einstein"]

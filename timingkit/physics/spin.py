@@ -154,7 +154,8 @@ def _propagate(gradient: Sequence[float], cov: np.ndarray | None) -> float | Non
 
 
 def derive_spin(frequency_hz: float, frequency_derivatives: Sequence[float],
-                covariance: Any = None) -> dict[str, dict[str, Any]]:
+                covariance: Any = None,
+                measured: Sequence[bool] | None = None) -> dict[str, dict[str, Any]]:
     """Derived spin quantities from nu (Hz) and [nu_dot (Hz/s), nu_ddot, ...].
 
     ``covariance`` is the covariance matrix of (nu, nu_dot[, nu_ddot, ...]) in
@@ -164,6 +165,9 @@ def derive_spin(frequency_hz: float, frequency_derivatives: Sequence[float],
     surface_dipole_field_gauss, surface_dipole_field_tesla,
     spin_down_luminosity_erg_per_s, light_cylinder_field_gauss`` and, only
     when nu_ddot is given, ``braking_index``; each in the shape of
+    :func:`quantity`. ``measured``: which of (nu, nu_dot, ...) carry an
+    uncertainty (default: all); a quantity that depends on an unmeasured one
+    gets no uncertainty (not a smaller one). Each is in the shape of
     :func:`quantity`.  A pulsar that spins up (nu_dot >= 0) gets None for the
     quantities that assume magnetic braking, with a note, never a NaN.
     Accuracy: the formulae are exact given their assumptions; the
@@ -184,6 +188,10 @@ def derive_spin(frequency_hz: float, frequency_derivatives: Sequence[float],
 
     def put(key, value, gradient=None, note=None):
         unc = None if (value is None or gradient is None) else _propagate(gradient, cov)
+        if unc is not None and measured is not None and any(
+                g != 0 and not (i < len(measured) and measured[i])
+                for i, g in enumerate(gradient)):
+            unc = None
         out[key] = quantity(value, unc, _UNITS[key], _ASSUME[key], note)
 
     # Period: P = 1/nu, dP/dnu = -1/nu^2.
@@ -327,8 +335,9 @@ def cautions_for(derived: dict[str, dict[str, Any]]) -> list[str]:
         cautions.append(
             "short-period (recycled) pulsar: the Shklovskii effect and Galactic "
             "or cluster acceleration can be a large part of the observed period "
-            "derivative; correct it (derived_binary.intrinsic_spin) before "
-            "reading age, field or luminosity")
+            "derivative; correct it for them before reading age, field or "
+            "luminosity (with proper motion and a distance or parallax in the "
+            "model, the kinematic section gives the intrinsic values)")
 
     age = derived.get("characteristic_age_yr", {}).get("value")
     if age is not None and age > _UNIVERSE_AGE_YR:

@@ -19,7 +19,7 @@ def barycentre_rows(inputs: Inputs):
     total = ev.roemer_s - ev.shapiro_s - ev.dispersion_s - ev.other_delay_s - ev.binary_s
     bary = obs.tdb.add_seconds(total)
     return {
-        "mjd": obs.toas.mjd_text, "site": obs.toas.site, "freq_mhz": obs.toas.freq_mhz,
+        "mjd": obs.toas.mjd_text, "site": obs.site_names, "freq_mhz": obs.toas.freq_mhz,
         "tdb_mjd": obs.tdb.mjd_strings(15), "roemer_s": ev.roemer_s, "shapiro_s": ev.shapiro_s,
         "dispersion_s": ev.dispersion_s, "binary_s": ev.binary_s,
         "barycentric_mjd": bary.mjd_strings(15),

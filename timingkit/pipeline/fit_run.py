@@ -18,8 +18,14 @@ from timingkit.outputs.report import build_report, residual_table, settings_entr
 from timingkit.pipeline.inputs import Inputs, load_inputs
 
 
+NOT_CONVERGED_MARK = "NOT CONVERGED"
+
+
 def _fitted_comment(report: dict) -> str:
-    return (f"fitted by timingkit {report['timingkit_version']}: {report['toas']} TOAs, "
+    mark = "" if report["converged"] else (
+        f"{NOT_CONVERGED_MARK}: the fit stopped after {report['iterations']} iterations with "
+        "parameters still moving; these values are not a solution\n")
+    return mark + (f"fitted by timingkit {report['timingkit_version']}: {report['toas']} TOAs, "
             f"reduced chi2 {report['reduced_chi2']:.3f}, weighted rms "
             f"{report['weighted_rms_us']:.4g} us\n"
             f"ephemeris: {report['settings']['ephemeris']}; clock corrections: "
@@ -28,12 +34,14 @@ def _fitted_comment(report: dict) -> str:
 
 def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = True,
                color_by: str = "site", progress: bool = False, suggest: bool = False,
-               suggest_level: float = 0.01, glitch_epochs_mjd=()) -> tuple[FitResult, dict]:
+               suggest_level: float = 0.01, glitch_epochs_mjd=(),
+               max_iterations: int = 20) -> tuple[FitResult, dict]:
     """Fit, build the report and (with ``outdir``) write the outputs. With
     ``suggest``: also try the candidate additions (timingkit.fit.model_selection)
     and list them under ``suggestions`` in the report."""
     bar = _stage_bar(progress, "fitting")
     result = fit(inputs.model, inputs.obs, reference=inputs.reference,
+                 max_iterations=max_iterations,
                  progress=(lambda k: bar.set_postfix_str(f"iteration {k}")) if bar else None)
     report = build_report(result, inputs.obs)
     if bar:
@@ -75,7 +83,8 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
         red = result.noise is not None and result.noise.red_realisation_s is not None
         path = os.path.join(outdir, "residuals.png")
         fig = plot_residuals(post, prefit=pre, color_by=color_by,
-                             title=f"{report['source']}: {report['toas']} TOAs",
+                             title=f"{report['source']}: {report['toas']} TOAs"
+                             + ("" if report["converged"] else f" ({NOT_CONVERGED_MARK})"),
                              frequency_hz=result.model.spin.frequency.value,
                              path=None if red else path)
         if red:   # ML red-noise curve on the post-fit panel, and power_spectrum.png
@@ -103,10 +112,12 @@ def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color
 
 def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(), ephemeris=None,
               clock_paths=(), make_plots=True, progress=False, color_by="site",
-              suggest=False, suggest_level=0.01, glitch_epochs_mjd=()) -> dict:
+              suggest=False, suggest_level=0.01, glitch_epochs_mjd=(),
+              max_iterations=20) -> dict:
     """Fit one source from its files and write fitted.toml, residuals.csv,
     residuals.png and report.json into ``outdir`` (with red noise also
-    power_spectrum.png). Returns the report dict."""
+    power_spectrum.png). Returns the report dict; ``report["converged"]`` is
+    False (and every output says so) when the fit did not converge."""
     if progress:
         import sys
         print("reading and barycentring the TOAs ...", file=sys.stderr, flush=True)
@@ -114,7 +125,7 @@ def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
                          ephemeris=ephemeris, clock_paths=clock_paths)
     _, report = fit_inputs(inputs, outdir, make_plots=make_plots, color_by=color_by,
                            progress=progress, suggest=suggest, suggest_level=suggest_level,
-                           glitch_epochs_mjd=glitch_epochs_mjd)
+                           glitch_epochs_mjd=glitch_epochs_mjd, max_iterations=max_iterations)
     return report
 
 
