@@ -307,8 +307,10 @@ free = ["position.ra", "binary.eccentricity", "binary.projected_semi_major_axis_
     assert src.read_text() == before                          # input untouched
     e = TimingModel.from_file(str(tmp_path / "e.toml"))
     assert e.astrometry.frame == "ecliptic"
+    # the free list is kept: the eccentricity is carried by e sin w and e cos w
     assert set(e.free_names) == {"position.ecliptic_longitude_deg",
-                                 "binary.projected_semi_major_axis_lt_s"}
+                                 "binary.projected_semi_major_axis_lt_s",
+                                 "binary.e_sin_omega", "binary.e_cos_omega"}
     assert main(["convert", str(tmp_path / "e.toml"), "--frame", "equatorial", "--binary-model",
                  "keplerian", "-o", str(tmp_path / "b.toml")]) == 0
     b = TimingModel.from_file(str(tmp_path / "b.toml"))

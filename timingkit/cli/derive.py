@@ -15,8 +15,8 @@ def add_parsers(sub) -> None:
 
 
 def derived_report(model) -> dict:
-    """The derived sections of a fit report, from the model's own values and
-    uncertainties (no fit: the parameters are taken as uncorrelated)."""
+    """The derived sections of a fit report, from the model's own values,
+    uncertainties and [correlation] section (as a fitted model carries them)."""
     from timingkit.outputs.report import derived_for
     from timingkit.physics import spin as derived_mod
     from timingkit.physics.binary_report import extra_report_sections
@@ -35,8 +35,7 @@ def cmd_derive(args) -> int:
     if args.json:
         print(json.dumps(_clean(report), indent=2))
         return 0
-    print(f"{model.name}: derived from the model's values and uncertainties "
-          "(taken as uncorrelated: a fit report uses the fitted covariance)")
+    print(f"{model.name}: derived from the model's values, uncertainties and correlations")
     print("\n".join(line[2:] if line.startswith("  ") else line
                     for line in derived_lines(report)))
     return 0

@@ -30,6 +30,7 @@ import scipy.linalg
 from timingkit.formats.errors import FitError
 from timingkit.fit.gls import FourierFactor, GlsSolution, gls_solve, marginal_log_likelihood
 from timingkit.model.base import Evaluation
+from timingkit.model.correlations import set_covariance
 from timingkit.model.noise import NoiseModel, fourier_frequencies_hz, toa_times_s
 from timingkit.model.timing_model import TimingModel
 from timingkit.fit.noise_fit import NoiseEstimate, fit_noise
@@ -315,9 +316,9 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
                         f"changes still above {tolerance_sigma:g} sigma): the values written are "
                         "not a solution; improve the starting model, fit fewer parameters or "
                         "a shorter span first")
-    sig = np.sqrt(np.diag(cov))
-    for name, s in zip(names, sig[:-1]):
-        model.parameter(name).uncertainty = float(s)
+    # uncertainties and the correlations of the fitted parameters (the phase
+    # offset is not a model parameter): written with the fitted model
+    set_covariance(model, names, cov[:-1, :-1])
     final = compute_residuals(model, obs, pulse, reference, subtract_mean=False)
     # remove the fitted phase offset exactly as the last linear solve placed it
     design = model.design_matrix(final.evaluation, names) / final.evaluation.spin_frequency_hz[:, None]

@@ -219,6 +219,12 @@ def _write_table(lines: list[str], header: str | None, table: dict, array: bool 
     for key, value in scalars.items():
         if value is None:
             continue
+        if isinstance(value, list) and len(value) > 1 and all(isinstance(v, list) for v in value):
+            # a matrix (correlations, MJD ranges): one row per line
+            lines.append(f"{key} = [")
+            lines.extend(f"  {_format_value(row)}," for row in value)
+            lines.append("]")
+            continue
         lines.append(f"{key} = {_format_value(value)}")
     for key, value in subtables.items():
         _write_table(lines, f"{header}.{key}" if header else key, value)

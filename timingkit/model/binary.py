@@ -50,8 +50,8 @@ import numpy as np
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
 from timingkit.model.base import ModelSection, Evaluation
-from timingkit.model.binary_orbits import (EccentricOrbit, LowEccentricityOrbit, ShapiroForm,
-                                           SOLAR_MASS_TIME_S)
+from timingkit.model.binary_orbits import (DEG_PER_YR_TO_RAD_PER_S, EccentricOrbit,
+                                           LowEccentricityOrbit, ShapiroForm, SOLAR_MASS_TIME_S)
 from timingkit.model.parameters import Parameter
 from timingkit.formats.model_file import Key, take_section
 
@@ -274,10 +274,13 @@ def orbital_phase_cycles(ev: Evaluation) -> np.ndarray | None:
 
 def low_eccentricity_section(keplerian: dict) -> dict:
     """A ``[binary]`` section (dict) of a keplerian/relativistic orbit written
-    in the low-eccentricity form: e sin w, e cos w and t_asc = t_peri - w Pb / 2 pi
-    (exact at the epoch; rates of e and w are not carried over)."""
+    in the low-eccentricity form: e sin w, e cos w, t_asc = t_peri - w Pb / 2 pi,
+    and the rates d(e sin w)/dt = e' sin w + e w' cos w, d(e cos w)/dt =
+    e' cos w - e w' sin w (exact at the epoch)."""
     e = float(keplerian["eccentricity"])
     w = math.radians(float(keplerian["periastron_longitude_deg"]))
+    e_rate = float(keplerian.get("eccentricity_derivative_per_s", 0.0))
+    w_rate = float(keplerian.get("periastron_advance_deg_per_yr", 0.0)) * DEG_PER_YR_TO_RAD_PER_S
     period_days = Decimal(str(keplerian["orbital_period_days"]))
     periastron_epoch = Decimal(str(keplerian["periastron_epoch_mjd"]))
     ascending_node_epoch = periastron_epoch - period_days * Decimal(repr(w / (2 * math.pi)))
@@ -287,6 +290,9 @@ def low_eccentricity_section(keplerian: dict) -> dict:
             out[key] = keplerian[key]
     out.update({"e_sin_omega": e * math.sin(w), "e_cos_omega": e * math.cos(w),
                 "ascending_node_epoch_mjd": str(ascending_node_epoch)})
+    if e_rate or w_rate:
+        out["e_sin_omega_derivative_per_s"] = e_rate * math.sin(w) + e * w_rate * math.cos(w)
+        out["e_cos_omega_derivative_per_s"] = e_rate * math.cos(w) - e * w_rate * math.sin(w)
     for key in (*_SHAPIRO_RANGE, *_SHAPIRO_MASS):
         if key in keplerian:
             out[key] = keplerian[key]
@@ -295,10 +301,13 @@ def low_eccentricity_section(keplerian: dict) -> dict:
 
 def keplerian_section(low_e: dict, model: str = "keplerian") -> dict:
     """The inverse of :func:`low_eccentricity_section`: e = hypot(h, k),
-    w = atan2(h, k), t_peri = t_asc + w Pb / 2 pi."""
+    w = atan2(h, k), t_peri = t_asc + w Pb / 2 pi, e' = h' sin w + k' cos w,
+    w' = (h' cos w - k' sin w) / e."""
     eta, kappa = float(low_e.get("e_sin_omega", 0.0)), float(low_e.get("e_cos_omega", 0.0))
     e = math.hypot(eta, kappa)
     w = math.atan2(eta, kappa) % (2 * math.pi)
+    eta_rate = float(low_e.get("e_sin_omega_derivative_per_s", 0.0))
+    kappa_rate = float(low_e.get("e_cos_omega_derivative_per_s", 0.0))
     period_days = Decimal(str(low_e["orbital_period_days"]))
     ascending_node_epoch = Decimal(str(low_e["ascending_node_epoch_mjd"]))
     out = {"model": model}
@@ -308,6 +317,10 @@ def keplerian_section(low_e: dict, model: str = "keplerian") -> dict:
     periastron_epoch = ascending_node_epoch + period_days * Decimal(repr(w / (2 * math.pi)))
     out.update({"eccentricity": e, "periastron_longitude_deg": math.degrees(w),
                 "periastron_epoch_mjd": str(periastron_epoch)})
+    if (eta_rate or kappa_rate) and e > 0:
+        out["eccentricity_derivative_per_s"] = eta_rate * math.sin(w) + kappa_rate * math.cos(w)
+        out["periastron_advance_deg_per_yr"] = ((eta_rate * math.cos(w) - kappa_rate * math.sin(w))
+                                                / e / DEG_PER_YR_TO_RAD_PER_S)
     if model != "keplerian":
         for key in (*_SHAPIRO_RANGE, *_SHAPIRO_MASS):
             if key in low_e:

@@ -268,6 +268,9 @@ def set_glitches(model, sections: list[dict], free: list[str] | tuple = ()) -> N
                 p.free = True
     model.extra = others + glitches
     model._by_name = {p.name: p for p in model.parameters()}
+    # glitches renumbered: correlations of the old ones no longer apply
+    model.correlations = {k: v for k, v in getattr(model, "correlations", {}).items()
+                          if not (k[0].startswith("glitch.") or k[1].startswith("glitch."))}
 
 
 def _finite(x):

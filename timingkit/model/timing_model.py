@@ -15,6 +15,7 @@ from timingkit.model.astrometry import Astrometry
 from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.dispersion import Dispersion
 from timingkit.model.binary import build_binary
+from timingkit.model.correlations import correlation_section, read_correlations
 from timingkit.model.glitch import build_glitches
 from timingkit.model.group_offsets import build_group_offsets
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
@@ -43,7 +44,8 @@ PHASE_ZERO_KEYS = {
 OPTIONAL_SECTIONS: dict[str, object] = {"glitch": build_glitches, "binary": build_binary,
                                       "time_offset": build_group_offsets}
 
-CORE_SECTIONS = ("name", "position", "spin", "dispersion", "phase_zero", "fit", "settings")
+CORE_SECTIONS = ("name", "position", "spin", "dispersion", "phase_zero", "fit", "settings",
+                 "correlation")
 
 
 class TimingModel:
@@ -83,6 +85,9 @@ class TimingModel:
         self._by_name = {p.name: p for p in self.parameters()}
         for name in fit["free"]:
             self.parameter(name, path=path, field="fit.free").free = True
+        self.correlations: dict[tuple[str, str], float] = {}   # timingkit.model.correlations
+        if "correlation" in data:
+            self.correlations = read_correlations(data["correlation"], self, path)
 
     # ------------------------------------------------------------ construction
     @classmethod
@@ -233,6 +238,9 @@ class TimingModel:
         settings = {k: v for k, v in self.settings.items() if v not in (None, [], False)}
         if settings:
             doc["settings"] = settings
+        correlation = correlation_section(self) if include_uncertainty else None
+        if correlation:
+            doc["correlation"] = correlation
         return doc
 
     def _add_uncertainties(self, doc: dict) -> None:

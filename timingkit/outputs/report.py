@@ -12,6 +12,7 @@ from timingkit.physics import spin as derived_mod
 from timingkit.physics.binary_report import extra_report_sections
 from timingkit.fit.fitter import LOUD_WARNINGS, FitResult, ResidualSet
 from timingkit.model.astrometry import angle_entry, format_dec, format_ra
+from timingkit.model.correlations import covariance_of
 from timingkit.model.timing_model import TimingModel
 from timingkit.formats.model_file import atomic_write_text
 from timingkit.outputs.noise_outputs import noise_report_entry
@@ -47,11 +48,11 @@ def parameter_entry(model: TimingModel, name: str, prefit: TimingModel | None = 
 
 def derived_for(model: TimingModel, result: FitResult | None = None) -> dict:
     """Derived physics from the model's spin: the fit's covariance for the spin
-    terms it fitted, the model's own uncertainties (uncorrelated) for the others;
+    terms it fitted, else the model's uncertainties and [correlation] section;
     a quantity that needs a term without an uncertainty gets none."""
     spin = model.spin
     params = [spin.frequency] + list(spin.derivatives[:2])
-    cov = np.diag([(p.uncertainty or 0.0) ** 2 for p in params])
+    cov = covariance_of(model, [p.name for p in params])     # with the model's correlations
     measured = [p.uncertainty is not None and p.uncertainty > 0 for p in params]
     if result is not None:
         fitted = [(k, result.free_names.index(p.name)) for k, p in enumerate(params)
