@@ -25,9 +25,22 @@ compare timing models under the same noise.
 
 An addition is listed as *supported* when its F-test probability is below
 the chosen level (default 1 %); delta AIC and BIC are reported beside it.
-Candidates: the next spin-frequency derivative; each fixed parameter of a
-binary section (when the model has one); a glitch at given epochs (when
-the glitch section is available).
+Candidates: the next spin-frequency derivative; the next dispersion-measure
+derivative; the astrometric terms held fixed (position, proper motion,
+parallax); each fixed parameter of a binary section (when the model has one;
+the companion Shapiro delay's two parameters together, and the periastron
+longitude of a circular orbit with its eccentricity); a glitch at given epochs
+(when the glitch section is available). Candidates these TOAs cannot measure
+(one observing frequency for a DM term, TOAs at the barycentre for
+astrometry) are skipped and listed as such. A trial parameter whose current
+value gives it no effect on the TOAs (a Shapiro delay of zero range, the
+periastron of a zero eccentricity) starts from a value the data can move:
+sin i = 0.866 (i = 60 deg, the median for random orientations) and the
+companion mass that the mass function then gives for a 1.4 M_sun pulsar
+(common practice); an eccentricity of 1e-4. The Shapiro shape (or sin i) is
+then stepped over a grid (0.3 ... 0.99) with the range (or mass), which enters
+linearly, fitted at each step, and the best step starts the full fit: near
+s = 1 the delay is too far from linear for one start to reach every orbit.
 """
 
 from __future__ import annotations
@@ -137,20 +150,22 @@ def next_derivative_candidate(model: TimingModel) -> Candidate:
 
 
 def binary_candidates(model: TimingModel) -> list[Candidate]:
-    """Each fixed parameter of a binary section, freed on its own."""
-    out = []
+    """Each fixed parameter of a binary section, freed on its own, or with its
+    partner (:data:`_BINARY_PARTNERS`) when that is fixed and zero too."""
+    out, done = [], set()
     for comp in model.orbit_sections():
         for p in comp.parameters():
-            if p.free:
+            if p.free or p.name in done:
                 continue
-
-            def build(m: TimingModel, name=p.name) -> TimingModel:
-                m = m.copy()
-                m.parameter(name).free = True
-                return m
-
-            what = p.description or p.name
-            out.append(Candidate(f"binary term: {what}", [p.name], build))
+            names = [p.name]
+            partner = _BINARY_PARTNERS.get(p.name)
+            if partner and partner in model.parameter_names():
+                q = model.parameter(partner)
+                if not q.free and q.value == 0:
+                    names.append(partner)
+            done.update(names)
+            what = " with ".join(model.parameter(n).description or n for n in names)
+            out.append(Candidate(f"binary term: {what}", names, _freeing(names)))
     return out
 
 
@@ -180,11 +195,127 @@ def glitch_candidate(model: TimingModel, epoch_mjd: float | str) -> Candidate:
     return Candidate(f"glitch at MJD {epoch}", names, build)
 
 
+def dispersion_derivative_candidate(model: TimingModel) -> Candidate:
+    k = len(model.dispersion.derivatives)
+    name = f"dispersion.derivatives.{k}"
+    ordinal = {1: "first", 2: "second", 3: "third"}.get(k + 1, f"order-{k + 1}")
+
+    def build(m: TimingModel) -> TimingModel:
+        m = m.copy()
+        m.dispersion.derivatives.append(Parameter(
+            name, 0.0, derivative_unit("pc cm^-3", k + 1, "yr"),
+            description=f"dispersion-measure derivative {k + 1}"))
+        m.parameter(name).free = True
+        return m
+
+    return Candidate(f"{ordinal} dispersion-measure derivative", [name], build)
+
+
+def _freeing(names: list[str]):
+    def build(m: TimingModel) -> TimingModel:
+        m = m.copy()
+        for name in names:
+            m.parameter(name).free = True
+        return m
+    return build
+
+
+def astrometric_candidates(model: TimingModel) -> list[Candidate]:
+    """The position, the proper motion (both components) and the parallax, each
+    when held fixed."""
+    astro = model.astrometry
+    groups = (("position", [astro.longitude, astro.latitude]),
+              ("proper motion", [astro.pm_longitude, astro.pm_latitude]),
+              ("parallax", [astro.parallax]))
+    out = []
+    for what, params in groups:
+        fixed = [p.name for p in params if not p.free]
+        if fixed:
+            out.append(Candidate(f"astrometric term: {what}", fixed, _freeing(fixed)))
+    return out
+
+
+# fixed binary parameters tried together: the second has no effect while the first is zero
+_BINARY_PARTNERS = {"binary.periastron_longitude_deg": "binary.eccentricity",
+                    "binary.shapiro_shape": "binary.shapiro_range_s",
+                    "binary.shapiro_range_s": "binary.shapiro_shape",
+                    "binary.sin_inclination": "binary.companion_mass_msun",
+                    "binary.companion_mass_msun": "binary.sin_inclination"}
+
+
 def candidate_additions(model: TimingModel, glitch_epochs_mjd=()) -> list[Candidate]:
-    out = [next_derivative_candidate(model)]
+    out = [next_derivative_candidate(model), dispersion_derivative_candidate(model)]
+    out.extend(astrometric_candidates(model))
     out.extend(binary_candidates(model))
     out.extend(glitch_candidate(model, e) for e in glitch_epochs_mjd)
     return out
+
+
+MEDIAN_SIN_INCLINATION = math.sin(math.radians(60.0))   # random orientations (common practice)
+SHAPE_GRID = (0.3, 0.6, MEDIAN_SIN_INCLINATION, 0.95, 0.99, 0.998)
+SHAPE_NAMES = ("binary.shapiro_shape", "binary.sin_inclination")
+PULSAR_MASS_MSUN = 1.4                                   # common practice
+START_ECCENTRICITY = 1e-4
+
+
+def _median_companion_mass(model: TimingModel) -> float:
+    """Companion mass (M_sun) for sin i = MEDIAN_SIN_INCLINATION and a 1.4 M_sun pulsar
+    from the orbit's mass function f = 4 pi^2 (x c)^3 / (G Pb^2) (Kepler's third law),
+    by bisection of (m_c sin i)^3 / (m_p + m_c)^2 = f."""
+    from timingkit.model.binary import SOLAR_MASS_TIME_S
+    x = model.parameter("binary.projected_semi_major_axis_lt_s").value
+    pb_s = model.parameter("binary.orbital_period_days").value * 86400.0
+    f = (2 * math.pi / pb_s) ** 2 * x ** 3 / SOLAR_MASS_TIME_S
+    lo, hi = 0.0, 100.0
+    for _ in range(200):
+        mid = 0.5 * (lo + hi)
+        if (mid * MEDIAN_SIN_INCLINATION) ** 3 / (PULSAR_MASS_MSUN + mid) ** 2 < f:
+            lo = mid
+        else:
+            hi = mid
+    return 0.5 * (lo + hi)
+
+
+def _start_value(model: TimingModel, name: str) -> float | None:
+    """A value of ``name`` at which the data can move it (module docstring)."""
+    from timingkit.model.binary import SOLAR_MASS_TIME_S
+    if name in ("binary.shapiro_shape", "binary.sin_inclination"):
+        return MEDIAN_SIN_INCLINATION
+    if name == "binary.companion_mass_msun":
+        return _median_companion_mass(model)
+    if name == "binary.shapiro_range_s":
+        return _median_companion_mass(model) * SOLAR_MASS_TIME_S
+    if name == "binary.eccentricity":
+        return START_ECCENTRICITY
+    return None
+
+
+def _zero_columns(model: TimingModel, names: list[str], obs, reference) -> list[str]:
+    import numpy as np
+    ev = model.evaluate(obs, reference)
+    design = model.design_matrix(ev, names)
+    return [n for j, n in enumerate(names) if not np.any(design[:, j])]
+
+
+def prepared_trial(cand: Candidate, base_model: TimingModel, obs, reference):
+    """The candidate's model ready to fit, or (None, reason) when these TOAs cannot
+    measure it: parameters at a value where they have no effect start from
+    :func:`_start_value`."""
+    model = cand.build(base_model)
+    zero = _zero_columns(model, cand.parameters, obs, reference)
+    if zero:
+        for name in zero + [_BINARY_PARTNERS.get(n) for n in zero]:
+            if name in cand.parameters and model.parameter(name).value == 0:
+                start = _start_value(model, name)
+                if start is not None:
+                    model.parameter(name).value = start
+        zero = _zero_columns(model, cand.parameters, obs, reference)
+        if zero:
+            return None, f"{', '.join(zero)} have no effect on these TOAs"
+    problems = model.unconstrained(obs, cand.parameters)
+    if problems:
+        return None, "; ".join(problems)
+    return model, ""
 
 
 def _fixed_noise(model: TimingModel) -> TimingModel:
@@ -193,6 +324,31 @@ def _fixed_noise(model: TimingModel) -> TimingModel:
         for p in comp.parameters():
             p.free = False
     return m
+
+
+def _fit_trial(trial: TimingModel, names: list[str], base_model: TimingModel, obs,
+               reference) -> FitResult:
+    """The extended fit; a Shapiro shape started from zero is first stepped over
+    SHAPE_GRID (module docstring)."""
+    shapes = [n for n in names if n in SHAPE_NAMES and base_model.parameter(n).value == 0]
+    if not shapes:
+        return fit(trial, obs, reference=reference)
+    best = None
+    for value in SHAPE_GRID:
+        step = trial.copy()
+        step.parameter(shapes[0]).value = value
+        step.parameter(shapes[0]).free = False
+        try:
+            held = fit(step, obs, reference=reference)
+        except FitError:
+            continue
+        if best is None or held.chi2 < best.chi2:
+            best = held
+    if best is None:
+        return fit(trial, obs, reference=reference)
+    start = best.model.copy()
+    start.parameter(shapes[0]).free = True
+    return fit(start, obs, reference=reference)
 
 
 def suggest(result: FitResult, obs: Observations, reference: Observations | None = None,
@@ -209,8 +365,13 @@ def suggest(result: FitResult, obs: Observations, reference: Observations | None
         candidates = candidate_additions(base_model, glitch_epochs_mjd)
     out = []
     for cand in candidates:
+        trial, reason = prepared_trial(cand, base_model, obs, reference)
+        if trial is None:
+            out.append(Comparison(addition=cand.addition, parameters=cand.parameters,
+                                  note=f"not measurable: {reason}"))
+            continue
         try:
-            ext = fit(cand.build(base_model), obs, reference=reference)
+            ext = _fit_trial(trial, cand.parameters, base_model, obs, reference)
             cmp_ = compare_fits(base, ext, cand.addition, cand.parameters, level)
             if not ext.converged:
                 cmp_.note = "extended fit did not converge"
@@ -223,10 +384,13 @@ def suggest(result: FitResult, obs: Observations, reference: Observations | None
 
 def suggestions_entry(comparisons: list[Comparison], level: float = DEFAULT_LEVEL) -> dict:
     """The ``suggestions`` entry of report.json."""
+    measurable = [c for c in comparisons if not c.note.startswith("not measurable")]
     return {"level": level,
             "criterion": f"F-test probability below {level:g} (delta AIC/BIC < 0 favour an addition)",
             "supported": [c.addition for c in comparisons if c.supported],
-            "tried": [c.as_dict() for c in comparisons]}
+            "tried": [c.as_dict() for c in measurable],
+            "not_measurable": {c.addition: c.note[len("not measurable: "):]
+                               for c in comparisons if c not in measurable}}
 
 
 def suggestions_text(entry: dict) -> str:
@@ -244,9 +408,13 @@ def suggestions_text(entry: dict) -> str:
                      + (f" ({c['note']})" if c["note"] else ""))
     if not entry["supported"]:
         lines.append("    none of the tried additions is supported by these data")
+    skipped = entry.get("not_measurable") or {}
+    if skipped:
+        lines.append(f"    not tried (these TOAs cannot measure them): {', '.join(skipped)}")
     return "\n".join(lines)
 
 
 __all__ = ["f_test", "information_criteria_change", "Comparison", "compare_fits", "Candidate",
            "candidate_additions", "next_derivative_candidate", "binary_candidates",
+           "dispersion_derivative_candidate", "astrometric_candidates", "prepared_trial",
            "glitch_candidate", "suggest", "suggestions_entry", "suggestions_text"]
