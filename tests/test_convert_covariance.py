@@ -21,28 +21,23 @@ from timingkit.model.conversion import (ECCENTRIC_ELEMENTS, LOW_E_ELEMENTS, conv
                                         eccentric_to_low_e_jacobian)
 from timingkit.model.correlations import covariance_of
 
-MAS = math.pi / (180 * 3600e3)
+MAS = math.pi / (180 * 3600e3)      # one milliarcsecond in radians
 MODEL = """
 name = "demo-convert"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-pm_ra_cosdec_mas_per_yr = 12.0
-pm_dec_mas_per_yr = -7.0
-parallax_mas = 1.5
-epoch_mjd = "58000"
-[position.uncertainty]
-ra = 0.8
-dec = 2.5
-pm_ra_cosdec_mas_per_yr = 0.3
-pm_dec_mas_per_yr = 0.9
-parallax_mas = 0.2
+
 [spin]
-epoch_mjd = "58000"
-frequency_hz = "300.123456789012345678"
-frequency_derivatives = ["-1.2e-15"]
-[spin.uncertainty]
-frequency_hz = 1e-12
+frequency_hz = "187.654321012345678"
+epoch_mjd = "58400"
+frequency_derivatives = ["-4.4e-16"]
+uncertainty = { frequency_hz = 1e-12 }
+[position]
+epoch_mjd = "58400"
+ra = "22h41m07.031s"
+dec = "-33d18m44.52s"
+parallax_mas = 0.7
+pm_ra_cosdec_mas_per_yr = -6.5
+pm_dec_mas_per_yr = 3.25
+uncertainty = { ra = 0.8, dec = 2.5, pm_ra_cosdec_mas_per_yr = 0.3, pm_dec_mas_per_yr = 0.9, parallax_mas = 0.2 }
 [binary]
 model = "relativistic"
 orbital_period_days = "1.2345678901"

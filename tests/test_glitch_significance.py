@@ -22,19 +22,11 @@ from timingkit.geometry.observations import prepare_observations
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.simulate import simulate_toas
+from test_glitch_recovery import START as RECOVERY_START
 
-START = """
-name = "demo-young"
-[position]
-ra = "08h35m20.6s"
-dec = "-45d10m34.9s"
-[spin]
-epoch_mjd = "59000"
-frequency_hz = "11.19451234"
-frequency_derivatives = ["-1.5666e-11"]
-[fit]
-free = ["spin.frequency_hz", "spin.frequency_derivatives.0"{extra}]
-"""
+# the invented young pulsar of the recovery regression, with {extra} free parameters added
+START = RECOVERY_START.replace('"spin.frequency_derivatives.0"]',
+                               '"spin.frequency_derivatives.0"{extra}]')
 EPOCH, STEP_HZ, FDOT_STEP = 59300.4, 5e-7, -1e-13
 AMPLITUDE_HZ, TAU_DAYS = 5e-8, 30.0
 GLITCH = f"""

@@ -19,14 +19,14 @@ dec = "+21d02m11.234s"
 epoch_mjd = "58000"
 pm_ra_cosdec_mas_per_yr = {pm_ra}
 pm_dec_mas_per_yr = {pm_dec}
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "300.123456789012345678"
-frequency_derivatives = ["-1.2e-15"]
 [dispersion]
-dm = 20.0
 epoch_mjd = "58000"
+dm = 31.5
 derivatives = [{dm_rate}]
+[spin]
+frequency_hz = "412.0987654321"
+frequency_derivatives = ["-2.1e-15"]
+epoch_mjd = "58000"
 [fit]
 free = ["spin.frequency_hz", "spin.frequency_derivatives.0", "dispersion.dm",
         "position.ra", "position.dec"]

@@ -94,20 +94,26 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
              f"{'' if n == 1 else 's'}; fitted model reduced chi2 {report['reduced_chi2']:.3f}, "
              f"weighted rms {report['weighted_rms_us']:.4g} µs"
              + ("" if report.get("converged", True) else " (fit NOT CONVERGED)")]
+    from timingkit.outputs.numbers import format_quantity, format_value
     for c in found["candidates"]:
         fap = c["false_alarm_probability"]
         lines.append(
-            f"  MJD {c['epoch_mjd']:.4f} (between {c['epoch_min_mjd']:.4f} and "
-            f"{c['epoch_max_mjd']:.4f}): step {c['frequency_step_hz']:.6g} ± "
-            f"{c['frequency_step_uncertainty_hz']:.2g} Hz (fractional {c['fractional_size']:.3g}),"
-            f" frequency-derivative step {c['frequency_derivative_step']:.3g} ± "
-            f"{c['frequency_derivative_step_uncertainty']:.2g} Hz/s, false-alarm probability "
+            f"  MJD {format_value(c['epoch_mjd'], c['epoch_uncertainty_days'])} (between "
+            f"{c['epoch_min_mjd']:.4f} and {c['epoch_max_mjd']:.4f}): step "
+            + format_quantity(c["frequency_step_hz"], c["frequency_step_uncertainty_hz"], "Hz")
+            + f" (fractional {c['fractional_size']:.3g}), frequency-derivative step "
+            + format_quantity(c["frequency_derivative_step"],
+                              c["frequency_derivative_step_uncertainty"], "Hz/s")
+            + ", false-alarm probability "
             + _fap_text(fap, c.get("false_alarm_probability_upper_limit"),
                         found["settings"]["null_trials"]))
         for d in c.get("decaying_terms", []):
-            lines.append(f"    decaying step {d['decaying_frequency_step_hz']:.4g} ± "
-                         f"{d['decaying_frequency_step_uncertainty_hz']:.2g} Hz, time-scale "
-                         f"{d['decay_time_days']:.4g} ± {d['decay_time_uncertainty_days']:.2g} days")
+            lines.append("    decaying step "
+                         + format_quantity(d["decaying_frequency_step_hz"],
+                                           d["decaying_frequency_step_uncertainty_hz"], "Hz")
+                         + ", time-scale "
+                         + format_quantity(d["decay_time_days"],
+                                           d["decay_time_uncertainty_days"], "days"))
     limit = found.get("detection_limit") or {}
     if limit.get("fractional_size") is not None:
         lines.append(f"  detection limit (95 %, typical gap): fractional size "

@@ -10,6 +10,7 @@
 - ``clock_table``: clock-correction tables.
 - ``predictor_file``: phase-predictor files (JSON Chebyshev segments).
 - ``profile_file``: folded-profile and template files (.npz).
+- ``quantities``: astropy quantities and times from Python callers, converted or refused.
 """
 
 from timingkit import lazy_exports

@@ -6,7 +6,8 @@
 - ``parameters``: :class:`Parameter` (value, uncertainty, free flag, exact high part).
 - ``spin``, ``astrometry``, ``dispersion``, ``binary`` (+ ``binary_orbits``, ``kepler``),
   ``glitch``, ``group_offsets``, ``noise``: the sections.
-- ``conversion``: the model in another sky frame or binary form.
+- ``correlations``: the ``[correlation]`` section; covariances from and to the uncertainties.
+- ``conversion``: the model in another sky frame or binary form, covariance carried along.
 - ``simulate``: TOAs that a model predicts exactly, plus noise.
 """
 

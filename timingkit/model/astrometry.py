@@ -34,6 +34,7 @@ import numpy as np
 
 from timingkit.geometry import delays
 from timingkit.formats.errors import InputError
+from timingkit.model.correlations import with_fitted_covariance
 from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.formats.model_file import Key, take_section
@@ -323,13 +324,8 @@ class Astrometry(ModelSection):
         sig = [p.uncertainty for p in params]
         if all(s is None for s in sig) and result is None:
             return None
-        cov = np.diag([0.0 if s is None else float(s) ** 2 for s in sig])
-        if result is not None:
-            idx = [(i, result.free_names.index(p.name)) for i, p in enumerate(params)
-                   if p.name in result.free_names]
-            for i, a in idx:
-                for j, b in idx:
-                    cov[i, j] = result.covariance[a, b]
+        cov = with_fitted_covariance(np.diag([0.0 if s is None else float(s) ** 2 for s in sig]),
+                                     [p.name for p in params], result)
         if not np.any(cov):
             return None
         return cov * np.outer(scale, scale)

@@ -64,6 +64,18 @@ def covariance_of(model, names) -> np.ndarray:
     return corr * np.outer(sig, sig)
 
 
+def with_fitted_covariance(cov: np.ndarray, names, result) -> np.ndarray:
+    """``cov`` (of ``names``) with the block of the parameters a FitResult
+    ``result`` fitted replaced by the fit's covariance (correlations kept)."""
+    if result is not None:
+        idx = [(i, result.free_names.index(n)) for i, n in enumerate(names)
+               if n in result.free_names]
+        for i, a in idx:
+            for j, b in idx:
+                cov[i, j] = result.covariance[a, b]
+    return cov
+
+
 def set_covariance(model, names, covariance) -> None:
     """Uncertainties (square roots of the diagonal; None where it is zero) and
     correlations among ``names`` from ``covariance``; correlations of these
@@ -103,4 +115,4 @@ def correlation_section(model) -> dict | None:
 
 
 __all__ = ["read_correlations", "covariance_of", "set_covariance", "correlation_section",
-           "correlation_of"]
+           "correlation_of", "with_fitted_covariance"]

@@ -1,6 +1,7 @@
 """What a fit writes: report.json, residual tables, figures, the overview page.
 
 - ``report``: report.json and the terminal summary.
+- ``numbers``: values rounded to their uncertainty, units as physicists write them.
 - ``residual_table``: residuals.csv (read and write) and atomic output folders.
 - ``plotting``: matplotlib figures (Agg, no pyplot state).
 - ``noise_outputs``: the power spectrum and the red-noise part of the report.
@@ -11,7 +12,7 @@ from timingkit import lazy_exports
 
 EXPORTS = {
     "build_report": "report", "write_json": "report", "ResidualTable": "residual_table",
-    "plot_residuals": "plotting",
+    "plot_residuals": "plotting", "format_value": "numbers", "format_quantity": "numbers",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

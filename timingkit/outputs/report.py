@@ -12,7 +12,7 @@ from timingkit.physics import spin as derived_mod
 from timingkit.physics.binary_report import extra_report_sections
 from timingkit.fit.fitter import LOUD_WARNINGS, FitResult, ResidualSet
 from timingkit.model.astrometry import angle_entry, format_dec, format_ra
-from timingkit.model.correlations import covariance_of
+from timingkit.model.correlations import covariance_of, with_fitted_covariance
 from timingkit.model.timing_model import TimingModel
 from timingkit.formats.model_file import atomic_write_text
 from timingkit.outputs.noise_outputs import noise_report_entry
@@ -52,14 +52,9 @@ def derived_for(model: TimingModel, result: FitResult | None = None) -> dict:
     a quantity that needs a term without an uncertainty gets none."""
     spin = model.spin
     params = [spin.frequency] + list(spin.derivatives[:2])
-    cov = covariance_of(model, [p.name for p in params])     # with the model's correlations
+    names = [p.name for p in params]
+    cov = with_fitted_covariance(covariance_of(model, names), names, result)
     measured = [p.uncertainty is not None and p.uncertainty > 0 for p in params]
-    if result is not None:
-        fitted = [(k, result.free_names.index(p.name)) for k, p in enumerate(params)
-                  if p.name in result.free_names]
-        for a, ia in fitted:
-            for b, ib in fitted:
-                cov[a, b] = result.covariance[ia, ib]
     return derived_mod.derive_spin(params[0].value, [p.value for p in params[1:]],
                                    cov if any(measured) else None, measured=measured)
 
