@@ -164,7 +164,8 @@ def test_summary_json_matches_csv_and_states_cautions(pool_run):
     _, outdir = pool_run
     document = json.loads((outdir / "summary.json").read_text())
     assert document["columns"] == ISSUE_COLUMNS
-    assert document["counts"] == {"sources": 10, "ok": 9, "failed": 1, "reused": 0}
+    assert document["counts"] == {"sources": 10, "ok": 9, "failed": 1, "not_converged": 0,
+                                  "reused": 0}
     csv_rows = _read_csv(outdir / "summary.csv")
     for from_json, from_csv in zip(document["sources"], csv_rows):
         assert from_json["source"] == from_csv["source"]

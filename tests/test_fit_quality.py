@@ -49,6 +49,9 @@ def test_a_poor_fit_is_flagged_loudly(tmp_path, capsys):
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     assert report["reduced_chi2"] > 100
     assert any(w.startswith("poor fit") for w in report["warnings"])
+    # the residuals of a model as given (no fit) are judged the same way
+    assert main(["residuals", toas, model, "-o", str(tmp_path / "res")]) == 0
+    assert "WARNING: poor fit" in capsys.readouterr().out
     # and a good fit stays quiet
     toas, model = sample("demo-msp")
     assert main(["fit", toas, model, "--no-plot", "-o", str(tmp_path / "msp")]) == 0

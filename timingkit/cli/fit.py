@@ -90,8 +90,9 @@ def cmd_residuals(args) -> int:
                            color_by=args.color_by)
     print(f"{stats['source']}: {stats['toas']} TOAs, rms {stats['rms_us']:.4g} µs, weighted rms "
           f"{stats['weighted_rms_us']:.4g} µs, reduced chi2 {stats['reduced_chi2']:.3f} (no fit)")
+    from timingkit.fit.fitter import LOUD_WARNINGS
     for w in stats["warnings"]:
-        print(f"warning: {w}")
+        print(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
     print(f"wrote {args.outdir}/: residuals.csv, residuals.png, report.json")
     return 0
 

@@ -360,10 +360,12 @@ def _noise_summary(solver: _Solver, gls: GlsSolution | None, design, resid, esti
     return summary
 
 
-def goodness_warnings(chi2: float, dof: int, red_noise: bool = False) -> list[str]:
+def goodness_warnings(chi2: float, dof: int, red_noise: bool = False,
+                      fitted: bool = True) -> list[str]:
     """A loud warning when the reduced chi-square is far from 1 (beyond
     POOR_FIT_HIGH / POOR_FIT_LOW) and that far by chance less often than
-    POOR_FIT_PROBABILITY (chi-square distribution with ``dof``)."""
+    POOR_FIT_PROBABILITY (chi-square distribution with ``dof``). ``fitted``:
+    False for the residuals of a model as given (no fit)."""
     if dof <= 0 or not np.isfinite(chi2):
         return []
     import scipy.stats
@@ -375,15 +377,16 @@ def goodness_warnings(chi2: float, dof: int, red_noise: bool = False) -> list[st
                     "timing noise, ") + "a glitch search (timingkit glitches) when the "
                     "residuals jump or turn, or model terms still missing (ask the fit for "
                     "suggestions)")
+        consequence = (", and the parameter uncertainties are too small by about a factor "
+                       f"{math.sqrt(reduced):.2g}" if fitted else " (the model as given, no fit)")
         return [f"{POOR_FIT_WARNING}: reduced chi-square {reduced:.4g} for {dof} degrees of "
                 f"freedom (expected 1 ± {spread:.2g}): the model and the TOA uncertainties do "
-                "not describe the data, and the parameter uncertainties are too small by "
-                f"about a factor {math.sqrt(reduced):.2g}; consider " + remedies]
+                f"not describe the data{consequence}; consider " + remedies]
     if reduced < POOR_FIT_LOW and scipy.stats.chi2.cdf(chi2, dof) < POOR_FIT_PROBABILITY:
         return [f"{POOR_FIT_WARNING}: reduced chi-square {reduced:.4g} for {dof} degrees of "
                 f"freedom (expected 1 ± {spread:.2g}): the TOA uncertainties look overestimated "
-                "(or the TOAs are not independent), so the parameter uncertainties are too "
-                "large"]
+                "(or the TOAs are not independent)"
+                + (", so the parameter uncertainties are too large" if fitted else "")]
     return []
 
 

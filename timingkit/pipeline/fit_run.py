@@ -12,7 +12,7 @@ from __future__ import annotations
 import os
 
 
-from timingkit.fit.fitter import FitResult, compute_residuals, fit
+from timingkit.fit.fitter import FitResult, compute_residuals, fit, goodness_warnings
 from timingkit.geometry.observations import Observations
 from timingkit.outputs.report import build_report, residual_table, settings_entry, write_json
 from timingkit.pipeline.inputs import Inputs, load_inputs
@@ -143,7 +143,10 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
              "chi2": res.chi_square(), "dof": len(inputs.obs) - 1,
              "reduced_chi2": res.chi_square() / max(len(inputs.obs) - 1, 1),
              "rms_us": res.rms_us(), "weighted_rms_us": res.weighted_rms_us(),
-             "settings": settings_entry(inputs.obs), "warnings": inputs.obs.warnings}
+             "settings": settings_entry(inputs.obs),
+             "warnings": inputs.obs.warnings + goodness_warnings(
+                 res.chi_square(), len(inputs.obs) - 1,
+                 red_noise=bool(inputs.model.noise_sections()), fitted=False)}
     if make_plots:
         from timingkit.outputs.plotting import plot_residuals
         plot_residuals(table, color_by=color_by, title=f"{inputs.model.name}: model residuals",

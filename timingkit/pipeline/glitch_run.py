@@ -38,6 +38,8 @@ def glitch_report(result: GlitchSearchResult) -> dict:
         "epochs_mjd": [float(c.epoch_mjd) for c in result.candidates],
         "fractional_sizes": [c.fractional_size for c in result.candidates],
         "false_alarm_probabilities": [c.false_alarm_probability for c in result.candidates],
+        "false_alarm_probability_upper_limits": [c.false_alarm_probability_upper_limit
+                                                 for c in result.candidates],
         "detection_limit": result.detection_limit,
         "settings": result.settings.as_dict(),
         "toas_left_out": result.dropped_toas,
