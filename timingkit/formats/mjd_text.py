@@ -201,3 +201,16 @@ def format_mjd(day: np.ndarray, frac: np.ndarray) -> np.ndarray:
     units = np.where(carry, units - full, units)
     return np.array([f"{d}.{u:0{k}d}" for d, u, k in
                      zip(days.tolist(), units.tolist(), decimals.tolist())], dtype=str)
+
+
+def parse_mjd_column(texts, path, lines) -> tuple[np.ndarray, np.ndarray]:
+    """``parse_mjd_strings`` for a column read from a file: a bad value is
+    reported at its line (``lines[i]`` is the 1-based line of ``texts[i]``)."""
+    try:
+        return parse_mjd_strings(texts)
+    except InputError:
+        for text, line in zip(texts, lines):
+            problem = mjd_problem(str(text))
+            if problem:
+                raise InputError(problem, path=path, line=line, field="mjd") from None
+        raise

@@ -131,24 +131,39 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
     tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")
     lost_hi, lost_lo = tdb_all.seconds_since(day, frac)
     correction_s = (offset_s - lost_hi) - lost_lo
-    ephemeris.check_span(tdb_all, where=toas.path)
-    earth_pos, earth_vel = ephemeris.posvel("earth", tdb_all)
-    observer = np.where(bary[:, None], 0.0, earth_pos + site_pos)
-    observer_vel = np.where(bary[:, None], 0.0, earth_vel + site_vel)
-    sun = ephemeris.position("sun", tdb_all)
-    planet_vectors = {}
-    if planets:
-        for body in PLANETS:
-            planet_vectors[body] = observer - ephemeris.position(body, tdb_all)
     if not clock_tables and not np.all(bary | (names == "geocentre")):
         warnings.append("no observatory clock corrections applied: site clocks are taken as UTC "
                         "(errors of up to µs possible; supply clock tables in settings.clock)")
+    return observations_at(toas, tdb_all, site_pos, site_vel, bary, names.astype(str), ephemeris,
+                           planets, clock_corrections=sorted(set(used_clocks)),
+                           warnings=_unique(warnings), tdb_correction_s=correction_s)
+
+
+def observations_at(toas: ToaTable, tdb: SplitTime, geocentric_m: np.ndarray,
+                    geocentric_vel_m_per_s: np.ndarray, barycentric_input: np.ndarray,
+                    site_names: np.ndarray, ephemeris: Ephemeris, planets: bool = False,
+                    clock_corrections=(), warnings=(), tdb_correction_s=None) -> Observations:
+    """Observations of observers at the given GCRS offsets from the Earth's
+    centre (m, m/s) at TDB ``tdb``: the Earth from the ephemeris plus the
+    offset (no aberration; DESIGN.md §3), and the Sun and planet vectors. Rows
+    with ``barycentric_input`` sit at the barycentre. Shared by TOA sites and
+    spacecraft (timingkit.geometry.spacecraft)."""
+    bary = np.asarray(barycentric_input, dtype=bool)
+    ephemeris.check_span(tdb, where=toas.path)
+    earth_pos, earth_vel = ephemeris.posvel("earth", tdb)
+    observer = np.where(bary[:, None], 0.0, earth_pos + geocentric_m)
+    observer_vel = np.where(bary[:, None], 0.0, earth_vel + geocentric_vel_m_per_s)
+    sun = ephemeris.position("sun", tdb)
+    planet_vectors = {}
+    if planets:
+        for body in PLANETS:
+            planet_vectors[body] = observer - ephemeris.position(body, tdb)
     return Observations(
-        toas=toas, tdb=tdb_all, observer_ssb_m=observer, observer_ssb_vel_m_per_s=observer_vel,
+        toas=toas, tdb=tdb, observer_ssb_m=observer, observer_ssb_vel_m_per_s=observer_vel,
         sun_to_observer_m=observer - sun, planet_to_observer_m=planet_vectors,
-        barycentric_input=bary, site_names=names.astype(str), ephemeris_label=ephemeris.label,
-        clock_corrections=sorted(set(used_clocks)), warnings=_unique(warnings),
-        tdb_correction_s=correction_s)
+        barycentric_input=bary, site_names=np.asarray(site_names), ephemeris_label=ephemeris.label,
+        clock_corrections=list(clock_corrections), warnings=list(warnings),
+        tdb_correction_s=tdb_correction_s)
 
 
 def _resolve_sites(toas: ToaTable, sites: SiteTable):

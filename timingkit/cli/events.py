@@ -1,0 +1,150 @@
+"""``timingkit events``, ``event-toas`` and ``simulate-events``: photon event lists
+from X-ray and gamma-ray observers."""
+
+from __future__ import annotations
+
+
+def _observer_options(p) -> None:
+    group = p.add_mutually_exclusive_group()
+    group.add_argument("--site", metavar="NAME",
+                       help="ground site of the events (a site-file name, geocentre or ssb)")
+    group.add_argument("--orbit", metavar="FILE",
+                       help="spacecraft orbit table (text or FITS, geocentric GCRS metres)")
+
+
+def _context_options(p) -> None:
+    p.add_argument("--sites", action="append", default=[], metavar="FILE",
+                   help="extra site file (TOML); may be repeated")
+    p.add_argument("--ephemeris", metavar="BSP",
+                   help="JPL SPK ephemeris file (default: the model's, else built-in DE421)")
+    p.add_argument("--clock", action="append", default=[], metavar="FILE",
+                   help="clock-correction table for a ground site; may be repeated")
+
+
+def _event_input_options(p) -> None:
+    p.add_argument("events", help="event list: OGIP FITS, or text with an mjd column")
+    p.add_argument("model", help="timing model (TOML)")
+    _observer_options(p)
+    p.add_argument("--scale", choices=["utc", "tt", "tdb"],
+                   help="time scale of a text event list (replaces its '# scale:' comment)")
+    p.add_argument("--energy-range", nargs=2, type=float, metavar=("LO", "HI"),
+                   help="keep events with LO <= energy < HI (units of the energy column)")
+    p.add_argument("--energy-column", metavar="NAME",
+                   help="column for --energy-range (default: ENERGY, PI, PHA or CHANNEL)")
+    _context_options(p)
+
+
+def add_parsers(sub) -> None:
+    p = sub.add_parser("events", help="barycentre and fold photon events; periodicity tests")
+    _event_input_options(p)
+    p.add_argument("--harmonics", type=int, default=20, metavar="M",
+                   help="report Z^2 for 1..M harmonics (default 20; the H-test always tries "
+                        "1..20)")
+    p.add_argument("--bins", type=int, default=32, metavar="B",
+                   help="phase bins of the profile (default 32)")
+    p.add_argument("-o", "--outdir", default="timingkit-events", help="output folder")
+    p.add_argument("--no-plot", action="store_true", help="skip profile.png")
+    p.set_defaults(func=cmd_events)
+
+    p = sub.add_parser("event-toas", help="TOAs from photon events (unbinned likelihood)")
+    _event_input_options(p)
+    p.add_argument("--template", required=True, metavar="FILE|auto",
+                   help="pulse template file (phase intensity), or 'auto' to fit one to "
+                        "the folded events")
+    p.add_argument("--span-days", type=float, required=True, metavar="D",
+                   help="one TOA per D days of events")
+    p.add_argument("--min-events", type=int, default=20, metavar="N",
+                   help="skip chunks with fewer events (default 20)")
+    p.add_argument("--save-template", metavar="FILE", help="write the template used")
+    p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
+    p.set_defaults(func=cmd_event_toas)
+
+    p = sub.add_parser("simulate-events", help="simulate a photon event list (OGIP FITS)")
+    p.add_argument("model", help="timing model (TOML)")
+    p.add_argument("--start", type=float, required=True, metavar="MJD")
+    p.add_argument("--end", type=float, required=True, metavar="MJD")
+    p.add_argument("--rate-per-s", type=float, required=True, metavar="R",
+                   help="mean event rate (pulsed and unpulsed), per second")
+    p.add_argument("--pulsed-fraction", type=float, required=True, metavar="P")
+    p.add_argument("--profile", nargs="+", default=["gauss:0.0:0.1"],
+                   metavar="gauss:CENTRE:FWHM[:AMP]|FILE",
+                   help="pulse shape: wrapped Gaussian components (phase units) or a "
+                        "template file (default gauss:0.0:0.1)")
+    _observer_options(p)
+    p.add_argument("--seed", type=int, default=None)
+    p.add_argument("--sites", action="append", default=[], metavar="FILE")
+    p.add_argument("--ephemeris", metavar="BSP")
+    p.add_argument("-o", "--output", required=True, metavar="EVENTS.fits")
+    p.set_defaults(func=cmd_simulate_events)
+
+
+def _common(args) -> dict:
+    return dict(site=args.site, orbit=args.orbit, scale=args.scale,
+                energy_range=args.energy_range, energy_column=args.energy_column,
+                sites_paths=args.sites, ephemeris=args.ephemeris, clock_paths=args.clock)
+
+
+def _fap_text(entry: dict) -> str:
+    if entry["false_alarm_probability"] is None:
+        return f"false-alarm probability < {entry['false_alarm_probability_below']:.0e}"
+    return (f"false-alarm probability {entry['false_alarm_probability']:.2g} "
+            f"({entry['false_alarm_probability_accuracy']})")
+
+
+def cmd_events(args) -> int:
+    from timingkit.pipeline.event_run import fold_event_files
+    report = fold_event_files(args.events, args.model, args.outdir, harmonics=args.harmonics,
+                              bins=args.bins, make_plot=not args.no_plot, **_common(args))
+    h, pf, peak = report["h_test"], report["pulsed_fraction"], report["peak_phase"]
+    accuracy = report["settings"]["barycentring"]
+    print(f"{report['source']}: {report['events']:,} events, MJD {report['span_mjd'][0]:.5f} to "
+          f"{report['span_mjd'][1]:.5f} ({report['span_mjd_scale'].upper()}), observer "
+          f"{report['settings']['observer']['observer']}")
+    print(f"  H-test {h['value']:.2f} ({h['harmonics']} harmonics): {_fap_text(h)}")
+    z2 = report["z2"][min(1, len(report["z2"]) - 1)]
+    print(f"  Z^2_{z2['harmonics']} = {z2['value']:.2f}: {_fap_text(z2)}")
+    print(f"  pulsed fraction {pf['value']:.4f} ± {pf['uncertainty']:.4f}; peak phase "
+          f"{peak['value']:.4f} ± {peak['uncertainty']:.4f}")
+    print(f"  barycentring: {accuracy['method']} (largest measured interpolation error "
+          f"{accuracy['max_interpolation_error_ns']:.3g} ns)")
+    print(f"  ephemeris: {report['settings']['ephemeris']}; clock: {report['settings']['clock']}")
+    for line in report["cautions"]:
+        print(f"  caution: {line}")
+    for line in report["warnings"]:
+        print(f"  warning: {line}")
+    plot = "" if args.no_plot else ", profile.png"
+    print(f"wrote {args.outdir}/: phases.fits, events_report.json{plot}")
+    return 0
+
+
+def cmd_event_toas(args) -> int:
+    from timingkit.pipeline.event_run import event_toa_files
+    facts = event_toa_files(args.events, args.model, args.output, template=args.template,
+                            span_days=args.span_days, min_events=args.min_events,
+                            save_template=args.save_template, **_common(args))
+    print(f"{facts['toas']} TOAs from {facts['events']:,} events ({facts['span_days']} days "
+          f"per TOA; median uncertainty {facts['median_err_us']:.3g} µs); observer "
+          f"{facts['observer']}")
+    print(f"  template: {facts['template']} (its share of the events: "
+          f"{facts['template_weight']:.2f})")
+    if facts["skipped_chunks"]:
+        print(f"  skipped {len(facts['skipped_chunks'])} chunk(s) with fewer than "
+              f"{facts['min_events']} events")
+    print(f"  clock: {facts['clock']}")
+    for line in facts["warnings"]:
+        print(f"  warning: {line}")
+    print(f"wrote {args.output} (site ssb, TDB): fit it with 'timingkit fit {args.output} "
+          f"{args.model}'")
+    return 0
+
+
+def cmd_simulate_events(args) -> int:
+    from timingkit.pipeline.event_run import simulate_event_file
+    facts = simulate_event_file(args.model, args.output, start_mjd=args.start, end_mjd=args.end,
+                                rate_per_s=args.rate_per_s, pulsed_fraction=args.pulsed_fraction,
+                                profile=args.profile, site=args.site, orbit=args.orbit,
+                                seed=args.seed, sites_paths=args.sites, ephemeris=args.ephemeris)
+    print(f"wrote {facts['events']:,} events ({facts['pulsed']:,} pulsed) to {args.output}; "
+          f"observer {facts['observer']}, TIMESYS {facts['time_scale']}, TIMEREF "
+          f"{facts['timeref']}")
+    return 0

@@ -1,0 +1,179 @@
+"""OGIP timing keywords of a FITS table header (OGIP memo OGIP/93-003, "The Proposed
+Timing FITS File Format for High Energy Astrophysics Data", an open standard).
+
+Times in such a table are ``TIME`` values counted in ``TIMEUNIT`` from the
+reference ``MJDREFI + MJDREFF`` (or ``MJDREF``) plus ``TIMEZERO`` (or
+``TIMEZERI + TIMEZERF``), on the scale ``TIMESYS``, observed at ``TIMEREF``.
+Required here: the reference MJD and ``TIMESYS``; the memo's defaults are used
+for the others (``TIMEUNIT = 's'``, ``TIMEZERO = 0``, ``TIMEREF = 'LOCAL'``)
+and the report says which were defaulted. A keyword found in neither the
+table's header nor the primary header, or with a value we cannot use, is an
+``InputError`` naming the keyword and the HDU.
+
+UTC time stamps: MJD(UTC) = MJDREF + (TIMEZERO + TIME) / 86400, i.e. a UTC
+day always counts 86400 s (the usual reading; an interval that spans a leap
+second is then off by that second, which the memo leaves open).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+from timingkit.formats.errors import InputError
+from timingkit.numerics import ddmath
+
+SECONDS_PER_DAY = 86400.0
+TIME_SYSTEMS = {"TT": "tt", "TDT": "tt", "TDB": "tdb", "UTC": "utc"}
+TIME_REFERENCES = {"LOCAL": "local", "GEOCENTRIC": "geocentric",
+                   "SOLARSYSTEM": "solarsystem", "BARYCENTRIC": "solarsystem"}
+TIME_UNITS = {"s": 1.0, "d": SECONDS_PER_DAY}
+
+
+@dataclass(frozen=True)
+class TimeKeywords:
+    """The timing keywords of one table.
+
+    ``reference_day`` (integer MJD) and ``reference_frac_hi/lo`` (double-double
+    fraction of a day, may exceed 1) give MJDREF + TIMEZERO, so that an event's
+    time is ``reference_day + reference_frac + TIME * unit_s / 86400`` on
+    ``scale`` ('tt', 'tdb' or 'utc'). ``timezero_s`` is TIMEZERO in seconds,
+    ``mjdref_frac`` the fraction of MJDREF alone (without TIMEZERO).
+    """
+    hdu: str
+    reference_day: int
+    mjdref_frac: float
+    timezero_s: float
+    unit_s: float
+    scale: str
+    timeref: str
+    keywords: dict = field(default_factory=dict)     # as found, for the report
+    defaulted: tuple = ()
+    clock_applied: bool | None = None                # CLOCKAPP, None when absent
+
+    @property
+    def reference_frac(self) -> tuple[float, float]:
+        """(hi, lo) of MJDREFF + TIMEZERO / 86400, days."""
+        return ddmath.dd_add_d(*ddmath.dd_div_d(self.timezero_s, 0.0, SECONDS_PER_DAY),
+                               self.mjdref_frac)
+
+
+def _find(name: str, header, primary, hdu: str, path):
+    for h in (header, primary):
+        if h is not None and name in h:
+            return h[name]
+    return None
+
+
+def _number(value, name: str, hdu: str, path) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"keyword {name} in HDU {hdu} must be a number, found {value!r}",
+                         path=path, field=name) from None
+    if not math.isfinite(number):
+        raise InputError(f"keyword {name} in HDU {hdu} must be finite, found {value!r}",
+                         path=path, field=name)
+    return number
+
+
+def _text(value) -> str:
+    return str(value).strip()
+
+
+def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
+    """The timing keywords of ``header`` (falling back to the primary header)."""
+    found: dict = {}
+    defaulted: list[str] = []
+
+    def get(name):
+        value = _find(name, header, primary, hdu, path)
+        if value is not None:
+            found[name] = value
+        return value
+
+    mjdrefi, mjdreff, mjdref = get("MJDREFI"), get("MJDREFF"), get("MJDREF")
+    if mjdrefi is not None:
+        day = _number(mjdrefi, "MJDREFI", hdu, path)
+        if day != round(day):
+            raise InputError(f"keyword MJDREFI in HDU {hdu} must be a whole number, found "
+                             f"{mjdrefi!r}", path=path, field="MJDREFI")
+        if mjdreff is None:
+            raise InputError(f"keyword MJDREFF missing in HDU {hdu} (MJDREFI is given; the "
+                             "reference MJD is MJDREFI + MJDREFF)", path=path, field="MJDREFF")
+        frac = _number(mjdreff, "MJDREFF", hdu, path)
+    elif mjdref is not None:
+        value = _number(mjdref, "MJDREF", hdu, path)
+        day = math.floor(value)
+        frac = value - day              # exact (Sterbenz)
+    else:
+        raise InputError(f"keyword MJDREFI/MJDREFF (or MJDREF) missing in HDU {hdu}: the "
+                         "reference MJD of the TIME column", path=path, field="MJDREFI")
+    if not 0 <= day < 1e7:
+        raise InputError(f"reference MJD {day} in HDU {hdu} is out of range", path=path,
+                         field="MJDREFI" if mjdrefi is not None else "MJDREF")
+    system = get("TIMESYS")
+    if system is None:
+        raise InputError(f"keyword TIMESYS missing in HDU {hdu} (the time scale: TT, TDB or "
+                         "UTC)", path=path, field="TIMESYS")
+    scale = TIME_SYSTEMS.get(_text(system).upper())
+    if scale is None:
+        raise InputError(f"keyword TIMESYS = {system!r} in HDU {hdu} is not supported; legal: "
+                         f"{', '.join(TIME_SYSTEMS)}", path=path, field="TIMESYS")
+    unit_text = get("TIMEUNIT")
+    if unit_text is None:
+        defaulted.append("TIMEUNIT = 's'")
+        unit_s = 1.0
+    else:
+        unit_s = TIME_UNITS.get(_text(unit_text).lower())
+        if unit_s is None:
+            raise InputError(f"keyword TIMEUNIT = {unit_text!r} in HDU {hdu} is not supported; "
+                             "legal: 's', 'd'", path=path, field="TIMEUNIT")
+    timezero = _timezero(get, hdu, path, defaulted) * unit_s
+    ref_text = get("TIMEREF")
+    if ref_text is None:
+        defaulted.append("TIMEREF = 'LOCAL'")
+        timeref = "local"
+    else:
+        timeref = TIME_REFERENCES.get(_text(ref_text).upper())
+        if timeref is None:
+            raise InputError(f"keyword TIMEREF = {ref_text!r} in HDU {hdu} is not supported; "
+                             "legal: LOCAL, GEOCENTRIC, SOLARSYSTEM", path=path, field="TIMEREF")
+    if timeref == "solarsystem" and scale != "tdb":
+        raise InputError(f"TIMEREF = SOLARSYSTEM needs TIMESYS = TDB in HDU {hdu}, found "
+                         f"{system!r}", path=path, field="TIMESYS")
+    clock = get("CLOCKAPP")
+    return TimeKeywords(hdu=hdu, reference_day=int(day), mjdref_frac=float(frac),
+                        timezero_s=float(timezero), unit_s=float(unit_s), scale=scale,
+                        timeref=timeref, keywords={k: _plain(v) for k, v in found.items()},
+                        defaulted=tuple(defaulted),
+                        clock_applied=None if clock is None else bool(clock))
+
+
+def _timezero(get, hdu: str, path, defaulted: list) -> float:
+    whole, part, single = get("TIMEZERI"), get("TIMEZERF"), get("TIMEZERO")
+    if whole is not None or part is not None:
+        return (_number(whole or 0.0, "TIMEZERI", hdu, path)
+                + _number(part or 0.0, "TIMEZERF", hdu, path))
+    if single is None:
+        defaulted.append("TIMEZERO = 0")
+        return 0.0
+    return _number(single, "TIMEZERO", hdu, path)
+
+
+def _plain(value):
+    return value if isinstance(value, (bool, int, float, str)) else str(value)
+
+
+def time_keyword_cards(reference_day: int, mjdref_frac: float, scale: str, timeref: str,
+                       timezero_s: float = 0.0) -> list[tuple]:
+    """(keyword, value, comment) cards that ``read_time_keywords`` reads back."""
+    system = {"tt": "TT", "tdb": "TDB", "utc": "UTC"}[scale]
+    reference = {"local": "LOCAL", "geocentric": "GEOCENTRIC",
+                 "solarsystem": "SOLARSYSTEM"}[timeref]
+    return [("MJDREFI", int(reference_day), "integer part of the reference MJD"),
+            ("MJDREFF", float(mjdref_frac), "fractional part of the reference MJD"),
+            ("TIMESYS", system, "time scale of TIME"),
+            ("TIMEREF", reference, "where the times are observed"),
+            ("TIMEUNIT", "s", "unit of TIME"),
+            ("TIMEZERO", float(timezero_s), "offset added to TIME, s")]

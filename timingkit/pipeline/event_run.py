@@ -1,0 +1,304 @@
+"""Photon events from files to results: ``timingkit events``, ``event-toas`` and
+``simulate-events`` (:func:`fold_event_files`, :func:`event_toa_files`,
+:func:`simulate_event_file`).
+
+Everything is read, checked and computed before the first output is written;
+each output is written atomically, and the input files are opened read-only.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from timingkit.events.barycentre import (EventClock, EventTiming, event_clock, time_events,
+                                         valid_span)
+from timingkit.formats.errors import InputError
+from timingkit.formats.event_list import EventList, read_event_list, select_events
+from timingkit.formats.site_file import BUILTIN_SITES, Site
+from timingkit.geometry.ephemeris import Ephemeris
+from timingkit.geometry.observer import Observer
+from timingkit.geometry.sites import SiteTable
+from timingkit.model.timing_model import TimingModel
+from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
+from timingkit.pipeline.inputs import load_context, load_model, reference_observations
+
+LOW_ORBIT_WARNING = ("no orbit given for events observed at a local clock (TIMEREF = LOCAL): "
+                     "they are treated as observed at the geocentre, which for a spacecraft in "
+                     "low Earth orbit is off by up to ~23 ms of light travel; give --orbit FILE "
+                     "(or --site NAME for a ground array)")
+
+
+@dataclass
+class EventInputs:
+    events: EventList
+    model: TimingModel
+    observer: Observer
+    ephemeris: Ephemeris
+    reference: object
+    index: np.ndarray
+    selection: dict
+    warnings: list[str] = field(default_factory=list)
+
+
+def resolve_observer(events: EventList, site_name: str | None, orbit_path: str | None,
+                     sites: SiteTable, clocks) -> tuple[Observer, list[str]]:
+    """Where the events were observed, from the options and the file (README)."""
+    from timingkit.formats.orbit_table import read_orbit_table
+    from timingkit.geometry.spacecraft import SpacecraftTrajectory
+    warnings: list[str] = []
+    if site_name is not None and orbit_path is not None:
+        raise InputError("give --site or --orbit, not both", field="--orbit")
+    site_name = site_name if site_name is not None else events.site
+    if events.timeref == "solarsystem":
+        if site_name is not None or orbit_path is not None:
+            raise InputError("the events are already barycentric (TIMEREF = SOLARSYSTEM): no "
+                             "--site or --orbit", path=events.path, field="TIMEREF")
+        return Observer("ssb", events.scale, sites=sites), warnings
+    if orbit_path is not None:
+        if events.timeref != "local":
+            raise InputError(f"an orbit needs locally observed times; TIMEREF is "
+                             f"{events.timeref.upper()}", path=events.path, field="TIMEREF")
+        trajectory = SpacecraftTrajectory(read_orbit_table(orbit_path))
+        return Observer("spacecraft", events.scale, trajectory=trajectory, sites=sites), warnings
+    if site_name is not None:
+        site = sites.lookup(site_name)
+        if events.timeref == "geocentric" and site.kind != "geocentre":
+            raise InputError(f"the events are geocentric (TIMEREF = GEOCENTRIC), not at site "
+                             f"{site.name}", path=events.path, field="TIMEREF")
+        kind = {"earth": "earth", "geocentre": "geocentre", "ssb": "ssb"}[site.kind]
+        return Observer(kind, events.scale, site=site, sites=sites, clocks=list(clocks)), warnings
+    if events.timeref == "geocentric":
+        return Observer("geocentre", events.scale, sites=sites), warnings
+    if events.kind == "text":
+        raise InputError("the observer is not stated: add a '# site: NAME' comment (a site, "
+                         "geocentre or ssb) or give --site or --orbit", path=events.path,
+                         field="site")
+    if events.observer_itrf_m is not None:
+        site = Site("obsgeo", "earth", events.observer_itrf_m, (),
+                    f"OBSGEO-X/Y/Z keywords of {events.path}")
+        table = SiteTable([*BUILTIN_SITES, site])
+        return Observer("earth", events.scale, site=site, sites=table, clocks=list(clocks),
+                        description="position from the file's OBSGEO-X/Y/Z keywords"), warnings
+    warnings.append(LOW_ORBIT_WARNING)
+    return Observer("geocentre", events.scale, sites=sites,
+                    description="no orbit or site given: geocentre assumed"), warnings
+
+
+def load_event_inputs(events_path, model_path, *, site=None, orbit=None, scale=None,
+                      energy_range=None, energy_column=None, sites_paths=(), ephemeris=None,
+                      clock_paths=()) -> EventInputs:
+    model = load_model(model_path)
+    sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
+    events = read_event_list(events_path, scale=scale, site=site)
+    observer, warnings = resolve_observer(events, site, orbit, sites, clocks)
+    index, selection = select_events(events, energy_range, energy_column)
+    if len(index) == 0:
+        raise InputError("no events left after the selection (GTIs, energy range)",
+                         path=events.path)
+    return EventInputs(events=events, model=model, observer=observer, ephemeris=eph,
+                       reference=reference_observations(model, sites, eph, clocks),
+                       index=index, selection=selection, warnings=warnings)
+
+
+def clock_state(inputs: EventInputs) -> str:
+    """What is known of the clock behind the event times (for the report)."""
+    events, observer = inputs.events, inputs.observer
+    if observer.kind == "earth":
+        used = [f"{c.converts} ({c.path})" for c in observer.clocks
+                if c.applies_to(observer.site.name)]
+        return "; ".join(used) if used else "no observatory clock corrections applied"
+    if events.clock_applied is True:
+        return "CLOCKAPP = T: the file says the mission's clock correction is applied"
+    if events.clock_applied is False:
+        return "CLOCKAPP = F: the mission's clock correction is NOT applied"
+    return "unknown (no CLOCKAPP keyword): clock corrections as supplied by the file"
+
+
+def time_selected(inputs: EventInputs, want_frequency=False) -> tuple[EventClock, EventTiming]:
+    """Event clock and timing of the selected events."""
+    clock = event_clock(inputs.events, inputs.index, inputs.observer)
+    span = valid_span(clock, inputs.observer)
+    if span is not None:
+        outside = np.flatnonzero((clock.seconds < span[0]) | (clock.seconds > span[1]))
+        if len(outside):
+            part = clock.select(outside)
+            inputs.observer.trajectory.check_covers(part.at(part.seconds, part.seconds_lo))
+    timing = time_events(clock, inputs.model, inputs.observer, inputs.ephemeris,
+                         inputs.reference, want_frequency=want_frequency)
+    inputs.warnings.extend(w for w in timing.accuracy.get("warnings", [])
+                           if w not in inputs.warnings)
+    return clock, timing
+
+
+def barycentric_mjd(clock: EventClock, timing: EventTiming) -> np.ndarray:
+    """Float MJD (TDB at the barycentre; ~1 µs resolution) of each event."""
+    seconds = clock.seconds + timing.bary_offset_s
+    if clock.seconds_lo is not None:
+        seconds = seconds + clock.seconds_lo
+    return clock.reference_day + (clock.reference_frac[0] + clock.reference_frac[1]
+                                  + seconds / SECONDS_PER_DAY)
+
+
+def settings_entry(inputs: EventInputs, timing: EventTiming) -> dict:
+    accuracy = {k: v for k, v in timing.accuracy.items() if k != "warnings"}
+    return {"observer": inputs.observer.summary(), "ephemeris": inputs.ephemeris.label,
+            "clock": clock_state(inputs), "barycentring": accuracy,
+            "time_keywords": inputs.events.keywords, "model": inputs.model.path,
+            "phase_zero": ("model [phase_zero]" if inputs.model.phase_zero is not None else
+                           "spin epoch at the barycentre")}
+
+
+def _span(clock: EventClock, seconds: np.ndarray) -> list[float]:
+    """[first, last] as float MJDs of clock seconds."""
+    base = clock.reference_day + clock.reference_frac[0] + clock.reference_frac[1]
+    return [base + float(np.min(seconds)) / SECONDS_PER_DAY,
+            base + float(np.max(seconds)) / SECONDS_PER_DAY]
+
+
+def fold_event_files(events_path, model_path, outdir, *, site=None, orbit=None, scale=None,
+                     energy_range=None, energy_column=None, harmonics=20, bins=32,
+                     sites_paths=(), ephemeris=None, clock_paths=(), make_plot=True) -> dict:
+    """``timingkit events``: phases.fits, events_report.json and profile.png in
+    ``outdir``; returns the report."""
+    from timingkit.events.folding import fold_summary, smooth_profile
+    if not 1 <= harmonics <= 40:
+        raise InputError(f"--harmonics must lie in 1..40, found {harmonics}", field="--harmonics")
+    if not 2 <= bins <= 4096:
+        raise InputError(f"--bins must lie in 2..4096, found {bins}", field="--bins")
+    inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
+                               energy_range=energy_range, energy_column=energy_column,
+                               sites_paths=sites_paths, ephemeris=ephemeris,
+                               clock_paths=clock_paths)
+    clock, timing = time_selected(inputs)
+    fold, sums = fold_summary(timing.phase, harmonics, bins)
+    cautions = fold.pop("cautions")
+    n = len(inputs.index)
+    report = {"source": inputs.model.name, "events_file": os.fspath(events_path),
+              "events": n, "selection": inputs.selection,
+              "span_mjd": _span(clock, clock.seconds), "span_mjd_scale": clock.scale,
+              "barycentric_span_mjd": _span(clock, clock.seconds + timing.bary_offset_s),
+              **fold,
+              "settings": settings_entry(inputs, timing), "cautions": cautions,
+              "warnings": inputs.warnings + inputs.events.notes}
+    os.makedirs(outdir, exist_ok=True)
+    _write_phases(inputs, clock, timing, os.path.join(outdir, "phases.fits"))
+    from timingkit.outputs.report import write_json
+    write_json(os.path.join(outdir, "events_report.json"), report)
+    if make_plot:
+        from timingkit.outputs.profile_figure import plot_event_profile
+        phase, smooth = smooth_profile(fold, sums, n)
+        plot_event_profile(report, phase, smooth, path=os.path.join(outdir, "profile.png"))
+    return report
+
+
+def _write_phases(inputs: EventInputs, clock: EventClock, timing: EventTiming, path) -> None:
+    from timingkit.formats.event_fits import write_event_table
+    from timingkit.outputs.residual_table import atomic_output
+    events = inputs.events
+    # barycentric seconds from MJDREF (read as a TDB date): the TIME column's own
+    # resolution; TIMEZERO is included
+    shift = (clock.reference_day - events.mjdref[0]) * SECONDS_PER_DAY + \
+        (clock.reference_frac[0] - events.mjdref[1]) * SECONDS_PER_DAY + \
+        clock.reference_frac[1] * SECONDS_PER_DAY
+    bary = clock.seconds + (timing.bary_offset_s + shift)
+    if clock.seconds_lo is not None:
+        bary += clock.seconds_lo
+    cards = [("HISTORY", f"timingkit events: PHASE from model {inputs.model.path}", ""),
+             ("HISTORY", "BARY_TIME: TDB seconds at the solar-system barycentre from "
+                         "MJDREFI+MJDREFF read as a TDB date (TIMEZERO included)", ""),
+             ("HISTORY", f"observer: {inputs.observer.label}; ephemeris: "
+                         f"{inputs.ephemeris.label}", "")]
+    if events.kind == "text":
+        cards = [("MJDREFI", int(events.mjdref[0]), "reference of BARY_TIME (TDB)"),
+                 ("MJDREFF", 0.0, "")] + cards
+    with atomic_output(path, binary=True) as handle:
+        write_event_table(handle, events, inputs.index,
+                          [("PHASE", timing.phase, ""), ("BARY_TIME", bary, "s")], cards)
+
+
+def event_toa_files(events_path, model_path, toas_path, *, template="auto", span_days=1.0,
+                    site=None, orbit=None, scale=None, energy_range=None, energy_column=None,
+                    min_events=20, save_template=None, sites_paths=(), ephemeris=None,
+                    clock_paths=()) -> dict:
+    """``timingkit event-toas``: one TOA per chunk of ``span_days``, written as a
+    TOA table at the barycentre; returns facts for the terminal."""
+    from timingkit.events.photon_toas import event_toas
+    from timingkit.events.template import PulseTemplate
+    from timingkit.formats.toa_writer import write_toa_table
+    inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
+                               energy_range=energy_range, energy_column=energy_column,
+                               sites_paths=sites_paths, ephemeris=ephemeris,
+                               clock_paths=clock_paths)
+    shape = None if template == "auto" else PulseTemplate.from_file(template)
+    clock, timing = time_selected(inputs)
+    if shape is None:
+        shape = PulseTemplate.from_events(timing.phase)
+    toas, facts, _ = event_toas(timing.phase, barycentric_mjd(clock, timing), span_days, shape,
+                                inputs.model, inputs.reference, inputs.ephemeris,
+                                min_events=min_events)
+    if save_template is not None:
+        from timingkit.formats.profile_template import write_template_table
+        write_template_table(save_template, *shape.table(), comment=shape.source)
+    write_toa_table(toas, toas_path)
+    facts.update(toas=len(toas), events=len(inputs.index), warnings=inputs.warnings,
+                 observer=inputs.observer.label, clock=clock_state(inputs),
+                 median_err_us=float(np.median(toas.err_us)))
+    return facts
+
+
+def simulation_observer(site_name, orbit_path, sites: SiteTable) -> tuple[Observer, str]:
+    """Observer of a simulated list and its TIMEREF."""
+    from timingkit.formats.orbit_table import read_orbit_table
+    from timingkit.geometry.spacecraft import SpacecraftTrajectory
+    if site_name is not None and orbit_path is not None:
+        raise InputError("give --site or --orbit, not both", field="--orbit")
+    if orbit_path is not None:
+        trajectory = SpacecraftTrajectory(read_orbit_table(orbit_path))
+        return Observer("spacecraft", "tt", trajectory=trajectory, sites=sites), "local"
+    site = sites.lookup(site_name or "geocentre")
+    if site.kind == "ssb":
+        return Observer("ssb", "tdb", sites=sites), "solarsystem"
+    if site.kind == "geocentre":
+        return Observer("geocentre", "tt", sites=sites), "geocentric"
+    return Observer("earth", "utc", site=site, sites=sites), "local"
+
+
+def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, pulsed_fraction,
+                        profile=("gauss:0.0:0.1",), site=None, orbit=None, seed=None,
+                        sites_paths=(), ephemeris=None) -> dict:
+    """``timingkit simulate-events``: an OGIP FITS event list (README)."""
+    from timingkit.events.simulate import simulate_events
+    from timingkit.events.template import PulseTemplate
+    from timingkit.formats.event_fits import write_simulated_events
+    from timingkit.formats.ogip_time import time_keyword_cards
+    from timingkit.outputs.residual_table import atomic_output
+    model = load_model(model_path)
+    sites, eph, clocks = load_context(model, sites_paths, ephemeris)
+    observer, timeref = simulation_observer(site, orbit, sites)
+    template = PulseTemplate.from_profile_spec(profile)
+    if observer.kind == "spacecraft":
+        ends = np.array([start_mjd, end_mjd])
+        observer.trajectory.check_covers(SplitTime(np.floor(ends), ends - np.floor(ends), "tt"))
+    sim = simulate_events(model, observer, eph, start_mjd, end_mjd, rate_per_s, pulsed_fraction,
+                          template, reference_observations(model, sites, eph, []), seed)
+    cards = [("OBJECT", model.name, "simulated source"),
+             ("TELESCOP", "TIMINGKIT-SIM", "simulated by timingkit simulate-events"),
+             ("CLOCKAPP", True, "simulated times: no clock error"),
+             ("HISTORY", f"simulated: rate {rate_per_s} /s, pulsed fraction {pulsed_fraction}, "
+                         f"profile {template.source}, seed {seed}, model {model_path}", "")]
+    if observer.kind == "earth":
+        xyz = observer.site.geocentric_itrf_m
+        cards += [("OBSERVAT", observer.site.name, "site of the simulated array"),
+                  ("OBSGEO-X", float(xyz[0]), "[m] geocentric ITRS"),
+                  ("OBSGEO-Y", float(xyz[1]), "[m] geocentric ITRS"),
+                  ("OBSGEO-Z", float(xyz[2]), "[m] geocentric ITRS")]
+    with atomic_output(output, binary=True) as handle:
+        write_simulated_events(handle, sim.seconds, [("ENERGY", sim.energy_kev, "keV")],
+                               time_keyword_cards(sim.reference_day, 0.0, sim.scale, timeref),
+                               sim.gti_s, cards)
+    return {"events": len(sim.seconds), "pulsed": int(sim.pulsed.sum()),
+            "observer": observer.label, "time_scale": sim.scale.upper(),
+            "timeref": timeref.upper()}
