@@ -294,8 +294,8 @@ def bench_helpers(names) -> None:
         getattr(mod, func)()
 
 
-SECTIONS = ["barycentre", "read", "fit", "sites", "predict", "profiles", "binary", "glitches",
-            "noise", "batch"]
+SECTIONS = ["barycentre", "read", "fit", "sites", "predict", "profiles", "events", "binary",
+            "glitches", "noise", "batch"]
 
 
 def main() -> int:
@@ -318,6 +318,9 @@ def main() -> int:
             bench_predict(100_000 if quick else 1_000_000, tmp)
         if "profiles" in wanted:
             bench_profiles(2_000 if quick else 10_000, tmp)
+        if "events" in wanted:
+            from bench_events import bench_events
+            bench_events(quick=quick)
         extra = {"binary": ("bench_binary", "bench_binary"),
                  "glitches": ("bench_glitches", "bench_glitches"),
                  "noise": ("bench_noise", "bench_noise"),

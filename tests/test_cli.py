@@ -45,6 +45,12 @@ def test_demo_runs_end_to_end_and_recovers_the_true_models(tmp_path):
     after = [float(line.split()[-3]) for line in res.stdout.splitlines()
              if "sigma from the truth before" in line]
     assert len(after) == 2 and all(abs(a) < 4 for a in after)
+    # the event loop: events folded and timed, the fit back on the truth
+    events = out / "event-loop"
+    assert (events / "folded" / "events_report.json").exists()
+    assert len((events / "events.toas").read_text().splitlines()) == 2 + 20
+    line = [l for l in res.stdout.splitlines() if l.startswith("event loop")][0]
+    assert abs(float(line.split("spin.frequency_hz ")[1].split()[0])) < 4
     for name in SOURCES:
         folder = out / name
         for f in ("fitted.toml", "residuals.csv", "residuals.png", "report.json"):

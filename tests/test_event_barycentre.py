@@ -53,6 +53,12 @@ site = "ssb"
 """
 
 
+def _plain_model(spin_lines: str = "") -> str:
+    """The invented source with no proper motion or parallax."""
+    return ('name = "test-plain"\n[position]\nra = "05h12m33.4567s"\ndec = "+21d02m11.234s"\n'
+            '[spin]\nepoch_mjd = "58000"\nfrequency_hz = "29.7123456789"\n' + spin_lines)
+
+
 def _fast_and_chain(tmp_path, keywords, model_text, site):
     rng = np.random.default_rng(11)
     seconds = np.sort(rng.uniform(0.0, 2 * 86400.0, 20000))
@@ -94,14 +100,7 @@ def test_spacecraft_events_against_astropy_geometry(tmp_path):
     # same DE421 file, the spacecraft position from the orbit computed by hand, the
     # plane-wave Roemer delay and the solar Shapiro delay -2 GM/c^3 ln(|rho| + rho.n)
     # (Backer & Hellings 1986). The model has no proper motion or parallax.
-    model_text = """name = "test-spacecraft"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "29.7123456789"
-"""
+    model_text = _plain_model()
     rng = np.random.default_rng(12)
     seconds = np.sort(rng.uniform(100.0, 86000.0, 8000))
     path = ogip_events(tmp_path / "e.fits", seconds, TT_KEYWORDS)
@@ -136,16 +135,7 @@ def test_barycentric_events_follow_the_spin_polynomial_exactly(tmp_path):
     seconds = np.array([0.0, 1234.5678, 86399.9, 3.0e5, 2.0e6])
     keywords = {**TT_KEYWORDS, "TIMESYS": "TDB", "TIMEREF": "SOLARSYSTEM", "MJDREFI": 57990}
     path = ogip_events(tmp_path / "e.fits", seconds, keywords)
-    model_text = """name = "test-bary"
-[position]
-ra = "05h12m33.4567s"
-dec = "+21d02m11.234s"
-[spin]
-epoch_mjd = "58000"
-frequency_hz = "29.7123456789"
-frequency_derivatives = ["-3.1e-10"]
-"""
-    model_path, _ = write_inputs(tmp_path, model_text)
+    model_path, _ = write_inputs(tmp_path, _plain_model('frequency_derivatives = ["-3.1e-10"]\n'))
     inputs = load_event_inputs(path, model_path)
     assert inputs.observer.kind == "ssb"
     _, timing = time_selected(inputs)

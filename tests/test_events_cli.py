@@ -133,9 +133,10 @@ def test_text_list_and_event_toas(tmp_path, capsys):
     toas = tmp_path / "events.toas"
     assert main(["event-toas", str(text), str(model), "--scale", "tdb", "--site", "ssb",
                  "--template", "auto", "--span-days", "0.5", "--save-template",
-                 str(tmp_path / "auto.txt"), "-o", str(toas)]) == 0
+                 str(tmp_path / "auto.npz"), "-o", str(toas)]) == 0
     lines = [l for l in toas.read_text().splitlines() if not l.startswith("#")]
     assert lines[0].split()[:4] == ["mjd", "err_us", "freq_mhz", "site"] and len(lines) == 5
-    assert (tmp_path / "auto.txt").read_text().startswith("# timingkit pulse template")
+    from timingkit.formats.profile_file import read_template_file
+    assert len(read_template_file(tmp_path / "auto.npz").profile) == 512
     assert main(["fit", str(toas), str(model), "--free", "spin.frequency_hz", "--no-plot", "-o",
                  str(tmp_path / "fit")]) == 0

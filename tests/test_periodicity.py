@@ -72,11 +72,18 @@ def test_h_test_formula_in_the_large_sample_limit():
 
 
 def test_printed_false_alarm_probabilities_are_rounded_and_floored():
-    entry = false_alarm_entry(3.4567e-3, 5000, "h")
-    assert entry["false_alarm_probability"] == 3e-3
-    assert "10%" in entry["false_alarm_probability_accuracy"]
-    assert false_alarm_entry(3.4567e-3, 5000, "z2")["false_alarm_probability"] == 3.5e-3
-    assert "factor 2" in false_alarm_entry(3.4567e-4, 200, "h")["false_alarm_probability_accuracy"]
+    # the statements follow scripts/calibrate_periodicity.py (see timingkit.events.folding)
+    entry = false_alarm_entry(3.4567e-2, 5000, "h")
+    assert entry["false_alarm_probability"] == 3e-2
+    assert entry["false_alarm_probability_accuracy"].startswith("within 10%")
+    assert false_alarm_entry(3.4567e-2, 5000, "z2", 2)["false_alarm_probability"] == 3.5e-2
+    assert false_alarm_entry(3.4567e-3, 5000, "h")["false_alarm_probability_accuracy"] \
+        .startswith("within 20%")
+    assert false_alarm_entry(3.4567e-4, 200, "h")["false_alarm_probability_accuracy"] \
+        .startswith("within 30%")
+    assert "3x higher" in false_alarm_entry(3e-5, 200, "h")["false_alarm_probability_accuracy"]
+    assert "10x higher" in false_alarm_entry(3e-4, 20, "z2", 20)[
+        "false_alarm_probability_accuracy"]
     low = false_alarm_entry(1e-9, 5000, "h")
     assert low["false_alarm_probability"] is None and low["false_alarm_probability_below"] == 1e-5
 

@@ -3,6 +3,8 @@ from X-ray and gamma-ray observers."""
 
 from __future__ import annotations
 
+from timingkit.cli.options import add_context_options
+
 
 def _observer_options(p) -> None:
     group = p.add_mutually_exclusive_group()
@@ -10,15 +12,6 @@ def _observer_options(p) -> None:
                        help="ground site of the events (a site-file name, geocentre or ssb)")
     group.add_argument("--orbit", metavar="FILE",
                        help="spacecraft orbit table (text or FITS, geocentric GCRS metres)")
-
-
-def _context_options(p) -> None:
-    p.add_argument("--sites", action="append", default=[], metavar="FILE",
-                   help="extra site file (TOML); may be repeated")
-    p.add_argument("--ephemeris", metavar="BSP",
-                   help="JPL SPK ephemeris file (default: the model's, else built-in DE421)")
-    p.add_argument("--clock", action="append", default=[], metavar="FILE",
-                   help="clock-correction table for a ground site; may be repeated")
 
 
 def _event_input_options(p) -> None:
@@ -31,7 +24,7 @@ def _event_input_options(p) -> None:
                    help="keep events with LO <= energy < HI (units of the energy column)")
     p.add_argument("--energy-column", metavar="NAME",
                    help="column for --energy-range (default: ENERGY, PI, PHA or CHANNEL)")
-    _context_options(p)
+    add_context_options(p)
 
 
 def add_parsers(sub) -> None:
@@ -49,13 +42,14 @@ def add_parsers(sub) -> None:
     p = sub.add_parser("event-toas", help="TOAs from photon events (unbinned likelihood)")
     _event_input_options(p)
     p.add_argument("--template", required=True, metavar="FILE|auto",
-                   help="pulse template file (phase intensity), or 'auto' to fit one to "
-                        "the folded events")
+                   help="pulse template file (.npz, as for profile-toas), or 'auto' to fit "
+                        "one to the folded events")
     p.add_argument("--span-days", type=float, required=True, metavar="D",
                    help="one TOA per D days of events")
     p.add_argument("--min-events", type=int, default=20, metavar="N",
                    help="skip chunks with fewer events (default 20)")
-    p.add_argument("--save-template", metavar="FILE", help="write the template used")
+    p.add_argument("--save-template", metavar="FILE",
+                   help="write the template used (.npz template file)")
     p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
     p.set_defaults(func=cmd_event_toas)
 
@@ -87,8 +81,8 @@ def _common(args) -> dict:
 def _fap_text(entry: dict) -> str:
     if entry["false_alarm_probability"] is None:
         return f"false-alarm probability < {entry['false_alarm_probability_below']:.0e}"
-    return (f"false-alarm probability {entry['false_alarm_probability']:.2g} "
-            f"({entry['false_alarm_probability_accuracy']})")
+    return (f"false-alarm probability {entry['false_alarm_probability']:.2g}; "
+            f"{entry['false_alarm_probability_accuracy']}")
 
 
 def cmd_events(args) -> int:
@@ -100,13 +94,16 @@ def cmd_events(args) -> int:
     print(f"{report['source']}: {report['events']:,} events, MJD {report['span_mjd'][0]:.5f} to "
           f"{report['span_mjd'][1]:.5f} ({report['span_mjd_scale'].upper()}), observer "
           f"{report['settings']['observer']['observer']}")
-    print(f"  H-test {h['value']:.2f} ({h['harmonics']} harmonics): {_fap_text(h)}")
+    print(f"  H-test {h['value']:.2f} ({h['harmonics']} harmonic"
+          f"{'s' if h['harmonics'] > 1 else ''}): {_fap_text(h)}")
     z2 = report["z2"][min(1, len(report["z2"]) - 1)]
     print(f"  Z^2_{z2['harmonics']} = {z2['value']:.2f}: {_fap_text(z2)}")
     print(f"  pulsed fraction {pf['value']:.4f} ± {pf['uncertainty']:.4f}; peak phase "
           f"{peak['value']:.4f} ± {peak['uncertainty']:.4f}")
-    print(f"  barycentring: {accuracy['method']} (largest measured interpolation error "
-          f"{accuracy['max_interpolation_error_ns']:.3g} ns)")
+    measured = "" if accuracy.get("grid_step_s") is None else \
+        (f" every {accuracy['grid_step_s']:g} s (largest measured interpolation error "
+         f"{accuracy['max_interpolation_error_ns']:.2g} ns)")
+    print(f"  barycentring: {accuracy['method']}{measured}")
     print(f"  ephemeris: {report['settings']['ephemeris']}; clock: {report['settings']['clock']}")
     for line in report["cautions"]:
         print(f"  caution: {line}")

@@ -22,8 +22,7 @@ DESCRIPTION = ("timingkit: pulsar timing from arrival times to a fitted timing m
 
 # Modules of timingkit.cli, each with add_parsers(subparsers), in the order of --help.
 COMMAND_GROUPS = ["fit", "derive", "simulate", "glitches", "events", "batch", "convert", "predict",
-                  "profiles",
-                  "demo"]
+                  "profiles", "demo"]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -35,6 +35,11 @@ def add_input_options(p: argparse.ArgumentParser) -> None:
     """TOAS and MODEL, plus the files a model may need besides its own settings."""
     p.add_argument("toas", help="TOA table (plain text)")
     p.add_argument("model", help="timing model (TOML)")
+    add_context_options(p)
+
+
+def add_context_options(p: argparse.ArgumentParser) -> None:
+    """--sites, --ephemeris and --clock: files a model may need besides its settings."""
     p.add_argument("--sites", action="append", default=[], metavar="FILE",
                    help="extra site file (TOML); may be repeated")
     p.add_argument("--ephemeris", metavar="BSP",

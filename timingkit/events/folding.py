@@ -4,19 +4,23 @@ profile, with the false-alarm probabilities printed no more precisely than
 our simulations of unpulsed events support (scripts/calibrate_periodicity.py,
 tests/test_periodicity.py).
 
-What those simulations show (10^7 trials of the large-N limit, 2x10^5 trials of
-20-1000 events):
+What those simulations show (scripts/calibrate_periodicity.py: 10^7 trials of
+the large-sample limit, 2x10^5 trials of 20, 50 and 100 events, 4x10^4 of 1000),
+as the ratio of the true chance probability to the printed one:
 
-- H-test, exp(-0.4 H): within 10% of the simulated chance probability for
-  1000 or more events, from 0.5 down to 1e-5 (slightly below it: the formula
-  is a little optimistic); for 50-100 events the true probability is up to
-  1.2x the formula at 1e-3 and up to 2x at 1e-4; for 20 events up to 4x. It is
-  printed to one significant figure, with the accuracy for the number of events
-  beside it.
-- Z^2_m, chi-square with 2m degrees of freedom: within a few per cent for 1000
-  or more events; for 100 events within 10% down to 1e-3 and up to 1.4x at
-  1e-4 for m = 10.
+- H-test, exp(-0.4 H): 1.00-1.02 from 0.5 to 3e-4 and 0.93-0.95 (+-0.03-0.10)
+  from 1e-4 to 1e-5 in the large-sample limit; 1.0-1.2 at 1e-3 for 100-1000
+  events; for 100 events 1.3 at 1e-4 and 2.8 at 3e-5, for 50 events 1.3 at
+  3e-4 and 1.8 at 1e-4, for 20 events 1.25 at 1e-3 and 2.3 at 1e-4. At p >= 0.01
+  it is within 6% for 20 events or more.
+- Z^2_m, chi-square with 2m degrees of freedom: within 10% at p >= 0.01
+  (20 events: up to 1.33 for m = 20); for 100 events within 20% down to 1e-4
+  for m <= 5, but 1.3-2 at 1e-3 to 1e-4 for m = 10-20; fewer events and more
+  harmonics drift further (20 events, m = 20: 5 at 1e-4).
 - Below 1e-5 neither is checked: only "below 1e-5" is printed.
+
+The H-test probability is printed to one significant figure, Z^2 to two where
+it is good to 10%, with the accuracy for this number of events beside it.
 """
 
 from __future__ import annotations
@@ -36,26 +40,32 @@ def _round(value: float, digits: int) -> float:
     return float(f"{value:.{digits - 1}e}")
 
 
-def _accuracy(events: int, probability: float, kind: str) -> str:
-    if events < 50:
-        return "rough: fewer than 50 events (simulations: off by up to 4x at 1e-4)"
-    if events >= 1000 or probability >= 0.01:
-        return "within 10% (simulations of unpulsed events)" if kind == "h" else \
-            "within a few per cent (simulations of unpulsed events)"
-    return ("within a factor 2 for this number of events (simulations: the true chance "
-            "probability is up to 2x higher at 1e-4)") if kind == "h" else \
-        "within 40% for this number of events (simulations of unpulsed events)"
+def _accuracy(events: int, probability: float, kind: str, harmonics: int = 20) -> str:
+    """How far the printed probability may be from the true one (module docstring)."""
+    checked = " (simulations of unpulsed events)"
+    if probability >= 0.01 and (events >= 50 or kind == "h" or harmonics <= 10):
+        return "within 10%" + checked
+    if events >= 1000:
+        return "within 20%" + checked
+    good = (kind == "h" and (probability >= 1e-3 or (events >= 100 and probability >= 1e-4))) \
+        or (kind == "z2" and harmonics <= 5 and events >= 50 and probability >= 1e-4)
+    if good and events >= 50:
+        return "within 30%" + checked
+    factor = 3 if events >= 50 else 10
+    return (f"the true chance probability may be up to {factor}x higher for {events} events"
+            + checked)
 
 
-def false_alarm_entry(probability: float, events: int, kind: str) -> dict:
+def false_alarm_entry(probability: float, events: int, kind: str, harmonics: int = 20) -> dict:
     """The printed form of a false-alarm probability (module docstring)."""
-    digits = 1 if kind == "h" or events < 1000 else 2
     if probability < FALSE_ALARM_FLOOR:
         return {"false_alarm_probability": None,
                 "false_alarm_probability_below": FALSE_ALARM_FLOOR,
                 "false_alarm_probability_accuracy": "not checked below 1e-5 by our simulations"}
+    accuracy = _accuracy(events, probability, kind, harmonics)
+    digits = 2 if kind == "z2" and accuracy.startswith("within 10%") else 1
     return {"false_alarm_probability": _round(probability, digits),
-            "false_alarm_probability_accuracy": _accuracy(events, probability, kind)}
+            "false_alarm_probability_accuracy": accuracy}
 
 
 def fold_summary(phases: np.ndarray, harmonics: int = stats.H_TEST_HARMONICS,
@@ -79,7 +89,7 @@ def fold_summary(phases: np.ndarray, harmonics: int = stats.H_TEST_HARMONICS,
                    **false_alarm_entry(float(stats.h_false_alarm(h)), n, "h"),
                    "method": H_TEST_SOURCE},
         "z2": [{"harmonics": m, "value": float(z2[m - 1]),
-                **false_alarm_entry(float(z2_fap[m - 1]), n, "z2")}
+                **false_alarm_entry(float(z2_fap[m - 1]), n, "z2", m)}
                for m in range(1, harmonics + 1)],
         "z2_method": Z2_SOURCE + "; each m is one trial (the H-test accounts for choosing m)",
         "pulsed_fraction": {

@@ -4,8 +4,9 @@ A template is tabulated on 2048 phases and evaluated, with its first two
 derivatives, by a periodic cubic spline (scipy.interpolate.CubicSpline),
 floored at 1e-6 so its logarithm stays finite. Three sources:
 
-- a template file (timingkit.formats.profile_template), resampled by
-  periodic linear interpolation;
+- a template file (the project's ``.npz`` template, timingkit.formats.profile_file,
+  the same as for folded radio profiles), resampled by periodic linear
+  interpolation of its bin centres;
 - wrapped Gaussian components ``gauss:CENTRE:FWHM[:AMPLITUDE]`` (phase units;
   for simulations and tests);
 - ``auto``: fitted to folded events, a kernel density estimate with a von
@@ -62,9 +63,19 @@ class PulseTemplate:
 
     @classmethod
     def from_file(cls, path) -> "PulseTemplate":
-        from timingkit.formats.profile_template import read_template_table
-        phase, intensity = read_template_table(path)
-        return cls.from_table(phase, intensity, f"template file {path}")
+        """A template file (``.npz``, format "timingkit-template", as for folded
+        radio profiles: bin j covers phase [j/N, (j+1)/N)); negative values
+        (a baseline below zero) are clipped to zero."""
+        from timingkit.formats.profile_file import read_template_file
+        profile = read_template_file(path).profile
+        centres = (np.arange(len(profile)) + 0.5) / len(profile)
+        return cls.from_table(centres, profile, f"template file {path}")
+
+    def write(self, path, bins: int = 512) -> None:
+        """Save as a template file (bin means of the tabulated template)."""
+        from timingkit.formats.profile_file import Template, write_template_file
+        profile = self.values.reshape(bins, GRID // bins).mean(axis=1)
+        write_template_file(Template(profile=profile), str(path))
 
     @classmethod
     def from_gaussians(cls, components, background: float = 0.0) -> "PulseTemplate":
@@ -135,9 +146,6 @@ class PulseTemplate:
         cdf /= cdf[-1]
         return np.interp(rng.uniform(0.0, 1.0, count), cdf, edges) % 1.0
 
-    def table(self, rows: int = 512) -> tuple[np.ndarray, np.ndarray]:
-        phase = np.arange(rows) / rows
-        return phase, self(phase)
 
 
 def _von_mises_coefficients(kappa: float, harmonics: int) -> np.ndarray:

@@ -11,6 +11,10 @@
 - ``predictor_file``: phase-predictor files (JSON Chebyshev segments).
 - ``profile_file``: folded-profile and template files (.npz).
 - ``quantities``: astropy quantities and times from Python callers, converted or refused.
+- ``ogip_time``: the OGIP timing keywords of a FITS table (MJDREF, TIMEZERO, TIMESYS, ...).
+- ``event_list``, ``event_fits``, ``event_text``: photon event lists (:class:`EventList`;
+  OGIP FITS and plain text), GTI and energy selection, phases.fits and simulated lists.
+- ``orbit_table``: spacecraft orbit tables (:class:`OrbitTable`; text or FITS).
 """
 
 from timingkit import lazy_exports
@@ -22,7 +26,9 @@ EXPORTS = {
     "read_clock_table": "clock_table", "read_predictor_file": "predictor_file",
     "write_predictor_file": "predictor_file", "ProfileSet": "profile_file",
     "read_profile_file": "profile_file", "write_profile_file": "profile_file",
-    "read_text_file": "textfile", "read_toml_file": "textfile",
+    "read_text_file": "textfile", "read_toml_file": "textfile", "EventList": "event_list",
+    "read_event_list": "event_list", "select_events": "event_list", "OrbitTable": "orbit_table",
+    "read_orbit_table": "orbit_table",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from timingkit.formats.errors import InputError
+from timingkit.formats.textfile import is_fits_file
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.numerics import ddmath
 
@@ -195,14 +196,7 @@ def read_event_list(path, scale: str | None = None, site: str | None = None) -> 
     """A FITS or plain-text event list; ``scale`` and ``site`` are used for a
     text list (and override its header comments)."""
     path = os.fspath(path)
-    try:
-        with open(path, "rb") as fh:
-            head = fh.read(9)
-    except FileNotFoundError:
-        raise InputError("event list not found", path=path) from None
-    except IsADirectoryError:
-        raise InputError("is a directory, expected an event list", path=path) from None
-    if head.startswith(b"SIMPLE  ="):
+    if is_fits_file(path, "event list"):
         from timingkit.formats.event_fits import read_fits_events
         return read_fits_events(path)
     from timingkit.formats.event_text import read_text_events

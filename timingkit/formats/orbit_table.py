@@ -25,7 +25,7 @@ import numpy as np
 
 from timingkit.formats.errors import InputError
 from timingkit.formats.mjd_text import parse_mjd_column
-from timingkit.formats.textfile import read_text_file
+from timingkit.formats.textfile import is_fits_file, read_text_file
 from timingkit.formats.toa_table import SPLIT_RE
 from timingkit.numerics.timearray import SplitTime
 
@@ -75,14 +75,7 @@ def _check(path, times: SplitTime, position, velocity, where) -> OrbitTable:
 def read_orbit_table(path) -> OrbitTable:
     """A text or FITS orbit table (see the module docstring)."""
     path = os.fspath(path)
-    try:
-        with open(path, "rb") as fh:
-            head = fh.read(9)
-    except FileNotFoundError:
-        raise InputError("orbit file not found", path=path) from None
-    except IsADirectoryError:
-        raise InputError("is a directory, expected an orbit file", path=path) from None
-    if head.startswith(b"SIMPLE  ="):
+    if is_fits_file(path, "orbit file"):
         return _read_fits(path)
     return _read_text(path)
 

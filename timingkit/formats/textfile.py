@@ -10,17 +10,28 @@ import tomllib
 from timingkit.formats.errors import InputError
 
 
-def read_text_file(path, what: str) -> str:
-    """The file's text; ``what`` names the expected kind, e.g. "clock table"."""
+def _read_bytes(path, what: str, size: int = -1) -> bytes:
+    """The file's first ``size`` bytes (all by default), with errors for people."""
     try:
         with open(path, "rb") as fh:
-            raw = fh.read()
+            return fh.read(size)
     except FileNotFoundError:
         raise InputError(f"{what} not found", path=path) from None
     except IsADirectoryError:
         raise InputError(f"is a directory, expected a {what}", path=path) from None
     except PermissionError:
         raise InputError(f"cannot read this {what} (permission denied)", path=path) from None
+
+
+def is_fits_file(path, what: str) -> bool:
+    """Whether the file starts like FITS (``SIMPLE  =``); ``what`` names the
+    expected kind for the errors."""
+    return _read_bytes(path, what, 9).startswith(b"SIMPLE  =")
+
+
+def read_text_file(path, what: str) -> str:
+    """The file's text; ``what`` names the expected kind, e.g. "clock table"."""
+    raw = _read_bytes(path, what)
     if b"\0" in raw:
         raise InputError(f"not a text {what} (binary content)", path=path)
     try:

@@ -6,6 +6,10 @@
 - ``ephemeris``: JPL SPK ephemerides through jplephem (built-in DE421).
 - ``delays``: Roemer, Shapiro and dispersion formulae (pure functions).
 - ``observations``: per-TOA time scales and geometry, computed once per data set.
+- ``spacecraft``: :class:`SpacecraftTrajectory`, an observer given by its GCRS orbit
+  (interpolated, error stated; TDB and Roemer from its own position).
+- ``observer``: :class:`Observer`, where photon events were observed (site, geocentre,
+  barycentre or spacecraft), turning event times into Observations.
 """
 
 from timingkit import lazy_exports
@@ -13,6 +17,7 @@ from timingkit import lazy_exports
 EXPORTS = {
     "SiteTable": "sites", "Ephemeris": "ephemeris", "load_ephemeris": "ephemeris",
     "Observations": "observations", "prepare_observations": "observations",
+    "SpacecraftTrajectory": "spacecraft", "Observer": "observer",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

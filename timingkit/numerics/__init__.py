@@ -2,6 +2,7 @@
 
 - ``ddmath``: double-double arithmetic (two-sum, two-product, Horner) for spin phase.
 - ``timearray``: :class:`SplitTime`, the one two-part time (whole MJD day + fraction).
+- ``grid_cubic``: four-point cubic interpolation on a uniform grid (stencil coefficients).
 """
 
 from timingkit import lazy_exports

@@ -38,8 +38,8 @@ def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path
     if smooth_phase is not None:
         phase = np.concatenate([smooth_phase, smooth_phase + 1.0])
         ax.plot(phase, np.concatenate([smooth_counts, smooth_counts]), color="tab:orange",
-                linewidth=1.2, label=f"Fourier series ({profile['smooth_harmonics']} "
-                                     "harmonics, as the H-test)")
+                linewidth=1.2, label=f"Fourier series ({_harmonics(profile['smooth_harmonics'])}, "
+                                     "as the H-test)")
     ax.axhline(level, color="k", linestyle="--", linewidth=1.0, label="unpulsed level")
     ax.axhspan(level - level_error, level + level_error, color="k", alpha=0.12, linewidth=0)
     ax.set_xlim(0.0, 2.0)
@@ -51,7 +51,7 @@ def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path
     fap_text = f"FAP {fap:.1g}" if fap is not None else \
         f"FAP < {h['false_alarm_probability_below']:.0g}"
     ax.set_title(f"{report['source']}: {report['events']:,} events; H = {h['value']:.1f} "
-                 f"({h['harmonics']} harmonics, {fap_text}); pulsed fraction "
+                 f"({_harmonics(h['harmonics'])}, {fap_text}); pulsed fraction "
                  f"{pf['value']:.3f} ± {pf['uncertainty']:.3f}", fontsize=9.5)
     ax.legend(fontsize=7.5, loc="upper right", framealpha=0.9)
     settings = report["settings"]
@@ -61,3 +61,7 @@ def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path
         notes.append((caution, "tab:red", "caution"))
     _add_footnotes(figure, notes)
     return _finish(figure, path)
+
+
+def _harmonics(count: int) -> str:
+    return f"{count} harmonic" + ("s" if count != 1 else "")

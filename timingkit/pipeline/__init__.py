@@ -4,6 +4,8 @@
 - ``fit_run``: :func:`fit_files` and :func:`residual_files` (fit or evaluate, write outputs).
 - ``barycentre``: :func:`barycentre_files` (per-TOA time scales and delays as CSV).
 - ``glitch_run``: :func:`glitch_files` (glitch search and fit, same signature as fit_files).
+- ``event_run``: :func:`fold_event_files`, :func:`event_toa_files` and
+  :func:`simulate_event_file` (photon events: fold and test, event TOAs, simulated lists).
 
 ::
 
@@ -16,7 +18,8 @@ from timingkit import lazy_exports
 EXPORTS = {
     "fit_files": "fit_run", "residual_files": "fit_run", "write_fit_outputs": "fit_run",
     "load_inputs": "inputs", "load_model": "inputs", "Inputs": "inputs", "barycentre_files":
-    "barycentre", "glitch_files": "glitch_run",
+    "barycentre", "glitch_files": "glitch_run", "fold_event_files": "event_run",
+    "event_toa_files": "event_run", "simulate_event_file": "event_run",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

@@ -240,8 +240,7 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
                                 inputs.model, inputs.reference, inputs.ephemeris,
                                 min_events=min_events)
     if save_template is not None:
-        from timingkit.formats.profile_template import write_template_table
-        write_template_table(save_template, *shape.table(), comment=shape.source)
+        shape.write(save_template)
     write_toa_table(toas, toas_path)
     facts.update(toas=len(toas), events=len(inputs.index), warnings=inputs.warnings,
                  observer=inputs.observer.label, clock=clock_state(inputs),
