@@ -53,7 +53,8 @@ def test_events_command_outputs(site_events, tmp_path, capsys):
     assert abs(pf["value"] - 0.3) < 4 * pf["uncertainty"]
     peak = report["peak_phase"]
     assert abs(peak["value"] - 0.25) < 4 * peak["uncertainty"]
-    assert report["h_test"]["false_alarm_probability_below"] == 1e-5
+    assert report["h_test"]["false_alarm_probability"] == 1e-5
+    assert report["h_test"]["false_alarm_probability_upper_limit"] is True
     assert report["settings"]["observer"]["site"] == "dune-array"
     assert "no observatory clock corrections" in report["settings"]["clock"]
     with fits.open(out / "phases.fits") as hdus, fits.open(events) as original:

@@ -85,7 +85,7 @@ def test_printed_false_alarm_probabilities_are_rounded_and_floored():
     assert "10x higher" in false_alarm_entry(3e-4, 20, "z2", 20)[
         "false_alarm_probability_accuracy"]
     low = false_alarm_entry(1e-9, 5000, "h")
-    assert low["false_alarm_probability"] is None and low["false_alarm_probability_below"] == 1e-5
+    assert low["false_alarm_probability"] == 1e-5 and low["false_alarm_probability_upper_limit"]
 
 
 def _pulsed(rng, n, fraction, centre, fwhm, shape="gauss"):

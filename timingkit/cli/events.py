@@ -66,8 +66,7 @@ def add_parsers(sub) -> None:
                         "template file (default gauss:0.0:0.1)")
     _observer_options(p)
     p.add_argument("--seed", type=int, default=None)
-    p.add_argument("--sites", action="append", default=[], metavar="FILE")
-    p.add_argument("--ephemeris", metavar="BSP")
+    add_context_options(p)
     p.add_argument("-o", "--output", required=True, metavar="EVENTS.fits")
     p.set_defaults(func=cmd_simulate_events)
 
@@ -79,13 +78,14 @@ def _common(args) -> dict:
 
 
 def _fap_text(entry: dict) -> str:
-    if entry["false_alarm_probability"] is None:
-        return f"false-alarm probability < {entry['false_alarm_probability_below']:.0e}"
+    if entry["false_alarm_probability_upper_limit"]:
+        return f"false-alarm probability < {entry['false_alarm_probability']:.0e}"
     return (f"false-alarm probability {entry['false_alarm_probability']:.2g}; "
             f"{entry['false_alarm_probability_accuracy']}")
 
 
 def cmd_events(args) -> int:
+    from timingkit.outputs.numbers import format_value
     from timingkit.pipeline.event_run import fold_event_files
     report = fold_event_files(args.events, args.model, args.outdir, harmonics=args.harmonics,
                               bins=args.bins, make_plot=not args.no_plot, **_common(args))
@@ -98,8 +98,8 @@ def cmd_events(args) -> int:
           f"{'s' if h['harmonics'] > 1 else ''}): {_fap_text(h)}")
     z2 = report["z2"][min(1, len(report["z2"]) - 1)]
     print(f"  Z^2_{z2['harmonics']} = {z2['value']:.2f}: {_fap_text(z2)}")
-    print(f"  pulsed fraction {pf['value']:.4f} ± {pf['uncertainty']:.4f}; peak phase "
-          f"{peak['value']:.4f} ± {peak['uncertainty']:.4f}")
+    print(f"  pulsed fraction {format_value(pf['value'], pf['uncertainty'])}; peak phase "
+          f"{format_value(peak['value'], peak['uncertainty'])}")
     measured = "" if accuracy.get("grid_step_s") is None else \
         (f" every {accuracy['grid_step_s']:g} s (largest measured interpolation error "
          f"{accuracy['max_interpolation_error_ns']:.2g} ns)")
@@ -140,7 +140,8 @@ def cmd_simulate_events(args) -> int:
     facts = simulate_event_file(args.model, args.output, start_mjd=args.start, end_mjd=args.end,
                                 rate_per_s=args.rate_per_s, pulsed_fraction=args.pulsed_fraction,
                                 profile=args.profile, site=args.site, orbit=args.orbit,
-                                seed=args.seed, sites_paths=args.sites, ephemeris=args.ephemeris)
+                                seed=args.seed, sites_paths=args.sites, ephemeris=args.ephemeris,
+                                clock_paths=args.clock)
     print(f"wrote {facts['events']:,} events ({facts['pulsed']:,} pulsed) to {args.output}; "
           f"observer {facts['observer']}, TIMESYS {facts['time_scale']}, TIMEREF "
           f"{facts['timeref']}")

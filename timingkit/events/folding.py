@@ -17,7 +17,8 @@ as the ratio of the true chance probability to the printed one:
   (20 events: up to 1.33 for m = 20); for 100 events within 20% down to 1e-4
   for m <= 5, but 1.3-2 at 1e-3 to 1e-4 for m = 10-20; fewer events and more
   harmonics drift further (20 events, m = 20: 5 at 1e-4).
-- Below 1e-5 neither is checked: only "below 1e-5" is printed.
+- Below 1e-5 neither is checked: 1e-5 is printed as an upper limit
+  (``false_alarm_probability_upper_limit``, as the glitch search does).
 
 The H-test probability is printed to one significant figure, Z^2 to two where
 it is good to 10%, with the accuracy for this number of events beside it.
@@ -59,12 +60,13 @@ def _accuracy(events: int, probability: float, kind: str, harmonics: int = 20) -
 def false_alarm_entry(probability: float, events: int, kind: str, harmonics: int = 20) -> dict:
     """The printed form of a false-alarm probability (module docstring)."""
     if probability < FALSE_ALARM_FLOOR:
-        return {"false_alarm_probability": None,
-                "false_alarm_probability_below": FALSE_ALARM_FLOOR,
+        return {"false_alarm_probability": FALSE_ALARM_FLOOR,
+                "false_alarm_probability_upper_limit": True,
                 "false_alarm_probability_accuracy": "not checked below 1e-5 by our simulations"}
     accuracy = _accuracy(events, probability, kind, harmonics)
     digits = 2 if kind == "z2" and accuracy.startswith("within 10%") else 1
     return {"false_alarm_probability": _round(probability, digits),
+            "false_alarm_probability_upper_limit": False,
             "false_alarm_probability_accuracy": accuracy}
 
 

@@ -47,9 +47,9 @@ def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path
     ax.set_ylabel(f"events per bin ({bins} bins per cycle)")
     h = report["h_test"]
     pf = report["pulsed_fraction"]
-    fap = h.get("false_alarm_probability")
-    fap_text = f"FAP {fap:.1g}" if fap is not None else \
-        f"FAP < {h['false_alarm_probability_below']:.0g}"
+    fap = h["false_alarm_probability"]
+    fap_text = f"FAP < {fap:.0g}" if h["false_alarm_probability_upper_limit"] else \
+        f"FAP {fap:.1g}"
     ax.set_title(f"{report['source']}: {report['events']:,} events; H = {h['value']:.1f} "
                  f"({_harmonics(h['harmonics'])}, {fap_text}); pulsed fraction "
                  f"{pf['value']:.3f} ± {pf['uncertainty']:.3f}", fontsize=9.5)

@@ -94,6 +94,11 @@ def load_event_inputs(events_path, model_path, *, site=None, orbit=None, scale=N
     sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     events = read_event_list(events_path, scale=scale, site=site)
     observer, warnings = resolve_observer(events, site, orbit, sites, clocks)
+    if events.kind == "fits" and observer.kind in ("spacecraft", "geocentre") \
+            and events.clock_applied is not True:
+        warnings.append("the file does not say that the mission's clock correction was applied "
+                        f"(CLOCKAPP {'= F' if events.clock_applied is False else 'missing'}): "
+                        "event times may carry the spacecraft clock's offset")
     index, selection = select_events(events, energy_range, energy_column)
     if len(index) == 0:
         raise InputError("no events left after the selection (GTIs, energy range)",
@@ -267,7 +272,7 @@ def simulation_observer(site_name, orbit_path, sites: SiteTable) -> tuple[Observ
 
 def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, pulsed_fraction,
                         profile=("gauss:0.0:0.1",), site=None, orbit=None, seed=None,
-                        sites_paths=(), ephemeris=None) -> dict:
+                        sites_paths=(), ephemeris=None, clock_paths=()) -> dict:
     """``timingkit simulate-events``: an OGIP FITS event list (README)."""
     from timingkit.events.simulate import simulate_events
     from timingkit.events.template import PulseTemplate
@@ -275,14 +280,15 @@ def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, p
     from timingkit.formats.ogip_time import time_keyword_cards
     from timingkit.outputs.residual_table import atomic_output
     model = load_model(model_path)
-    sites, eph, clocks = load_context(model, sites_paths, ephemeris)
+    sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     observer, timeref = simulation_observer(site, orbit, sites)
+    observer.clocks = list(clocks)
     template = PulseTemplate.from_profile_spec(profile)
     if observer.kind == "spacecraft":
         ends = np.array([start_mjd, end_mjd])
         observer.trajectory.check_covers(SplitTime(np.floor(ends), ends - np.floor(ends), "tt"))
     sim = simulate_events(model, observer, eph, start_mjd, end_mjd, rate_per_s, pulsed_fraction,
-                          template, reference_observations(model, sites, eph, []), seed)
+                          template, reference_observations(model, sites, eph, clocks), seed)
     cards = [("OBJECT", model.name, "simulated source"),
              ("TELESCOP", "TIMINGKIT-SIM", "simulated by timingkit simulate-events"),
              ("CLOCKAPP", True, "simulated times: no clock error"),
