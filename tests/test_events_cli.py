@@ -141,3 +141,13 @@ def test_text_list_and_event_toas(tmp_path, capsys):
     assert len(read_template_file(tmp_path / "auto.npz").profile) == 512
     assert main(["fit", str(toas), str(model), "--free", "spin.frequency_hz", "--no-plot", "-o",
                  str(tmp_path / "fit")]) == 0
+
+
+def test_missing_clockapp_is_a_warning(tmp_path):
+    model, _ = write_inputs(tmp_path)
+    keys = {**TT_KEYWORDS, "TIMEREF": "GEOCENTRIC"}
+    events = ogip_events(tmp_path / "events.fits", np.linspace(0.0, 3600.0, 500), keys)
+    assert main(["events", str(events), str(model), "--no-plot", "-o", str(tmp_path / "o")]) == 0
+    report = json.loads((tmp_path / "o" / "events_report.json").read_text())
+    assert any("CLOCKAPP missing" in w for w in report["warnings"])
+    assert report["settings"]["clock"].startswith("unknown")
