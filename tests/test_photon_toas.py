@@ -31,6 +31,30 @@ def test_shift_pulls_are_standard_normal():
     assert np.mean(np.abs(pulls) > 3) < 0.01
 
 
+@pytest.mark.parametrize("events, fraction", [(100, 0.15), (200, 0.12)])
+def test_weak_chunks_are_refused_and_the_rest_keep_normal_pulls(events, fraction):
+    # chunks with barely a pulse: the Fisher error would be wrong (pull sd ~ 5-10);
+    # those whose likelihood is not concentrated are refused, the others keep
+    # pulls near N(0, 1)
+    rng = np.random.default_rng(events)
+    template = PulseTemplate.from_gaussians([(0.2, 0.06, 1.0), (0.6, 0.15, 0.5)])
+    model = template.mixed(fraction)
+    kept, refused = [], 0
+    for _ in range(400):
+        true = rng.uniform(-0.5, 0.5)
+        pulsed = rng.random(events) < fraction
+        phases = rng.uniform(0, 1, events)
+        phases[pulsed] = (template.sample(int(pulsed.sum()), rng) + true) % 1
+        result = fit_shift(phases, model)
+        if result.concentration < 0.99:
+            refused += 1
+            continue
+        kept.append(((result.shift - true + 0.5) % 1 - 0.5) / result.error)
+    kept = np.array(kept)
+    assert refused > 100 and len(kept) > 40
+    assert 0.85 < kept.std() < 1.25 and np.mean(np.abs(kept) > 3) < 0.05
+
+
 def test_template_weight_is_fitted():
     rng = np.random.default_rng(4)
     template = PulseTemplate.from_gaussians([(0.5, 0.05, 1.0)])

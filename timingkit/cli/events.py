@@ -124,9 +124,9 @@ def cmd_event_toas(args) -> int:
           f"{facts['observer']}")
     print(f"  template: {facts['template']} (its share of the events: "
           f"{facts['template_weight']:.2f})")
-    if facts["skipped_chunks"]:
-        print(f"  skipped {len(facts['skipped_chunks'])} chunk(s) with fewer than "
-              f"{facts['min_events']} events")
+    for chunk in facts["skipped_chunks"]:
+        print(f"  skipped the chunk from MJD {chunk['start_mjd']:.4f} ({chunk['events']} events): "
+              f"{chunk['reason']}")
     print(f"  clock: {facts['clock']}")
     for line in facts["warnings"]:
         print(f"  warning: {line}")

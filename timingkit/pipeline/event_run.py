@@ -247,7 +247,8 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     if save_template is not None:
         shape.write(save_template)
     write_toa_table(toas, toas_path)
-    facts.update(toas=len(toas), events=len(inputs.index), warnings=inputs.warnings,
+    facts.update(toas=len(toas), events=len(inputs.index),
+                 warnings=inputs.warnings + facts.pop("warnings"),
                  observer=inputs.observer.label, clock=clock_state(inputs),
                  median_err_us=float(np.median(toas.err_us)))
     return facts
