@@ -62,7 +62,12 @@ OPTION_OF_ARGUMENT = {"free": "--free", "fix": "--fix", "window_toas": "--window
                       "--window-toas/--window-days", "min_significance": "--min-significance",
                       "known_epochs_mjd": "--known-epochs", "null_trials": "--null-trials",
                       "cluster": "--cluster", "error_us": "--error-us",
-                      "freqs_mhz": "--freq-mhz"}
+                      "freqs_mhz": "--freq-mhz", "end_mjd": "--end", "rate_per_s": "--rate-per-s",
+                      "pulsed_fraction": "--pulsed-fraction", "span_days": "--span-days",
+                      "template": "--template", "profile": "--profile",
+                      "energy_range": "--energy-range", "energy_column": "--energy-column",
+                      "orbit": "--orbit", "harmonics": "--harmonics", "bins": "--bins",
+                      "min_events": "--min-events"}
 
 
 def name_options(exc) -> None:

@@ -114,7 +114,7 @@ def fit_shift(phases: np.ndarray, model: PulseTemplate) -> ShiftFit:
 def chunk_edges(bary_mjd: np.ndarray, span_days: float) -> list[np.ndarray]:
     """Indices of the events in consecutive chunks of ``span_days`` from the first."""
     if not span_days > 0:
-        raise InputError(f"--span-days must be > 0, found {span_days}", field="--span-days")
+        raise InputError(f"the chunk span must be > 0 days, found {span_days}", field="span_days")
     order = np.argsort(bary_mjd, kind="stable")
     start = bary_mjd[order[0]]
     label = np.floor((bary_mjd[order] - start) / span_days).astype(np.int64)
@@ -164,8 +164,7 @@ def event_toas(phases: np.ndarray, bary_mjd: np.ndarray, span_days: float,
         rows.append((index, result))
     if not rows:
         raise InputError(f"no chunk of {span_days} days gives a TOA (too few events, or the "
-                         "pulse not found in any); try a longer --span-days",
-                         field="--span-days")
+                         "pulse not found in any); try longer chunks", field="span_days")
     guess_day = np.array([float(np.floor(bary_mjd[i].mean())) for i, _ in rows])
     guess = SplitTime(guess_day, np.array([bary_mjd[i].mean() for i, _ in rows]) - guess_day,
                       "tdb")

@@ -48,12 +48,12 @@ def simulate_events(model, observer: Observer, ephemeris, start_mjd: float, end_
                     reference=None, seed: int | None = None) -> SimulatedEvents:
     """Events of ``observer`` (see the module docstring)."""
     if not end_mjd > start_mjd:
-        raise InputError("--end must be later than --start", field="--end")
+        raise InputError("the end must be later than the start", field="end_mjd")
     if not rate_per_s > 0:
-        raise InputError(f"--rate-per-s must be > 0, found {rate_per_s}", field="--rate-per-s")
+        raise InputError(f"the event rate must be > 0 per s, found {rate_per_s}", field="rate_per_s")
     if not 0.0 <= pulsed_fraction <= 1.0:
-        raise InputError(f"--pulsed-fraction must lie in [0, 1], found {pulsed_fraction}",
-                         field="--pulsed-fraction")
+        raise InputError(f"the pulsed fraction must lie in [0, 1], found {pulsed_fraction}",
+                         field="pulsed_fraction")
     rng = np.random.default_rng(seed)
     reference_day = math.floor(start_mjd)
     first = (start_mjd - reference_day) * SECONDS_PER_DAY
@@ -61,7 +61,7 @@ def simulate_events(model, observer: Observer, ephemeris, start_mjd: float, end_
     expected = rate_per_s * (last - first)
     if expected > MAX_EVENTS:
         raise InputError(f"{expected:.3g} events expected; at most {MAX_EVENTS:.0e} per list",
-                         field="--rate-per-s")
+                         field="rate_per_s")
     count = int(rng.poisson(expected))
     seconds = np.sort(rng.uniform(first, last, count))
     pulsed = rng.random(count) < pulsed_fraction

@@ -97,7 +97,7 @@ class PulseTemplate:
         phases = np.asarray(phases, dtype=float)
         if len(phases) < 20:
             raise InputError(f"too few events ({len(phases)}) to fit a template",
-                             field="--template")
+                             field="template")
         width = _cross_validated_width(phases)
         rho = _von_mises_coefficients(1.0 / (2 * math.pi * width) ** 2, KDE_HARMONICS)
         sums = fourier_sums(phases, KDE_HARMONICS)
@@ -125,10 +125,10 @@ class PulseTemplate:
                 amplitude = float(parts[3]) if len(parts) == 4 else 1.0
             except ValueError:
                 raise InputError(f"expected gauss:CENTRE:FWHM[:AMPLITUDE] or a template file, "
-                                 f"found {spec!r}", field="--profile") from None
+                                 f"found {spec!r}", field="profile") from None
             if not (0 < fwhm <= 1 and amplitude > 0 and math.isfinite(centre)):
                 raise InputError(f"{spec!r}: FWHM must lie in (0, 1] cycles and the amplitude "
-                                 "be > 0", field="--profile")
+                                 "be > 0", field="profile")
             components.append((centre % 1.0, fwhm, amplitude))
         return cls.from_gaussians(components)
 

@@ -118,7 +118,7 @@ def pick_energy_column(names, wanted: str | None, path) -> str | None:
     if wanted is not None:
         if wanted.lower() not in lower:
             raise InputError(f"no column {wanted!r} for the energy selection; the event list "
-                             f"has: {', '.join(names)}", path=path, field="--energy-column")
+                             f"has: {', '.join(names)}", path=path, field="energy_column")
         return lower[wanted.lower()]
     for candidate in ENERGY_COLUMNS:
         for low, name in lower.items():
@@ -151,14 +151,14 @@ def select_events(events: EventList, energy_range=None, energy_column: str | Non
         lo, hi = (float(x) for x in energy_range)
         if not lo < hi:
             raise InputError(f"the energy range must have LO < HI, found {lo} {hi}",
-                             field="--energy-range")
+                             field="energy_range")
         name = pick_energy_column(events.column_names(), energy_column or events.energy_column,
                                   events.path)
         if name is None:
             raise InputError("--energy-range needs an energy or channel column (ENERGY, PI, "
                              "PHA or CHANNEL, or name one with --energy-column); the event "
                              f"list has: {', '.join(events.column_names())}", path=events.path,
-                             field="--energy-range")
+                             field="energy_range")
         values = np.asarray(events.column(name), dtype=float)
         in_band = (values >= lo) & (values < hi)
         keep &= in_band

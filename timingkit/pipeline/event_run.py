@@ -50,7 +50,7 @@ def resolve_observer(events: EventList, site_name: str | None, orbit_path: str |
     from timingkit.geometry.spacecraft import SpacecraftTrajectory
     warnings: list[str] = []
     if site_name is not None and orbit_path is not None:
-        raise InputError("give --site or --orbit, not both", field="--orbit")
+        raise InputError("give a site or an orbit, not both", field="orbit")
     site_name = site_name if site_name is not None else events.site
     if events.timeref == "solarsystem":
         if site_name is not None or orbit_path is not None:
@@ -170,9 +170,10 @@ def fold_event_files(events_path, model_path, outdir, *, site=None, orbit=None, 
     ``outdir``; returns the report."""
     from timingkit.events.folding import fold_summary, smooth_profile
     if not 1 <= harmonics <= 40:
-        raise InputError(f"--harmonics must lie in 1..40, found {harmonics}", field="--harmonics")
+        raise InputError(f"the number of harmonics must lie in 1..40, found {harmonics}",
+                         field="harmonics")
     if not 2 <= bins <= 4096:
-        raise InputError(f"--bins must lie in 2..4096, found {bins}", field="--bins")
+        raise InputError(f"the number of bins must lie in 2..4096, found {bins}", field="bins")
     inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
                                energy_range=energy_range, energy_column=energy_column,
                                sites_paths=sites_paths, ephemeris=ephemeris,
@@ -233,6 +234,11 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     from timingkit.events.photon_toas import event_toas
     from timingkit.events.template import PulseTemplate
     from timingkit.formats.toa_writer import write_toa_table
+    if not span_days > 0:
+        raise InputError(f"the chunk span must be > 0 days, found {span_days}", field="span_days")
+    if not min_events >= 2:
+        raise InputError(f"each chunk needs at least 2 events, found {min_events}",
+                         field="min_events")
     inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
                                energy_range=energy_range, energy_column=energy_column,
                                sites_paths=sites_paths, ephemeris=ephemeris,
@@ -259,7 +265,7 @@ def simulation_observer(site_name, orbit_path, sites: SiteTable) -> tuple[Observ
     from timingkit.formats.orbit_table import read_orbit_table
     from timingkit.geometry.spacecraft import SpacecraftTrajectory
     if site_name is not None and orbit_path is not None:
-        raise InputError("give --site or --orbit, not both", field="--orbit")
+        raise InputError("give a site or an orbit, not both", field="orbit")
     if orbit_path is not None:
         trajectory = SpacecraftTrajectory(read_orbit_table(orbit_path))
         return Observer("spacecraft", "tt", trajectory=trajectory, sites=sites), "local"
