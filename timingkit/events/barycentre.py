@@ -16,8 +16,9 @@ cells spread over the data (where the interpolation error peaks) and the step
 is halved until the largest difference, in phase (as time) and in
 barycentric time, is below ``tolerance_ns`` (1 ns by default). The measured
 largest difference is reported. Cells whose nodes straddle a glitch epoch,
-where the phase has a kink, are evaluated exactly per event, and so is
-everything when the events are too few or too sparse for nodes to pay.
+where the phase has a kink, or reach past a spacecraft's orbit table, are
+evaluated exactly per event, and so is everything when the events are too few
+(under 4,096) or too sparse for nodes to pay (more nodes than half the events).
 The whole path is vectorised (no Python loop per event; events in chunks of
 10^6 to bound memory).
 """
