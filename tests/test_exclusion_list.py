@@ -57,21 +57,22 @@ def test_reads_rows_rules_and_free_text(tmp_path):
     assert got.rules[1].why == "backend=wide-b,wide-c"   # a rule without a reason names itself
 
 
-@pytest.mark.parametrize("text, line, field, words", [
-    ("line reason\n3 x\n", 1, None, "must include 'mjd'"),
-    ("line mjd mjd\n", 1, "mjd", "named twice"),
-    ("line mjd reason\n3\n", 2, "mjd", "1 fields"),
-    ("line mjd\nthree 58849.5\n", 2, "line", "line number"),
-    ("line mjd\n0 58849.5\n", 2, "line", "line number"),
-    ("line mjd\n3 58849.5e0\n", 2, "mjd", "scientific notation"),
-    ("mjd freq_mhz\n58849.5 high\n", 2, "freq_mhz", "not a frequency"),
-    ("# rules\nerr_us\n", 2, None, "is not a rule"),
-    ("# rules\nsite>3\n", 2, None, "is text"),
-    ("# rules\nmjd=..\n", 2, None, "at least one end"),
-    ("# rules\nerr_us=1,,2\n", 2, None, "empty item"),
-    ("# rules\nerr_us<x\n", 2, None, "not a number"),
+@pytest.mark.parametrize("text, where, words", [
+    ("line reason\n3 x\n", (1, None), "must include 'mjd'"),
+    ("line mjd mjd\n", (1, "mjd"), "named twice"),
+    ("line mjd reason\n3\n", (2, "mjd"), "1 fields"),
+    ("line mjd\nthree 58849.5\n", (2, "line"), "line number"),
+    ("line mjd\n0 58849.5\n", (2, "line"), "line number"),
+    ("line mjd\n3 58849.5e0\n", (2, "mjd"), "scientific notation"),
+    ("mjd freq_mhz\n58849.5 high\n", (2, "freq_mhz"), "not a frequency"),
+    ("# rules\nerr_us\n", (2, None), "is not a rule"),
+    ("# rules\nsite>3\n", (2, None), "is text"),
+    ("# rules\nmjd=..\n", (2, None), "at least one end"),
+    ("# rules\nerr_us=1,,2\n", (2, None), "empty item"),
+    ("# rules\nerr_us<x\n", (2, None), "not a number"),
 ])
-def test_bad_lists_name_file_line_and_field(tmp_path, text, line, field, words):
+def test_bad_lists_name_file_line_and_field(tmp_path, text, where, words):
+    line, field = where
     path = _list(tmp_path, text)
     with pytest.raises(InputError) as info:
         read_exclusion_list(path)

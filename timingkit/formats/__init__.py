@@ -11,6 +11,8 @@
 - ``predictor_file``: phase-predictor files (JSON Chebyshev segments).
 - ``profile_file``: folded-profile and template files (.npz).
 - ``quantities``: astropy quantities and times from Python callers, converted or refused.
+- ``toa_selection``: rules that choose TOAs (``mjd=58000..58500``, ``err_us>5``, ...).
+- ``exclusion_list``: lists of TOAs left out of a fit (line, exact MJD, reason; rules).
 """
 
 from timingkit import lazy_exports
@@ -23,6 +25,8 @@ EXPORTS = {
     "write_predictor_file": "predictor_file", "ProfileSet": "profile_file",
     "read_profile_file": "profile_file", "write_profile_file": "profile_file",
     "read_text_file": "textfile", "read_toml_file": "textfile",
+    "parse_rule": "toa_selection", "read_exclusion_list": "exclusion_list",
+    "format_exclusion_list": "exclusion_list",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

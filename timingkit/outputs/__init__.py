@@ -6,6 +6,7 @@
 - ``plotting``: matplotlib figures (Agg, no pyplot state).
 - ``noise_outputs``: the power spectrum and the red-noise part of the report.
 - ``overview_page``: the self-contained HTML overview of a batch.
+- ``explorer_page``: explorer.html, the interactive residual explorer of one fit.
 """
 
 from timingkit import lazy_exports
@@ -13,6 +14,7 @@ from timingkit import lazy_exports
 EXPORTS = {
     "build_report": "report", "write_json": "report", "ResidualTable": "residual_table",
     "plot_residuals": "plotting", "format_value": "numbers", "format_quantity": "numbers",
+    "write_explorer": "explorer_page",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

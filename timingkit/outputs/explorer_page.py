@@ -32,7 +32,7 @@ from timingkit.outputs.residual_table import ResidualTable, atomic_output
 EXPLORER_FILE = "explorer.html"
 GLITCH_FILE = "glitches.json"          # written by `timingkit glitches`
 BOKEH_COMPONENTS = ("bokeh", "bokeh-gl")
-THIN_ABOVE = 20_000      # TOAs; above this the plot holds the top TOA of each 3-pixel cell
+THIN_ABOVE = 10_000      # TOAs; above this the plot holds the top TOA of each 4-pixel cell
 
 
 def _b64(array, dtype) -> str:
@@ -143,7 +143,7 @@ def _plot_document(data: dict):
                               Span, WheelZoomTool)
     from bokeh.plotting import figure
 
-    empty = {k: [] for k in ("x", "y", "bar", "fill", "edge", "fill_alpha", "bar_alpha")}
+    empty = {k: [] for k in ("x", "y", "low", "high", "fill", "edge", "fill_alpha", "bar_alpha")}
     source = ColumnDataSource(data=empty, name="toas")
     plot = figure(output_backend="webgl", sizing_mode="stretch_both", toolbar_location=None,
                   x_range=Range1d(0, 1), y_range=Range1d(-1, 1), name="residual_plot",
@@ -157,8 +157,8 @@ def _plot_document(data: dict):
         axis.axis_label_text_font_style = "normal"
     plot.xaxis[0].formatter.use_scientific = False
     plot.yaxis[0].formatter.power_limit_low = -5      # 0.002 turns, not 2.000e-3
-    bars = plot.rect("x", "y", width=1.2, height="bar", width_units="screen", source=source,
-                     fill_color="edge", line_color=None, fill_alpha="bar_alpha", name="error_bars")
+    bars = plot.segment("x", "low", "x", "high", source=source, line_color="edge", line_width=1.2,
+                        line_alpha="bar_alpha", name="error_bars")
     points = plot.scatter("x", "y", source=source, size=6, fill_color="fill", line_color="edge",
                           fill_alpha="fill_alpha", line_width=1.2, name="toa_points")
     points.nonselection_glyph = None

@@ -4,6 +4,7 @@
 - ``fit_run``: :func:`fit_files` and :func:`residual_files` (fit or evaluate, write outputs).
 - ``barycentre``: :func:`barycentre_files` (per-TOA time scales and delays as CSV).
 - ``glitch_run``: :func:`glitch_files` (glitch search and fit, same signature as fit_files).
+- ``left_out``: :func:`choose_toas` (exclusion lists and rules) and the left-out TOAs' residuals.
 
 ::
 
@@ -16,7 +17,7 @@ from timingkit import lazy_exports
 EXPORTS = {
     "fit_files": "fit_run", "residual_files": "fit_run", "write_fit_outputs": "fit_run",
     "load_inputs": "inputs", "load_model": "inputs", "Inputs": "inputs", "barycentre_files":
-    "barycentre", "glitch_files": "glitch_run",
+    "barycentre", "glitch_files": "glitch_run", "choose_toas": "left_out",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

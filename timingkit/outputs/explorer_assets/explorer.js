@@ -3,9 +3,10 @@
    Bokeh calls start() when its document is ready, hover() on hover, selected()
    with the geometry of a box or lasso and viewChanged() after a pan or zoom.
    Above data.thin_above TOAs the plot holds, for each CELL_PX-pixel cell of the
-   view (and half a view around it), only the TOA drawn on top there (the last
-   one, as a full drawing would show it): the picture is the same, the browser
-   draws a fraction of the points. Selections always test every TOA. */
+   view (and MARGIN of a view around it, for panning), only the TOA drawn on top
+   there (the last one, as a full drawing would show it): the picture is the
+   same, the browser draws a fraction of the points. Selections always test
+   every TOA. */
 (function () {
   'use strict';
   var PALETTE = ['#1f6f8b', '#d1495b', '#e8a33d', '#5a8f29', '#7d5ba6', '#2b9e9e',
@@ -17,7 +18,7 @@
                   err: 'TOA error (µs)'};
   var Y_LABELS = {us: 'residual (µs)', phase: 'residual (pulse turns)',
                   sigma: 'residual / error'};
-  var CELL_PX = 3;
+  var CELL_PX = 4, MARGIN = 0.25;
   var data = null, bk = null, ready = false;
   var reasons = null, origin = null, history = [];
   var full = null, drawn = null, thinTimer = null;
@@ -126,7 +127,11 @@
   function redraw(refit) {
     var v = view(), x = xValues(v.x), yb = yValues(v);
     full = styleColumns(v);
-    full.x = x; full.y = yb.y; full.bar = yb.bar;
+    full.x = x; full.y = yb.y;
+    full.low = new Float64Array(data.n); full.high = new Float64Array(data.n);
+    for (var i = 0; i < data.n; i++) {
+      full.low[i] = yb.y[i] - yb.bar[i] / 2; full.high[i] = yb.y[i] + yb.bar[i] / 2;
+    }
     bk.plot.below[0].axis_label = X_LABELS[v.x];
     bk.plot.left[0].axis_label = Y_LABELS[v.y];
     bk.bars.visible = v.bars;
@@ -161,11 +166,13 @@
     }
     var box = plotView().frame.bbox, xr = bk.plot.x_range, yr = bk.plot.y_range;
     var wx = xr.end - xr.start, wy = yr.end - yr.start;
-    var x0 = xr.start - wx / 2, y0 = yr.start - wy / 2;
-    var nx = Math.max(1, Math.ceil(2 * box.width / CELL_PX)), ny = Math.max(1, Math.ceil(2 * box.height / CELL_PX));
+    var grow = 1 + 2 * MARGIN, x0 = xr.start - MARGIN * wx, y0 = yr.start - MARGIN * wy;
+    var nx = Math.max(1, Math.ceil(grow * box.width / CELL_PX));
+    var ny = Math.max(1, Math.ceil(grow * box.height / CELL_PX));
     var top = new Int32Array(2 * nx * ny).fill(-1);
     for (var i = 0; i < n; i++) {
-      var cx = Math.floor((full.x[i] - x0) / (2 * wx) * nx), cy = Math.floor((full.y[i] - y0) / (2 * wy) * ny);
+      var cx = Math.floor((full.x[i] - x0) / (grow * wx) * nx);
+      var cy = Math.floor((full.y[i] - y0) / (grow * wy) * ny);
       if (!(cx >= 0 && cx < nx && cy >= 0 && cy < ny)) continue;     /* also drops NaN */
       top[((origin[i] === KEPT ? 0 : 1) * ny + cy) * nx + cx] = i;
     }
@@ -177,7 +184,7 @@
   function publish() {
     chooseDrawn();
     var m = drawn.length, columns = {};
-    ['x', 'y', 'bar', 'fill_alpha', 'bar_alpha'].forEach(function (name) {
+    ['x', 'y', 'low', 'high', 'fill_alpha', 'bar_alpha'].forEach(function (name) {
       var out = new Float64Array(m), src = full[name];
       for (var k = 0; k < m; k++) out[k] = src[drawn[k]];
       columns[name] = out;
@@ -212,6 +219,8 @@
       return {'&': '&amp;', '<': '&lt;', '>': '&gt;', '"': '&quot;', "'": '&#39;'}[ch];
     });
   }
+
+  function count(value) { return Number(value).toLocaleString('en-GB'); }
 
   function number(value) {
     if (!isFinite(value)) return value > 0 ? 'inf' : String(value);
@@ -321,8 +330,8 @@
 
   function ledger() {
     var c = counts(), total = c.inFit + c.here;
-    byId('tk-count').textContent = total + ' of ' + data.n + ' TOAs left out: ' + c.inFit +
-      ' already in the fit, ' + c.here + ' marked here';
+    byId('tk-count').textContent = count(total) + ' of ' + count(data.n) + ' TOAs left out: ' +
+      count(c.inFit) + ' already in the fit, ' + count(c.here) + ' marked here';
     byId('tk-reasons').innerHTML = Object.keys(c.byReason).map(function (r) {
       return '<li>' + escapeHtml(r) + ': ' + c.byReason[r] + '</li>';
     }).join('');
@@ -375,8 +384,8 @@
   }
 
   function facts() {
-    var s = data.summary || {}, parts = [data.n + ' TOAs'];
-    if (s.toas !== undefined && s.toas !== null && s.toas !== data.n) parts.push(s.toas + ' fitted');
+    var s = data.summary || {}, parts = [count(data.n) + ' TOAs'];
+    if (s.toas !== undefined && s.toas !== null && s.toas !== data.n) parts.push(count(s.toas) + ' fitted');
     if (s.rms_us !== undefined && s.rms_us !== null) parts.push('rms ' + Number(s.rms_us).toPrecision(4) + ' µs');
     if (s.reduced_chi2 !== undefined && s.reduced_chi2 !== null) {
       parts.push('reduced chi-square ' + Number(s.reduced_chi2).toFixed(3));
@@ -385,7 +394,10 @@
     byId('tk-facts').textContent = parts.join(' · ');
     byId('tk-foot').innerHTML = (data.warnings || []).map(function (w) {
       return '<p>warning: ' + escapeHtml(w) + '</p>';
-    }).join('') + '<p>Values are shown to 6 significant digits; residuals.csv holds the ' +
+    }).join('') + (data.n > data.thinAbove ? '<p>With ' + count(data.n) + ' TOAs the plot draws ' +
+      'the TOA on top in each ' + CELL_PX + '-pixel cell of the view (what a full drawing ' +
+      'would show); hover finds the drawn ones, selections take every TOA inside.</p>' : '') +
+      '<p>Values are shown to 6 significant digits; residuals.csv holds the ' +
       'exact ones. Day of year and glitch epochs are approximate to a minute (UTC and TDB).</p>';
   }
 
