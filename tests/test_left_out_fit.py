@@ -17,6 +17,8 @@ from timingkit.formats.toa_writer import write_toa_table
 from timingkit.model.simulate import simulate_toas
 from timingkit.model.timing_model import TimingModel
 from timingkit.pipeline import fit_files, residual_files
+from timingkit.outputs.plotting import plot_residuals
+from timingkit.outputs.residual_table import ResidualTable
 from timingkit.pipeline.glitch_run import glitch_files
 
 SAMPLE = os.path.join(os.path.dirname(__file__), "..", "timingkit", "sample_data")
@@ -90,6 +92,12 @@ def test_fit_with_an_exclusion_list_is_the_fit_without_those_lines(msp):
     assert max(abs(v) for v in late.values()) < 4.0
     pre = _rows(msp / "a" / "prefit_residuals.csv")
     assert [r["left_out"] for r in pre] == [r["left_out"] for r in rows]
+    # the figure draws them apart (hollow, in the legend) and counts only the fitted TOAs
+    figure = plot_residuals(ResidualTable.read_csv(msp / "a" / "residuals.csv"))
+    texts = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
+    assert texts[-1] == "left out of the fit"
+    stats = [t.get_text() for t in figure.axes[0].texts if t.get_gid() == "residual_stats"]
+    assert stats[0].startswith(f"N = {listed['toas']} TOAs")
 
 
 def test_cli_select_and_leave_out_equal_deleting_lines(msp, capsys):
@@ -100,7 +108,9 @@ def test_cli_select_and_leave_out_equal_deleting_lines(msp, capsys):
     args = [str(msp / "demo-msp.toas"), str(msp / "demo-msp.toml"), "--no-plot"]
     assert main(["fit", *args, "-o", str(msp / "s"), "--select", "mjd=58800..59700",
                  "--leave-out", "site=lake-array", "--leave-out", f"line={one}"]) == 0
-    assert "left out" not in capsys.readouterr().err
+    captured = capsys.readouterr()
+    assert "left out" not in captured.err
+    assert "left out of the fit: " in captured.out and "site=lake-array: " in captured.out
     drop = {int(n) for n, t, s in zip(table.line_numbers, mjd, table.site)
             if not 58800 <= t <= 59700 or s == "lake-array" or n == one}
     _without_lines(msp / "demo-msp.toas", msp / "deleted.toas", drop)
@@ -191,3 +201,15 @@ def test_lost_count_points_to_the_date_a_shorter_span_and_the_glitch_search(tmp_
                        str(tmp_path / "o"), make_plots=False, select=[f"mjd=..{last}"])
     turns = report["rms_us"] * 1e-6 * float(report["parameters"]["spin.frequency_hz"]["value"])
     assert turns < 0.1 and report["excluded_toas"] > 100
+
+
+def test_positions_of_the_toas_a_glitch_search_kept():
+    # the glitch search may drop TOAs it cannot connect: its table is an ordered
+    # subset of the kept one; two TOAs at one time are told apart by frequency
+    from timingkit.formats.toa_table import ToaTable
+    from timingkit.pipeline.left_out import ordered_positions
+    kept = ToaTable.from_arrays([58000, 58000, 58001, 58002], [0.5, 0.5, 0.25, 0.0], 1.0,
+                                [820.0, 1400.0, 1400.0, 1400.0], "desert-dish")
+    assert ordered_positions(kept.select([1, 3]), kept).tolist() == [1, 3]
+    assert ordered_positions(kept.select([0, 2, 3]), kept).tolist() == [0, 2, 3]
+    assert ordered_positions(kept, kept).tolist() == [0, 1, 2, 3]

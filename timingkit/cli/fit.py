@@ -13,6 +13,7 @@ from timingkit.cli.options import (
     add_input_options,
     add_selection_options,
     converged_status,
+    left_out_line,
     progress_enabled,
     selection_arguments,
 )
@@ -82,6 +83,8 @@ def cmd_fit(args) -> int:
                        glitch_epochs_mjd=args.glitch_candidate,
                        max_iterations=args.max_iterations, **selection_arguments(args))
     print(summary_text(report))
+    if left_out_line(report):
+        print(left_out_line(report))
     spectrum = "" if args.no_plot or "red_noise" not in report.get("noise", {}) else \
         "power_spectrum.png, "
     explorer = ""

@@ -20,6 +20,7 @@ from timingkit.cli.options import (
     add_free_fix_options,
     add_selection_options,
     converged_status,
+    left_out_line,
     number_list,
     selection_arguments,
 )
@@ -90,6 +91,8 @@ def cmd_glitches(args) -> int:
                           color_by=args.color_by, settings=settings,
                           **selection_arguments(args))
     print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot))
+    if left_out_line(report):
+        print(left_out_line(report))
     return converged_status(report)
 
 

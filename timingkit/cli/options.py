@@ -88,6 +88,18 @@ def add_selection_options(p: argparse.ArgumentParser) -> None:
                         "'err_us>5', mjd=58900..58950); may be repeated")
 
 
+def left_out_line(report: dict) -> str | None:
+    """One line on the TOAs left out of a fit, or None when there are none."""
+    if not report.get("excluded_toas"):
+        return None
+    counts: dict[str, int] = {}
+    for group in report.get("excluded", []):
+        counts[group["reason"]] = counts.get(group["reason"], 0) + len(group["lines"])
+    reasons = "; ".join(f"{reason}: {n}" for reason, n in counts.items())
+    return (f"  left out of the fit: {report['excluded_toas']} TOAs ({reasons}); residuals.csv "
+            "still lists them, marked in its column left_out")
+
+
 def selection_arguments(args) -> dict:
     """The keyword arguments of the pipeline functions for the options above."""
     files = [path for item in args.exclude for path in item.split(",") if path]

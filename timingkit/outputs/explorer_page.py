@@ -210,7 +210,8 @@ def render_explorer_html(data: dict) -> str:
     from bokeh.resources import Resources
     script, div = _plot_document(data)
     bokeh_js = Resources(mode="inline", components=list(BOKEH_COMPONENTS)).render_js()
-    payload = json.dumps(data, separators=(",", ":")).replace("</", "<\\/")
+    # no '<' inside the script element: the JSON holds text such as flags and reasons
+    payload = json.dumps(data, separators=(",", ":")).replace("<", "\\u003c")
     body = _asset("explorer_body.html").replace("{{PLOT}}", div)
     body = body.replace("{{SOURCE}}", html.escape(data["source"]))
     return ("<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"

@@ -145,9 +145,12 @@ def ordered_positions(used: ToaTable, kept: ToaTable) -> np.ndarray:
     glitch search may drop TOAs it cannot connect)."""
     if len(used) == len(kept):
         return np.arange(len(kept))
-    keys = list(zip(kept.mjd_day.tolist(), kept.mjd_frac.tolist(), kept.site.tolist()))
+    def keys_of(table):
+        return zip(table.mjd_day.tolist(), table.mjd_frac.tolist(), table.site.tolist(),
+                   table.freq_mhz.tolist(), table.err_us.tolist())
+    keys = list(keys_of(kept))
     positions, j = [], 0
-    for key in zip(used.mjd_day.tolist(), used.mjd_frac.tolist(), used.site.tolist()):
+    for key in keys_of(used):
         while keys[j] != key:
             j += 1
         positions.append(j)
