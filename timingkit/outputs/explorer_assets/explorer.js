@@ -409,6 +409,9 @@
       colour.appendChild(option);
     });
     if (!data.pre) byId('tk-stage').querySelector('option[value=pre]').disabled = true;
+    if ((data.summary || {}).fitted === false) {
+      byId('tk-stage').querySelector('option[value=post]').textContent = 'unfitted model’s';
+    }
     if (!data.orbit) byId('tk-x').querySelector('option[value=orbit]').disabled = true;
     if (!data.epochs.length) byId('tk-epochs-label').hidden = true;
     if (data.n > data.thinAbove) byId('tk-bars').checked = false;   /* drawing them costs most */
