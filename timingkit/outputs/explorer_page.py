@@ -77,6 +77,7 @@ def _epochs(outdir: str, glitches: dict | None) -> list[dict]:
     for k, c in enumerate((glitches or {}).get("candidates", []), 1):
         fap = c.get("false_alarm_probability")
         shown = ("" if fap is None else f", FAP < 1/{trials}" if fap == 0 and trials
+                 else f", FAP < {fap:.2g}" if c.get("false_alarm_probability_upper_limit")
                  else f", FAP {fap:.2g}")
         bracket = {"low": c.get("epoch_min_mjd"), "high": c.get("epoch_max_mjd")}
         index = c.get("model_glitch_index")
