@@ -295,7 +295,7 @@ def bench_helpers(names) -> None:
 
 
 SECTIONS = ["barycentre", "read", "fit", "sites", "predict", "profiles", "events", "binary",
-            "glitches", "noise", "batch"]
+            "glitches", "noise", "batch", "explorer"]
 
 
 def main() -> int:
@@ -324,7 +324,8 @@ def main() -> int:
         extra = {"binary": ("bench_binary", "bench_binary"),
                  "glitches": ("bench_glitches", "bench_glitches"),
                  "noise": ("bench_noise", "bench_noise"),
-                 "batch": ("bench_batch", "bench_batch")}
+                 "batch": ("bench_batch", "bench_batch"),
+                 "explorer": ("bench_explorer", "bench_explorer")}
         bench_helpers([extra[s] for s in wanted if s in extra])
     return 0
 

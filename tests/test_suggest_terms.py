@@ -3,7 +3,6 @@ starts a trial parameter from a value the data can move. Invented sources and
 sites (seeded simulations); the truth is the simulated model. The F-test
 itself is checked in test_model_selection.py."""
 
-import pytest
 
 from timingkit.fit.fitter import fit
 from timingkit.fit.model_selection import suggest

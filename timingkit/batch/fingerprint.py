@@ -84,13 +84,15 @@ def function_name(function: Callable | None) -> str:
 def inputs_sha256(source: Source, software: dict[str, str] | None = None,
                   fit_function: str = DEFAULT_FIT_FUNCTION) -> str:
     """sha256 over the contents of every input file of ``source`` (TOA table, model,
-    site/clock/ephemeris files given to the batch or named in the model), the
+    site/clock/ephemeris files given to the batch or named in the model, exclusion
+    lists), the
     settings (free, fix, make_plots), the per-source function (by name) and the
     software versions. Paths are not hashed, so moving a data tree does not
     force a refit."""
     files = [("toas", source.toas_path), ("model", source.model_path)]
     files += [("sites", p) for p in source.sites_paths]
     files += [("clock", p) for p in source.clock_paths]
+    files += [("exclude", p) for p in source.exclude_paths]
     if source.ephemeris:
         files.append(("ephemeris", source.ephemeris))
     files += [("model-settings", p) for p in _model_referenced_files(source.model_path)]

@@ -135,11 +135,14 @@ def process_source(job: _Job) -> dict:
     source = job.source
     tmp = _new_work_folder(job.outdir, source.name)
     status, message = STATUS_OK, ""
+    # exclusion lists only when given, so fit functions without that keyword still work
+    extra = {"exclude_paths": source.exclude_paths} if source.exclude_paths else {}
     try:
         job.fit_function(
             source.toas_path, source.model_path, str(tmp), free=source.free, fix=source.fix,
             sites_paths=source.sites_paths, ephemeris=source.ephemeris,
-            clock_paths=source.clock_paths, make_plots=source.make_plots, progress=False)
+            clock_paths=source.clock_paths, make_plots=source.make_plots, progress=False,
+            **extra)
         if not (tmp / REPORT_FILE).is_file():
             raise RuntimeError(f"the fit returned without writing {REPORT_FILE}")
         (tmp / HASH_FILE).write_text(job.digest + "\n", encoding="utf-8")
@@ -313,7 +316,7 @@ def _check_outputs_spare_inputs(sources: Sequence[Source], outdir: Path) -> None
     for source in sources:
         final = outdir / source.name
         inputs = [source.toas_path, source.model_path, *source.sites_paths,
-                  *source.clock_paths, source.ephemeris or ""]
+                  *source.clock_paths, *source.exclude_paths, source.ephemeris or ""]
         for path in filter(None, inputs):
             if Path(path).resolve().is_relative_to(final):
                 raise InputError(f"the output folder would replace the inputs of source "

@@ -22,7 +22,7 @@ TOA_TABLE_SUFFIX = ".toas"
 TOA_TABLE_NAME = "toas.txt"
 
 
-MANIFEST_DEFAULT_KEYS = ("ephemeris", "sites", "clock", "free", "fix", "make_plots")
+MANIFEST_DEFAULT_KEYS = ("ephemeris", "sites", "clock", "free", "fix", "make_plots", "exclude")
 
 
 MANIFEST_SOURCE_KEYS = ("name", "toas", "model") + MANIFEST_DEFAULT_KEYS
@@ -49,6 +49,7 @@ class Source:
     clock_paths: tuple[str, ...] = ()
     make_plots: bool = True
     problem: str | None = None
+    exclude_paths: tuple[str, ...] = ()
 
 
 def discover_sources(path, outdir=None) -> list[Source]:
@@ -116,7 +117,8 @@ def read_manifest(path) -> list[Source]:
     ``[defaults]`` may set ``ephemeris`` (path or ``"builtin"``), ``sites`` and
     ``clock`` (a path or a list of paths, used besides those the model names),
     ``free``/``fix`` (parameter names to free or hold fixed besides the model's
-    own ``[fit]`` list) and ``make_plots`` (bool). Each ``[[source]]`` needs ``name``,
+    own ``[fit]`` list), ``make_plots`` (bool) and ``exclude`` (exclusion lists: a
+    path or a list). Each ``[[source]]`` needs ``name``,
     ``toas`` and ``model`` and may override any default (the value replaces it).
     Raises InputError naming the file and field for anything malformed.
     """
@@ -165,6 +167,8 @@ def read_manifest(path) -> list[Source]:
             ephemeris=None if ephemeris in (None, "builtin") else resolve_path(base, ephemeris),
             clock_paths=tuple(resolve_path(base, p) for p in _manifest_list(merged, "clock", where, label)),
             make_plots=_manifest_bool(merged, "make_plots", where, label),
+            exclude_paths=tuple(resolve_path(base, p)
+                                for p in _manifest_list(merged, "exclude", where, label)),
         ))
     return sources
 

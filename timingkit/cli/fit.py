@@ -11,8 +11,11 @@ from timingkit.cli.options import (
     EXIT_NOT_CONVERGED,
     add_free_fix_options,
     add_input_options,
+    add_selection_options,
     converged_status,
+    left_out_line,
     progress_enabled,
+    selection_arguments,
 )
 from timingkit.formats.errors import InputError
 
@@ -36,12 +39,16 @@ def add_parsers(sub) -> None:
                         f"has not converged by then exits with status {EXIT_NOT_CONVERGED}")
     p.add_argument("--glitch-candidate", action="append", default=[], metavar="MJD",
                    help="with --suggest: also try a glitch at this epoch; may be repeated")
+    add_selection_options(p)
+    p.add_argument("--explore", action="store_true",
+                   help="also write explorer.html, the interactive residual explorer")
     p.set_defaults(func=cmd_fit)
 
     p = sub.add_parser("residuals", help="residuals of a model without fitting")
     add_input_options(p)
     p.add_argument("-o", "--outdir", default="timingkit-residuals")
     p.add_argument("--color-by", default="site")
+    add_selection_options(p)
     p.set_defaults(func=cmd_residuals)
 
     p = sub.add_parser("barycentre", aliases=["barycenter"],
@@ -74,12 +81,18 @@ def cmd_fit(args) -> int:
                        progress=progress_enabled(), suggest=args.suggest,
                        suggest_level=args.suggest_level,
                        glitch_epochs_mjd=args.glitch_candidate,
-                       max_iterations=args.max_iterations)
+                       max_iterations=args.max_iterations, **selection_arguments(args))
     print(summary_text(report))
+    if left_out_line(report):
+        print(left_out_line(report))
     spectrum = "" if args.no_plot or "red_noise" not in report.get("noise", {}) else \
         "power_spectrum.png, "
+    explorer = ""
+    if args.explore:
+        from timingkit.outputs.explorer_page import write_explorer
+        explorer = ", " + os.path.basename(write_explorer(args.outdir))
     print(f"\nwrote {args.outdir}/: fitted.toml, residuals.csv, "
-          f"{'' if args.no_plot else 'residuals.png, '}{spectrum}report.json")
+          f"{'' if args.no_plot else 'residuals.png, '}{spectrum}report.json{explorer}")
     return converged_status(report)
 
 
@@ -87,9 +100,10 @@ def cmd_residuals(args) -> int:
     from timingkit.pipeline.fit_run import residual_files
     stats = residual_files(args.toas, args.model, args.outdir, sites_paths=args.sites,
                            ephemeris=args.ephemeris, clock_paths=args.clock,
-                           color_by=args.color_by)
+                           color_by=args.color_by, **selection_arguments(args))
     print(f"{stats['source']}: {stats['toas']} TOAs, rms {stats['rms_us']:.4g} µs, weighted rms "
-          f"{stats['weighted_rms_us']:.4g} µs, reduced chi2 {stats['reduced_chi2']:.3f} (no fit)")
+          f"{stats['weighted_rms_us']:.4g} µs, reduced chi2 {stats['reduced_chi2']:.3f} (no fit)"
+          + (f"; {stats['excluded_toas']} left out" if stats["excluded_toas"] else ""))
     from timingkit.fit.fitter import LOUD_WARNINGS
     for w in stats["warnings"]:
         print(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")

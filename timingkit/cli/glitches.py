@@ -16,7 +16,14 @@ from __future__ import annotations
 import argparse
 import os
 
-from timingkit.cli.options import add_free_fix_options, converged_status, number_list
+from timingkit.cli.options import (
+    add_free_fix_options,
+    add_selection_options,
+    converged_status,
+    left_out_line,
+    number_list,
+    selection_arguments,
+)
 from timingkit.glitch.results import DEFAULT_MIN_SIGNIFICANCE, DEFAULT_NULL_TRIALS, GlitchSearchSettings
 from timingkit.pipeline.glitch_run import FIGURE_FILE, GLITCH_FILE, glitch_files
 
@@ -68,6 +75,7 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
                    help="clock-correction table; may be repeated")
     p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
     p.add_argument("--no-plot", action="store_true", help="skip the figures")
+    add_selection_options(p)
     p.set_defaults(func=cmd_glitches)
     return p
 
@@ -80,8 +88,11 @@ def cmd_glitches(args) -> int:
     report = glitch_files(args.toas, args.model, args.outdir, free=args.free, fix=args.fix,
                           sites_paths=args.sites, ephemeris=args.ephemeris,
                           clock_paths=args.clock, make_plots=not args.no_plot,
-                          color_by=args.color_by, settings=settings)
+                          color_by=args.color_by, settings=settings,
+                          **selection_arguments(args))
     print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot))
+    if left_out_line(report):
+        print(left_out_line(report))
     return converged_status(report)
 
 

@@ -21,8 +21,8 @@ DESCRIPTION = ("timingkit: pulsar timing from arrival times to a fitted timing m
                "report derived physics.")
 
 # Modules of timingkit.cli, each with add_parsers(subparsers), in the order of --help.
-COMMAND_GROUPS = ["fit", "derive", "simulate", "glitches", "events", "batch", "convert", "predict",
-                  "profiles", "demo"]
+COMMAND_GROUPS = ["fit", "explore", "derive", "simulate", "glitches", "events", "batch", "convert",
+                  "predict", "profiles", "demo"]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -80,3 +80,38 @@ def progress_enabled() -> bool:
     """Progress bars only on a terminal."""
     import sys
     return sys.stderr.isatty()
+
+
+def add_selection_options(p: argparse.ArgumentParser) -> None:
+    """--exclude, --select, --leave-out: TOAs to leave out of the fit (README,
+    "Leaving TOAs out"). Each may be repeated; --exclude also takes a comma list."""
+    p.add_argument("--exclude", action="append", default=[], metavar="FILE",
+                   help="exclusion list: TOAs (by line and MJD) and rules to leave out; may be "
+                        "repeated or given as a comma list")
+    p.add_argument("--select", action="append", default=[], metavar="RULE",
+                   help="fit only the TOAs this rule matches, e.g. mjd=58000..58500, "
+                        "site=desert-dish,lake-array, backend=wide-a, 'err_us<5'; may be "
+                        "repeated (rules on one field: any may match; on different fields: "
+                        "all must)")
+    p.add_argument("--leave-out", action="append", default=[], metavar="RULE",
+                   help="leave out the TOAs this rule matches (same rules as --select, e.g. "
+                        "'err_us>5', mjd=58900..58950); may be repeated")
+
+
+def left_out_line(report: dict) -> str | None:
+    """One line on the TOAs left out of a fit, or None when there are none."""
+    if not report.get("excluded_toas"):
+        return None
+    counts: dict[str, int] = {}
+    for group in report.get("excluded", []):
+        counts[group["reason"]] = counts.get(group["reason"], 0) + len(group["lines"])
+    reasons = "; ".join(f"{reason}: {n}" for reason, n in counts.items())
+    return (f"  left out of the fit: {report['excluded_toas']} TOAs ({reasons}); residuals.csv "
+            "still lists them, marked in its column left_out")
+
+
+def selection_arguments(args) -> dict:
+    """The keyword arguments of the pipeline functions for the options above."""
+    files = [path for item in args.exclude for path in item.split(",") if path]
+    return {"exclude_paths": files, "select": list(args.select),
+            "leave_out": list(args.leave_out)}

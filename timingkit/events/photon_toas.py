@@ -35,7 +35,7 @@ from timingkit.events.template import GRID, PulseTemplate
 from timingkit.formats.errors import InputError
 from timingkit.formats.toa_table import ToaTable
 from timingkit.geometry.observer import Observer
-from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
+from timingkit.numerics.timearray import SplitTime
 
 MIN_EVENTS = 20
 MIN_CONCENTRATION = 0.99   # chunks whose likelihood spreads wider give no TOA (see event_toas)

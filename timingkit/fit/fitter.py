@@ -418,7 +418,32 @@ def _check_phase_connection(prefit: ResidualSet, postfit: ResidualSet, chi2: flo
                     "numbers of the table's 'pulse' column: check those numbers"]
         raise FitError(
             f"cannot number the pulses: post-fit residuals spread over {rms_cycles:.2f} cycles rms "
-            "(the starting model is too far off for this span). Fit a shorter span first "
-            "(a few days to weeks of TOAs), then extend it with the improved model, or add a "
-            "'pulse' column that pins the pulse numbers")
+            "(the starting model is too far off for this span). " + _shorter_span_advice(prefit))
     return []
+
+
+def _shorter_span_advice(prefit: ResidualSet) -> str:
+    """Where the starting model stops counting pulses right, and what to do.
+    In time order the count is followed turn by turn; it breaks at the first TOA
+    more than a quarter turn from the one before (ambiguous) or where the
+    followed phase leaves the half turn around zero (the nearest whole pulse is
+    then not the counted one)."""
+    ev = prefit.evaluation
+    mjd = ev.obs.toas.mjd_day + ev.obs.toas.mjd_frac
+    order = np.argsort(mjd, kind="stable")
+    frac = ev.phase_frac[order]
+    step = np.diff(frac)
+    step -= np.round(step)
+    followed = frac[0] + np.cumsum(step)
+    breaks = np.flatnonzero((np.abs(step) > 0.25) | (np.abs(followed) > 0.5))
+    if len(breaks) and breaks[0] >= 2:
+        last = f"{np.ceil(float(mjd[order][breaks[0]]) * 1e4) / 1e4:.4f}"   # includes that TOA
+        return (f"The starting model keeps count of the pulses up to MJD {last}: fit a "
+                f"shorter span first, the TOAs up to there (the selection mjd=..{last}), "
+                "then extend it with the improved model; if the pulsar glitched there, "
+                "`timingkit glitches` finds and fits the glitch. Or add a 'pulse' column that "
+                "pins the pulse numbers")
+    return ("Fit a shorter span first (a few days to weeks of TOAs, e.g. the selection "
+            "mjd=START..END), then extend it with the improved model; if the phase breaks "
+            "after some date because the pulsar glitched, `timingkit glitches` finds and fits "
+            "the glitch. Or add a 'pulse' column that pins the pulse numbers")

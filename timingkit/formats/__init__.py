@@ -15,6 +15,8 @@
 - ``event_list``, ``event_fits``, ``event_text``: photon event lists (:class:`EventList`;
   OGIP FITS and plain text), GTI and energy selection, phases.fits and simulated lists.
 - ``orbit_table``: spacecraft orbit tables (:class:`OrbitTable`; text or FITS).
+- ``toa_selection``: rules that choose TOAs (``mjd=58000..58500``, ``err_us>5``, ...).
+- ``exclusion_list``: lists of TOAs left out of a fit (line, exact MJD, reason; rules).
 """
 
 from timingkit import lazy_exports
@@ -29,6 +31,8 @@ EXPORTS = {
     "read_text_file": "textfile", "read_toml_file": "textfile", "EventList": "event_list",
     "read_event_list": "event_list", "select_events": "event_list", "OrbitTable": "orbit_table",
     "read_orbit_table": "orbit_table",
+    "parse_rule": "toa_selection", "read_exclusion_list": "exclusion_list",
+    "format_exclusion_list": "exclusion_list",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

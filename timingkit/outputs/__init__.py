@@ -7,6 +7,7 @@
 - ``noise_outputs``: the power spectrum and the red-noise part of the report.
 - ``overview_page``: the self-contained HTML overview of a batch.
 - ``profile_figure``: profile.png of folded photon events (two cycles, unpulsed level).
+- ``explorer_page``: explorer.html, the interactive residual explorer of one fit.
 """
 
 from timingkit import lazy_exports
@@ -15,6 +16,7 @@ EXPORTS = {
     "build_report": "report", "write_json": "report", "ResidualTable": "residual_table",
     "plot_residuals": "plotting", "format_value": "numbers", "format_quantity": "numbers",
     "plot_event_profile": "profile_figure",
+    "write_explorer": "explorer_page",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

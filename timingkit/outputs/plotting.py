@@ -166,9 +166,19 @@ def _stats_text(table: ResidualTable) -> str:
             f"weighted rms = {table.weighted_rms_us():.4g} µs")
 
 
+LEFT_OUT_LABEL = "left out of the fit"
+
+
 def _draw_residual_panel(ax, x, table: ResidualTable, style: dict) -> None:
-    """ResidualSet (µs) with 1σ error bars against ``x``, coloured per ``style``."""
+    """ResidualSet (µs) with 1σ error bars against ``x``, coloured per ``style``;
+    TOAs left out of the fit as hollow grey circles (not in the statistics)."""
     ax.axhline(0.0, color="0.55", linewidth=0.6, zorder=0)
+    fitted = table.fitted_mask()
+    if not fitted.all():
+        ax.errorbar(x[~fitted], table.residual_us[~fitted], yerr=table.err_us[~fitted], fmt="o",
+                    markersize=4, mfc="none", color="0.6", elinewidth=0.6, capsize=0,
+                    linestyle="none", label=LEFT_OUT_LABEL, zorder=1)
+        x, table = x[fitted], table.subset(fitted)
     if style["kind"] == "category":
         values = _category_values(table, style["color_by"])
         for category, (color, marker) in style["mapping"].items():
@@ -204,6 +214,10 @@ def _add_color_key(figure: Figure, axes: list, style: dict) -> None:
         handles = [Line2D([], [], color=color, marker=marker, linestyle="none", markersize=5)
                    for color, marker in style["mapping"].values()]
         labels = [str(c) for c in style["mapping"]]
+        if any(c.get_label() == LEFT_OUT_LABEL for ax in axes for c in ax.containers):
+            handles.append(Line2D([], [], color="0.6", marker="o", mfc="none", linestyle="none",
+                                  markersize=5))
+            labels.append(LEFT_OUT_LABEL)
         axes[0].legend(handles, labels, title=style["color_by"], fontsize=8, title_fontsize=8,
                        loc="upper right", ncols=max(1, (len(labels) + 7) // 8))
     else:

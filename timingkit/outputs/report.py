@@ -104,13 +104,18 @@ def settings_entry(obs: Observations) -> dict:
 
 
 def residual_table(obs: Observations, res: ResidualSet) -> ResidualTable:
+    """The residuals.csv table of ``res``, with the TOAs' table lines and, for a
+    binary, the orbital phase (cycles in [0, 1))."""
+    from timingkit.model.binary import orbital_phase_cycles
     toas = obs.toas
+    orbital = orbital_phase_cycles(res.evaluation)
     return ResidualTable(
         mjd_text=toas.mjd_text, mjd=toas.mjd_day + toas.mjd_frac,
         site=obs.site_names,            # other names merged into the site's name
         freq_mhz=toas.freq_mhz, err_us=toas.err_us, residual_us=res.time_s * 1e6,
         residual_phase=res.phase, pulse_number=np.round(res.pulse_number).astype(np.int64),
-        flags=dict(toas.flags))
+        flags=dict(toas.flags), toa_line=toas.line_numbers,
+        orbital_phase=None if orbital is None else np.mod(orbital, 1.0))
 
 
 def write_json(path: str, data: dict) -> None:

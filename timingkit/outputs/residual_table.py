@@ -2,7 +2,10 @@
 
 Columns, in this order: ``mjd`` (the arrival time exactly as read from the TOA
 table), ``site``, ``freq_mhz``, ``err_us``, ``residual_us``, ``residual_phase``,
-``pulse_number``, then one column per TOA flag (e.g. ``backend``).
+``pulse_number``; then, when known, ``toa_line`` (the TOA's line in its table)
+and ``orbital_phase`` (cycles, binaries); then one column per TOA flag (e.g.
+``backend``); last, when some TOAs were left out of the fit, ``left_out`` (the
+reason, empty for fitted TOAs).
 
 Printed precision: ``residual_us`` with 6 decimals (1 ps steps, well below a
 nanosecond), ``residual_phase`` with 13 significant digits, ``freq_mhz`` and
@@ -26,6 +29,7 @@ from timingkit.formats.errors import InputError
 
 CORE_COLUMNS = ("mjd", "site", "freq_mhz", "err_us", "residual_us",
                 "residual_phase", "pulse_number")
+OPTIONAL_COLUMNS = ("toa_line", "orbital_phase", "left_out")
 
 # A decimal MJD: digits with an optional fraction, no exponent (kept as text
 # so no precision is lost between the TOA table and this file).
@@ -71,7 +75,9 @@ class ResidualTable:
     observing frequency in MHz (``inf`` = no dispersion); ``err_us``: 1σ TOA
     uncertainty in µs; ``residual_us``: residual in µs; ``residual_phase``:
     residual in pulse cycles; ``pulse_number``: int64 pulse numbers;
-    ``flags``: flag name -> array of str, in column order.
+    ``flags``: flag name -> array of str, in column order. Optional:
+    ``toa_line`` (int64, 0 = unknown), ``orbital_phase`` (cycles) and
+    ``left_out`` (str, the reason a TOA was left out of the fit, '' if fitted).
     """
 
     mjd_text: np.ndarray
@@ -83,6 +89,9 @@ class ResidualTable:
     residual_phase: np.ndarray
     pulse_number: np.ndarray
     flags: dict[str, np.ndarray] = field(default_factory=dict)
+    toa_line: np.ndarray | None = None
+    orbital_phase: np.ndarray | None = None
+    left_out: np.ndarray | None = None
 
     def __post_init__(self):
         self.mjd_text = _text_array(np.atleast_1d(self.mjd_text))
@@ -101,14 +110,23 @@ class ResidualTable:
                    "residual_phase": self.residual_phase,
                    "pulse_number": self.pulse_number}
         columns.update(self.flags)
+        if self.toa_line is not None:
+            self.toa_line = columns["toa_line"] = np.atleast_1d(np.asarray(self.toa_line,
+                                                                           dtype=np.int64))
+        if self.orbital_phase is not None:
+            self.orbital_phase = columns["orbital_phase"] = np.atleast_1d(
+                np.asarray(self.orbital_phase, dtype=float))
+        if self.left_out is not None:
+            self.left_out = columns["left_out"] = _text_array(np.atleast_1d(self.left_out))
         for name, values in columns.items():
             if values.ndim != 1 or len(values) != n:
                 raise ValueError(f"ResidualTable column '{name}' has {len(values)} "
                                  f"entries, mjd_text has {n}")
         for name in self.flags:
-            if name in CORE_COLUMNS or not name or name != name.strip():
+            if name in CORE_COLUMNS + OPTIONAL_COLUMNS or not name or name != name.strip():
                 raise ValueError(f"bad flag name {name!r}: must be non-empty, without "
-                                 f"surrounding blanks, and not one of {', '.join(CORE_COLUMNS)}")
+                                 "surrounding blanks, and not one of "
+                                 f"{', '.join(CORE_COLUMNS + OPTIONAL_COLUMNS)}")
 
     @classmethod
     def from_columns(cls, mjd_text, site, freq_mhz, err_us, residual_us,
@@ -130,15 +148,36 @@ class ResidualTable:
     @property
     def columns(self) -> list[str]:
         """Column names as written to the CSV file."""
-        return list(CORE_COLUMNS) + list(self.flags)
+        optional = [name for name in OPTIONAL_COLUMNS[:2] if getattr(self, name) is not None]
+        last = ["left_out"] if self.left_out is not None and any(self.left_out) else []
+        return list(CORE_COLUMNS) + optional + list(self.flags) + last
+
+    def fitted_mask(self) -> np.ndarray:
+        """True for the TOAs the fit used (all of them without ``left_out``)."""
+        if self.left_out is None:
+            return np.ones(len(self), dtype=bool)
+        return self.left_out == ""
 
     def subset(self, index) -> "ResidualTable":
         """Rows selected by a boolean mask or index array."""
+        pick = (lambda a: None if a is None else a[index])
         return ResidualTable(self.mjd_text[index], self.mjd[index], self.site[index],
                              self.freq_mhz[index], self.err_us[index],
                              self.residual_us[index], self.residual_phase[index],
                              self.pulse_number[index],
-                             {k: v[index] for k, v in self.flags.items()})
+                             {k: v[index] for k, v in self.flags.items()},
+                             pick(self.toa_line), pick(self.orbital_phase), pick(self.left_out))
+
+    @classmethod
+    def concatenate(cls, tables) -> "ResidualTable":
+        """The rows of ``tables`` one after the other (same flags in each)."""
+        def join(name):
+            parts = [getattr(t, name) for t in tables]
+            return None if any(p is None for p in parts) else np.concatenate(parts)
+        flags = {k: np.concatenate([t.flags[k] for t in tables]) for k in tables[0].flags}
+        return cls(*(join(name) for name in ("mjd_text", "mjd", "site", "freq_mhz", "err_us",
+                                              "residual_us", "residual_phase", "pulse_number")),
+                   flags, join("toa_line"), join("orbital_phase"), join("left_out"))
 
     def rms_us(self) -> float:
         """Root-mean-square residual about zero, µs (nan for an empty table)."""
@@ -162,8 +201,14 @@ class ResidualTable:
                              f"first at row {int(np.argmax(bad))}")
         with atomic_output(path) as handle:
             writer = csv.writer(handle, lineterminator="\n")
-            writer.writerow(self.columns)
+            columns = self.columns
+            writer.writerow(columns)
+            extra = {"toa_line": lambda i: str(self.toa_line[i]) if self.toa_line[i] else "",
+                     "orbital_phase": lambda i: "%.9f" % self.orbital_phase[i]}
+            before = [extra[name] for name in columns[len(CORE_COLUMNS):] if name in extra]
             flag_columns = list(self.flags.values())
+            if columns[-1] == "left_out":
+                flag_columns.append(self.left_out)
             for i in range(len(self)):
                 writer.writerow([
                     self.mjd_text[i],
@@ -173,6 +218,7 @@ class ResidualTable:
                     "%.6f" % self.residual_us[i],
                     "%.12e" % self.residual_phase[i],
                     str(int(self.pulse_number[i])),
+                    *(cell(i) for cell in before),
                     *(column[i] for column in flag_columns),
                 ])
 
@@ -227,7 +273,8 @@ def read_csv(path) -> ResidualTable:
                              f"{', '.join(CORE_COLUMNS)}", path=path, line=header_line,
                              field=missing[0])
         position = {name: header.index(name) for name in header}
-        flag_names = [name for name in header if name not in CORE_COLUMNS]
+        flag_names = [name for name in header if name not in CORE_COLUMNS + OPTIONAL_COLUMNS]
+        optional = [name for name in OPTIONAL_COLUMNS if name in seen]
 
         rows: dict[str, list] = {name: [] for name in header}
         for row in reader:
@@ -263,10 +310,24 @@ def read_csv(path) -> ResidualTable:
             rows["pulse_number"].append(pulse)
             for name in flag_names:
                 rows[name].append(cell[name])
+            if "toa_line" in optional:
+                if cell["toa_line"] and not cell["toa_line"].isdigit():
+                    raise InputError(f"not a line number: {cell['toa_line']!r}", path=path,
+                                     line=line, field="toa_line")
+                rows["toa_line"].append(int(cell["toa_line"] or 0))
+            if "orbital_phase" in optional:
+                rows["orbital_phase"].append(_parse_float(cell["orbital_phase"], path, line,
+                                                          "orbital_phase"))
+            if "left_out" in optional:
+                rows["left_out"].append(cell["left_out"])
 
-    return ResidualTable.from_columns(
+    table = ResidualTable.from_columns(
         rows["mjd"], rows["site"], np.array(rows["freq_mhz"], dtype=float),
         np.array(rows["err_us"], dtype=float), np.array(rows["residual_us"], dtype=float),
         np.array(rows["residual_phase"], dtype=float),
         np.array(rows["pulse_number"], dtype=np.int64),
         {name: rows[name] for name in flag_names})
+    for name in optional:
+        setattr(table, name, np.asarray(rows[name]) if name != "left_out" else
+                _text_array(rows[name]))
+    return table

@@ -11,11 +11,11 @@ from __future__ import annotations
 
 import os
 
-
 from timingkit.fit.fitter import FitResult, compute_residuals, fit, goodness_warnings
 from timingkit.geometry.observations import Observations
 from timingkit.outputs.report import build_report, residual_table, settings_entry, write_json
 from timingkit.pipeline.inputs import Inputs, load_inputs
+from timingkit.pipeline.left_out import full_tables, selection_entry
 
 
 NOT_CONVERGED_MARK = "NOT CONVERGED"
@@ -44,6 +44,7 @@ def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = Tru
                  max_iterations=max_iterations,
                  progress=(lambda k: bar.set_postfix_str(f"iteration {k}")) if bar else None)
     report = build_report(result, inputs.obs)
+    report.update(selection_entry(inputs.selection))
     if bar:
         bar.update(1)
         bar.set_description("writing outputs")
@@ -53,7 +54,8 @@ def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = Tru
                                         glitch_epochs_mjd=glitch_epochs_mjd)
         report["suggestions"] = suggestions_entry(comparisons, suggest_level)
     if outdir is not None:
-        write_fit_outputs(result, inputs.obs, report, outdir, make_plots, color_by)
+        write_fit_outputs(result, inputs.obs, report, outdir, make_plots, color_by,
+                          selection=inputs.selection, reference=inputs.reference)
     if bar:
         bar.update(1)
         bar.close()
@@ -71,10 +73,15 @@ def _stage_bar(progress: bool, description: str):
 
 
 def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir: str,
-                      make_plots: bool = True, color_by: str = "site") -> None:
+                      make_plots: bool = True, color_by: str = "site", *, selection=None,
+                      kept_obs: Observations | None = None, reference=None) -> None:
+    """The outputs of a fit. With ``selection`` (pipeline.left_out) the residual
+    tables and figures also show the left-out TOAs, marked; ``kept_obs``: the
+    TOAs the selection kept, when the fit used only part of them (``obs``)."""
     os.makedirs(outdir, exist_ok=True)
-    post = residual_table(obs, result.postfit)
-    pre = residual_table(obs, result.prefit)
+    post, pre = full_tables([(residual_table(obs, result.postfit), result.model, result.postfit),
+                             (residual_table(obs, result.prefit), result.prefit_model,
+                              result.prefit)], obs, selection, kept_obs or obs, reference)
     result.model.write(os.path.join(outdir, "fitted.toml"), comment=_fitted_comment(report))
     post.write_csv(os.path.join(outdir, "residuals.csv"))
     pre.write_csv(os.path.join(outdir, "prefit_residuals.csv"))
@@ -97,13 +104,12 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
 
 def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color_by: str):
     """residuals_day_of_year.png always; residuals_orbital_phase.png with a binary."""
-    from timingkit.model.binary import orbital_phase_cycles
     from timingkit.outputs.plotting import plot_residuals_vs_day_of_year, plot_residuals_vs_orbital_phase
     common = dict(color_by=color_by, frequency_hz=result.model.spin.frequency.value)
     plot_residuals_vs_day_of_year(post, os.path.join(outdir, "residuals_day_of_year.png"),
                                   title=f"{report['source']}: post-fit residuals by day of year",
                                   **common)
-    phase = orbital_phase_cycles(result.postfit.evaluation)
+    phase = post.orbital_phase
     if phase is not None:
         plot_residuals_vs_orbital_phase(
             post, phase, os.path.join(outdir, "residuals_orbital_phase.png"),
@@ -113,16 +119,19 @@ def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color
 def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(), ephemeris=None,
               clock_paths=(), make_plots=True, progress=False, color_by="site",
               suggest=False, suggest_level=0.01, glitch_epochs_mjd=(),
-              max_iterations=20) -> dict:
+              max_iterations=20, exclude_paths=(), select=(), leave_out=()) -> dict:
     """Fit one source from its files and write fitted.toml, residuals.csv,
     residuals.png and report.json into ``outdir`` (with red noise also
-    power_spectrum.png). Returns the report dict; ``report["converged"]`` is
-    False (and every output says so) when the fit did not converge."""
+    power_spectrum.png). ``exclude_paths``, ``select``, ``leave_out``: TOAs
+    to leave out (:func:`timingkit.pipeline.load_inputs`). Returns the report
+    dict; ``report["converged"]`` is False (and every output says so) when the
+    fit did not converge."""
     if progress:
         import sys
         print("reading and barycentring the TOAs ...", file=sys.stderr, flush=True)
     inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
-                         ephemeris=ephemeris, clock_paths=clock_paths)
+                         ephemeris=ephemeris, clock_paths=clock_paths,
+                         exclude_paths=exclude_paths, select=select, leave_out=leave_out)
     _, report = fit_inputs(inputs, outdir, make_plots=make_plots, color_by=color_by,
                            progress=progress, suggest=suggest, suggest_level=suggest_level,
                            glitch_epochs_mjd=glitch_epochs_mjd, max_iterations=max_iterations)
@@ -130,13 +139,16 @@ def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
 
 
 def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=None,
-                   clock_paths=(), make_plots=True, color_by="site") -> dict:
+                   clock_paths=(), make_plots=True, color_by="site", exclude_paths=(),
+                   select=(), leave_out=()) -> dict:
     """ResidualSet of the model as given (no fit); writes residuals.csv/.png and
-    a report.json with the statistics."""
+    a report.json with the statistics (of the TOAs not left out)."""
     inputs = load_inputs(toas_path, model_path, sites_paths=sites_paths, ephemeris=ephemeris,
-                         clock_paths=clock_paths)
+                         clock_paths=clock_paths, exclude_paths=exclude_paths, select=select,
+                         leave_out=leave_out)
     res = compute_residuals(inputs.model, inputs.obs, reference=inputs.reference)
-    table = residual_table(inputs.obs, res)
+    [table] = full_tables([(residual_table(inputs.obs, res), inputs.model, res)], inputs.obs,
+                          inputs.selection, inputs.obs, inputs.reference)
     os.makedirs(outdir, exist_ok=True)
     table.write_csv(os.path.join(outdir, "residuals.csv"))
     stats = {"source": inputs.model.name, "toas": len(inputs.obs), "fitted": False,
@@ -146,7 +158,8 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
              "settings": settings_entry(inputs.obs),
              "warnings": inputs.obs.warnings + goodness_warnings(
                  res.chi_square(), len(inputs.obs) - 1,
-                 red_noise=bool(inputs.model.noise_sections()), fitted=False)}
+                 red_noise=bool(inputs.model.noise_sections()), fitted=False),
+             **selection_entry(inputs.selection)}
     if make_plots:
         from timingkit.outputs.plotting import plot_residuals
         plot_residuals(table, color_by=color_by, title=f"{inputs.model.name}: model residuals",

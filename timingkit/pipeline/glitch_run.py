@@ -20,6 +20,7 @@ from timingkit.glitch.results import GlitchSearchResult, GlitchSearchSettings
 from timingkit.glitch.search import search_glitches
 from timingkit.pipeline.inputs import load_inputs
 from timingkit.pipeline.fit_run import write_fit_outputs
+from timingkit.pipeline.left_out import selection_entry
 from timingkit.outputs.report import build_report, write_json
 
 
@@ -63,11 +64,14 @@ def write_glitch_figure(result: GlitchSearchResult, path: str, title: str | None
 
 def glitch_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
                  ephemeris=None, clock_paths=(), make_plots=True, progress=False,
-                 color_by="site", settings: GlitchSearchSettings | None = None) -> dict:
-    """Search one source for glitches and write the outputs (module docstring).
+                 color_by="site", settings: GlitchSearchSettings | None = None,
+                 exclude_paths=(), select=(), leave_out=()) -> dict:
+    """Search one source for glitches and write the outputs (module docstring);
+    ``exclude_paths``, ``select``, ``leave_out`` as for ``fit_files``.
     Returns the report dict (also written to ``outdir/report.json``)."""
     inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
-                         ephemeris=ephemeris, clock_paths=clock_paths)
+                         ephemeris=ephemeris, clock_paths=clock_paths,
+                         exclude_paths=exclude_paths, select=select, leave_out=leave_out)
     result = search_glitches(inputs.model, inputs.obs, settings, reference=inputs.reference)
     if result.fit is None:
         raise FitError("the glitch search found nothing and the starting model could not be "
@@ -79,5 +83,8 @@ def glitch_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=
                             title=f"{inputs.model.name}: glitch search "
                                   "(frequency relative to the fitted spin-down)")
     report = glitch_report(result)
-    write_fit_outputs(result.fit, result.obs, report, outdir, make_plots, color_by)
+    report.update(selection_entry(inputs.selection))
+    write_fit_outputs(result.fit, result.obs, report, outdir, make_plots, color_by,
+                      selection=inputs.selection, kept_obs=inputs.obs,
+                      reference=inputs.reference)
     return report

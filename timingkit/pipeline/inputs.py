@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import os
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -18,6 +19,9 @@ from timingkit.geometry.sites import SiteTable
 from timingkit.formats.toa_table import ToaTable
 from timingkit.formats.toa_reader import read_toa_table
 
+if TYPE_CHECKING:
+    from timingkit.pipeline.left_out import Selection
+
 
 @dataclass
 class Inputs:
@@ -28,6 +32,7 @@ class Inputs:
     clocks: list[ClockTable]
     obs: Observations | None = None
     reference: Observations | None = None
+    selection: "Selection | None" = None    # TOAs left out of the fit (pipeline.left_out)
 
 
 def _resolve(path: str, base: str) -> str:
@@ -71,13 +76,21 @@ def reference_observations(model: TimingModel, sites, eph, clocks) -> Observatio
 
 
 def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths=(),
-                ephemeris=None, clock_paths=()) -> Inputs:
-    """Read and check every input, then compute time scales and geometry."""
+                ephemeris=None, clock_paths=(), exclude_paths=(), select=(),
+                leave_out=()) -> Inputs:
+    """Read and check every input, then compute time scales and geometry.
+    ``exclude_paths`` (exclusion lists), ``select`` and ``leave_out`` (rules,
+    timingkit.formats.toa_selection) choose the TOAs the fit uses; ``obs``
+    holds those, ``selection`` the others and why they were left out."""
+    from timingkit.pipeline.left_out import choose_toas, split_observations
     model = load_model(model_path, free, fix)
     sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     toas = read_toa_table(toas_path)
     inputs = Inputs(toas=toas, model=model, sites=sites, ephemeris=eph, clocks=clocks)
-    inputs.obs = prepare_observations(toas, sites, eph, clocks,
-                                      planets=model.settings["shapiro_delay_planets"])
+    inputs.selection = choose_toas(
+        toas, exclude_paths, select, leave_out,
+        canonical_site=lambda name: sites.lookup(name).name if name in sites else name)
+    inputs.obs = split_observations(toas, inputs.selection, lambda table: prepare_observations(
+        table, sites, eph, clocks, planets=model.settings["shapiro_delay_planets"]))
     inputs.reference = reference_observations(model, sites, eph, clocks)
     return inputs
