@@ -219,3 +219,32 @@ def test_debug_shows_the_traceback(data, tmp_path):
     bad = _toas(tmp_path, "")
     with pytest.raises(Exception):
         main(["--debug", "fit", bad, str(data / "demo-msp.toml"), "-o", str(tmp_path / "o")])
+
+
+def test_every_command_name_is_in_the_start_up_table():
+    # main() loads only the group of the command given; the table must name every
+    # command (aliases too) of the full parser, and nothing else.
+    from timingkit.cli.main import COMMAND_GROUP_OF, build_parser
+    parser = build_parser()
+    [sub] = [a for a in parser._actions if a.__class__.__name__ == "_SubParsersAction"]
+    assert set(sub.choices) == set(COMMAND_GROUP_OF)
+    for name, group in COMMAND_GROUP_OF.items():
+        alone = build_parser([group])
+        [sub] = [a for a in alone._actions if a.__class__.__name__ == "_SubParsersAction"]
+        assert name in sub.choices
+
+
+def test_barycentre_start_up_loads_only_what_it_needs(data, tmp_path):
+    # `timingkit barycentre` must not import the fitter, the glitch search, the batch
+    # runner, the figures or scipy (each costs tenths of a second at start-up).
+    code = ("import sys; from timingkit.cli.main import main; "
+            f"status = main(['barycentre', {str(data / 'demo-msp.toas')!r}, "
+            f"{str(data / 'demo-msp.toml')!r}, '-o', {str(tmp_path / 'b.csv')!r}]); "
+            "heavy = sorted(m for m in sys.modules if m.split('.')[0] in ('scipy', 'matplotlib') "
+            "or m.startswith(('timingkit.fit', 'timingkit.glitch', 'timingkit.batch', "
+            "'timingkit.outputs', 'timingkit.physics'))); print(status, heavy)")
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         timeout=300)
+    assert res.returncode == 0, res.stderr
+    assert res.stdout.strip().splitlines()[-1] == "0 []"
+    assert (tmp_path / "b.csv").read_text().startswith("mjd,site,freq_mhz,tdb_mjd")

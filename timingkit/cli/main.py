@@ -24,14 +24,24 @@ DESCRIPTION = ("timingkit: pulsar timing from arrival times to a fitted timing m
 COMMAND_GROUPS = ["fit", "explore", "derive", "simulate", "glitches", "events", "batch", "convert",
                   "predict", "profiles", "demo"]
 
+# The group module of each command name (aliases too). Start-up imports only the group of
+# the command given, so that `timingkit barycentre` does not load the fitter, the glitch
+# search or the batch runner; tests/test_cli.py checks this table against the parsers.
+COMMAND_GROUP_OF = {
+    "fit": "fit", "residuals": "fit", "barycentre": "fit", "barycenter": "fit", "plot": "fit",
+    "derive": "derive", "simulate": "simulate", "glitches": "glitches", "batch": "batch",
+    "convert": "convert", "demo": "demo",
+}
 
-def build_parser() -> argparse.ArgumentParser:
+
+def build_parser(groups=None) -> argparse.ArgumentParser:
+    """The command-line parser with the subcommands of ``groups`` (default: all)."""
     parser = argparse.ArgumentParser(prog="timingkit", description=DESCRIPTION)
     parser.add_argument("--debug", action="store_true", help="show tracebacks")
     parser.add_argument("--version", action="version", version=f"timingkit {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
-    for group in COMMAND_GROUPS:
+    for group in COMMAND_GROUPS if groups is None else groups:
         importlib.import_module(f"timingkit.cli.{group}").add_parsers(sub)
     return parser
 
@@ -47,8 +57,22 @@ def _quiet_after_broken_pipe() -> int:
     return 0
 
 
+def _requested_group(argv) -> str | None:
+    """The group of the command in ``argv`` (the first word that is not an option), or
+    None when there is none or it is unknown (then every group is loaded, for the full
+    help and the list of choices)."""
+    for word in argv:
+        if not word.startswith("-"):
+            return COMMAND_GROUP_OF.get(word)
+        if word in ("-h", "--help", "--version"):
+            return None
+    return None
+
+
 def main(argv=None) -> int:
-    parser = build_parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    group = _requested_group(argv)
+    parser = build_parser(None if group is None else [group])
     args = parser.parse_args(argv)
     try:
         status = int(args.func(args) or 0)

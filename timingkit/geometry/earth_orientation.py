@@ -35,6 +35,7 @@ import erfa
 import numpy as np
 from astropy.utils import iers
 
+from timingkit.numerics.chebyshev_grid import evaluate_on_grid
 from timingkit.numerics.timearray import SplitTime
 
 iers.conf.auto_download = False
@@ -265,17 +266,9 @@ def coverage_warnings(utc: SplitTime) -> list[str]:
 
 
 # ---------------------------------------------------------------------------
-# Celestial intermediate pole, interpolated.
-#
-# A scheme is (maximum interval width W in days, Chebyshev degree d). The
-# sorted TT times are cut into clusters wherever two neighbours are W or more
-# apart; a cluster spanning L days is split into ceil(L/W) equal intervals
-# (each at most W wide), so a 3-hour session is one interval however it sits
-# on the clock. In an interval holding more TOAs than its d + 1 nodes,
-# erfa.xys06a is evaluated at the Chebyshev nodes (first kind) and the TOAs
-# are interpolated; otherwise they are evaluated directly (exact). Each call
-# takes the scheme needing the fewest series evaluations, so sparse sessions
-# get short intervals and dense data long ones.
+# Celestial intermediate pole, interpolated on the Chebyshev grid of
+# timingkit.numerics.chebyshev_grid (nodes only where there are TOAs; a scheme is
+# (maximum interval width W in days, Chebyshev degree d)).
 # Max error over full-width intervals, measured against erfa.xys06a at 20,000
 # random TT dates over 2000-2040 (micro-arcsec, worse of X and Y; s is ~600x
 # smaller):
@@ -298,92 +291,10 @@ CIP_ERROR_BOUND_RAD = 24e-6 / 206264.806
 # term for one interval (a numpy call, ~1 us).
 _TERM_PER_TOA_COST = 4e-5
 _TERM_PER_INTERVAL_COST = 2e-2
-_CHUNK = 8192
 
 
 def _xys06a_mjd(mjd_tt: np.ndarray):
-    return erfa.xys06a(2400000.5, mjd_tt)
-
-
-@functools.lru_cache(maxsize=None)
-def _chebyshev_setup(degree: int):
-    """Chebyshev nodes of the first kind on [-1, 1] and the matrix turning
-    node values into Chebyshev coefficients (discrete cosine transform)."""
-    j = np.arange(degree + 1)
-    nodes = np.cos(np.pi * (j + 0.5) / (degree + 1))
-    # c_k = (2 - [k==0]) / (d+1) * sum_j f_j T_k(x_j)
-    tk = np.cos(np.outer(j, np.pi * (j + 0.5) / (degree + 1)))   # [k, j]
-    to_coeffs = tk * (2.0 / (degree + 1))
-    to_coeffs[0] *= 0.5
-    return nodes, to_coeffs
-
-
-@dataclass(frozen=True)
-class _Plan:
-    width: float            # scheme's maximum interval width, days
-    degree: int
-    cost: float             # in series evaluations
-    left: np.ndarray        # per interval: start (TT MJD)
-    span: np.ndarray        # per interval: width, days (> 0)
-    counts: np.ndarray      # per interval: TOAs in it (sorted order)
-
-
-def _plan(sorted_t: np.ndarray, width: float, degree: int) -> _Plan:
-    n = len(sorted_t)
-    gap_after = np.diff(sorted_t) >= width
-    c_start = np.flatnonzero(np.r_[True, gap_after])
-    c_end = np.r_[c_start[1:], n] - 1                       # index of last TOA
-    c_len = sorted_t[c_end] - sorted_t[c_start]
-    c_parts = np.maximum(1, np.ceil(c_len / width)).astype(np.intp)
-    # a one-point (or zero-length) cluster still gets a tiny interval
-    c_span = np.where(c_len > 0, c_len / c_parts, width * 1e-6)
-    cluster = np.repeat(np.arange(len(c_start)), np.diff(np.r_[c_start, n]))
-    part = np.minimum(np.floor((sorted_t - sorted_t[c_start][cluster]) / c_span[cluster]),
-                      c_parts[cluster] - 1).astype(np.intp)
-    first_part = np.r_[0, np.cumsum(c_parts)[:-1]]
-    ident = first_part[cluster] + part                       # non-decreasing
-    i_start = np.flatnonzero(np.r_[True, ident[1:] != ident[:-1]])
-    counts = np.diff(np.r_[i_start, n])
-    i_cluster = cluster[i_start]
-    span = c_span[i_cluster]
-    left = sorted_t[c_start][i_cluster] + part[i_start] * span
-    nodes = degree + 1
-    interp = counts > nodes
-    cost = float(np.sum(np.minimum(counts, nodes))
-                 + nodes * (_TERM_PER_TOA_COST * np.sum(counts[interp])
-                            + _TERM_PER_INTERVAL_COST * np.count_nonzero(interp)))
-    return _Plan(width, degree, cost, left, span, counts)
-
-
-def _chebyshev_sum(coeffs: np.ndarray, counts: np.ndarray, x: np.ndarray) -> np.ndarray:
-    """Sum Chebyshev series interval by interval.
-
-    ``coeffs`` is (degree+1, intervals, 3); the TOAs are sorted by interval,
-    ``counts`` TOAs per interval, ``x`` their position in [-1, 1]. Returns
-    (3, N). Written out because numpy's chebval wants the coefficients
-    gathered for every point (degree+1 times the memory and ~10x the time);
-    here each interval is one small matrix product on a reused basis buffer.
-    """
-    nterms = coeffs.shape[0]
-    out = np.empty((3, len(x)))
-    buf = np.empty((nterms, min(_CHUNK, max(1, int(counts.max())))))
-    start = 0
-    for i, count in enumerate(counts):
-        c_i = coeffs[:, i, :].T                        # (3, nterms)
-        for s in range(start, start + count, _CHUNK):
-            e = min(s + _CHUNK, start + count)
-            xs = x[s:e]
-            basis = buf[:, :e - s]
-            basis[0] = 1.0
-            if nterms > 1:
-                basis[1] = xs
-            twox = 2.0 * xs
-            for k in range(2, nterms):
-                np.multiply(twox, basis[k - 1], out=basis[k])
-                basis[k] -= basis[k - 2]
-            out[:, s:e] = c_i @ basis
-        start += count
-    return out
+    return np.array(erfa.xys06a(2400000.5, mjd_tt))
 
 
 def cip_xys(tt: SplitTime, scheme: tuple[float, int] | None = None, direct: bool = False):
@@ -399,32 +310,9 @@ def cip_xys(tt: SplitTime, scheme: tuple[float, int] | None = None, direct: bool
     if direct:
         return erfa.xys06a(tt.jd1, tt.jd2)
     t = np.asarray(tt.day + tt.frac, dtype=float)
-    n = len(t)
-    if n == 0:
+    if len(t) == 0:
         return np.empty(0), np.empty(0), np.empty(0)
-    order = np.argsort(t, kind="stable")
-    ts = t[order]
     schemes = CIP_SCHEMES if scheme is None else (tuple(scheme),)
-    plan = min((_plan(ts, w, d) for w, d in schemes), key=lambda p: p.cost)
-    nodes = plan.degree + 1
-
-    dense_interval = plan.counts > nodes
-    dense = np.repeat(dense_interval, plan.counts)
-    result = np.empty((3, n))
-    if not np.all(dense):
-        sparse_idx = np.flatnonzero(~dense)
-        result[:, sparse_idx] = _xys06a_mjd(ts[sparse_idx])
-    if np.any(dense):
-        dense_idx = np.flatnonzero(dense)
-        left, span = plan.left[dense_interval], plan.span[dense_interval]
-        counts = plan.counts[dense_interval]
-        xnode, to_coeffs = _chebyshev_setup(plan.degree)
-        node_t = left[:, None] + (xnode[None, :] + 1.0) * (0.5 * span[:, None])
-        vals = np.array(_xys06a_mjd(node_t.ravel())).reshape(3, len(left), nodes)
-        coeffs = np.einsum("kj,cmj->kmc", to_coeffs, vals)               # (d+1, m, 3)
-        x = (2.0 * (ts[dense_idx] - np.repeat(left, counts)) / np.repeat(span, counts)
-             - 1.0)
-        result[:, dense_idx] = _chebyshev_sum(coeffs, counts, np.clip(x, -1.0, 1.0))
-    out = np.empty((3, n))
-    out[:, order] = result
+    out = evaluate_on_grid(t, _xys06a_mjd, schemes, term_per_toa_cost=_TERM_PER_TOA_COST,
+                           term_per_interval_cost=_TERM_PER_INTERVAL_COST)
     return out[0], out[1], out[2]
