@@ -244,3 +244,41 @@ def test_one_interpolation_of_the_table_per_data_set(sites, ephemeris, monkeypat
     earth_pos, _ = ephemeris.posvel("earth", obs.tdb[earth])
     # (1e-4 m: the rounding of 1.5e11-m barycentric vectors)
     assert np.max(np.abs(obs.observer_ssb_m[earth] - earth_pos - pos)) < 1e-4
+
+
+def test_cip_nodes_are_cached_between_runs_with_identical_results(tmp_path, monkeypatch):
+    # Dense data: the first run evaluates erfa.xys06a at the nodes of the 32-day
+    # intervals it needs (about 0.8 per day) and stores them; a later run (here a new
+    # cache object reading the file) evaluates nothing and gives the same numbers.
+    from unittest import mock
+    from timingkit.numerics.chebyshev_grid import NodeCache
+    monkeypatch.setenv("TIMINGKIT_CACHE_DIR", str(tmp_path))
+    mjd = np.random.default_rng(9).uniform(58000.0, 58000.0 + 365.0, 20000)
+    real = erfa.xys06a
+    results = []
+    for run in range(3):
+        cache = NodeCache(eo.CIP_NODE_CACHE.name, eo.CIP_NODE_CACHE.width,
+                          eo.CIP_NODE_CACHE.degree)
+        monkeypatch.setattr(eo, "CIP_NODE_CACHE", cache)
+        calls = []
+
+        def counting(d1, d2):
+            calls.append(np.size(d2))
+            return real(d1, d2)
+
+        with mock.patch.object(eo.erfa, "xys06a", counting):
+            results.append(np.array(eo.cip_xys(_tt(mjd))))
+        if run == 0:
+            assert 0 < sum(calls) <= 13 * 26          # 12-13 intervals of 26 nodes
+        else:
+            assert sum(calls) == 0
+        if run == 1:       # a damaged file is ignored and rewritten
+            cache.path and open(cache.path, "wb").write(b"not an npz")
+            monkeypatch.setattr(eo, "CIP_NODE_CACHE", NodeCache(cache.name, cache.width,
+                                                                cache.degree))
+            with mock.patch.object(eo.erfa, "xys06a", counting):
+                results.append(np.array(eo.cip_xys(_tt(mjd))))
+    assert all(np.array_equal(results[0], r) for r in results[1:])
+    ex, ey, _ = erfa.xys06a(2400000.5, mjd)      # source: erfa.xys06a (IAU 2006/2000A)
+    assert np.max(np.abs(results[0][0] - ex)) * RAD_TO_UAS < CIP_BOUND_UAS
+    assert np.max(np.abs(results[0][1] - ey)) * RAD_TO_UAS < CIP_BOUND_UAS

@@ -65,10 +65,11 @@ def fixed_point(values, decimals: int) -> np.ndarray:
     units = _round_half_even(hi, lo)
     power = np.int64(10) ** decimals
     sign = np.where(np.signbit(values), np.uint8(ord("-")), np.uint8(0))[:, None]
-    whole = _matrix((units // power).astype("S"))
+    whole_units, fraction_units = np.divmod(units, power)
+    whole = _whole(whole_units)
     if decimals == 0:
         return np.concatenate([sign, whole], axis=1)
-    fraction = _matrix((units % power + power).astype("S"))[:, 1:]   # drop the leading 1
+    fraction = _digits(fraction_units, decimals)
     return np.concatenate([sign, whole, _constant(len(values), "."), fraction], axis=1)
 
 
@@ -81,9 +82,9 @@ def split_mjd(day, frac, decimals: int = 15) -> np.ndarray:
     carry = units // scale          # handles fractions rounding to 1 or below 0
     units = units - carry * scale
     whole = whole + carry
-    digits = _matrix((units + np.int64(scale)).astype("S"))[:, 1:]
-    return np.concatenate([_matrix(whole.astype("S")), _constant(len(units), "."), digits],
-                          axis=1)
+    sign = np.where(whole < 0, np.uint8(ord("-")), np.uint8(0))[:, None]
+    return np.concatenate([sign, _whole(np.abs(whole)), _constant(len(units), "."),
+                           _digits(units, decimals)], axis=1)
 
 
 def text(values) -> np.ndarray:
@@ -106,6 +107,27 @@ def shortest_repr(values) -> np.ndarray:
     labels, inverse = np.unique(values, return_inverse=True)
     encoded = np.array([repr(v).encode("ascii") for v in labels.tolist()] or [b""])
     return _matrix(encoded[inverse.reshape(-1)])
+
+
+def _digits(units: np.ndarray, width: int) -> np.ndarray:
+    """Zero-padded decimal digits of non-negative int64 values, (rows, width) uint8."""
+    out = np.empty((len(units), width), dtype=np.uint8)
+    rest = units.copy()
+    for position in range(width - 1, -1, -1):
+        rest, digit = np.divmod(rest, 10)
+        out[:, position] = digit
+    out += ord("0")
+    return out
+
+
+def _whole(units: np.ndarray) -> np.ndarray:
+    """Decimal digits of non-negative int64 values without leading zeros (NUL there)."""
+    top = int(units.max()) if len(units) else 0
+    width = max(1, len(str(top)))
+    out = _digits(units, width)
+    leading = np.logical_and.accumulate(out[:, :-1] == ord("0"), axis=1)
+    out[:, :-1][leading] = 0
+    return out
 
 
 def _matrix(column: np.ndarray) -> np.ndarray:

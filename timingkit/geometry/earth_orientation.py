@@ -35,7 +35,7 @@ import erfa
 import numpy as np
 from astropy.utils import iers
 
-from timingkit.numerics.chebyshev_grid import evaluate_on_grid
+from timingkit.numerics.chebyshev_grid import NodeCache, evaluate_on_grid
 from timingkit.numerics.timearray import SplitTime
 
 iers.conf.auto_download = False
@@ -293,6 +293,11 @@ _TERM_PER_TOA_COST = 4e-5
 _TERM_PER_INTERVAL_COST = 2e-2
 
 
+# Dense data take the nodes of the coarsest scheme on a fixed grid, kept between runs
+# (the IAU 2006/2000A series never changes for a given erfa; the key holds its version).
+CIP_NODE_CACHE = NodeCache(f"cip-xys06a-erfa{erfa.__version__}", *CIP_SCHEMES[-1])
+
+
 def _xys06a_mjd(mjd_tt: np.ndarray):
     return np.array(erfa.xys06a(2400000.5, mjd_tt))
 
@@ -314,5 +319,6 @@ def cip_xys(tt: SplitTime, scheme: tuple[float, int] | None = None, direct: bool
         return np.empty(0), np.empty(0), np.empty(0)
     schemes = CIP_SCHEMES if scheme is None else (tuple(scheme),)
     out = evaluate_on_grid(t, _xys06a_mjd, schemes, term_per_toa_cost=_TERM_PER_TOA_COST,
-                           term_per_interval_cost=_TERM_PER_INTERVAL_COST)
+                           term_per_interval_cost=_TERM_PER_INTERVAL_COST,
+                           cache=CIP_NODE_CACHE if scheme is None else None)
     return out[0], out[1], out[2]
