@@ -126,7 +126,7 @@ def test_no_pyplot_and_thread_safe(tmp_path):
         list(pool.map(lambda tp: plotting.plot_residuals(tp[0], path=tp[1]),
                       zip(tables, paths)))
     for path in paths:
-        check_png(path, 800, 450)
+        check_png(path, 800, 480)
 
 
 # --------------------------------------------------------------------------- residual panels
@@ -177,16 +177,24 @@ def test_drawn_secondary_axis_matches_us_to_cycles(frequency_hz):
     ax = panels(figure)[0]
     secondary = ax.child_axes[0]
     low_us, high_us = ax.get_ylim()
-    # Secondary axis limits are the primary limits (µs) times 1e-6 * f (cycles).
+    assert "µs" in ax.get_ylabel()
+    # Secondary axis limits are the primary limits (µs) times 1e-6 * f (cycles), shown
+    # in the power of ten named on the axis (a few µs: 10⁻⁶ cycles at 30 Hz, 10⁻³ at 700 Hz),
+    # so that the tick labels are plain numbers between 0.01 and 1000.
+    factor = secondary.cycles_factor
+    expected = {29.9: (1e6, "10⁻⁶ pulse cycles"), 716.35: (1e3, "10⁻³ pulse cycles")}
+    assert (factor, secondary.get_ylabel()) == (expected[frequency_hz][0],
+                                                f"residual ({expected[frequency_hz][1]})")
     assert np.allclose(secondary.get_ylim(),
-                       (low_us * 1e-6 * frequency_hz, high_us * 1e-6 * frequency_hz), rtol=1e-9, atol=0)
+                       (low_us * 1e-6 * frequency_hz * factor, high_us * 1e-6 * frequency_hz * factor),
+                       rtol=1e-9, atol=0)
 
 
 def test_color_by_site_categories_are_the_sites():
     table = make_table()
     figure = plotting.plot_residuals(table, color_by="site")
     ax = panels(figure)[0]
-    legend = ax.get_legend()
+    [legend] = figure.legends
     assert {t.get_text() for t in legend.get_texts()} == set(table.site)
     assert legend.get_title().get_text() == "site"
     # One error-bar group per site, each with its own colour, holding that site's points.
@@ -201,9 +209,9 @@ def test_color_by_site_categories_are_the_sites():
 
 def test_color_by_backend_and_other_flag():
     table = make_table()
-    legend = panels(plotting.plot_residuals(table, color_by="backend"))[0].get_legend()
+    [legend] = plotting.plot_residuals(table, color_by="backend").legends
     assert {t.get_text() for t in legend.get_texts()} == {"wide-a", "wide-b"}
-    legend = panels(plotting.plot_residuals(table, color_by="receiver"))[0].get_legend()
+    [legend] = plotting.plot_residuals(table, color_by="receiver").legends
     assert {t.get_text() for t in legend.get_texts()} == {"low", "high"}
 
 
@@ -217,29 +225,33 @@ def test_categories_shared_between_prefit_and_postfit():
                     for c in bottom.containers}
     assert set(color_top) == {"desert-dish", "lake-array"}
     assert all(color_bottom[site] == color for site, color in color_top.items())
-    assert {t.get_text() for t in top.get_legend().get_texts()} == set(post.site)
+    assert {t.get_text() for t in figure.legends[0].get_texts()} == set(post.site)
 
 
-def test_color_by_freq_uses_colormap_and_colorbar():
-    table = make_table()
+def test_color_by_freq_gives_one_colour_per_band_and_no_colorbar():
+    # 1380/1400/1420 MHz are one band (within 15 %), 820 and 2300 MHz others, and
+    # infinite frequency its own: four distinct colours in the key, no colour bar.
+    table = make_table(n=40)
+    freq = np.array([820.0, 1380.0, 1400.0, 1420.0, 2300.0, np.inf])[np.arange(40) % 6]
+    table = ResidualTable.from_columns(
+        list(table.mjd_text), table.site, freq, table.err_us, table.residual_us,
+        table.residual_phase, table.pulse_number, {})
     figure = plotting.plot_residuals(table, color_by="freq")
-    colorbars = [ax for ax in figure.axes if ax.get_label() == "<colorbar>"]
-    assert len(colorbars) == 1 and "MHz" in colorbars[0].get_ylabel()
+    assert not [ax for ax in figure.axes if ax.get_label() == "<colorbar>"]
+    assert len(figure.axes) == 1
+    [legend] = figure.legends
+    names = [t.get_text() for t in legend.get_texts()]
+    assert names == ["820 MHz", "1380–1420 MHz", "2300 MHz", "infinite frequency (no dispersion)"]
+    assert legend.get_title().get_text() == "observing band"
     ax = panels(figure)[0]
-    finite = np.isfinite(table.freq_mhz)
-    points = [c for c in ax.collections if c.get_array() is not None]
-    assert len(points) == 1
-    colored = points[0]
-    assert np.array_equal(np.asarray(colored.get_array()), table.freq_mhz[finite])
-    colored.update_scalarmappable()
-    faces = colored.get_facecolors()
-    # Lowest and highest frequencies sit at the two ends of the colour map.
-    viridis = colormaps["viridis"]
-    low, high = np.argmin(table.freq_mhz[finite]), np.argmax(table.freq_mhz[finite])
-    assert np.allclose(faces[low], viridis(0.0)) and np.allclose(faces[high], viridis(1.0))
-    # Infinite-frequency TOAs are still drawn (separately, in black).
-    black = [c for c in ax.collections if c.get_label().startswith("infinite frequency")]
-    assert len(black) == 1 and len(black[0].get_offsets()) == int(np.sum(~finite))
+    groups = {c.get_label(): c for c in ax.containers}
+    assert set(groups) == set(names)
+    colors = {name: mcolors.to_hex(c.lines[0].get_color()) for name, c in groups.items()}
+    assert len(set(colors.values())) == 4
+    middle = groups["1380–1420 MHz"].lines[0].get_ydata()
+    assert np.allclose(np.sort(middle), np.sort(table.residual_us[np.isin(freq, [1380, 1400, 1420])]))
+    labels, bands = plotting.frequency_bands([1400.0, 1500.0, 1800.0, 1810.0])
+    assert bands == ["1400–1500 MHz", "1800–1810 MHz"] and list(labels[:2]) == [bands[0]] * 2
 
 
 def test_unknown_color_by_lists_choices():
@@ -261,7 +273,7 @@ def test_stats_box_numbers():
     [box] = [t for t in ax.texts if t.get_gid() == "residual_stats"]
     text = box.get_text()
     n = int(re.search(r"N = (\d+) TOAs", text).group(1))
-    rms = float(re.search(r"\nrms = ([\d.eE+-]+) µs", text).group(1))
+    rms = float(re.search(r"  rms = ([\d.eE+-]+) µs", text).group(1))
     wrms = float(re.search(r"weighted rms = ([\d.eE+-]+) µs", text).group(1))
     weights = table.err_us ** -2.0
     assert n == len(table)
@@ -269,6 +281,101 @@ def test_stats_box_numbers():
     assert wrms == pytest.approx(np.sqrt(np.sum(weights * table.residual_us ** 2)
                                          / np.sum(weights)), rel=1e-3)
     assert wrms != pytest.approx(rms, rel=1e-3)      # the two really differ here
+
+
+def _points_box(ax, renderer):
+    """Display box of every drawn residual point (markers and error bars)."""
+    from matplotlib.transforms import Bbox
+    boxes = [c.get_window_extent(renderer) for c in ax.collections]
+    boxes += [ln.get_window_extent(renderer) for ln in ax.lines if ln.get_gid() is None
+              and len(ln.get_xdata()) > 2]
+    return Bbox.union(boxes)
+
+
+@pytest.mark.parametrize("color_by", ["site", "freq", "backend"])
+def test_statistics_and_key_lie_outside_the_data_area(color_by):
+    # The first and last points sit at the panel edges; nothing may cover them: the
+    # statistics line and the colour key are outside every axes' data area.
+    post, pre = make_table(n=60), make_table(residual_scale=20.0, n=60)
+    figure = plotting.plot_residuals(post, pre, color_by=color_by, frequency_hz=29.9,
+                                     title="demo", glitch_epochs_mjd=[59000.0])
+    figure.canvas.draw()
+    renderer = figure.canvas.get_renderer()
+    areas = [ax.get_window_extent(renderer) for ax in panels(figure)]
+    stats = [t for ax in panels(figure) for t in ax.texts if t.get_gid() == "residual_stats"]
+    assert len(stats) == 2
+    covering = [t.get_window_extent(renderer) for t in stats]
+    covering += [legend.get_window_extent(renderer) for legend in figure.legends]
+    assert len(figure.legends) == 1 and not any(ax.get_legend() for ax in panels(figure))
+    for box in covering:
+        for area in areas:
+            assert not box.overlaps(area), (box, area)
+
+
+@pytest.mark.parametrize("scale_us, unit", [(0.05, "ns"), (3.0, "µs"), (8.161e4, "ms"),
+                                             (2.5e7, "s")])
+def test_residual_axis_unit_follows_the_size(scale_us, unit):
+    table = make_table(residual_scale=scale_us)
+    table = ResidualTable.from_columns(
+        list(table.mjd_text), table.site, table.freq_mhz, table.err_us * scale_us / 3.0,
+        table.residual_us, table.residual_phase, table.pulse_number, {})
+    figure = plotting.plot_residuals(table, frequency_hz=29.9)
+    figure.canvas.draw()
+    ax = panels(figure)[0]
+    assert ax.get_ylabel() == f"residual ({unit})"
+    labels = [t.get_text() for t in ax.get_yticklabels() if t.get_text()]
+    assert labels and not any("e" in lab or "×" in lab for lab in labels)
+    assert ax.yaxis.get_offset_text().get_text() == ""
+    assert ax.child_axes[0].yaxis.get_offset_text().get_text() == ""
+    # the drawn values are the residuals in that unit
+    factor = {"ns": 1e-3, "µs": 1.0, "ms": 1e3, "s": 1e6}[unit]
+    ys = np.concatenate([c.lines[0].get_ydata() for c in ax.containers])
+    assert np.allclose(np.sort(ys), np.sort(table.residual_us / factor))
+    [stats] = [t for t in ax.texts if t.get_gid() == "residual_stats"]
+    assert f" {unit}" in stats.get_text()
+
+
+def test_glitch_epochs_of_the_model_are_marked():
+    table = make_table()
+    figure = plotting.plot_residuals(table, make_table(), glitch_epochs_mjd=[59100.5, 59300.0])
+    for ax in panels(figure):
+        lines = [ln for ln in ax.lines if ln.get_gid() == "glitch_epoch"]
+        assert sorted(ln.get_xdata()[0] for ln in lines) == [59100.5, 59300.0]
+    assert "glitch epoch (model)" in [t.get_text() for t in figure.legends[0].get_texts()]
+    assert not [ln for ln in panels(plotting.plot_residuals(table))[0].lines
+                if ln.get_gid() == "glitch_epoch"]
+    # the fit passes the model's glitches: glitch_epochs() reads them from the model
+    from timingkit.model import TimingModel
+    from timingkit.pipeline.fit_run import glitch_epochs
+    model = TimingModel.from_text('name = "demo-one"\n[position]\nra = "05h00m00s"\ndec = "+10d00m00s"\n[spin]\nepoch_mjd = "59000"\n'
+                                  'frequency_hz = "10.0"\n[[glitch]]\nepoch_mjd = "59100.5"\n'
+                                  'frequency_step_hz = 1e-7\n')
+    assert glitch_epochs(model) == [59100.5]
+
+
+def test_residuals_against_observing_frequency(tmp_path):
+    table = make_table(n=24)
+    figure = plotting.plot_residuals_vs_frequency(table, tmp_path / "f.png", frequency_hz=29.9)
+    ax = panels(figure)[0]
+    xs = np.concatenate([c.lines[0].get_xdata() for c in ax.containers])
+    finite = np.isfinite(table.freq_mhz)
+    assert np.allclose(np.sort(xs), np.sort(table.freq_mhz[finite]))
+    assert "observing frequency (MHz)" == ax.get_xlabel() and ax.get_xscale() == "log"
+    [note] = [t for t in figure.texts if t.get_gid() == "residual_note"]
+    assert note.get_text().startswith(f"{int(np.sum(~finite))} TOA(s) at infinite frequency")
+    check_png(tmp_path / "f.png", 800, 480)
+
+
+def test_large_data_sets_are_drawn_as_density(monkeypatch):
+    monkeypatch.setattr(plotting, "LARGE_TOAS", 30)
+    table = make_table(n=200)
+    ax = panels(plotting.plot_residuals(table, color_by="backend"))[0]
+    assert not ax.containers                      # no per-point error bars
+    [image] = [im for im in ax.images if im.get_gid() == "residual_density"]
+    rgba = image.get_array()
+    assert rgba.shape[-1] == 4 and np.count_nonzero(rgba[..., 3]) > 0
+    [stats] = [t for t in ax.texts if t.get_gid() == "residual_stats"]
+    assert "error bars not drawn" in stats.get_text()
 
 
 # --------------------------------------------------------------------------- other x axes
@@ -369,7 +476,7 @@ def test_ppdot_skips_nonpositive_pdot_with_note():
     assert "demo-mid" not in text
     [caution] = [t for t in figure.texts if t.get_gid() == "assumptions_note"]
     assert "dipole" in caution.get_text() and "braking index 3" in caution.get_text()
-    annotated = {t.get_text() for t in ax.texts if t.get_gid() is None}
+    annotated = {t.get_text() for t in ax.texts if t.get_gid() == "source_label"}
     assert annotated == {"demo-mid"}
 
 
@@ -451,3 +558,80 @@ def test_power_spectrum_log_axes_model_and_left_out_points():
     assert "1/yr" in ax.get_xlabel()
     plain = plotting.plot_power_spectrum(freqs[:2], power[:2]).axes[0]
     assert not [ln for ln in plain.lines if ln.get_gid() == "model_power"]
+
+
+def test_glitch_figure_units_error_bars_and_labelled_candidates():
+    # As the glitch search draws it: offsets from the fitted spin-down (reference 0),
+    # residuals of hundreds of ms, frequency derivatives near -1e-13 Hz/s.
+    inputs = glitch_inputs()
+    inputs["residual_us"] = np.linspace(-2e5, 4e5, 20)
+    inputs["track_freq_hz"] = inputs["track_freq_hz"] - 29.9
+    inputs["track_fdot"] = -1e-13 + np.linspace(0, 3e-16, 7)
+    figure = plotting.plot_glitch_search(**inputs, frequency_reference_hz=0.0,
+                                         offset_name="frequency − fitted spin-down")
+    figure.canvas.draw()
+    top, middle, bottom = figure.axes
+    assert "(ms)" in top.get_ylabel()
+    for ax in (top, middle, bottom):
+        assert ax.yaxis.get_offset_text().get_text() == ""
+        assert not any("e" in t.get_text() for t in ax.get_yticklabels())
+    assert "10⁻¹⁵ Hz/s" in bottom.get_ylabel()
+    # no "reference = 0 Hz"; the axis says what the offsets are relative to
+    assert not [t for t in middle.texts if t.get_gid() == "frequency_reference"]
+    assert middle.get_ylabel() == "frequency − fitted spin-down (nHz)"
+    # 1-sigma error bars on the frequency track, in the axis unit (2e-9 Hz = 2 nHz)
+    [track] = middle.containers
+    assert track.has_yerr
+    segments = track.lines[2][0].get_segments()
+    assert np.allclose([seg[1][1] - seg[0][1] for seg in segments], 4.0)
+    # each candidate line is labelled with its number and epoch, above the top panel
+    labels = [t for t in top.texts if t.get_gid() == "candidate_label"]
+    assert [t.get_text() for t in labels] == ["candidate 1\nMJD 59300.0", "candidate 2\nMJD 59450.5"]
+    area = top.get_window_extent()
+    assert all(t.get_window_extent().y0 >= area.y1 - 1 for t in labels)
+
+
+@pytest.mark.parametrize("low, high", [(0.14, 1.2), (0.23, 7.1), (0.05, 40.0), (0.3, 0.9),
+                                       (1.0, 300.0)])
+def test_power_spectrum_tick_labels_do_not_collide(low, high):
+    from timingkit.outputs.figure_basics import overlapping_pairs
+    freqs = np.geomspace(low, high, 25)
+    figure = plotting.plot_power_spectrum(freqs, 1e3 * freqs ** -3.5 + 0.05,
+                                          1e3 * freqs ** -3.5 + 0.05)
+    figure.canvas.draw()
+    renderer = figure.canvas.get_renderer()
+    ax = figure.axes[0]
+    for axis in (ax.xaxis, ax.yaxis):
+        shown = [t for t in axis.get_ticklabels(which="both") if t.get_visible() and t.get_text()]
+        ticks = axis.get_majorticklocs()
+        lo, hi = sorted(axis.get_view_interval())
+        assert sum(lo <= v <= hi for v in ticks) >= 2          # at least two labelled ticks
+        boxes = [t.get_window_extent(renderer) for t in shown]
+        assert overlapping_pairs(boxes) == [], [t.get_text() for t in shown]
+
+
+def test_ppdot_labels_do_not_overlap():
+    from timingkit.outputs.figure_basics import overlapping_pairs
+    rng = np.random.default_rng(11)
+    p = np.r_[rng.uniform(0.1, 0.2, 12), rng.uniform(0.002, 0.004, 8), [0.5, 0.51, 1.2]]
+    pdot = np.r_[10 ** rng.uniform(-15, -14.5, 12), 10 ** rng.uniform(-20, -19.8, 8),
+                 [1e-15, 1.05e-15, 4e-14]]
+    names = [f"demo-src-{i:02d}" for i in range(len(p))]
+    figure = plotting.plot_ppdot(p, pdot, names)
+    figure.canvas.draw()
+    renderer = figure.canvas.get_renderer()
+    ax = figure.axes[0]
+    from matplotlib.text import Text
+    labels = [t for t in ax.texts if t.get_gid() == "source_label"]
+    lines = [t for t in ax.texts if (t.get_gid() or "").endswith("_label") and t not in labels]
+    assert len(lines) > 5
+    boxes = [Text.get_window_extent(t, renderer) for t in labels + lines]
+    assert overlapping_pairs(boxes) == []
+    # every source is labelled, or named in the note
+    unlabelled = [t for t in figure.texts if t.get_gid() == "unlabelled_sources_note"]
+    shown = {t.get_text() for t in labels}
+    assert shown == set(names) or unlabelled
+    assert len(shown) >= 15
+    area = ax.get_window_extent(renderer)
+    assert all(area.x0 <= b.x0 and b.x1 <= area.x1 and area.y0 <= b.y0 and b.y1 <= area.y1
+               for b in boxes[:len(labels)])

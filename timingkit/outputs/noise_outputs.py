@@ -119,15 +119,18 @@ def residual_power_spectrum(result: FitResult, count: int | None = None):
 
 
 def add_red_noise_curve(figure, mjd: np.ndarray, red_us: np.ndarray) -> None:
-    """Draw the ML red-noise realisation (µs) on the post-fit residual panel."""
-    panels = [ax for ax in figure.axes if ax.get_ylabel() == "residual (µs)"]
+    """Draw the ML red-noise realisation (µs) on the post-fit residual panel, in that
+    panel's unit, and name it in the figure's key."""
+    from timingkit.outputs.plotting import add_key_entry
+    panels = [ax for ax in figure.axes if hasattr(ax, "residual_us_per_unit")]
     if not panels:
         return
     ax = panels[-1]
     order = np.argsort(mjd)
-    ax.plot(np.asarray(mjd)[order], np.asarray(red_us)[order], color="C3", linewidth=1.2,
-            zorder=3, label="ML red-noise realisation", gid="red_noise_realisation")
-    ax.legend(fontsize=8, loc="lower right")
+    (line,) = ax.plot(np.asarray(mjd)[order], np.asarray(red_us)[order] / ax.residual_us_per_unit,
+                      color="C3", linewidth=1.2, zorder=3, label="ML red-noise realisation",
+                      gid="red_noise_realisation")
+    add_key_entry(figure, line, "ML red-noise realisation")
 
 
 def write_noise_figures(result: FitResult, obs, outdir: str, residual_figure=None,

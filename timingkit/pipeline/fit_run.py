@@ -93,6 +93,7 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
                              title=f"{report['source']}: {report['toas']} TOAs"
                              + ("" if report["converged"] else f" ({NOT_CONVERGED_MARK})"),
                              frequency_hz=result.model.spin.frequency.value,
+                             glitch_epochs_mjd=glitch_epochs(result.model),
                              path=None if red else path)
         if red:   # ML red-noise curve on the post-fit panel, and power_spectrum.png
             from timingkit.outputs.noise_outputs import write_noise_figures
@@ -102,13 +103,25 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
     write_json(os.path.join(outdir, "report.json"), report)
 
 
+def glitch_epochs(model) -> list[float]:
+    """MJDs of the model's glitches (for marking them on residual plots)."""
+    from timingkit.model.glitch import model_glitches
+    return [g.epoch_mjd for g in model_glitches(model)]
+
+
 def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color_by: str):
-    """residuals_day_of_year.png always; residuals_orbital_phase.png with a binary."""
-    from timingkit.outputs.plotting import plot_residuals_vs_day_of_year, plot_residuals_vs_orbital_phase
+    """residuals_day_of_year.png and residuals_frequency.png always;
+    residuals_orbital_phase.png with a binary."""
+    from timingkit.outputs.plotting import (plot_residuals_vs_day_of_year,
+                                            plot_residuals_vs_frequency,
+                                            plot_residuals_vs_orbital_phase)
     common = dict(color_by=color_by, frequency_hz=result.model.spin.frequency.value)
     plot_residuals_vs_day_of_year(post, os.path.join(outdir, "residuals_day_of_year.png"),
                                   title=f"{report['source']}: post-fit residuals by day of year",
                                   **common)
+    plot_residuals_vs_frequency(post, os.path.join(outdir, "residuals_frequency.png"),
+                                title=f"{report['source']}: post-fit residuals by observing "
+                                      "frequency", **common)
     phase = post.orbital_phase
     if phase is not None:
         plot_residuals_vs_orbital_phase(
@@ -164,6 +177,7 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
         from timingkit.outputs.plotting import plot_residuals
         plot_residuals(table, color_by=color_by, title=f"{inputs.model.name}: model residuals",
                        frequency_hz=inputs.model.spin.frequency.value,
+                       glitch_epochs_mjd=glitch_epochs(inputs.model),
                        path=os.path.join(outdir, "residuals.png"))
     write_json(os.path.join(outdir, "report.json"), stats)
     return stats

@@ -58,7 +58,7 @@ def write_glitch_figure(result: GlitchSearchResult, path: str, title: str | None
         result.residual_mjd, result.residual_us, result.residual_err_us, track.mjd,
         track.frequency_offset_hz, track.frequency_err_hz, track.frequency_derivative,
         track.frequency_derivative_err, [float(c.epoch_mjd) for c in result.candidates],
-        path=path, frequency_reference_hz=0.0,
+        path=path, frequency_reference_hz=0.0, offset_name="frequency − fitted spin-down",
         title=title or "glitch search: frequency relative to the fitted spin-down (no glitch terms)")
 
 
