@@ -9,6 +9,7 @@ import argparse
 import csv
 import hashlib
 import json
+import tomllib
 import os
 import shutil
 import signal
@@ -31,11 +32,16 @@ TESTS = Path(__file__).resolve().parent
 sys.path.insert(0, str(ROOT / "scripts"))  # also seen by the spawned worker processes
 import bench_batch  # noqa: E402  (simulated source trees)
 
-# The summary columns named in issue 6, in its order.
-ISSUE_COLUMNS = ["source", "status", "toas", "reduced_chi2", "rms_us", "frequency_hz",
-                 "frequency_derivative", "period_s", "period_derivative", "characteristic_age_yr",
-                 "surface_dipole_field_gauss", "spin_down_luminosity_erg_per_s",
-                 "glitch_candidates", "message"]
+# The summary columns named in issue 6, with the span, epoch, DM, orbital period and
+# uncertainties that issue 14 added, in their order.
+ISSUE_COLUMNS = ["source", "status", "toas", "first_mjd", "last_mjd", "span_days",
+                 "reduced_chi2", "rms_us", "spin_epoch_mjd", "frequency_hz",
+                 "frequency_hz_uncertainty", "frequency_derivative",
+                 "frequency_derivative_uncertainty", "dm", "dm_uncertainty",
+                 "orbital_period_days", "orbital_period_days_uncertainty", "period_s",
+                 "period_s_uncertainty", "period_derivative", "period_derivative_uncertainty",
+                 "characteristic_age_yr", "surface_dipole_field_gauss",
+                 "spin_down_luminosity_erg_per_s", "glitch_candidates", "message"]
 FIT_OUTPUTS = {"fitted.toml", "residuals.csv", "residuals.png", "report.json", "inputs.sha256"}
 TOAS_PER_SOURCE = 120
 BROKEN_INDEX = 6
@@ -158,6 +164,16 @@ def test_nine_succeed_and_the_broken_one_is_reported(pool_run, ten_sources):
         assert abs(float(row["period_derivative"]) - pdot_true) < 5 * pdot_sigma
         assert 0.5 < float(row["reduced_chi2"]) < 1.6 and float(row["rms_us"]) < 10
         assert float(row["characteristic_age_yr"]) > 0
+        # uncertainties, DM, epoch and span travel too (DM and epoch as exact decimals)
+        assert float(row["frequency_hz_uncertainty"]) == f_sigma
+        assert float(row["period_derivative_uncertainty"]) == pdot_sigma
+        assert row["dm"] == str(report["parameters"]["dispersion.dm"]["value"])
+        fitted = tomllib.loads((outdir / row["source"] / "fitted.toml").read_text())
+        assert row["spin_epoch_mjd"] == str(fitted["spin"]["epoch_mjd"])
+        first, last = report["span_mjd"]
+        assert (float(row["first_mjd"]), float(row["last_mjd"])) == (first, last)
+        assert float(row["span_days"]) == pytest.approx(last - first, rel=1e-12)
+        assert row["orbital_period_days"] == ""          # no binaries in this batch
 
 
 def test_summary_json_matches_csv_and_states_cautions(pool_run):
@@ -207,8 +223,9 @@ def test_overview_renders_in_headless_chromium(pool_run, tmp_path):
     _, outdir = pool_run
     probe = chromium_probe(outdir / "overview.html", tmp_path, sort_column="rms_us")
     assert probe["rows"] == [f"demo-batch-{i:03d}" for i in range(10)]
-    # the P-Pdot diagram and the nine residual plots, every one decoded
-    assert probe["images"] == 10 and probe["decoded"] == 10
+    # the P-Pdot diagram and every figure of the nine fitted sources (residuals, by day
+    # of year, by observing frequency), every one decoded
+    assert probe["images"] == 1 + 9 * 3 and probe["decoded"] == 1 + 9 * 3
     rms = {r["source"]: float(r["rms_us"]) for r in _read_csv(outdir / "summary.csv")
            if r["rms_us"]}
     assert probe["ascending"][:9] == sorted(rms, key=rms.get)

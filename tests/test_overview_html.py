@@ -41,7 +41,9 @@ window.addEventListener('load', function () {
                 decoded: images.filter(function (i) { return i.complete && i.naturalWidth > 0; }).length,
                 external: performance.getEntriesByType('resource').map(function (e) { return e.name; })};
   var headers = Array.prototype.slice.call(document.querySelectorAll('#summary thead th'));
-  var column = headers.findIndex(function (h) { return h.textContent.trim() === '%(column)s'; });
+  var column = headers.findIndex(function (h) {
+    return h.getAttribute('data-column') === '%(column)s' || h.textContent.trim() === '%(column)s';
+  });
   headers[column].querySelector('button').click();
   result.ascending = rows();
   result.aria = headers[column].getAttribute('aria-sort');
@@ -173,3 +175,83 @@ def test_page_renders_and_sorts_in_headless_chromium(page_inputs, tmp_path):
 
     pixels = imread(shot)
     assert pixels.shape[0] == 1600 and np.std(pixels[..., :3]) > 0.05  # something was drawn
+
+
+def _fake_batch(tmp_path, count, figures=("residuals.png", "residuals_day_of_year.png")):
+    """A batch folder of ``count`` fitted sources whose figures are small PNGs."""
+    from timingkit.batch.outcomes import BatchResult, SourceOutcome
+    from timingkit.batch.summary import SUMMARY_COLUMNS
+    outdir = tmp_path / "batch"
+    rows, outcomes = [], []
+    for i in range(count):
+        name = f"demo-src-{i:04d}"
+        (outdir / name).mkdir(parents=True)
+        for k, file in enumerate(figures):
+            _png(outdir / name / file, f"C{k}")
+        row = dict.fromkeys(SUMMARY_COLUMNS)
+        row.update(source=name, status="ok", toas=100, rms_us=1.5 + i, message="",
+                   frequency_hz="29.946923012345678901", frequency_hz_uncertainty=1.234e-10,
+                   dm="56.7012", dm_uncertainty=0.0034, period_s=0.0333924 + 1e-4 * i,
+                   period_derivative=4.2e-13)
+        rows.append(row)
+        outcomes.append(SourceOutcome(name, "ok", ""))
+    return outdir, BatchResult(outdir, outcomes, rows, "test", 0.0)
+
+
+def test_headers_are_human_with_units_and_uncertainties_shown():
+    from timingkit.batch.summary import COLUMN_HEADERS, PAGE_COLUMNS, PAGE_UNCERTAINTIES
+    row = {"source": "demo-young", "status": "ok", "rms_us": 2.5, "dm": "56.7012",
+           "dm_uncertainty": 0.0034, "frequency_hz": "29.946923012345678901",
+           "frequency_hz_uncertainty": 1.234e-10}
+    text = render_overview_html([row], PAGE_COLUMNS, headers=COLUMN_HEADERS,
+                                uncertainties=PAGE_UNCERTAINTIES)
+    head = text.split("<thead>")[1].split("</thead>")[0]
+    for header in ("RMS residual (µs)", "DM (pc cm⁻³)", "Spin frequency (Hz)",
+                   "Reduced χ²", "Span (days)", "Orbital period (days)"):
+        assert f">{header}</button>" in head
+    assert "rms_us" not in re.sub(r'data-column="[^"]*"', "", head)
+    assert "_uncertainty" not in head                 # folded into the value's cell
+    # value rounded to two significant digits of its uncertainty (0.0034 -> 4 decimals)
+    assert ">56.7012 ± 0.0034<" in text
+    assert ">29.94692301235 ± 0.00000000012<" in text
+
+
+def test_every_figure_of_a_source_is_on_the_page(tmp_path):
+    figures = {"demo-binary": [("residuals", _png(tmp_path / "r.png", "C0")),
+                               ("residuals by orbital phase", _png(tmp_path / "o.png", "C1")),
+                               ("glitch search", _png(tmp_path / "g.png", "C2"))]}
+    rows = [{"source": "demo-binary", "status": "ok"}]
+    text = render_overview_html(rows, ("source", "status"), figures=figures)
+    sources = re.findall(r'src="(data:image/png;base64,[^"]*)"', text)
+    decoded = [base64.b64decode(s.split(",", 1)[1]) for s in sources]
+    assert decoded == [p.read_bytes() for _, p in figures["demo-binary"]]
+    assert "<figcaption>residuals by orbital phase</figcaption>" in text
+    assert "<figcaption>glitch search</figcaption>" in text
+
+
+def test_large_batch_gets_linked_thumbnails_and_a_small_page(tmp_path):
+    from PIL import Image
+    from timingkit.batch.summary import write_summaries
+    from timingkit.outputs.overview_page import EMBED_UP_TO_SOURCES
+    count = EMBED_UP_TO_SOURCES + 5
+    outdir, result = _fake_batch(tmp_path, count)
+    files = write_summaries(result, {"timingkit": "test"}, {})
+    text = files["overview_html"].read_text(encoding="utf-8")
+    assert "data:image" not in text                   # nothing embedded
+    links = re.findall(r'<a href="([^"]+)"><img [^>]*src="([^"]+)"></a>', text)
+    assert len(links) == 1 + 2 * count                # P-Pdot and two figures per source
+    for full, thumb in links:
+        assert (outdir / full).exists() and thumb.startswith("thumbnails/")
+        with Image.open(outdir / thumb) as image, Image.open(outdir / full) as original:
+            assert image.format == "PNG" and image.width <= 240
+            assert image.width < original.width or original.width <= 240
+    # a 1,000-source page: about 2 kB per source (the table row and the figure links)
+    rows = result.rows * (1000 // count + 1)
+    page = render_overview_html(
+        rows[:1000], ("source", "status", "rms_us", "frequency_hz", "period_s"),
+        figures={r["source"]: [(lab, outdir / r["source"] / f) for lab, f in
+                               (("residuals", "residuals.png"),
+                                ("residuals by day of year", "residuals_day_of_year.png"))]
+                 for r in rows[:1000]},
+        thumbnail_of=lambda p: (str(p), "thumbnails/x.png"))
+    assert len(page.encode("utf-8")) / 1000 < 3000

@@ -15,7 +15,7 @@ from timingkit.formats.textfile import read_toml_file
 
 
 # A source folder holds exactly one TOA table: a file named ``toas.txt`` or ending ``.toas``.
-TOP_LEVEL_OUTPUTS = ("summary.csv", "summary.json", "ppdot.png", "overview.html")
+TOP_LEVEL_OUTPUTS = ("summary.csv", "summary.json", "ppdot.png", "overview.html", "thumbnails")
 TOA_TABLE_SUFFIX = ".toas"
 
 

@@ -25,11 +25,49 @@ from timingkit.batch.outcomes import (
 
 
 SUMMARY_COLUMNS = (
-    "source", "status", "toas", "reduced_chi2", "rms_us", "frequency_hz",
-    "frequency_derivative", "period_s", "period_derivative", "characteristic_age_yr",
-    "surface_dipole_field_gauss", "spin_down_luminosity_erg_per_s", "glitch_candidates",
-    "message",
+    "source", "status", "toas", "first_mjd", "last_mjd", "span_days", "reduced_chi2",
+    "rms_us", "spin_epoch_mjd", "frequency_hz", "frequency_hz_uncertainty",
+    "frequency_derivative", "frequency_derivative_uncertainty", "dm", "dm_uncertainty",
+    "orbital_period_days", "orbital_period_days_uncertainty", "period_s",
+    "period_s_uncertainty", "period_derivative", "period_derivative_uncertainty",
+    "characteristic_age_yr", "surface_dipole_field_gauss", "spin_down_luminosity_erg_per_s",
+    "glitch_candidates", "message",
 )
+
+# Model parameters in the summary: column -> parameter name in report.json. Values stay
+# the report's exact decimal strings; the uncertainty goes in COLUMN_uncertainty.
+PARAMETER_COLUMNS = {
+    "frequency_hz": "spin.frequency_hz", "frequency_derivative": "spin.frequency_derivatives.0",
+    "dm": "dispersion.dm", "orbital_period_days": "binary.orbital_period_days",
+}
+
+# What the overview page shows in each column header.
+COLUMN_HEADERS = {
+    "source": "Source", "status": "Status", "toas": "TOAs", "first_mjd": "First TOA (MJD)",
+    "last_mjd": "Last TOA (MJD)", "span_days": "Span (days)", "reduced_chi2": "Reduced χ²",
+    "rms_us": "RMS residual (µs)", "spin_epoch_mjd": "Spin epoch (MJD)",
+    "frequency_hz": "Spin frequency (Hz)", "frequency_derivative": "Frequency derivative (Hz/s)",
+    "dm": "DM (pc cm⁻³)", "orbital_period_days": "Orbital period (days)",
+    "period_s": "Period P (s)", "period_derivative": "Period derivative Ṗ (s/s)",
+    "characteristic_age_yr": "Characteristic age (yr)",
+    "surface_dipole_field_gauss": "Surface dipole field (G)",
+    "spin_down_luminosity_erg_per_s": "Spin-down luminosity (erg/s)",
+    "glitch_candidates": "Glitch candidates", "message": "Notes",
+}
+
+# The page folds each uncertainty into its value's cell ("value ± σ").
+PAGE_COLUMNS = tuple(c for c in SUMMARY_COLUMNS if not c.endswith("_uncertainty"))
+PAGE_UNCERTAINTIES = {c[:-len("_uncertainty")]: c for c in SUMMARY_COLUMNS
+                      if c.endswith("_uncertainty")}
+
+# A source's figures, in the order the page shows them (those present are shown).
+SOURCE_FIGURES = (("residuals", "residuals.png"),
+                  ("residuals by day of year", "residuals_day_of_year.png"),
+                  ("residuals by observing frequency", "residuals_frequency.png"),
+                  ("residuals by orbital phase", "residuals_orbital_phase.png"),
+                  ("glitch search", "glitch_search.png"),
+                  ("power spectrum", "power_spectrum.png"))
+THUMBNAIL_FOLDER = "thumbnails"
 
 
 DERIVED_COLUMNS = ("period_s", "period_derivative", "characteristic_age_yr",
@@ -39,9 +77,6 @@ DERIVED_COLUMNS = ("period_s", "period_derivative", "characteristic_age_yr",
 REPORT_FILE = "report.json"
 
 
-RESIDUAL_PLOT_FILE = "residuals.png"
-
-
 GLITCH_FILE = "glitches.json"
 
 
@@ -49,6 +84,21 @@ GLITCH_FILE = "glitches.json"
 
 def _value(entry: Any) -> Any:
     return entry.get("value") if isinstance(entry, dict) else None
+
+
+def _uncertainty(entry: Any) -> Any:
+    return entry.get("uncertainty") if isinstance(entry, dict) else None
+
+
+def _spin_epoch(folder: Path) -> str | None:
+    """The fitted model's spin epoch (MJD, the exact decimal string)."""
+    import tomllib
+    try:
+        with open(folder / "fitted.toml", "rb") as fh:
+            value = tomllib.load(fh).get("spin", {}).get("epoch_mjd")
+    except (OSError, ValueError):
+        return None
+    return None if value is None else str(value)
 
 
 def _glitch_candidates(report: dict, folder: Path) -> int | None:
@@ -95,15 +145,21 @@ def summary_row(folder: Path, outcome: SourceOutcome, report: dict | None) -> di
         outcome.status = row["status"] = STATUS_NOT_CONVERGED
     parameters = report.get("parameters", {})
     derived = report.get("derived", {})
+    span = report.get("span_mjd") or [None, None]
     row.update(
         toas=report.get("toas"), reduced_chi2=report.get("reduced_chi2"),
-        rms_us=report.get("rms_us"),
-        frequency_hz=_value(parameters.get("spin.frequency_hz")),
-        frequency_derivative=_value(parameters.get("spin.frequency_derivatives.0")),
+        rms_us=report.get("rms_us"), first_mjd=span[0], last_mjd=span[-1],
+        span_days=(span[-1] - span[0]) if None not in (span[0], span[-1]) else None,
+        spin_epoch_mjd=_spin_epoch(folder),
         glitch_candidates=_glitch_candidates(report, folder),
     )
+    for column, name in PARAMETER_COLUMNS.items():
+        row[column] = _value(parameters.get(name))
+        row[f"{column}_uncertainty"] = _uncertainty(parameters.get(name))
     for key in DERIVED_COLUMNS:
         row[key] = _value(derived.get(key))
+        if f"{key}_uncertainty" in row:
+            row[f"{key}_uncertainty"] = _uncertainty(derived.get(key))
     notes = (["reused: inputs unchanged since the last successful run"] if outcome.reused else [])
     notes += [str(w) for w in report.get("warnings", [])]
     row["message"] = one_line("; ".join(notes)) if notes else ""
@@ -125,11 +181,27 @@ def _as_float(value: Any) -> float:
         return float("nan")
 
 
+def _thumbnail_maker(outdir: Path):
+    """path -> (link to the full figure, thumbnail), relative to OUTDIR; the thumbnail
+    is written to OUTDIR/thumbnails/ (kept when the figure is older than it)."""
+    from timingkit.outputs.overview_page import make_thumbnail
+
+    def thumbnail_of(path):
+        path = Path(path)
+        relative = path.relative_to(outdir)
+        thumb = outdir / THUMBNAIL_FOLDER / ("--".join(relative.parts))
+        if not thumb.exists() or thumb.stat().st_mtime < path.stat().st_mtime:
+            make_thumbnail(path, thumb)
+        return relative.as_posix(), thumb.relative_to(outdir).as_posix()
+
+    return thumbnail_of
+
+
 def write_summaries(result: BatchResult, software: dict[str, str],
                     notes: dict[str, dict[str, list[str]]]) -> dict[str, Path]:
     """Write summary.csv, summary.json, ppdot.png and overview.html atomically.
     ``notes``: source -> {"warnings": [...], "cautions": [...]} from its report."""
-    from timingkit.outputs.overview_page import write_overview_html
+    from timingkit.outputs.overview_page import EMBED_UP_TO_SOURCES, write_overview_html
     from timingkit.outputs.plotting import plot_ppdot
 
     outdir = result.outdir
@@ -164,10 +236,15 @@ def write_summaries(result: BatchResult, software: dict[str, str],
                [_as_float(r["period_derivative"]) for r in fitted],
                [r["source"] for r in fitted], files["ppdot_png"],
                title=f"P-Pdot diagram of {len(fitted)} fitted source(s)")
-    residual_plots = {o.name: outdir / o.name / RESIDUAL_PLOT_FILE for o in result.outcomes}
+    figures = {o.name: [(label, outdir / o.name / file) for label, file in SOURCE_FIGURES
+                        if (outdir / o.name / file).exists()] for o in result.outcomes}
+    thumbnail_of = None
+    if len(result.rows) > EMBED_UP_TO_SOURCES:
+        thumbnail_of = _thumbnail_maker(outdir)
     write_overview_html(
-        files["overview_html"], result.rows, SUMMARY_COLUMNS,
-        ppdot_png=files["ppdot_png"], residual_plots=residual_plots,
+        files["overview_html"], result.rows, PAGE_COLUMNS, headers=COLUMN_HEADERS,
+        uncertainties=PAGE_UNCERTAINTIES, thumbnail_of=thumbnail_of,
+        ppdot_png=files["ppdot_png"], figures=figures,
         warnings={name: n["warnings"] for name, n in notes.items()},
         source_cautions={name: n["cautions"] for name, n in notes.items()},
         cautions=[DERIVED_ASSUMPTIONS],

@@ -1,10 +1,14 @@
-"""A single self-contained HTML page summarising a batch: sortable table, P–Pdot
-diagram and each source's residual plot.
+"""The HTML overview of a batch: sortable table (human headers with units), P–Pdot
+diagram and every figure of each source (residuals, day of year, observing frequency,
+orbital phase, glitch search, power spectrum).
 
-Images are embedded as base64 ``data:`` URIs and the sorting script and style
-are inline, so the page opens offline in any browser and can be mailed as one
-file. Nothing is fetched from the network. Written by hand (a few lines of
-HTML and JavaScript) because no well-kept library we depend on produces it.
+For a small batch the images are embedded as base64 ``data:`` URIs: the page is one
+self-contained file that opens offline in any browser and can be mailed. For a large
+batch (more than :data:`EMBED_UP_TO_SOURCES` sources) each figure is a small thumbnail
+file (``thumbnails/``) linking to the full figure in the source's folder, so a page of
+1,000 sources stays small; it is then opened from the batch folder. The sorting script
+and style are inline; nothing is fetched from the network. Written by hand (a few lines
+of HTML and JavaScript) because no well-kept library we depend on produces it.
 """
 
 from __future__ import annotations
@@ -16,6 +20,9 @@ from pathlib import Path
 from typing import Any, Mapping, Sequence
 
 from timingkit.outputs.residual_table import atomic_output
+
+EMBED_UP_TO_SOURCES = 20      # larger batches get linked thumbnails instead of embedded figures
+THUMBNAIL_WIDTH_PX = 240
 
 # Significant digits shown in the table (the full value is kept for sorting and
 # is in summary.csv); the spin frequency is shown with every digit.
@@ -40,6 +47,9 @@ tr.failed td { background: #fde8e8; }
 .note, .caution { font-size: 0.85em; color: #555; max-width: 60em; }
 .caution { color: #7a4b00; }
 figure { margin: 1em 0; } figure img { max-width: 100%; height: auto; border: 1px solid #ddd; }
+.figures { display: flex; flex-wrap: wrap; gap: 0.6em; }
+.figures figure { margin: 0.3em 0; } .figures figcaption { font-size: 0.8em; color: #555; }
+.thumbs figure img { width: 240px; }
 section.source { border-top: 1px solid #ddd; }
 """
 
@@ -117,14 +127,40 @@ def _display(value: Any, column: str) -> tuple[str, str, bool]:
     return shown, str(value) if isinstance(value, str) else repr(value), True
 
 
-def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> str:
-    head = "".join(f'<th scope="col"><button type="button">{html.escape(c)}</button></th>'
-                   for c in columns)
+def _with_uncertainty(shown: str, value: Any, sigma: Any) -> str:
+    """``value ± sigma`` with the value rounded to the digits the uncertainty supports
+    (two significant digits of sigma; decimal strings are rounded exactly); the value
+    alone when there is no uncertainty."""
+    from decimal import Decimal, InvalidOperation
+    error = _number(sigma)
+    if _number(value) is None or error is None or not (math.isfinite(error) and error > 0):
+        return shown
+    exponent = math.floor(math.log10(error)) - 1          # last digit of two of sigma
+    try:
+        exact = Decimal(str(value))
+    except InvalidOperation:
+        return shown
+    step = Decimal(1).scaleb(exponent)
+    rounded_value = exact.quantize(step) if exponent < 0 else (exact / step).quantize(1) * step
+    rounded_error = Decimal(repr(error)).quantize(step) if exponent < 0 else \
+        (Decimal(repr(error)) / step).quantize(1) * step
+    return f"{rounded_value:f} ± {rounded_error:f}"
+
+
+def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str],
+           headers: Mapping[str, str] | None = None,
+           uncertainties: Mapping[str, str] | None = None) -> str:
+    headers = headers or {}
+    uncertainties = uncertainties or {}
+    head = "".join(f'<th scope="col" data-column="{html.escape(c)}"><button type="button">'
+                   f'{html.escape(headers.get(c, c))}</button></th>' for c in columns)
     body = []
     for index, row in enumerate(rows):
         cells = []
         for column in columns:
             shown, sort_value, numeric = _display(row.get(column), column)
+            if column in uncertainties and numeric:
+                shown = _with_uncertainty(shown, row.get(column), row.get(uncertainties[column]))
             css = ' class="text wrap"' if column in WRAPPED_COLUMNS else (
                 "" if numeric else ' class="text"')
             cell = html.escape(shown)
@@ -137,20 +173,49 @@ def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str]) -> str:
             + "</tr></thead>\n<tbody>\n" + "\n".join(body) + "\n</tbody>\n</table></div>")
 
 
+def _figure_html(label: str, path, name: str, linked: bool, thumbnail_of) -> str | None:
+    """One figure: embedded (``data:`` URI), or a thumbnail linking to the full file."""
+    alt = html.escape(f"{label} of {name}")
+    if not linked:
+        uri = png_data_uri(path)
+        if uri is None:
+            return None
+        return (f'<figure><img class="{html.escape(label.split()[0])}" alt="{alt}" '
+                f'src="{uri}"><figcaption>{html.escape(label)}</figcaption></figure>')
+    if not Path(path).exists():
+        return None
+    full, thumb = thumbnail_of(path)
+    return (f'<figure><a href="{html.escape(full)}"><img alt="{alt}" loading="lazy" '
+            f'src="{html.escape(thumb)}"></a><figcaption>{html.escape(label)}</figcaption>'
+            "</figure>")
+
+
 def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[str], *,
                          ppdot_png=None, residual_plots: Mapping[str, Any] | None = None,
+                         figures: Mapping[str, Sequence[tuple[str, Any]]] | None = None,
+                         headers: Mapping[str, str] | None = None,
+                         uncertainties: Mapping[str, str] | None = None,
+                         thumbnail_of=None,
                          warnings: Mapping[str, Sequence[str]] | None = None,
                          source_cautions: Mapping[str, Sequence[str]] | None = None,
                          cautions: Sequence[str] = (), note: str = "",
                          title: str = "timingkit batch overview") -> str:
     """The page as a string. ``rows`` are dicts keyed by ``columns`` (one per
-    source, ``source`` and ``status`` among them); ``residual_plots`` maps a
-    source name to its PNG path; ``warnings`` and ``source_cautions`` map a
-    source to its report's warnings and cautions (shown in its section);
-    ``cautions`` apply to every source and are shown under the table."""
-    residual_plots = residual_plots or {}
+    source, ``source`` and ``status`` among them), shown under ``headers``
+    (column -> text, e.g. "RMS residual (µs)"); ``uncertainties`` maps a column to
+    the column of its 1σ uncertainty, shown as "value ± σ". ``figures`` maps a
+    source to its (label, PNG path) figures (``residual_plots``: source -> the
+    residual plot alone). With ``thumbnail_of`` (path -> (link to the full figure,
+    thumbnail), both relative to the page) figures are linked thumbnails, else
+    embedded. ``warnings`` and ``source_cautions`` map a source to its report's
+    warnings and cautions (shown in its section); ``cautions`` apply to every
+    source and are shown under the table."""
+    figures = dict(figures or {})
+    for name, path in (residual_plots or {}).items():
+        figures.setdefault(name, [("residuals", path)] if path else [])
     warnings = warnings or {}
     source_cautions = source_cautions or {}
+    linked = thumbnail_of is not None
     parts = [
         "<!DOCTYPE html>", '<html lang="en">', "<head>", '<meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
@@ -159,17 +224,18 @@ def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[st
     ]
     if note:
         parts.append(f'<p class="note">{html.escape(note)}</p>')
-    parts.append('<p class="note">Click a column header to sort; click again to reverse.</p>')
-    parts.append(_table(rows, columns))
+    parts.append('<p class="note">Click a column header to sort; click again to reverse.'
+                 + (" Click a thumbnail for the full figure." if linked else "") + "</p>")
+    parts.append(_table(rows, columns, headers, uncertainties))
     parts += [f'<p class="caution">Caution: {html.escape(c)}</p>' for c in cautions]
     parts.append("<h2>P&ndash;Pdot diagram</h2>")
-    ppdot = png_data_uri(ppdot_png) if ppdot_png is not None else None
+    ppdot = _figure_html("P-Pdot diagram", ppdot_png, "the fitted sources", linked,
+                         thumbnail_of) if ppdot_png is not None else None
     if ppdot:
-        parts.append(f'<figure><img id="ppdot" alt="P-Pdot diagram of the fitted sources" '
-                     f'src="{ppdot}"></figure>')
+        parts.append(ppdot.replace("<img ", '<img id="ppdot" ', 1))
     else:
         parts.append('<p class="note">No P&ndash;Pdot diagram was made.</p>')
-    parts.append("<h2>ResidualSet</h2>")
+    parts.append("<h2>Sources</h2>")
     for index, row in enumerate(rows):
         name = str(row.get("source", ""))
         anchor = html.escape(name)
@@ -181,15 +247,32 @@ def render_overview_html(rows: Sequence[Mapping[str, Any]], columns: Sequence[st
             parts.append(f'<p class="caution">Warning: {html.escape(str(warning))}</p>')
         for caution in source_cautions.get(name, ()):
             parts.append(f'<p class="caution">Caution: {html.escape(str(caution))}</p>')
-        uri = png_data_uri(residual_plots[name]) if residual_plots.get(name) else None
-        if uri:
-            parts.append(f'<figure><img class="residuals" '
-                         f'alt="timing residuals of {anchor}" src="{uri}"></figure>')
+        shown = [f for f in (_figure_html(label, path, name, linked, thumbnail_of)
+                             for label, path in figures.get(name, ())) if f]
+        if shown:
+            parts.append(f'<div class="figures{" thumbs" if linked else ""}">' + "".join(shown)
+                         + "</div>")
         elif row.get("status") == "ok":
             parts.append('<p class="note">No residual plot.</p>')
         parts.append("</section>")
     parts += [f"<script>{_SORT_SCRIPT}</script>", "</body>", "</html>", ""]
     return "\n".join(parts)
+
+
+def make_thumbnail(path, thumbnail_path, width_px: int = THUMBNAIL_WIDTH_PX) -> Path:
+    """A PNG ``width_px`` wide of the PNG at ``path`` (block-averaged; matplotlib reads
+    and writes it), written atomically."""
+    import numpy as np
+    from matplotlib import image as mpimg
+    pixels = mpimg.imread(str(path))
+    step = max(1, int(math.ceil(pixels.shape[1] / width_px)))
+    h, w = (pixels.shape[0] // step) * step, (pixels.shape[1] // step) * step
+    small = pixels[:h, :w].reshape(h // step, step, w // step, step, -1).mean(axis=(1, 3))
+    thumbnail_path = Path(thumbnail_path)
+    thumbnail_path.parent.mkdir(parents=True, exist_ok=True)
+    with atomic_output(thumbnail_path, binary=True) as handle:
+        mpimg.imsave(handle, np.clip(small, 0.0, 1.0), format="png")
+    return thumbnail_path
 
 
 def write_overview_html(path, rows, columns, **options) -> Path:
