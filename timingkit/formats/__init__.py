@@ -17,6 +17,7 @@
 - ``orbit_table``: spacecraft orbit tables (:class:`OrbitTable`; text or FITS).
 - ``toa_selection``: rules that choose TOAs (``mjd=58000..58500``, ``err_us>5``, ...).
 - ``exclusion_list``: lists of TOAs left out of a fit (line, exact MJD, reason; rules).
+- ``csv_columns``: whole-column CSV formatting for large tables (exact ``%.Nf``).
 """
 
 from timingkit import lazy_exports
@@ -25,7 +26,8 @@ EXPORTS = {
     "InputError": "errors", "FitError": "errors", "ToaTable": "toa_table", "read_toa_table":
     "toa_reader", "write_toa_table": "toa_writer", "read_model_document": "model_file",
     "Site": "site_file", "load_site_file": "site_file", "ClockTable": "clock_table",
-    "read_clock_table": "clock_table", "read_predictor_file": "predictor_file",
+    "read_clock_table": "clock_table", "csv_bytes": "csv_columns",
+    "read_predictor_file": "predictor_file",
     "write_predictor_file": "predictor_file", "ProfileSet": "profile_file",
     "read_profile_file": "profile_file", "write_profile_file": "profile_file",
     "read_text_file": "textfile", "read_toml_file": "textfile", "EventList": "event_list",
