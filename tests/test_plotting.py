@@ -11,7 +11,6 @@ import matplotlib.colors as mcolors
 import numpy as np
 import pytest
 from astropy.time import Time
-from matplotlib import colormaps
 from matplotlib.image import imread
 from PIL import Image
 

@@ -123,13 +123,6 @@ def _draw_key(figure: Figure) -> None:
 
 # --------------------------------------------------------------------------- overlaps
 
-def text_boxes(figure: Figure, texts) -> list:
-    """Display-space bounding boxes of ``texts`` after drawing the figure."""
-    figure.canvas.draw()
-    renderer = figure.canvas.get_renderer()
-    return [t.get_window_extent(renderer) for t in texts]
-
-
 def boxes_overlap(a, b, pad_px: float = 0.0) -> bool:
     """True when two boxes overlap by more than ``pad_px`` in both directions."""
     return (min(a.x1, b.x1) - max(a.x0, b.x0) > pad_px
