@@ -30,7 +30,8 @@ COMMAND_GROUPS = ["fit", "explore", "derive", "simulate", "glitches", "events", 
 COMMAND_GROUP_OF = {
     "fit": "fit", "residuals": "fit", "barycentre": "fit", "barycenter": "fit", "plot": "fit",
     "derive": "derive", "simulate": "simulate", "glitches": "glitches", "batch": "batch",
-    "convert": "convert", "demo": "demo",
+    "convert": "convert", "predict": "predict", "profile-toas": "profiles",
+    "simulate-profiles": "profiles", "demo": "demo",
 }
 
 
