@@ -634,3 +634,20 @@ def test_ppdot_labels_do_not_overlap():
     area = ax.get_window_extent(renderer)
     assert all(area.x0 <= b.x0 and b.x1 <= area.x1 and area.y0 <= b.y0 and b.y1 <= area.y1
                for b in boxes[:len(labels)])
+
+
+def test_plot_command_marks_the_fitted_glitches(tmp_path, monkeypatch):
+    from timingkit.cli.main import main
+    make_table().write_csv(str(tmp_path / "residuals.csv"))
+    (tmp_path / "fitted.toml").write_text('name = "demo-one"\n[[glitch]]\nepoch_mjd = "59123.5"\n')
+    seen = {}
+    real = plotting.plot_residuals
+
+    def spy(*args, **kwargs):
+        seen.update(kwargs)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(plotting, "plot_residuals", spy)
+    assert main(["plot", str(tmp_path)]) == 0
+    assert seen["glitch_epochs_mjd"] == [59123.5]
+    assert (tmp_path / "residuals.png").exists()

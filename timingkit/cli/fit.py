@@ -145,6 +145,17 @@ def cmd_plot(args) -> int:
             freq = None
     out = args.output or os.path.join(args.outdir, "residuals.png")
     plot_residuals(post, prefit=pre, color_by=args.color_by, title=title, frequency_hz=freq,
-                   path=out)
+                   glitch_epochs_mjd=_fitted_glitch_epochs(args.outdir), path=out)
     print(f"wrote {out}")
     return 0
+
+
+def _fitted_glitch_epochs(outdir: str) -> list[float]:
+    """Glitch epochs (MJD) of the folder's fitted.toml, for marking them; none if absent."""
+    import tomllib
+    try:
+        with open(os.path.join(outdir, "fitted.toml"), "rb") as fh:
+            glitches = tomllib.load(fh).get("glitch", [])
+        return [float(g["epoch_mjd"]) for g in glitches]
+    except (OSError, ValueError, KeyError, TypeError):
+        return []
