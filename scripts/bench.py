@@ -193,11 +193,11 @@ def _fit_child(n: int, tmp: str, with_figures: bool = False) -> dict:
     result = dict(sim=sim, fit=fit)
     if with_figures:     # the same fit with its figures (residuals, day of year, frequency)
         result["fit_figures"] = child(f"""
-            t0 = time.perf_counter()
+            started = time.perf_counter()
             from timingkit.pipeline.fit_run import fit_files
             rep = fit_files({toas!r}, {start!r}, {os.path.join(tmp, f'fitfig{n}')!r},
                             make_plots=True)
-            seconds = time.perf_counter() - t0
+            seconds = time.perf_counter() - started
             # the figures alone, drawn again from the written tables (steadier than the
             # difference of two whole runs on a shared machine)
             import os
