@@ -207,12 +207,12 @@ def _fit_child(n: int, tmp: str, with_figures: bool = False) -> dict:
             post = ResidualTable.read_csv(os.path.join(folder, "residuals.csv"))
             pre = ResidualTable.read_csv(os.path.join(folder, "prefit_residuals.csv"))
             t1 = time.perf_counter()
-            plotting.plot_residuals(post, prefit=pre, frequency_hz=287.4,
+            plotting.plot_residuals(post, prefit=pre, frequency_hz=401.7,
                                     path=os.path.join(folder, "again.png"))
             plotting.plot_residuals_vs_day_of_year(post, os.path.join(folder, "again_doy.png"),
-                                                   frequency_hz=287.4)
+                                                   frequency_hz=401.7)
             plotting.plot_residuals_vs_frequency(post, os.path.join(folder, "again_f.png"),
-                                                 frequency_hz=287.4)
+                                                 frequency_hz=401.7)
             out = dict(seconds=seconds, figures_s=time.perf_counter() - t1)
         """)
     return result

@@ -15,7 +15,7 @@ def test_statistics_and_key_lie_outside_the_data_area(color_by):
     # The first and last points sit at the panel edges; nothing may cover them: the
     # statistics line and the colour key are outside every axes' data area.
     post, pre = make_table(n=60), make_table(residual_scale=20.0, n=60)
-    figure = plotting.plot_residuals(post, pre, color_by=color_by, frequency_hz=29.9,
+    figure = plotting.plot_residuals(post, pre, color_by=color_by, frequency_hz=18.47,
                                      title="demo", glitch_epochs_mjd=[59000.0])
     figure.canvas.draw()
     renderer = figure.canvas.get_renderer()
@@ -37,7 +37,7 @@ def test_residual_axis_unit_follows_the_size(scale_us, unit):
     table = ResidualTable.from_columns(
         list(table.mjd_text), table.site, table.freq_mhz, table.err_us * scale_us / 3.0,
         table.residual_us, table.residual_phase, table.pulse_number, {})
-    figure = plotting.plot_residuals(table, frequency_hz=29.9)
+    figure = plotting.plot_residuals(table, frequency_hz=18.47)
     figure.canvas.draw()
     ax = panels(figure)[0]
     assert ax.get_ylabel() == f"residual ({unit})"
@@ -58,7 +58,7 @@ def test_glitch_figure_units_error_bars_and_labelled_candidates():
     # residuals of hundreds of ms, frequency derivatives near -1e-13 Hz/s.
     inputs = glitch_inputs()
     inputs["residual_us"] = np.linspace(-2e5, 4e5, 20)
-    inputs["track_freq_hz"] = inputs["track_freq_hz"] - 29.9
+    inputs["track_freq_hz"] = inputs["track_freq_hz"] - inputs["track_freq_hz"][0]
     inputs["track_fdot"] = -1e-13 + np.linspace(0, 3e-16, 7)
     figure = plotting.plot_glitch_search(**inputs, frequency_reference_hz=0.0,
                                          offset_name="frequency − fitted spin-down")

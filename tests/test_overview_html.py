@@ -190,7 +190,7 @@ def _fake_batch(tmp_path, count, figures=("residuals.png", "residuals_day_of_yea
             _png(outdir / name / file, f"C{k}")
         row = dict.fromkeys(SUMMARY_COLUMNS)
         row.update(source=name, status="ok", toas=100, rms_us=1.5 + i, message="",
-                   frequency_hz="29.946923012345678901", frequency_hz_uncertainty=1.234e-10,
+                   frequency_hz="18.473162904173582641", frequency_hz_uncertainty=1.234e-10,
                    dm="56.7012", dm_uncertainty=0.0034, period_s=0.0333924 + 1e-4 * i,
                    period_derivative=4.2e-13)
         rows.append(row)
@@ -201,7 +201,7 @@ def _fake_batch(tmp_path, count, figures=("residuals.png", "residuals_day_of_yea
 def test_headers_are_human_with_units_and_uncertainties_shown():
     from timingkit.batch.summary import COLUMN_HEADERS, PAGE_COLUMNS, PAGE_UNCERTAINTIES
     row = {"source": "demo-young", "status": "ok", "rms_us": 2.5, "dm": "56.7012",
-           "dm_uncertainty": 0.0034, "frequency_hz": "29.946923012345678901",
+           "dm_uncertainty": 0.0034, "frequency_hz": "18.473162904173582641",
            "frequency_hz_uncertainty": 1.234e-10}
     text = render_overview_html([row], PAGE_COLUMNS, headers=COLUMN_HEADERS,
                                 uncertainties=PAGE_UNCERTAINTIES)
@@ -213,7 +213,7 @@ def test_headers_are_human_with_units_and_uncertainties_shown():
     assert "_uncertainty" not in head                 # folded into the value's cell
     # value rounded to two significant digits of its uncertainty (0.0034 -> 4 decimals)
     assert ">56.7012 ± 0.0034<" in text
-    assert ">29.94692301235 ± 0.00000000012<" in text
+    assert ">18.47316290417 ± 0.00000000012<" in text
 
 
 def test_every_figure_of_a_source_is_on_the_page(tmp_path):

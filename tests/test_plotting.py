@@ -178,10 +178,10 @@ def test_drawn_secondary_axis_matches_us_to_cycles(frequency_hz):
     low_us, high_us = ax.get_ylim()
     assert "µs" in ax.get_ylabel()
     # Secondary axis limits are the primary limits (µs) times 1e-6 * f (cycles), shown
-    # in the power of ten named on the axis (a few µs: 10⁻⁶ cycles at 30 Hz, 10⁻³ at 700 Hz),
+    # in the power of ten named on the axis (a few µs: 10⁻⁶ cycles at 18 Hz, 10⁻³ at 700 Hz),
     # so that the tick labels are plain numbers between 0.01 and 1000.
     factor = secondary.cycles_factor
-    expected = {29.9: (1e6, "10⁻⁶ pulse cycles"), 716.35: (1e3, "10⁻³ pulse cycles")}
+    expected = {18.47: (1e6, "10⁻⁶ pulse cycles"), 700.0: (1e3, "10⁻³ pulse cycles")}
     assert (factor, secondary.get_ylabel()) == (expected[frequency_hz][0],
                                                 f"residual ({expected[frequency_hz][1]})")
     assert np.allclose(secondary.get_ylim(),
@@ -302,7 +302,7 @@ def test_glitch_epochs_of_the_model_are_marked():
 
 def test_residuals_against_observing_frequency(tmp_path):
     table = make_table(n=24)
-    figure = plotting.plot_residuals_vs_frequency(table, tmp_path / "f.png", frequency_hz=29.9)
+    figure = plotting.plot_residuals_vs_frequency(table, tmp_path / "f.png", frequency_hz=18.47)
     ax = panels(figure)[0]
     xs = np.concatenate([c.lines[0].get_xdata() for c in ax.containers])
     finite = np.isfinite(table.freq_mhz)
