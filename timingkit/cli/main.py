@@ -31,7 +31,8 @@ COMMAND_GROUP_OF = {
     "fit": "fit", "residuals": "fit", "barycentre": "fit", "barycenter": "fit", "plot": "fit",
     "derive": "derive", "simulate": "simulate", "glitches": "glitches", "batch": "batch",
     "convert": "convert", "predict": "predict", "profile-toas": "profiles",
-    "simulate-profiles": "profiles", "demo": "demo",
+    "simulate-profiles": "profiles", "explore": "explore", "events": "events",
+    "event-toas": "events", "simulate-events": "events", "demo": "demo",
 }
 
 

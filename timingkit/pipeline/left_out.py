@@ -9,10 +9,10 @@ an exclusion list is the fit of the table with those lines deleted.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from timingkit.fit.fitter import ResidualSet
 from timingkit.formats.errors import InputError
 from timingkit.formats.exclusion_list import match_rows, read_exclusion_list
 from timingkit.formats.toa_selection import (
@@ -23,7 +23,10 @@ from timingkit.formats.toa_selection import (
 )
 from timingkit.formats.toa_table import ToaTable
 from timingkit.geometry.observations import Observations
-from timingkit.outputs.residual_table import ResidualTable
+
+if TYPE_CHECKING:     # imported where used: `timingkit barycentre` loads neither (start-up)
+    from timingkit.fit.fitter import ResidualSet
+    from timingkit.outputs.residual_table import ResidualTable
 
 
 def as_list(value) -> list[str]:
@@ -136,6 +139,7 @@ def residuals_of_left_out(model, kept: ResidualSet, left_obs: Observations,
         phase = ev.phase_frac - offset_s * f_hz
         turns = np.round(phase)
         pulse, time_s = ev.phase_int + turns, (phase - turns) / f_hz
+    from timingkit.fit.fitter import ResidualSet
     return ResidualSet(phase=time_s * f_hz, time_s=time_s, pulse_number=pulse,
                        err_s=left_obs.toas.err_us * 1e-6, evaluation=ev)
 
@@ -164,6 +168,7 @@ def full_tables(tables, used: Observations, selection: Selection | None,
     Returns each table extended to every TOA of the TOA table, in its order, the
     left-out ones marked with their reason (``left_out`` column)."""
     from timingkit.outputs.report import residual_table
+    from timingkit.outputs.residual_table import ResidualTable
     if selection is None or selection.count == 0:
         return [table for table, _, _ in tables]
     kept_index = np.flatnonzero(selection.kept)[ordered_positions(used.toas, kept_obs.toas)]
