@@ -108,6 +108,5 @@ def test_other_names_are_merged_into_the_site_name_in_outputs(data, tmp_path):
     # one legend entry per site in the residual plot
     from timingkit.outputs.plotting import plot_residuals
     fig = plot_residuals(table, color_by="site")
-    labels = [t.get_text() for ax in fig.axes if ax.get_legend()
-              for t in ax.get_legend().get_texts()]
-    assert labels.count("desert-dish") <= 1 and not any(t == "dd" for t in labels)
+    labels = [t.get_text() for legend in fig.legends for t in legend.get_texts()]
+    assert labels.count("desert-dish") == 1 and not any(t == "dd" for t in labels)

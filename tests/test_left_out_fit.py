@@ -93,7 +93,7 @@ def test_fit_with_an_exclusion_list_is_the_fit_without_those_lines(msp):
     assert [r["left_out"] for r in pre] == [r["left_out"] for r in rows]
     # the figure draws them apart (hollow, in the legend) and counts only the fitted TOAs
     figure = plot_residuals(ResidualTable.read_csv(msp / "a" / "residuals.csv"))
-    texts = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
+    texts = [t.get_text() for t in figure.legends[0].get_texts()]    # the key, below the axes
     assert texts[-1] == "left out of the fit"
     stats = [t.get_text() for t in figure.axes[0].texts if t.get_gid() == "residual_stats"]
     assert stats[0].startswith(f"N = {listed['toas']} TOAs")

@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from timingkit.outputs.plotting import _add_footnotes, _finish, new_figure
+from timingkit.outputs.figure_basics import add_footnotes as _add_footnotes, finish as _finish, new_figure
 
 
 def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path=None,
