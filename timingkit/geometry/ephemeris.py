@@ -30,6 +30,7 @@ BODY_CODES = {
 }
 
 BUILTIN_NAME = "builtin"
+MAX_LINES_NAMED = 5          # lines of the TOA table named in a message
 
 
 def builtin_ephemeris_path() -> str:
@@ -69,37 +70,63 @@ class Ephemeris:
                 return self._chain(center) + [(center, target)]
         raise InputError(f"ephemeris has no data for NAIF body {code}", path=self.path)
 
-    def check_span(self, tdb: SplitTime, where: str | None = None) -> None:
+    def has_body(self, body: str) -> bool:
+        """Whether the file holds ``body`` (a name of BODY_CODES)."""
+        try:
+            self._chain(BODY_CODES[body])
+        except (KeyError, InputError):
+            return False
+        return True
+
+    def check_span(self, tdb: SplitTime, where: str | None = None, line_numbers=None) -> None:
+        """InputError unless every time lies inside the file's span; it names
+        the first offending lines of the TOA table when ``line_numbers`` (one
+        per time) are given."""
         jd = tdb.jd1 + tdb.jd2
         bad = (jd < self.start_jd) | (jd > self.end_jd)
         if np.any(bad):
-            first = int(np.argmax(bad))
+            rows = np.flatnonzero(bad)
+            first = int(rows[0])
             lo = self.start_jd - 2400000.5
             hi = self.end_jd - 2400000.5
+            line = None
+            lines_text = ""
+            if line_numbers is not None:
+                line = int(line_numbers[first])
+                shown = ", ".join(str(int(line_numbers[r])) for r in rows[:MAX_LINES_NAMED])
+                more = " ..." if len(rows) > MAX_LINES_NAMED else ""
+                lines_text = f"; lines {shown}{more}"
             raise InputError(
-                f"{int(bad.sum())} TOA(s) lie outside the ephemeris span "
-                f"MJD {lo:.1f}-{hi:.1f} of {self.label} (first: MJD {tdb.mjd[first]:.6f}); "
-                "use an ephemeris covering the data (settings.ephemeris in the model, or the "
-                "ephemeris option)",
-                path=where)
+                f"{len(rows)} TOA(s) lie outside the ephemeris span "
+                f"MJD {lo:.1f}-{hi:.1f} of {self.label} (first: MJD {tdb.mjd[first]:.6f}"
+                f"{lines_text}); use an ephemeris covering the data (settings.ephemeris in the "
+                "model, or the ephemeris option)", path=where, line=line, field="mjd" if line else None)
 
     def posvel(self, body: str, tdb: SplitTime) -> tuple[np.ndarray, np.ndarray]:
         """Barycentric position (m) and velocity (m/s) of ``body``, shape (N, 3)."""
+        return self.posvel_jd(body, tdb.jd1, tdb.jd2)
+
+    def posvel_jd(self, body: str, jd1: np.ndarray, jd2: np.ndarray,
+                  velocity: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+        """As :meth:`posvel` for TDB Julian dates given in two parts; without
+        ``velocity`` only the position is computed (velocity None)."""
         try:
             code = BODY_CODES[body]
         except KeyError:
             raise ValueError(f"unknown body {body!r}; known: {', '.join(BODY_CODES)}") from None
-        jd1, jd2 = tdb.jd1, tdb.jd2
         pos = np.zeros((3, len(jd1)))
-        vel = np.zeros((3, len(jd1)))
+        vel = np.zeros((3, len(jd1))) if velocity else None
         for key in self._chain(code):
-            p, v = self._segments[key].compute_and_differentiate(jd1, jd2)
+            if velocity:
+                p, v = self._segments[key].compute_and_differentiate(jd1, jd2)
+                vel += v
+            else:
+                p = self._segments[key].compute(jd1, jd2)
             pos += p
-            vel += v
-        return (pos * KM).T, (vel * (KM / SECONDS_PER_DAY)).T
+        return (pos * KM).T, None if vel is None else (vel * (KM / SECONDS_PER_DAY)).T
 
     def position(self, body: str, tdb: SplitTime) -> np.ndarray:
-        return self.posvel(body, tdb)[0]
+        return self.posvel_jd(body, tdb.jd1, tdb.jd2, velocity=False)[0]
 
 
 @lru_cache(maxsize=8)
