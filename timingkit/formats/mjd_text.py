@@ -101,7 +101,7 @@ def parse_mjd_tokens(buf: np.ndarray, starts: np.ndarray, lens: np.ndarray):
     bad |= (dotpos == 0) | (dotpos > MAX_INT_DIGITS) | (nfrac > MAX_FRAC_DIGITS)
     dotpos = np.where(bad, 0, dotpos)
     nfrac = np.where(bad, 0, nfrac)
-    # align on the decimal point: 7 integer digits, the point, 30 fraction digits
+    # align on the decimal point: 7 integer digits, the point, 39 fraction digits
     row = MAX_INT_DIGITS + width + MAX_FRAC_DIGITS + 1
     padded = np.zeros((n, row), dtype=np.uint8)
     padded[:, MAX_INT_DIGITS:MAX_INT_DIGITS + width] = raw
@@ -125,7 +125,7 @@ def parse_mjd_tokens(buf: np.ndarray, starts: np.ndarray, lens: np.ndarray):
     for i in np.flatnonzero(nfrac > 2 * _CHUNK).tolist():
         # beyond 30 fraction digits (rare): Python int / int is correctly rounded
         k = int(nfrac[i])
-        text = digits[i, f0:f0 + k].astype(np.uint8) + 48
+        text = digits[i, fraction_start:fraction_start + k].astype(np.uint8) + 48
         frac[i] = int(text.tobytes()) / 10 ** k
     carry = frac >= 1.0
     if carry.any():
