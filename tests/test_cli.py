@@ -147,7 +147,8 @@ BAD_TOAS = {
     "unknown site": (TOAS_HEADER + GOOD_ROW + "59001.5 1.0 1400.0 moon-base\n", "site", None),
     "empty file": ("", None, None),
     "binary file": (b"\x00\x01\x02\xff" * 50, None, None),
-    "outside the ephemeris": (TOAS_HEADER + "80000.5 1.0 1400.0 desert-dish\n" * 3, None, None),
+    "outside the ephemeris": (TOAS_HEADER + GOOD_ROW + "80000.5 1.0 1400.0 desert-dish\n" * 3,
+                              "mjd", 3),
 }
 
 

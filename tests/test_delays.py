@@ -50,9 +50,20 @@ def test_roemer_plane_wave_and_parallax_term():
 
 
 def test_barycentric_frequency_doppler():
+    # Relativistic Doppler formula (Rybicki & Lightman 1979, eq. 4.11): an observer
+    # approaching the source at beta sees f_obs = gamma f (1 + beta); the 1/gamma
+    # (proper time) part is the clock-rate factor, so without it f = f_obs / (1 + beta),
+    # which differs from the first-order f_obs (1 - beta) by f beta^2 = 1.4e-5 MHz here.
     v = np.array([[30e3, 0.0, 0.0]])   # 30 km/s towards the pulsar
+    beta = 30e3 / 299792458.0
     f = delays.barycentric_frequency_mhz(np.array([1400.0]), v, np.array([1.0, 0.0, 0.0]))[0]
-    assert abs(f - 1400.0 * (1 - 30e3 / 299792458.0)) < 1e-12
+    assert abs(f - 1400.0 / (1 + beta)) < 1e-12
+    assert abs(f - 1400.0 * (1 - beta)) > 1e-5
+    # with the clock rate: gamma^-1 = 1 - beta^2/2 when the clock's whole rate is
+    # its speed (no potential): f = f_obs sqrt(1 - beta^2) / (1 + beta)
+    rate = np.array([1.0 - np.sqrt(1 - beta ** 2)])
+    f = delays.barycentric_frequency_mhz(np.array([1400.0]), v, np.array([1.0, 0.0, 0.0]), rate)[0]
+    assert abs(f - 1400.0 * np.sqrt(1 - beta ** 2) / (1 + beta)) < 1e-12
 
 
 def test_proper_motion_moves_direction_by_mu_t():

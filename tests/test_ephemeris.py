@@ -50,6 +50,12 @@ def test_outside_span_is_a_clear_error():
     eph = load_ephemeris()
     with pytest.raises(InputError, match="outside the ephemeris span"):
         eph.check_span(SplitTime([80000.0], [0.0], "tdb"), where="x.toas")
+    # with the TOA table's line numbers, the first offending lines are named
+    times = SplitTime([59000.0, 80000.0, 80001.0, 59001.0, 80002.0], [0.0] * 5, "tdb")
+    with pytest.raises(InputError) as err:
+        eph.check_span(times, where="x.toas", line_numbers=np.array([3, 4, 5, 6, 8]))
+    assert err.value.line == 4 and err.value.field == "mjd"
+    assert "3 TOA(s)" in err.value.message and "lines 4, 5, 8" in err.value.message
 
 
 def test_missing_or_bad_file(tmp_path):

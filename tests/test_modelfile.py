@@ -129,3 +129,30 @@ def test_written_model_still_finds_its_site_and_clock_files(tmp_path):
     assert os.path.normpath(os.path.join(again.base_dir, again.settings["clock"][0])) == \
         os.path.normpath(src / "clocks" / "x.clock")
     assert again.settings["ephemeris"] == "builtin"
+
+
+def test_long_decimals_round_to_the_nearest_kept_value_and_absurd_ones_are_refused():
+    # 22 significant digits (more than the whole day + float64 fraction holds) round to
+    # the nearest pair; 35 for the spin frequency round to the nearest double-double
+    # (correct rounding checked with exact fractions, Python's Fraction -> float).
+    long_frequency = "18.47316290417358264101234567890123"
+    text = GOOD.replace('"59000.123456789012345"', '"59000.12345678901234567891"').replace(
+        '"18.473162904173582641"', f'"{long_frequency}"')
+    assert long_frequency in text
+    m = TimingModel.from_text(text, "m.toml")
+    assert m.spin.epoch_day == 59000
+    assert m.spin.epoch_frac == float(Fraction("0.12345678901234567891"))
+    f = m.parameter("spin.frequency_hz")
+    exact = Fraction(long_frequency)
+    assert f.value == float(exact) and f.value_lo == float(exact - Fraction(f.value))
+    # over 40 digits is refused, naming the field
+    absurd = GOOD.replace('"59000.123456789012345"', '"59000.' + "1" * 36 + '"')
+    assert absurd != GOOD
+    with pytest.raises(InputError) as err:
+        TimingModel.from_text(absurd, "m.toml")
+    assert err.value.field == "spin.epoch_mjd" and "at most 40" in err.value.message
+    absurd = GOOD.replace("6.2e-23", "6.2" + "0" * 40 + "1e-23")
+    assert absurd != GOOD
+    with pytest.raises(InputError) as err:
+        TimingModel.from_text(absurd, "m.toml")
+    assert err.value.field == "spin.frequency_derivatives.1"

@@ -56,7 +56,6 @@ def profile_loop(data: str, outdir: str) -> None:
     from timingkit.fit.fitter import fit
     from timingkit.formats.profile_file import write_profile_file, write_template_file
     from timingkit.formats.toa_writer import write_toa_table
-    from timingkit.geometry.observations import prepare_observations
     from timingkit.pipeline.inputs import load_context, load_model
     from timingkit.predict.model_phase import PhaseContext
     from timingkit.profiles.simulate import ProfileSimulation, simulate_profiles
@@ -83,7 +82,7 @@ def profile_loop(data: str, outdir: str) -> None:
     result = time_profiles(timed, template.profile)
     write_template_file(template, os.path.join(outdir, "template.npz"))
     write_toa_table(result.toas, os.path.join(outdir, "profile.toas"))
-    fitted = fit(folding, prepare_observations(result.toas, sites, eph, clocks),
+    fitted = fit(folding, folding.prepare_observations(result.toas, sites, eph, clocks),
                  free=list(LOOP_FREE))
     print(f"profile loop ({LOOP_SOURCE}, invented): {len(sets)} observations at {site} folded "
           "with a predictor from a model off by 2e-9 Hz and 0.02 pc cm^-3 -> "

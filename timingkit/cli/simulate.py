@@ -37,6 +37,9 @@ def add_parsers(sub) -> None:
                    help="Fourier frequencies of the injected red noise (default 30)")
     p.add_argument("--red-corner-per-yr", type=float, default=0.0, metavar="F",
                    help="corner frequency of the injected red noise, 1/yr (default 0: none)")
+    p.add_argument("--solar-wind-density-cm3", type=float, default=None, metavar="N0",
+                   help="inject a solar wind of this electron density at 1 au, cm^-3 (replaces "
+                        "the model's [solar_wind]; 0 = none)")
     p.add_argument("-o", "--output", required=True, metavar="TOAS")
     p.set_defaults(func=cmd_simulate)
 
@@ -46,6 +49,9 @@ def cmd_simulate(args) -> int:
     from timingkit.model.simulate import simulate_toas
     from timingkit.formats.toa_writer import write_toa_table
     model = load_model(args.model)
+    if args.solar_wind_density_cm3 is not None:
+        from timingkit.model.solar_wind import set_solar_wind
+        set_solar_wind(model, args.solar_wind_density_cm3, field="--solar-wind-density-cm3")
     sites, eph, clocks = load_context(model, args.sites, args.ephemeris)
     flags = {}
     for item in args.flag:
@@ -61,6 +67,9 @@ def cmd_simulate(args) -> int:
                          noise=noise)
     write_toa_table(toas, args.output)
     print(f"wrote {len(toas)} TOAs to {args.output}")
+    if len(toas) < args.count:
+        print(f"left out {args.count - len(toas)} requested TOAs whose line of sight crosses the "
+              "solar disc")
     return 0
 
 

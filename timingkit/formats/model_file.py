@@ -24,7 +24,11 @@ from timingkit.formats.errors import InputError
 from timingkit.formats.textfile import parse_toml, read_text_file
 
 KINDS = ("text", "decimal", "number", "integer", "bool", "list_decimal", "list_number",
-         "list_text", "list_list_number", "mjd", "table")
+         "list_text", "list_list_number", "mjd", "table", "bool_or_list_text")
+
+# Decimals longer than this are refused as absurd; shorter ones are rounded
+# to the precision the model keeps (two float64 parts for MJDs and the spin).
+MAX_DECIMAL_DIGITS = 40
 
 
 @dataclass(frozen=True)
@@ -70,6 +74,9 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
         if not isinstance(value, str):
             raise bad("a string")
         return value
+    if isinstance(value, (int, Decimal, str)) and not isinstance(value, bool) \
+            and kind in ("decimal", "mjd", "number"):
+        _check_digit_count(value, where, path)
     if kind in ("decimal", "mjd"):
         if isinstance(value, bool):
             raise bad("a number or decimal string")
@@ -110,6 +117,8 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
         if not isinstance(value, bool):
             raise bad("true or false")
         return value
+    if kind == "bool_or_list_text":
+        return value if isinstance(value, bool) else _convert("list_text", value, where, path)
     if kind.startswith("list_"):
         if not isinstance(value, list):
             raise bad("a list")
@@ -120,6 +129,17 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
             raise bad("a table")
         return value
     raise ValueError(kind)
+
+
+def _check_digit_count(value, where: str, path: str | None) -> None:
+    """Refuse numbers written with more than MAX_DECIMAL_DIGITS digits."""
+    text = str(value).strip().lower().lstrip("+-")
+    mantissa = text.split("e")[0]
+    digits = sum(ch.isdigit() for ch in mantissa.lstrip("0."))
+    if digits > MAX_DECIMAL_DIGITS:
+        raise InputError(f"{digits} significant digits: at most {MAX_DECIMAL_DIGITS} are read "
+                         "(values are rounded to the precision the model keeps, ~32 digits for "
+                         "the spin frequency and ~21 for MJDs)", path=path, field=where)
 
 
 def take_section(data: dict | None, section: str, spec: dict[str, Key],

@@ -15,9 +15,11 @@ ulp, <= 5.6e-17 day = 4.8 ps). If that rounding gives 1.0 (a fraction within
 2**-54 of a whole day) the day is carried and ``mjd_frac`` is 0.0.
 
 Limits on ``mjd`` text: digits with an optional single decimal point, at
-least one digit before it, at most 7 digits before and 30 after it, and at
-most 20 significant digits (counted from the first to the last non-zero
-digit). No sign, no exponent.
+least one digit before it, at most 7 digits before it and at most 40 digits
+in all. Every digit is read: more than the two-part value holds (the 21-22
+significant digits that ``%.16f`` prints, say) are rounded to the nearest
+two-part value, and only longer, absurd strings are refused, naming the line.
+No sign, no exponent.
 
 The reader is vectorised with numpy over the raw bytes (written by hand
 because no well-kept library parses decimal strings exactly into split

@@ -4,7 +4,9 @@
 - ``earth_orientation``: UT1-UTC, polar motion and the celestial pole from the bundled IERS tables.
 - ``sites``: :class:`SiteTable` and fast GCRS position/velocity of a site.
 - ``ephemeris``: JPL SPK ephemerides through jplephem (built-in DE421).
-- ``delays``: Roemer, Shapiro and dispersion formulae (pure functions).
+- ``shapiro_bodies``: the Sun and planets at their retarded positions, once per data set.
+- ``delays``: Roemer, Shapiro and dispersion formulae, the barycentric frequency (pure functions).
+- ``solar_approach``: how close each line of sight passes the Sun (warning, refusal).
 - ``observations``: per-TOA time scales and geometry, computed once per data set.
 - ``spacecraft``: :class:`SpacecraftTrajectory`, an observer given by its GCRS orbit
   (interpolated, error stated; TDB and Roemer from its own position).
@@ -18,6 +20,7 @@ EXPORTS = {
     "SiteTable": "sites", "Ephemeris": "ephemeris", "load_ephemeris": "ephemeris",
     "Observations": "observations", "prepare_observations": "observations",
     "SpacecraftTrajectory": "spacecraft", "Observer": "observer",
+    "retarded_positions": "shapiro_bodies", "closest_approach_m": "solar_approach",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

@@ -31,6 +31,7 @@ BODY_CODES = {
 }
 
 BUILTIN_NAME = "builtin"
+MAX_LINES_NAMED = 5          # lines of the TOA table named in a message
 
 
 def builtin_ephemeris_path() -> str:
@@ -71,39 +72,64 @@ class Ephemeris:
                 return self._chain(center) + [(center, target)]
         raise InputError(f"ephemeris has no data for NAIF body {code}", path=self.path)
 
-    def check_span(self, tdb: SplitTime, where: str | None = None) -> None:
+    def has_body(self, body: str) -> bool:
+        """Whether the file holds ``body`` (a name of BODY_CODES)."""
+        try:
+            self._chain(BODY_CODES[body])
+        except (KeyError, InputError):
+            return False
+        return True
+
+    def check_span(self, tdb: SplitTime, where: str | None = None, line_numbers=None) -> None:
+        """InputError unless every time lies inside the file's span; it names
+        the first offending lines of the TOA table when ``line_numbers`` (one
+        per time) are given."""
         jd = tdb.jd1 + tdb.jd2
         bad = (jd < self.start_jd) | (jd > self.end_jd)
         if np.any(bad):
-            first = int(np.argmax(bad))
+            rows = np.flatnonzero(bad)
+            first = int(rows[0])
             lo = self.start_jd - 2400000.5
             hi = self.end_jd - 2400000.5
+            line = None
+            lines_text = ""
+            if line_numbers is not None:
+                line = int(line_numbers[first])
+                shown = ", ".join(str(int(line_numbers[r])) for r in rows[:MAX_LINES_NAMED])
+                more = " ..." if len(rows) > MAX_LINES_NAMED else ""
+                lines_text = f"; lines {shown}{more}"
             raise InputError(
-                f"{int(bad.sum())} TOA(s) lie outside the ephemeris span "
-                f"MJD {lo:.1f}-{hi:.1f} of {self.label} (first: MJD {tdb.mjd[first]:.6f}); "
-                "use an ephemeris covering the data (settings.ephemeris in the model, or the "
-                "ephemeris option)",
-                path=where)
+                f"{len(rows)} TOA(s) lie outside the ephemeris span "
+                f"MJD {lo:.1f}-{hi:.1f} of {self.label} (first: MJD {tdb.mjd[first]:.6f}"
+                f"{lines_text}); use an ephemeris covering the data (settings.ephemeris in the "
+                "model, or the ephemeris option)", path=where, line=line, field="mjd" if line else None)
 
     def posvel(self, body: str, tdb: SplitTime) -> tuple[np.ndarray, np.ndarray]:
         """Barycentric position (m) and velocity (m/s) of ``body``, shape (N, 3)."""
-        pos = np.zeros((3, len(tdb.jd1)))
-        vel = np.zeros((3, len(tdb.jd1)))
+        return self.posvel_jd(body, tdb.jd1, tdb.jd2)
+
+    def posvel_jd(self, body: str, jd1: np.ndarray, jd2: np.ndarray,
+                  velocity: bool = True) -> tuple[np.ndarray, np.ndarray | None]:
+        """As :meth:`posvel` for TDB Julian dates given in two parts; without
+        ``velocity`` only the position is computed (velocity None)."""
+        jd1, jd2 = np.atleast_1d(np.asarray(jd1, dtype=float)), np.atleast_1d(np.asarray(jd2, dtype=float))
+        pos = np.zeros((3, len(jd1)))
+        vel = np.zeros((3, len(jd1))) if velocity else None
         for key in self._chain(self._code(body)):
-            p, v = self._evaluate(key, tdb, velocity=True)
+            if velocity:
+                p, v = self._evaluate(key, jd1, jd2, velocity=True)
+                vel += v
+            else:
+                p = self._evaluate(key, jd1, jd2, velocity=False)
             pos += p
-            vel += v
-        return (pos * KM).T, (vel * KM).T
+        return (pos * KM).T, None if vel is None else (vel * KM).T
 
     def position(self, body: str, tdb: SplitTime) -> np.ndarray:
         """Barycentric position (m) of ``body``, shape (N, 3); the Chebyshev series
         only, without the velocity."""
-        pos = np.zeros((3, len(tdb.jd1)))
-        for key in self._chain(self._code(body)):
-            pos += self._evaluate(key, tdb, velocity=False)
-        return (pos * KM).T
+        return self.posvel_jd(body, tdb.jd1, tdb.jd2, velocity=False)[0]
 
-    def _evaluate(self, key, tdb: SplitTime, velocity: bool):
+    def _evaluate(self, key, jd1: np.ndarray, jd2: np.ndarray, velocity: bool):
         """One segment's Chebyshev series: km (and km/s) at each time, shape (3, N).
 
         The interval and its offset are found as jplephem does (whole and fractional
@@ -116,8 +142,8 @@ class Ephemeris:
             self._arrays[key] = segment.load_array()   # (start JD, days, (3, n, terms))
         initial_jd, interval_days, coefficients = self._arrays[key]
         interval_s = interval_days * SECONDS_PER_DAY
-        index1, offset1 = np.divmod((tdb.jd1 - initial_jd) * SECONDS_PER_DAY, interval_s)
-        index2, offset2 = np.divmod(tdb.jd2 * SECONDS_PER_DAY, interval_s)
+        index1, offset1 = np.divmod((jd1 - initial_jd) * SECONDS_PER_DAY, interval_s)
+        index2, offset2 = np.divmod(jd2 * SECONDS_PER_DAY, interval_s)
         index3, offset = np.divmod(offset1 + offset2, interval_s)
         index = (index1 + index2 + index3).astype(np.intp)
         count = coefficients.shape[1]

@@ -1,10 +1,12 @@
 """Per-TOA geometry and time scales, computed once per data set.
 
 ``prepare_observations`` carries every TOA from its site clock to TDB at the
-site and computes the observer's barycentric position and velocity and the
-Sun (and optional planets) -> observer vectors. The timing model then needs
-only cheap vector algebra per fit iteration. Everything here is independent
-of the timing-model parameters.
+site and computes the observer's barycentric position and velocity, the
+Sun -> observer and planet -> observer vectors (bodies at their retarded
+positions, timingkit.geometry.shapiro_bodies; every planet the ephemeris
+holds by default) and the rate of TDB against the observer's clock. The
+timing model then needs only cheap vector algebra per fit iteration.
+Everything here is independent of the timing-model parameters.
 """
 
 from __future__ import annotations
@@ -15,6 +17,9 @@ import numpy as np
 
 from timingkit.geometry import earth_orientation
 from timingkit.geometry import timescales
+from timingkit.geometry.delays import GM_M3_PER_S2, tdb_minus_proper_time_rate
+from timingkit.geometry.shapiro_bodies import (BodyTrack, PlanetVectors, retarded_track,
+                                               shapiro_planets)
 from timingkit.formats.clock_table import ClockTable
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.formats.errors import InputError
@@ -22,7 +27,6 @@ from timingkit.geometry.sites import SiteTable, sites_gcrs_posvel
 from timingkit.numerics.timearray import SplitTime
 from timingkit.formats.toa_table import ToaTable
 
-PLANETS = ("venus", "jupiter", "saturn", "uranus", "neptune")
 
 
 @dataclass
@@ -32,7 +36,7 @@ class Observations:
     observer_ssb_m: np.ndarray          # (N, 3)
     observer_ssb_vel_m_per_s: np.ndarray
     sun_to_observer_m: np.ndarray       # (N, 3)
-    planet_to_observer_m: dict[str, np.ndarray]
+    planet_track: BodyTrack | None      # the planets of the Shapiro delay (None: none)
     barycentric_input: np.ndarray       # bool: TOA given at the barycentre (site 'ssb')
     site_names: np.ndarray              # canonical site name per TOA
     ephemeris_label: str
@@ -41,6 +45,19 @@ class Observations:
     # exact TDB minus ``tdb`` (s): what rounding the two-part fractions lost on the
     # way (up to ~10 ps); the spin phase adds it back
     tdb_correction_s: np.ndarray | None = None
+    # d(TDB - tau)/dTDB of each observer's clock (0 for barycentric input)
+    tdb_minus_proper_time_rate: np.ndarray | None = None
+    memo: dict = field(default_factory=dict)    # results the model may reuse (per data set)
+
+    @property
+    def planet_to_observer_m(self) -> PlanetVectors:
+        """Planet -> observer vectors (m, (N, 3)) by planet name, made when asked."""
+        return PlanetVectors(self.planet_track, self.observer_ssb_m)
+
+    @property
+    def shapiro_bodies(self) -> list[str]:
+        """The bodies whose Shapiro delay these observations carry."""
+        return ["sun", *self.planet_to_observer_m]
 
     def __len__(self) -> int:
         return len(self.toas)
@@ -51,23 +68,28 @@ class Observations:
             observer_ssb_m=self.observer_ssb_m[index],
             observer_ssb_vel_m_per_s=self.observer_ssb_vel_m_per_s[index],
             sun_to_observer_m=self.sun_to_observer_m[index],
-            planet_to_observer_m={k: v[index] for k, v in self.planet_to_observer_m.items()},
+            planet_track=None if self.planet_track is None else self.planet_track.select(index),
             barycentric_input=self.barycentric_input[index], site_names=self.site_names[index],
             ephemeris_label=self.ephemeris_label, clock_corrections=list(self.clock_corrections),
             warnings=list(self.warnings),
             tdb_correction_s=(None if self.tdb_correction_s is None
-                              else self.tdb_correction_s[index]))
+                              else self.tdb_correction_s[index]),
+            tdb_minus_proper_time_rate=None if self.tdb_minus_proper_time_rate is None
+            else self.tdb_minus_proper_time_rate[index])
 
 
 def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
                          clock_tables: list[ClockTable] | tuple = (),
-                         planets: bool = False, exact: bool = False) -> Observations:
+                         planets=True, exact: bool = False,
+                         model_path: str | None = None) -> Observations:
     """Time scales and geometry for every TOA (see module docstring).
 
-    ``exact``: evaluate the TDB and precession-nutation series at every TOA
-    instead of interpolating them on a grid (the interpolation is good to
-    ~20 ps in TDB and 0.75 mm in the site position; exact costs ~65 µs per TOA,
-    for the few precision-critical times of a phase predictor)."""
+    ``planets``: true (every planet the ephemeris holds), false, or a list of
+    planet names (the model's ``settings.shapiro_delay_planets``, read from
+    ``model_path``). ``exact``: evaluate the TDB and precession-nutation series
+    at every TOA instead of interpolating them on a grid (the interpolation is
+    good to ~20 ps in TDB and 0.75 mm in the site position; exact costs ~65 µs
+    per TOA, for the few precision-critical times of a phase predictor)."""
     n = len(toas)
     unique_sites, site_index = _resolve_sites(toas, sites)
     day = toas.mjd_day.copy()
@@ -136,34 +158,40 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
                         "(errors of up to µs possible; supply clock tables in settings.clock)")
     return observations_at(toas, tdb_all, site_pos, site_vel, bary, names.astype(str), ephemeris,
                            planets, clock_corrections=sorted(set(used_clocks)),
-                           warnings=_unique(warnings), tdb_correction_s=correction_s)
+                           warnings=_unique(warnings), tdb_correction_s=correction_s,
+                           model_path=model_path)
 
 
 def observations_at(toas: ToaTable, tdb: SplitTime, geocentric_m: np.ndarray,
                     geocentric_vel_m_per_s: np.ndarray, barycentric_input: np.ndarray,
-                    site_names: np.ndarray, ephemeris: Ephemeris, planets: bool = False,
-                    clock_corrections=(), warnings=(), tdb_correction_s=None) -> Observations:
+                    site_names: np.ndarray, ephemeris: Ephemeris, planets=True,
+                    clock_corrections=(), warnings=(), tdb_correction_s=None,
+                    model_path: str | None = None) -> Observations:
     """Observations of observers at the given GCRS offsets from the Earth's
     centre (m, m/s) at TDB ``tdb``: the Earth from the ephemeris plus the
-    offset (no aberration; DESIGN.md §3), and the Sun and planet vectors. Rows
+    offset (no aberration; DESIGN.md §3), the Sun and planets (``planets`` as
+    for :func:`prepare_observations`) and the clock rate. Rows
     with ``barycentric_input`` sit at the barycentre. Shared by TOA sites and
     spacecraft (timingkit.geometry.spacecraft)."""
     bary = np.asarray(barycentric_input, dtype=bool)
-    ephemeris.check_span(tdb, where=toas.path)
+    ephemeris.check_span(tdb, where=toas.path, line_numbers=toas.line_numbers)
+    planet_names = shapiro_planets(planets, ephemeris, model_path)
     earth_pos, earth_vel = ephemeris.posvel("earth", tdb)
     observer = np.where(bary[:, None], 0.0, earth_pos + geocentric_m)
     observer_vel = np.where(bary[:, None], 0.0, earth_vel + geocentric_vel_m_per_s)
-    sun = ephemeris.position("sun", tdb)
-    planet_vectors = {}
-    if planets:
-        for body in PLANETS:
-            planet_vectors[body] = observer - ephemeris.position(body, tdb)
+    sun_track = retarded_track(ephemeris, ["sun"], tdb)
+    sun_to_observer = observer - sun_track.positions()["sun"]
+    planet_track = retarded_track(ephemeris, planet_names, tdb) if planet_names else None
+    planets_potential = 0.0 if planet_track is None else \
+        planet_track.geocentre_potential_m2_per_s2(planet_names, GM_M3_PER_S2)
+    rate = np.where(bary, 0.0, tdb_minus_proper_time_rate(
+        observer_vel, {"sun": sun_to_observer}, planets_potential))
     return Observations(
         toas=toas, tdb=tdb, observer_ssb_m=observer, observer_ssb_vel_m_per_s=observer_vel,
-        sun_to_observer_m=observer - sun, planet_to_observer_m=planet_vectors,
+        sun_to_observer_m=sun_to_observer, planet_track=planet_track,
         barycentric_input=bary, site_names=np.asarray(site_names), ephemeris_label=ephemeris.label,
         clock_corrections=list(clock_corrections), warnings=list(warnings),
-        tdb_correction_s=tdb_correction_s)
+        tdb_correction_s=tdb_correction_s, tdb_minus_proper_time_rate=rate)
 
 
 def _resolve_sites(toas: ToaTable, sites: SiteTable):

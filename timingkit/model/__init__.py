@@ -5,7 +5,7 @@
 - ``base``: :class:`ModelSection` (the interface) and :class:`Evaluation`.
 - ``parameters``: :class:`Parameter` (value, uncertainty, free flag, exact high part).
 - ``spin``, ``astrometry``, ``dispersion``, ``binary`` (+ ``binary_orbits``, ``kepler``),
-  ``glitch``, ``group_offsets``, ``noise``: the sections.
+  ``glitch``, ``group_offsets``, ``solar_wind``, ``noise``: the sections.
 - ``correlations``: the ``[correlation]`` section; covariances from and to the uncertainties.
 - ``conversion``: the model in another sky frame or binary form, covariance carried along.
 - ``simulate``: TOAs that a model predicts exactly, plus noise.

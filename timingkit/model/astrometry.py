@@ -202,7 +202,7 @@ class Astrometry(ModelSection):
     contribution = "sky_path"
 
     def __init__(self, section: dict | None, path: str | None, default_epoch: Decimal | None,
-                 shapiro_delay_planets: bool = False):
+                 shapiro_delay_planets: bool | list = True):
         if section is None:
             raise InputError("missing required section [position] (ra, dec)", path=path,
                              field="position")
@@ -381,22 +381,31 @@ class Astrometry(ModelSection):
         hi, lo = ev.obs.tdb.seconds_since(self.epoch_day, self.epoch_frac)
         return (hi + lo) / delays.JULIAN_YEAR_S
 
-    def apply(self, ev: Evaluation) -> None:
-        obs = ev.obs
-        years = self._years(ev)
+    def directions(self, years: np.ndarray):
+        """ICRS unit vectors to the pulsar (N, 3) ``years`` after the position
+        epoch, and the epoch's east and north vectors."""
         lon, lat = self.frame_angles_rad()
         n, east, north = delays.direction_with_proper_motion(
             lon, lat, self.pm_longitude.value, self.pm_latitude.value, years)
         to_icrs = FRAME_TO_ICRS[self.frame]
         if self.frame != "equatorial":
             n, east, north = n @ to_icrs.T, to_icrs @ east, to_icrs @ north
+        return n, east, north
+
+    def line_of_sight(self, obs) -> np.ndarray:
+        """ICRS unit vectors to the pulsar at each TOA of ``obs`` (N, 3)."""
+        hi, lo = obs.tdb.seconds_since(self.epoch_day, self.epoch_frac)
+        return self.directions((hi + lo) / delays.JULIAN_YEAR_S)[0]
+
+    def apply(self, ev: Evaluation) -> None:
+        obs = ev.obs
+        years = self._years(ev)
+        n, east, north = self.directions(years)
         distance = None
         if self.parallax.value > 0:
             distance = delays.AU_M / (self.parallax.value * delays.MAS_TO_RAD)
         roemer = delays.roemer_delay_s(obs.observer_ssb_m, n, distance)
-        shapiro = delays.shapiro_delay_s(obs.sun_to_observer_m, n)
-        for body, vec in obs.planet_to_observer_m.items():
-            shapiro = shapiro + delays.shapiro_delay_s(vec, n, delays.GM_OVER_C3_S[body])
+        shapiro = delays.shapiro_delay_s(obs.sun_to_observer_m, n) + self._planetary_shapiro(obs, n)
         bary = obs.barycentric_input
         roemer = np.where(bary, 0.0, roemer)
         shapiro = np.where(bary, 0.0, shapiro)
@@ -405,8 +414,41 @@ class Astrometry(ModelSection):
         ev.shapiro_s = shapiro
         ev.freq_bary_mhz = np.where(
             bary, obs.toas.freq_mhz,
-            delays.barycentric_frequency_mhz(obs.toas.freq_mhz, obs.observer_ssb_vel_m_per_s, n))
+            delays.barycentric_frequency_mhz(obs.toas.freq_mhz, obs.observer_ssb_vel_m_per_s, n,
+                                             obs.tdb_minus_proper_time_rate))
         ev.extra["astrometry"] = (years, east, north)
+
+    def shapiro_planets(self, obs) -> list[str]:
+        """The planets whose Shapiro delay this model applies to ``obs``
+        (``settings.shapiro_delay_planets``: true = all that ``obs`` carries)."""
+        setting = self.shapiro_delay_planets
+        if setting is True:
+            return list(obs.planet_to_observer_m)
+        if not setting:
+            return []
+        missing = [p for p in setting if p not in obs.planet_to_observer_m]
+        if missing:
+            raise ValueError(f"observations prepared without {', '.join(missing)}: prepare them "
+                             "with the model's settings.shapiro_delay_planets")
+        return list(setting)
+
+    def _planetary_shapiro(self, obs, n: np.ndarray) -> np.ndarray:
+        """Sum of the planets' Shapiro delays, kept per data set while the
+        position parameters do not change (a fit with the position fixed pays
+        for it once)."""
+        bodies = self.shapiro_planets(obs)
+        key = (self.frame, self.longitude.value, self.latitude.value, self.pm_longitude.value,
+               self.pm_latitude.value, self.epoch_day, self.epoch_frac, tuple(bodies))
+        memo = obs.memo.get("planetary_shapiro")
+        if memo is not None and memo[0] == key:
+            return memo[1]
+        total = np.zeros(len(obs))
+        if bodies:
+            for body, pos in obs.planet_track.iter_positions(bodies):
+                total += delays.shapiro_delay_s(obs.observer_ssb_m - pos, n,
+                                                delays.GM_OVER_C3_S[body])
+        obs.memo["planetary_shapiro"] = (key, total)
+        return total
 
     def partials(self, ev: Evaluation, names: list[str]) -> dict[str, np.ndarray]:
         """d(t_emit)/d(param) in seconds per parameter unit (rad for ra/dec,

@@ -71,5 +71,15 @@ class ModelSection:
     def to_section(self) -> dict:
         return {}
 
-    def warnings(self) -> list[str]:
+    def warnings(self, median_error_us: float | None = None) -> list[str]:
+        """Cautions about the section's own values; ``median_error_us`` (the
+        TOAs' median error, when known) sets how large a neglected term may be."""
         return []
+
+
+def notable_delay_s(median_error_us: float | None = None) -> float:
+    """The size from which a neglected delay is worth a warning: 1 ns or a
+    tenth of the median TOA error, whichever is larger."""
+    if median_error_us is None or not np.isfinite(median_error_us):
+        return 1e-9
+    return max(1e-9, 0.1 * float(median_error_us) * 1e-6)

@@ -49,7 +49,7 @@ import numpy as np
 
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
-from timingkit.model.base import ModelSection, Evaluation
+from timingkit.model.base import ModelSection, Evaluation, notable_delay_s
 from timingkit.model.binary_orbits import (DEG_PER_YR_TO_RAD_PER_S, EccentricOrbit,
                                            LowEccentricityOrbit, ShapiroForm, SOLAR_MASS_TIME_S)
 from timingkit.model.parameters import Parameter
@@ -252,14 +252,22 @@ class Binary(ModelSection):
                 sec[key] = p.decimal if key in HIGH_PRECISION_KEYS else p.value
         return sec
 
-    def warnings(self) -> list[str]:
+    def warnings(self, median_error_us: float | None = None) -> list[str]:
+        """For low_eccentricity: the neglected third harmonic of the Roemer delay,
+        (3/8) x e^2 sin(3 Phi - 2 omega) (the e^2 term of the expansion of the
+        Blandford & Teukolsky 1976 delay, which no first-order parameter absorbs),
+        when it exceeds 1 ns or a tenth of the median TOA error."""
         out = []
         if self.model == "low_eccentricity":
             e = math.hypot(self.parameter_value("e_sin_omega"), self.parameter_value("e_cos_omega"))
             x = self.parameter_value("projected_semi_major_axis_lt_s")
-            if x * e * e > 1e-8:
-                out.append(f"low_eccentricity model neglects terms of order x e^2 = "
-                           f"{x * e * e:.2g} s; use the relativistic model for this orbit")
+            neglected = 0.375 * x * e * e
+            limit = notable_delay_s(median_error_us)
+            if neglected > limit:
+                out.append(f"the low_eccentricity model neglects a third harmonic of about "
+                           f"0.375 x e^2 = {neglected * 1e9:.3g} ns, more than {limit * 1e9:.3g} ns "
+                           "(1 ns or a tenth of the median TOA error); use the eccentric form "
+                           "(timingkit convert MODEL --binary-model relativistic -o OUT)")
         return out
 
 

@@ -42,7 +42,9 @@ class Dispersion(ModelSection):
     section = "dispersion"
     contribution = "propagation"
 
-    def __init__(self, section: dict | None, path: str | None, default_epoch):
+    def __init__(self, section: dict | None, path: str | None, default_epoch,
+                 constant_s_mhz2: float = delays.DISPERSION_CONSTANT_S_MHZ2):
+        self.constant_s_mhz2 = constant_s_mhz2
         s = take_section(section, "dispersion", DISPERSION_KEYS, path)
         unc = s.get("uncertainty", {})
         if s["dm"] < 0:
@@ -96,10 +98,10 @@ class Dispersion(ModelSection):
             ev.extra["dispersion_masks"] = masks
             for p, mask in zip(self.offsets, masks):
                 dm = dm + np.where(mask, p.value, 0.0)
-        ev.dispersion_s = delays.dispersion_delay_s(dm, ev.freq_bary_mhz)
+        ev.dispersion_s = delays.dispersion_delay_s(dm, ev.freq_bary_mhz, self.constant_s_mhz2)
 
     def partials(self, ev: Evaluation, names: list[str]) -> dict[str, np.ndarray]:
-        unit = -delays.dispersion_delay_s(1.0, ev.freq_bary_mhz)  # d(t_emit)/d(dm)
+        unit = -delays.dispersion_delay_s(1.0, ev.freq_bary_mhz, self.constant_s_mhz2)  # dt_emit/dDM
         years = ev.extra["dispersion_years"]
         out = {}
         if self.dm.name in names:

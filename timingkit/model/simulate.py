@@ -7,7 +7,9 @@ For each requested arrival the site-clock time is solved iteratively so that
 the model phase there is an integer (Newton steps with the instantaneous
 spin frequency; each step recomputes time scales and geometry, so the result
 is exact to < 1 ps before rounding to the 15 decimal places of the table).
-Deterministic for a given seed.
+Arrivals whose line of sight crosses the solar disc are left out (no
+telescope sees a pulse through the Sun), so the table may be shorter than
+asked. Deterministic for a given seed.
 """
 
 from __future__ import annotations
@@ -20,7 +22,8 @@ from timingkit.formats.errors import InputError
 from timingkit.formats.quantities import in_unit
 from timingkit.model.noise import NoiseModel, toa_times_s
 from timingkit.model.timing_model import TimingModel
-from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.observations import Observations
+from timingkit.geometry.solar_approach import SOLAR_RADIUS_M, closest_approach_m
 from timingkit.geometry.sites import SiteTable
 from timingkit.numerics.timearray import SplitTime
 from timingkit.formats.toa_table import ToaTable
@@ -42,10 +45,6 @@ def arrival_times(start_mjd: float, end_mjd: float, count: int, rng: np.random.G
     mjd = edges[:-1] + offsets * width
     day = np.floor(mjd)
     return day, mjd - day
-
-
-def _observations(toas, sites, ephemeris, clocks, planets) -> Observations:
-    return prepare_observations(toas, sites, ephemeris, clocks, planets=planets)
 
 
 def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: int,
@@ -90,7 +89,21 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
         # a bare table for the iterations (text is made once, at the end)
         toas = ToaTable(mjd_text=blank, mjd_day=day, mjd_frac=frac, err_us=err_us,
                     freq_mhz=freq_col, site=site_col, flags=flag_cols)
-        obs = _observations(toas, sites, ephemeris, clocks, model.settings["shapiro_delay_planets"])
+        obs = model.prepare_observations(toas, sites, ephemeris, clocks)
+        keep = (closest_approach_m(obs.sun_to_observer_m, model.astrometry.line_of_sight(obs))
+                >= SOLAR_RADIUS_M) | obs.barycentric_input
+        if not keep.all():
+            # no telescope sees a pulse through the Sun: those arrivals are left
+            # out (the caller sees a shorter table)
+            day, frac, err_us, freq_col, site_col, blank = (
+                a[keep] for a in (day, frac, err_us, freq_col, site_col, blank))
+            flag_cols = {k: v[keep] for k, v in flag_cols.items()}
+            count = len(day)
+            if count == 0:
+                raise InputError("every requested TOA has its line of sight through the solar "
+                                 "disc; choose other dates", field="start")
+            obs = obs.select(keep)
+            toas = obs.toas
         ev = model.evaluate(obs, reference)
         shift_s = -ev.phase_frac / ev.spin_frequency_hz
         t = SplitTime(day, frac, "utc").add_seconds(shift_s)
@@ -106,3 +119,4 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
         t = SplitTime(day, frac, "utc").add_seconds(offset_s)
         day, frac = t.day, t.frac
     return ToaTable.from_arrays(day, frac, err_us, freq_col, site_col, flags=flag_cols)
+

@@ -12,17 +12,20 @@ import numpy as np
 from timingkit.numerics import ddmath
 from timingkit.formats.errors import InputError
 from timingkit.model.astrometry import Astrometry
-from timingkit.model.base import ModelSection, Evaluation
+from timingkit.model.base import ModelSection, Evaluation, notable_delay_s
 from timingkit.model.dispersion import Dispersion
 from timingkit.model.binary import build_binary
 from timingkit.model.correlations import correlation_section, read_correlations
 from timingkit.model.glitch import build_glitches
 from timingkit.model.group_offsets import build_group_offsets
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
+from timingkit.model.solar_wind import build_solar_wind, unmodelled_solar_wind_warning
 from timingkit.model.spin import Spin
 from timingkit.formats.model_file import (Key, ModelDocument, read_model_document, take_section,
                                  write_model_document)
-from timingkit.geometry.observations import Observations
+from timingkit.geometry.delays import DISPERSION_CONSTANTS_S_MHZ2
+from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.solar_approach import solar_approach_warnings
 
 TOP_KEYS = {"name": Key("text", default="unnamed")}
 FIT_KEYS = {"free": Key("list_text", default=list)}
@@ -30,8 +33,12 @@ SETTINGS_KEYS = {
     "ephemeris": Key("text", default="builtin"),
     "sites": Key("list_text", default=list),
     "clock": Key("list_text", default=list),
-    "shapiro_delay_planets": Key("bool", default=False),
+    # true: every planet the ephemeris holds; false: none; or a list of planet names
+    "shapiro_delay_planets": Key("bool_or_list_text", default=True),
+    "dispersion_constant": Key("text", default="catalogue"),
 }
+# settings written to a model file only when they differ from these defaults
+QUIET_DEFAULTS = {"shapiro_delay_planets": True, "dispersion_constant": "catalogue"}
 PHASE_ZERO_KEYS = {
     "mjd": Key("mjd", required=True),
     "site": Key("text", default="ssb"),
@@ -42,7 +49,8 @@ PHASE_ZERO_KEYS = {
 # builder(section_value, path, model) -> list[ModelSection]. Modules that add a
 # section register it here (see timingkit.model.__init__).
 OPTIONAL_SECTIONS: dict[str, object] = {"glitch": build_glitches, "binary": build_binary,
-                                      "time_offset": build_group_offsets}
+                                      "time_offset": build_group_offsets,
+                                      "solar_wind": build_solar_wind}
 
 CORE_SECTIONS = ("name", "position", "spin", "dispersion", "phase_zero", "fit", "settings",
                  "correlation")
@@ -69,10 +77,12 @@ class TimingModel:
         self.name = top["name"]
         self.settings = take_section(data.get("settings"), "settings", SETTINGS_KEYS, path,
                                      allow_uncertainty=False)
+        self.dispersion_constant_s_mhz2 = _dispersion_constant(self.settings, path)
         self.spin = Spin(data.get("spin"), path)
         self.astrometry = Astrometry(data.get("position"), path, self.spin.epoch,
                                      shapiro_delay_planets=self.settings["shapiro_delay_planets"])
-        self.dispersion = Dispersion(data.get("dispersion"), path, self.spin.epoch)
+        self.dispersion = Dispersion(data.get("dispersion"), path, self.spin.epoch,
+                                     constant_s_mhz2=self.dispersion_constant_s_mhz2)
         self.phase_zero = None
         if "phase_zero" in data:
             self.phase_zero = take_section(data["phase_zero"], "phase_zero", PHASE_ZERO_KEYS,
@@ -166,6 +176,31 @@ class TimingModel:
                 return comp
         raise KeyError(name)
 
+    # ------------------------------------------------------------- data
+    def prepare_observations(self, toas, sites, ephemeris, clocks=(),
+                             exact: bool = False) -> Observations:
+        """Time scales and geometry of ``toas`` with this model's settings
+        (the planets of its Shapiro delay); ``exact`` as for
+        :func:`timingkit.geometry.observations.prepare_observations`."""
+        return prepare_observations(toas, sites, ephemeris, clocks,
+                                    planets=self.settings["shapiro_delay_planets"],
+                                    exact=exact, model_path=self.path)
+
+    def data_warnings(self, obs: Observations) -> list[str]:
+        """Warnings about these TOAs seen along this model's line of sight: the
+        Sun within a few solar radii (InputError for the solar disc, naming
+        the lines), the solar wind when the model lacks it and it would
+        matter (more than 1 ns or a tenth of the median TOA error)."""
+        out = solar_approach_warnings(obs, self.astrometry.line_of_sight(obs))
+        if not any(c.section == "solar_wind" for c in self.extra):
+            ev = Evaluation(obs)
+            self.astrometry.apply(ev)
+            threshold_s = notable_delay_s(float(np.median(obs.toas.err_us)))
+            warning = unmodelled_solar_wind_warning(ev, threshold_s)
+            if warning:
+                out.append(warning)
+        return out
+
     # ------------------------------------------------------------- evaluation
     def evaluate(self, obs: Observations, reference: Observations | None = None) -> Evaluation:
         """Pulse phase (integer + fraction) at every TOA, with all delays."""
@@ -235,7 +270,7 @@ class TimingModel:
             pz = dict(self.phase_zero)
             doc["phase_zero"] = pz
         doc["fit"] = {"free": self.free_names}
-        settings = {k: v for k, v in self.settings.items() if v not in (None, [], False)}
+        settings = {k: v for k, v in self.settings.items() if _setting_written(k, v)}
         if settings:
             doc["settings"] = settings
         correlation = correlation_section(self) if include_uncertainty else None
@@ -280,7 +315,7 @@ class TimingModel:
                 return absolute
         out = {}
         for key, value in self.settings.items():
-            if value in (None, [], False):
+            if not _setting_written(key, value):
                 continue
             if key in ("sites", "clock"):
                 value = [move(v) for v in value]
@@ -288,6 +323,21 @@ class TimingModel:
                 value = move(value)
             out[key] = value
         return out
+
+
+def _setting_written(key: str, value) -> bool:
+    if key in QUIET_DEFAULTS:
+        return value != QUIET_DEFAULTS[key]
+    return value not in (None, [], False)
+
+
+def _dispersion_constant(settings: dict, path: str | None) -> float:
+    name = settings["dispersion_constant"]
+    if name not in DISPERSION_CONSTANTS_S_MHZ2:
+        raise InputError(f"unknown dispersion constant {name!r}; legal: "
+                         f"{', '.join(DISPERSION_CONSTANTS_S_MHZ2)}", path=path,
+                         field="settings.dispersion_constant")
+    return DISPERSION_CONSTANTS_S_MHZ2[name]
 
 
 __all__ = ["TimingModel", "OPTIONAL_SECTIONS", "Decimal", "mjd_decimal", "mjd_parts"]

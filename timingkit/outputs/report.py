@@ -17,6 +17,8 @@ from timingkit.model.timing_model import TimingModel
 from timingkit.formats.model_file import atomic_write_text
 from timingkit.outputs.noise_outputs import noise_report_entry
 from timingkit.outputs.numbers import angle_text, format_quantity, format_value
+from timingkit.geometry.delays import (DISPERSION_CONSTANT_SOURCES, DISPERSION_CONSTANTS_S_MHZ2,
+                                      PLANET_MASSES_SOURCE)
 from timingkit.geometry.observations import Observations
 from timingkit.outputs.residual_table import ResidualTable
 
@@ -85,7 +87,7 @@ def build_report(result: FitResult, obs: Observations, source_path: str | None =
         "derived": derived,
         "assumptions": derived_mod.ASSUMPTIONS,
         "cautions": derived_mod.cautions_for(derived),
-        "settings": settings_entry(obs),
+        "settings": settings_entry(obs, model),
         "span_mjd": [float(np.min(obs.toas.mjd_day + obs.toas.mjd_frac)),
                      float(np.max(obs.toas.mjd_day + obs.toas.mjd_frac))],
         "warnings": list(obs.warnings) + list(result.warnings),
@@ -94,13 +96,30 @@ def build_report(result: FitResult, obs: Observations, source_path: str | None =
     if result.noise is not None:
         report["noise"] = noise_report_entry(result)
         report["cautions"] = list(report["cautions"]) + report["noise"]["cautions"]
-    report.update(extra_report_sections(model, derived, result))   # position, binary, kinematic
+    report.update(extra_report_sections(model, derived, result,     # position, binary, kinematic
+                                        median_error_us=float(np.median(obs.toas.err_us))))
     return report
 
 
-def settings_entry(obs: Observations) -> dict:
-    return {"ephemeris": obs.ephemeris_label,
-            "clock_corrections": "; ".join(obs.clock_corrections) or "none applied"}
+def settings_entry(obs: Observations, model: TimingModel | None = None) -> dict:
+    """What the delays rest on: ephemeris, clock corrections and, with the
+    model, the bodies of the Shapiro delay and the dispersion constant."""
+    out = {"ephemeris": obs.ephemeris_label,
+           "clock_corrections": "; ".join(obs.clock_corrections) or "none applied"}
+    if model is not None:
+        name = model.settings["dispersion_constant"]
+        wind = [c for c in model.extra if c.section == "solar_wind"]
+        out.update({
+            "shapiro_delay_bodies": ["sun", *model.astrometry.shapiro_planets(obs)],
+            "shapiro_delay_masses": PLANET_MASSES_SOURCE,
+            "dispersion_constant": {"name": name,
+                                    "value_s_mhz2_cm3_per_pc": DISPERSION_CONSTANTS_S_MHZ2[name],
+                                    "source": DISPERSION_CONSTANT_SOURCES[name]},
+            "solar_wind": ({"model": "spherical, n0 (1 au / r)^2",
+                            "electron_density_at_1au_cm3": wind[0].density.value}
+                           if wind else "not modelled"),
+        })
+    return out
 
 
 def residual_table(obs: Observations, res: ResidualSet) -> ResidualTable:

@@ -410,6 +410,49 @@ def galactic_from_icrs(ra_deg: float, dec_deg: float) -> tuple[float, float]:
     return float(g.l.deg), float(g.b.deg)
 
 
+def remove_kinematic_terms(period_s: float, observed: float, proper_motion_mas_per_yr: float,
+                           distance_kpc: float, galactic_longitude_deg: float | None,
+                           galactic_latitude_deg: float | None, *,
+                           observed_err: float | None = None,
+                           proper_motion_err_mas_per_yr: float | None = None,
+                           distance_err_kpc: float | None = None,
+                           constants: dict[str, Any] | None = None):
+    """An observed (spin or orbital) period derivative less its Shklovskii and
+    Galactic terms: (shklovskii quantity, galactic quantity, intrinsic value,
+    intrinsic uncertainty). Both terms grow with the distance, so its error
+    enters them fully correlated: sigma^2 = sigma_obs^2 + (d/dmu sigma_mu)^2
+    + ((dShk/dd + dGal/dd) sigma_d)^2 (first order), not their quadrature sum.
+    Without Galactic coordinates the Galactic term is left out (value None)."""
+    p = _num(period_s, "period_s", positive=True)
+    pdot_obs = _num(observed, "period_derivative")
+    sig_pdot = _err(observed_err, "period_derivative_err")
+    sig_mu = _err(proper_motion_err_mas_per_yr, "proper_motion_err_mas_per_yr")
+    sig_d = _err(distance_err_kpc, "distance_err_kpc")
+    shk = shklovskii_period_derivative(p, proper_motion_mas_per_yr, distance_kpc,
+                                       proper_motion_err_mas_per_yr=sig_mu,
+                                       distance_err_kpc=sig_d)
+    mu = float(proper_motion_mas_per_yr)
+    d = float(distance_kpc)
+    dgal_dd = 0.0
+    if galactic_longitude_deg is None or galactic_latitude_deg is None:
+        gal_value = 0.0
+        gal = quantity(None, None, "s/s", "not evaluated",
+                       "Galactic coordinates not given: Galactic acceleration not removed")
+    else:
+        gal = galactic_period_derivative(p, galactic_longitude_deg, galactic_latitude_deg, d,
+                                         distance_err_kpc=sig_d, constants=constants)
+        _, dfrac, _ = _galactic_fraction(float(galactic_longitude_deg),
+                                         float(galactic_latitude_deg), d,
+                                         GALACTIC_CONSTANTS if constants is None else constants)
+        gal_value, dgal_dd = gal["value"], p * dfrac
+    unc = _independent([
+        (1.0, sig_pdot),
+        (-2.0 * shk["value"] / mu if mu > 0 else 0.0, sig_mu),
+        (-shk["value"] / d - dgal_dd, sig_d),
+    ])
+    return shk, gal, pdot_obs - shk["value"] - gal_value, unc
+
+
 _INTRINSIC = "intrinsic period derivative (Shklovskii and Galactic terms removed)"
 
 
@@ -434,39 +477,14 @@ def intrinsic_spin(period_s: float, period_derivative: float, *,
     Pdot gives None with a note for the braking quantities.
     """
     p = _num(period_s, "period_s", positive=True)
-    pdot_obs = _num(period_derivative, "period_derivative")
-    sig_pdot = _err(period_derivative_err, "period_derivative_err")
-    sig_mu = _err(proper_motion_err_mas_per_yr, "proper_motion_err_mas_per_yr")
-    sig_d = _err(distance_err_kpc, "distance_err_kpc")
-    shk = shklovskii_period_derivative(p, proper_motion_mas_per_yr, distance_kpc,
-                                       proper_motion_err_mas_per_yr=sig_mu,
-                                       distance_err_kpc=sig_d)
-    mu = float(proper_motion_mas_per_yr)
-    d = float(distance_kpc)
-    out: dict[str, dict[str, Any]] = {"shklovskii_period_derivative": shk}
-
-    dgal_dd = 0.0
-    if galactic_longitude_deg is None or galactic_latitude_deg is None:
-        gal_value = 0.0
-        out["galactic_period_derivative"] = quantity(
-            None, None, "s/s", "not evaluated",
-            "Galactic coordinates not given: Galactic acceleration not removed")
-    else:
-        gal = galactic_period_derivative(p, galactic_longitude_deg, galactic_latitude_deg, d,
-                                         distance_err_kpc=sig_d, constants=constants)
-        frac, dfrac, _ = _galactic_fraction(float(galactic_longitude_deg),
-                                            float(galactic_latitude_deg), d,
-                                            GALACTIC_CONSTANTS if constants is None else constants)
-        gal_value, dgal_dd = gal["value"], p * dfrac
-        out["galactic_period_derivative"] = gal
-
-    pdot_int = pdot_obs - shk["value"] - gal_value
-    unc = _independent([
-        (1.0, sig_pdot),
-        (-2.0 * shk["value"] / mu if mu > 0 else 0.0, sig_mu),
-        (-shk["value"] / d - dgal_dd, sig_d),
-    ])
-    note = out["galactic_period_derivative"]["note"]
+    shk, gal, pdot_int, unc = remove_kinematic_terms(
+        p, period_derivative, proper_motion_mas_per_yr, distance_kpc, galactic_longitude_deg,
+        galactic_latitude_deg, observed_err=period_derivative_err,
+        proper_motion_err_mas_per_yr=proper_motion_err_mas_per_yr,
+        distance_err_kpc=distance_err_kpc, constants=constants)
+    out: dict[str, dict[str, Any]] = {"shklovskii_period_derivative": shk,
+                                      "galactic_period_derivative": gal}
+    note = gal["note"]
     out["intrinsic_period_derivative"] = quantity(
         pdot_int, unc, "s/s", "observed minus Shklovskii minus Galactic terms", note)
 

@@ -72,8 +72,10 @@ def masses_from_advance_and_einstein(advance_deg_per_yr: float, einstein_s: floa
     return total, companion, total - companion
 
 
-def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dict | None:
-    """The ``derived_binary`` report section, or None without a binary."""
+def derive_binary(model, spin_derived: dict | None = None, distance=None,
+                  median_error_us: float | None = None) -> dict | None:
+    """The ``derived_binary`` report section, or None without a binary
+    (``median_error_us``: the TOAs' median error, for the model's cautions)."""
     binary = _binary_of(model)
     if binary is None:
         return None
@@ -117,7 +119,7 @@ def derive_binary(model, spin_derived: dict | None = None, distance=None) -> dic
     if distance is not None:
         _orbital_kinematics(out, binary, period_days, period_dot, period_dot_err, distance)
     if binary.model == "low_eccentricity":
-        cautions.extend(binary.warnings())
+        cautions.extend(binary.warnings(median_error_us))
     return {"model": binary.model, "quantities": out, "cautions": cautions}
 
 
@@ -195,23 +197,19 @@ def _orbital_kinematics(out, binary, period_days, period_dot, period_dot_err, di
     mu, smu, l_deg, b_deg = distance["proper_motion"]
     d, sd = distance["value_kpc"], distance["uncertainty_kpc"]
     period_s = period_days * SECONDS_PER_DAY
-    shk = dbin.shklovskii_period_derivative(period_s, mu, d, proper_motion_err_mas_per_yr=smu,
-                                            distance_err_kpc=sd)
-    gal = dbin.galactic_period_derivative(period_s, l_deg, b_deg, d, distance_err_kpc=sd)
-    kin = shk["value"] + gal["value"]
-    terms = [s for s in (shk["uncertainty"], gal["uncertainty"]) if s is not None]
-    skin = math.sqrt(sum(s * s for s in terms)) if terms else None
+    shk, gal, intrinsic, unc = dbin.remove_kinematic_terms(
+        period_s, period_dot, mu, d, l_deg, b_deg, observed_err=period_dot_err,
+        proper_motion_err_mas_per_yr=smu, distance_err_kpc=sd)
     out["orbital_period_derivative_shklovskii"] = shk
     out["orbital_period_derivative_galactic"] = gal
-    parts = [s for s in (skin, period_dot_err) if s is not None]
     out["orbital_period_derivative_intrinsic"] = quantity(
-        period_dot - kin, math.sqrt(sum(s * s for s in parts)) if parts else None, "s/s",
-        f"observed minus Shklovskii minus Galactic terms (distance: {distance['source']}; "
-        "the two kinematic terms' distance errors treated as independent)")
+        intrinsic, unc, "s/s",
+        f"observed minus Shklovskii minus Galactic terms (distance: {distance['source']}; its "
+        "error enters both terms, propagated jointly)")
     gr = out.get("orbital_period_derivative_gr")
     if gr is not None and gr["value"]:
         out["orbital_period_derivative_intrinsic_over_gr"] = quantity(
-            (period_dot - kin) / gr["value"], None, "", "intrinsic over GR-predicted orbital decay")
+            intrinsic / gr["value"], None, "", "intrinsic over GR-predicted orbital decay")
 
 
 def derive_kinematic(model, spin_derived: dict | None, distance) -> dict | None:
@@ -239,7 +237,8 @@ def derive_kinematic(model, spin_derived: dict | None, distance) -> dict | None:
                          f"model of Damour & Taylor 1991 with {dbin.GALACTIC_CONSTANTS['source']}"]}
 
 
-def extra_report_sections(model, spin_derived: dict | None, result=None) -> dict:
+def extra_report_sections(model, spin_derived: dict | None, result=None,
+                          median_error_us: float | None = None) -> dict:
     """Keys added to report.json: ``position`` always, ``derived_binary`` for a
     binary, ``derived_kinematic`` when proper motion and a distance are known."""
     out = {"position": position_summary(model.astrometry, result)}
@@ -248,7 +247,7 @@ def extra_report_sections(model, spin_derived: dict | None, result=None) -> dict
         distance["proper_motion"] = _proper_motion(model, result)
         if distance["proper_motion"][0] == 0:
             distance = None
-    binary = derive_binary(model, spin_derived, distance)
+    binary = derive_binary(model, spin_derived, distance, median_error_us)
     if binary is not None:
         out["derived_binary"] = binary
     kin = derive_kinematic(model, spin_derived, distance)

@@ -168,7 +168,7 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
              "chi2": res.chi_square(), "dof": len(inputs.obs) - 1,
              "reduced_chi2": res.chi_square() / max(len(inputs.obs) - 1, 1),
              "rms_us": res.rms_us(), "weighted_rms_us": res.weighted_rms_us(),
-             "settings": settings_entry(inputs.obs),
+             "settings": settings_entry(inputs.obs, inputs.model),
              "warnings": inputs.obs.warnings + goodness_warnings(
                  res.chi_square(), len(inputs.obs) - 1,
                  red_noise=bool(inputs.model.noise_sections()), fitted=False),

@@ -14,7 +14,7 @@ from timingkit.formats.clock_table import ClockTable, read_clock_table
 from timingkit.geometry.ephemeris import Ephemeris, load_ephemeris
 from timingkit.formats.errors import InputError
 from timingkit.model.timing_model import TimingModel
-from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.observations import Observations
 from timingkit.geometry.sites import SiteTable
 from timingkit.formats.toa_table import ToaTable
 from timingkit.formats.toa_reader import read_toa_table
@@ -72,7 +72,7 @@ def reference_observations(model: TimingModel, sites, eph, clocks) -> Observatio
                          field="phase_zero.freq_mhz") from None
     toas = ToaTable.from_arrays(np.array([day]), np.array([frac]), np.array([1.0]),
                             np.array([freq]), np.array([pz["site"]]))
-    return prepare_observations(toas, sites, eph, clocks, planets=model.settings["shapiro_delay_planets"])
+    return model.prepare_observations(toas, sites, eph, clocks)
 
 
 def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths=(),
@@ -90,7 +90,8 @@ def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths
     inputs.selection = choose_toas(
         toas, exclude_paths, select, leave_out,
         canonical_site=lambda name: sites.lookup(name).name if name in sites else name)
-    inputs.obs = split_observations(toas, inputs.selection, lambda table: prepare_observations(
-        table, sites, eph, clocks, planets=model.settings["shapiro_delay_planets"]))
+    inputs.obs = split_observations(
+        toas, inputs.selection, lambda table: model.prepare_observations(table, sites, eph, clocks))
+    inputs.obs.warnings.extend(model.data_warnings(inputs.obs))   # the TOAs the fit uses
     inputs.reference = reference_observations(model, sites, eph, clocks)
     return inputs

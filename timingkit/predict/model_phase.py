@@ -13,7 +13,7 @@ import numpy as np
 from timingkit.formats.clock_table import ClockTable
 from timingkit.formats.toa_table import ToaTable
 from timingkit.geometry.ephemeris import Ephemeris
-from timingkit.geometry.observations import Observations, prepare_observations
+from timingkit.geometry.observations import Observations
 from timingkit.geometry.sites import SiteTable
 from timingkit.model.base import Evaluation
 from timingkit.model.timing_model import TimingModel
@@ -41,8 +41,8 @@ def evaluate_at(model: TimingModel, times: SplitTime, site, freq_mhz,
                     mjd_frac=times.frac, err_us=np.ones(n),
                     freq_mhz=np.broadcast_to(np.asarray(freq_mhz, dtype=float), (n,)).copy(),
                     site=np.broadcast_to(np.asarray(site, dtype=str), (n,)).copy())
-    obs = prepare_observations(toas, context.sites, context.ephemeris, context.clocks,
-                               planets=model.settings["shapiro_delay_planets"], exact=True)
+    obs = model.prepare_observations(toas, context.sites, context.ephemeris, context.clocks,
+                                     exact=True)
     return model.evaluate(obs, context.reference)
 
 
