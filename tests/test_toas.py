@@ -587,7 +587,7 @@ def test_missing_required_columns(tmp_path):
     err = _error(tmp_path, "# c\nmjd freq_mhz backend\n58849.5 1400 a\n")
     assert err.line == 2 and err.field == "err_us"
     msg = str(err)
-    assert "'err_us', 'site'" in msg and "columns found: mjd, freq_mhz, backend" in msg
+    assert "'err_us', 'site'" in msg and "columns found: 'mjd, freq_mhz, backend'" in msg
 
 
 def test_missing_header_and_uppercase_hints(tmp_path):

@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.textfile import read_text_file
 
 
@@ -35,6 +35,7 @@ class ClockTable:
     mjd: np.ndarray
     offset_us: np.ndarray
     warnings: list[str] = field(default_factory=list)
+    site_line: int | None = None    # line of the '# site:' comment
 
     def applies_to(self, site_name: str) -> bool:
         return "*" in self.sites or site_name.lower() in self.sites
@@ -56,6 +57,7 @@ def read_clock_table(path: str) -> ClockTable:
     """Read and validate a clock table; errors name the file, line and field."""
     text = read_text_file(path, "clock-correction table")
     sites: tuple[str, ...] = ()
+    site_line = None
     converts = ""
     header = None
     mjds, offs = [], []
@@ -70,13 +72,14 @@ def read_clock_table(path: str) -> ClockTable:
                 converts = value.strip()
             elif key.strip().lower() == "site":
                 sites = tuple(s.strip().lower() for s in value.replace(",", " ").split() if s.strip())
+                site_line = lineno
             continue
         parts = stripped.replace(",", " ").split()
         if header is None:
             header = parts
             if sorted(header) != ["mjd", "offset_us"]:
-                raise InputError(f"columns must be 'mjd' and 'offset_us', found {' '.join(parts)}",
-                                 path=path, line=lineno)
+                raise InputError("columns must be 'mjd' and 'offset_us'; found", path=path,
+                                 line=lineno, excerpt=" ".join(parts))
             continue
         if len(parts) != 2:
             raise InputError(f"expected 2 fields, found {len(parts)}", path=path, line=lineno)
@@ -85,8 +88,8 @@ def read_clock_table(path: str) -> ClockTable:
             try:
                 value = float(row[name])
             except ValueError:
-                raise InputError(f"not a number: {row[name]!r}", path=path, line=lineno,
-                                 field=name) from None
+                raise InputError("not a number", path=path, line=lineno, field=name,
+                                 excerpt=row[name]) from None
             if not np.isfinite(value):
                 raise InputError("must be finite", path=path, line=lineno, field=name)
         mjds.append(float(row["mjd"]))
@@ -100,4 +103,4 @@ def read_clock_table(path: str) -> ClockTable:
     if not mjds:
         raise InputError("no rows in clock table", path=path)
     return ClockTable(path=str(path), sites=sites, converts=converts,
-                      mjd=np.array(mjds), offset_us=np.array(offs))
+                      mjd=np.array(mjds), offset_us=np.array(offs), site_line=site_line)

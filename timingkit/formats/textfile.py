@@ -1,6 +1,7 @@
-"""Reading a user's text file with errors for people (missing, a folder,
-binary content, not UTF-8; TOML syntax with its line), shared by the
-readers of the format layer and the batch manifest."""
+"""Reading a user's text file with errors for people (missing, a folder, not a
+regular file, too large, binary content, not UTF-8; TOML syntax with its line),
+shared by the readers of the format layer and the batch manifest. A leading
+byte-order mark is not content and is dropped."""
 
 from __future__ import annotations
 
@@ -8,19 +9,19 @@ import re
 import tomllib
 
 from timingkit.formats.errors import InputError
+from timingkit.formats.safe_read import MAX_TEXT_INPUT_BYTES, open_regular, read_regular_bytes
+
+BYTE_ORDER_MARK = "\ufeff"
 
 
-def _read_bytes(path, what: str, size: int = -1) -> bytes:
-    """The file's first ``size`` bytes (all by default), with errors for people."""
-    try:
-        with open(path, "rb") as fh:
-            return fh.read(size)
-    except FileNotFoundError:
-        raise InputError(f"{what} not found", path=path) from None
-    except IsADirectoryError:
-        raise InputError(f"is a directory, expected a {what}", path=path) from None
-    except PermissionError:
-        raise InputError(f"cannot read this {what} (permission denied)", path=path) from None
+def _read_bytes(path, what: str, size: int = -1,
+                limit: int = MAX_TEXT_INPUT_BYTES) -> bytes:
+    """The file's first ``size`` bytes (all, up to ``limit``, by default); regular
+    files only (timingkit.formats.safe_read), with errors for people."""
+    if size < 0:
+        return read_regular_bytes(path, what, limit)
+    with open_regular(path, what, limit=1 << 62) as handle:
+        return handle.read(size)
 
 
 def is_fits_file(path, what: str) -> bool:
@@ -29,15 +30,16 @@ def is_fits_file(path, what: str) -> bool:
     return _read_bytes(path, what, 9).startswith(b"SIMPLE  =")
 
 
-def read_text_file(path, what: str) -> str:
+def read_text_file(path, what: str, limit: int = MAX_TEXT_INPUT_BYTES) -> str:
     """The file's text; ``what`` names the expected kind, e.g. "clock table"."""
-    raw = _read_bytes(path, what)
+    raw = _read_bytes(path, what, limit=limit)
     if b"\0" in raw:
         raise InputError(f"not a text {what} (binary content)", path=path)
     try:
-        return raw.decode("utf-8")
+        text = raw.decode("utf-8")
     except UnicodeDecodeError:
         raise InputError(f"not a text {what} (not UTF-8)", path=path) from None
+    return text[1:] if text.startswith(BYTE_ORDER_MARK) else text
 
 
 def parse_toml(text: str, path, parse_float=float) -> dict:

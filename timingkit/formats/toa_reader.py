@@ -35,7 +35,8 @@ import re
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
+from timingkit.formats.safe_read import MAX_TOA_TABLE_BYTES, open_regular
 from timingkit.formats.mjd_text import (
     FRONT_PAD,
     MAX_MJD_LEN,
@@ -44,7 +45,8 @@ from timingkit.formats.mjd_text import (
     mjd_problem,
     parse_mjd_tokens,
 )
-from timingkit.formats.toa_table import PULSE_COLUMN, REQUIRED_COLUMNS, SPLIT_RE, ToaTable
+from timingkit.formats.toa_table import (PULSE_COLUMN, REQUIRED_COLUMNS, SPLIT_RE, FlagColumn,
+                                         ToaTable)
 
 _MAX_NUMBER_LEN = 64          # err_us / freq_mhz tokens longer than this are rejected
 
@@ -53,6 +55,18 @@ _MAX_PULSE_DIGITS = 18        # fits int64 with room to spare
 
 
 _MAX_GATHER_WIDTH = 256       # text tokens wider than this are decoded one by one
+
+
+_MAX_COMPACT_WIDTH = 64       # flag columns wider than this are coded row by row
+
+
+MAX_FIELD_CHARS = 1000        # longer fields (flag values, names, numbers) are refused
+
+
+MAX_SITE_CHARS = 100          # a site name longer than this is not a site name
+
+
+MAX_COLUMNS = 1000            # a header naming more columns is refused
 
 
 
@@ -74,29 +88,41 @@ _PULSE_RE = re.compile(r"[+-]?[0-9]+")
 _EXAMPLE_HEADER = "mjd err_us freq_mhz site"
 
 
+ERR_US_RANGE = (1e-6, 1e9)           # 1 fs to 1000 s: anything else is a typing error
+FREQ_MHZ_RANGE = (1.0, 1e15)         # 1 MHz (below the ionosphere's cut-off) up; or inf
+
+
 def _number_problem(text: str, name: str) -> tuple[float | None, str | None]:
     if not text.isascii() or "_" in text or len(text) > _MAX_NUMBER_LEN:
-        return None, f"{text!r} is not a number"
+        return None, f"{excerpt(text)} is not a number"
     try:
         value = float(text)
     except ValueError:
-        return None, f"{text!r} is not a number"
+        return None, f"{excerpt(text)} is not a number"
     if name == "err_us":
+        low, high = ERR_US_RANGE
         if not np.isfinite(value):
-            return value, f"uncertainty must be finite (got {text!r})"
+            return value, f"uncertainty must be finite (got {excerpt(text)})"
         if not value > 0:
-            return value, f"uncertainty must be > 0 (got {text!r})"
+            return value, f"uncertainty must be > 0 (got {excerpt(text)})"
+        if not low <= value <= high:
+            return value, (f"uncertainty must lie between {low:g} and {high:g} µs "
+                           f"(got {excerpt(text)})")
     elif name == "freq_mhz":
+        low, high = FREQ_MHZ_RANGE
         if np.isnan(value) or not value > 0:
             return value, (f"frequency must be > 0 MHz, or 'inf' for infinite frequency "
-                           f"(got {text!r})")
+                           f"(got {excerpt(text)})")
+        if not (low <= value <= high or value == np.inf):
+            return value, (f"frequency must lie between {low:g} and {high:g} MHz, or be 'inf' "
+                           f"for infinite frequency (got {excerpt(text)})")
     return value, None
 
 
 def _pulse_problem(text: str) -> str | None:
     if not _PULSE_RE.fullmatch(text) or len(text.lstrip("+-")) > _MAX_PULSE_DIGITS:
         return (f"pulse number must be an integer of at most {_MAX_PULSE_DIGITS} digits "
-                f"(got {text!r}); every row needs one when the 'pulse' column is present")
+                f"(got {excerpt(text)}); every row needs one when the 'pulse' column is present")
     return None
 
 
@@ -143,9 +169,10 @@ def _parse_number_tokens(buf, starts, lens, name):
                 bad[i] = True
     values[bad] = np.nan
     if name == "err_us":
-        bad |= ~(np.isfinite(values) & (values > 0))
+        bad |= ~((values >= ERR_US_RANGE[0]) & (values <= ERR_US_RANGE[1]))
     else:
-        bad |= np.isnan(values) | ~(values > 0)
+        bad |= ~(((values >= FREQ_MHZ_RANGE[0]) & (values <= FREQ_MHZ_RANGE[1]))
+                 | (values == np.inf))
     return values, bad
 
 
@@ -176,32 +203,49 @@ def _text_column(buf, starts, lens) -> np.ndarray:
         return np.strings.decode(strings, "utf-8")
 
 
+def _flag_column(buf, starts, lens) -> FlagColumn:
+    """A flag column as codes + distinct values, never as a full-width text array
+    (one long value would otherwise widen every row)."""
+    width = max(int(lens.max()), 1) if len(lens) else 1
+    if width <= _MAX_COMPACT_WIDTH:
+        strings = gather(buf, starts, lens, width).view(f"S{width}").reshape(-1)
+        values, codes = np.unique(strings, return_inverse=True)
+        return FlagColumn(codes.reshape(-1), [v.decode("utf-8") for v in values.tolist()])
+    seen: dict[bytes, int] = {}
+    codes = np.empty(len(lens), dtype=np.int32)
+    for row, (s, n) in enumerate(zip(starts.tolist(), lens.tolist())):
+        codes[row] = seen.setdefault(buf[s:s + n].tobytes(), len(seen))
+    return FlagColumn(codes, [v.decode("utf-8") for v in seen])
+
+
 _BACK_PAD = 2 * MAX_MJD_LEN + _MAX_NUMBER_LEN + _MAX_GATHER_WIDTH + 8
 
 
 def _read_into_buffer(path: str) -> tuple[np.ndarray, np.ndarray]:
     """(buf, data): the file's bytes as ``data``, a view into the zero-padded
-    work buffer ``buf`` (FRONT_PAD bytes before, _BACK_PAD after)."""
-    try:
-        with open(path, "rb") as handle:
+    work buffer ``buf`` (FRONT_PAD bytes before, _BACK_PAD after). Regular files
+    of at most MAX_TOA_TABLE_BYTES only (timingkit.formats.safe_read)."""
+    with open_regular(path, "TOA table", MAX_TOA_TABLE_BYTES) as handle:
+        try:
             size = os.fstat(handle.fileno()).st_size
             buf = np.zeros(FRONT_PAD + size + _BACK_PAD, dtype=np.uint8)
             got = handle.readinto(memoryview(buf)[FRONT_PAD:FRONT_PAD + size])
-            rest = handle.read()            # a file that grew while we read it
-    except FileNotFoundError:
-        raise InputError("file not found (expected a TOA table)", path=path) from None
-    except IsADirectoryError:
-        raise InputError("is a directory, not a TOA table file", path=path) from None
-    except PermissionError:
-        raise InputError("permission denied while reading the TOA table", path=path) from None
-    except OSError as exc:
-        raise InputError(f"cannot read the TOA table: {exc.strerror or exc}", path=path) from None
+            rest = handle.read(MAX_TOA_TABLE_BYTES + 1 - got)   # a file that grew while read
+        except OSError as exc:
+            raise InputError(f"cannot read the TOA table: {exc.strerror or exc}",
+                             path=path) from None
     if rest or got != size:
         body = buf[FRONT_PAD:FRONT_PAD + got].tobytes() + rest
+        if len(body) > MAX_TOA_TABLE_BYTES:
+            raise InputError("too large for a TOA table (it grew past the limit while read)",
+                             path=path)
         buf = np.zeros(FRONT_PAD + len(body) + _BACK_PAD, dtype=np.uint8)
         buf[FRONT_PAD:FRONT_PAD + len(body)] = np.frombuffer(body, dtype=np.uint8)
         size = len(body)
-    return buf, buf[FRONT_PAD:FRONT_PAD + size]
+    data = buf[FRONT_PAD:FRONT_PAD + size]
+    if size and not (data == 10).any() and (data == 13).any():
+        data[data == 13] = 10               # CR-only line endings (classic Mac): lines, not spaces
+    return buf, data
 
 
 def _line_of_offset(data: np.ndarray, offset: int) -> int:
@@ -269,9 +313,9 @@ def _check_header(names: list[str], path: str, line_no: int) -> None:
     seen: dict[str, int] = {}
     for pos, name in enumerate(names, start=1):
         if name in seen:
-            raise InputError(f"column {name!r} appears twice in the header "
+            raise InputError(f"column {excerpt(name)} appears twice in the header "
                              f"(columns {seen[name]} and {pos})", path=path, line=line_no,
-                             field=name)
+                             field=excerpt(name)[1:-1])
         seen[name] = pos
     missing = [c for c in REQUIRED_COLUMNS if c not in seen]
     if missing:
@@ -279,16 +323,16 @@ def _check_header(names: list[str], path: str, line_no: int) -> None:
         lower = {n.lower(): n for n in names}
         for c in missing:
             if c in lower:
-                hints.append(f"found {lower[c]!r}: column names are lowercase")
+                hints.append(f"found {excerpt(lower[c], 24)}: column names are lowercase")
         if names and (MJD_RE.fullmatch(names[0]) or _number_problem(names[0], "")[1] is None):
             hints.append(f"the first non-comment line must name the columns, "
                          f"e.g. '{_EXAMPLE_HEADER}'; this one looks like data")
         plural = "s" if len(missing) > 1 else ""
-        msg = (f"missing required column{plural} {', '.join(repr(m) for m in missing)}; "
-               f"columns found: {', '.join(names)}")
+        msg = f"missing required column{plural} {', '.join(repr(m) for m in missing)}"
         if hints:
             msg += " (" + "; ".join(hints) + ")"
-        raise InputError(msg, path=path, line=line_no, field=missing[0])
+        raise InputError(msg + "; columns found", path=path, line=line_no, field=missing[0],
+                         excerpt=", ".join(names))
 
 
 def _field_count_error(data, path, line_no, names) -> InputError:
@@ -301,7 +345,7 @@ def _field_count_error(data, path, line_no, names) -> InputError:
         fld = names[k]
     else:
         msg = (f"{k} fields but the header names {c} columns ({cols}); "
-               f"extra: {' '.join(tokens[c:])!r}")
+               f"extra: {excerpt(' '.join(tokens[c:]))}")
         fld = None
     if any(t.startswith("#") for t in tokens):
         msg += "; comments must be on their own line starting with '#'"
@@ -326,6 +370,27 @@ def _row_error(data, path, line_no, names) -> InputError:
                        f"{path}:{line_no}")
 
 
+def _check_field_lengths(data, starts, ends, first_token, h0, ncol, path) -> None:
+    """Refuse a field longer than MAX_FIELD_CHARS bytes (or a site name longer than
+    MAX_SITE_CHARS), naming its line and column."""
+    lengths = ends - starts
+    long = np.flatnonzero(lengths > MAX_SITE_CHARS)
+    if len(long) == 0:
+        return
+    names = [data[s:e].tobytes().decode("utf-8", "replace")
+             for s, e in zip(starts[h0:h0 + ncol].tolist(), ends[h0:h0 + ncol].tolist())]
+    for token in long.tolist():
+        line_index = int(np.searchsorted(first_token, token, side="right")) - 1
+        column = token - int(first_token[line_index])
+        name = names[column] if token >= h0 + ncol and column < ncol else None
+        if lengths[token] > MAX_FIELD_CHARS or name == "site":
+            limit = MAX_SITE_CHARS if name == "site" else MAX_FIELD_CHARS
+            raise InputError(f"a field of {int(lengths[token])} characters; fields are limited "
+                             f"to {limit} characters", path=path,
+                             line=_line_of_offset(data, int(starts[token])),
+                             field=None if name is None else excerpt(name, 24)[1:-1])
+
+
 def read_toa_table(path) -> ToaTable:
     """Read a TOA table (DESIGN.md §4). Raises InputError naming file, line and
     column for any fault. Measured on the 2-core development machine: a
@@ -346,6 +411,10 @@ def read_toa_table(path) -> ToaTable:
     header_line = int(content[0]) + 1
     h0 = int(first_token[content[0]])
     ncol = int(count[content[0]])
+    if ncol > MAX_COLUMNS:
+        raise InputError(f"the header names {ncol} columns; a TOA table has at most "
+                         f"{MAX_COLUMNS}", path=path, line=header_line)
+    _check_field_lengths(data, starts, ends, first_token, h0, ncol, path)
     names = [data[s:e].tobytes().decode("utf-8")
              for s, e in zip(starts[h0:h0 + ncol].tolist(), ends[h0:h0 + ncol].tolist())]
     _check_header(names, path, header_line)
@@ -386,7 +455,7 @@ def read_toa_table(path) -> ToaTable:
     mjd_text = gather(buf, starts[:, j], lens[:, j], width).view(
         f"S{width}").reshape(-1).astype(f"U{width}")
     site = _text_column(buf, starts[:, col["site"]], lens[:, col["site"]])
-    flags = {name: _text_column(buf, starts[:, j], lens[:, j])
+    flags = {name: _flag_column(buf, starts[:, j], lens[:, j])
              for name, j in col.items()
              if name not in REQUIRED_COLUMNS and name != PULSE_COLUMN}
     return ToaTable(mjd_text=mjd_text, mjd_day=day, mjd_frac=frac, err_us=numbers["err_us"],

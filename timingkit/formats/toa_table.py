@@ -17,6 +17,87 @@ SPLIT_RE = re.compile(r"[ \t\r\n\v\f,]+")   # field separators: runs of whitespa
 PULSE_COLUMN = "pulse"
 
 
+class FlagColumn:
+    """One flag column stored compactly: ``codes`` (int32, one per TOA) index
+    ``values``, the distinct strings. A million TOAs with a few backend names
+    cost 4 MB, and one long value is stored once, not once per row.
+
+    It behaves as a 1-d array of str where the code uses it: ``len``, iteration,
+    ``column == "x"`` (a boolean mask), indexing (a str for one row, a FlagColumn
+    for a mask, slice or index array) and ``np.asarray`` (an object array whose
+    entries share the distinct strings).
+    """
+
+    __slots__ = ("codes", "values")
+    ndim = 1
+
+    def __init__(self, codes, values):
+        self.codes = np.asarray(codes, dtype=np.int32)
+        self.values = tuple(str(v) for v in values)
+
+    @classmethod
+    def of(cls, column) -> "FlagColumn":
+        """A FlagColumn of any sequence of strings (a FlagColumn is returned as is)."""
+        if isinstance(column, FlagColumn):
+            return column
+        strings = np.atleast_1d(np.asarray(column, dtype=str))
+        values, codes = np.unique(strings, return_inverse=True)
+        return cls(codes.reshape(-1), values.tolist())
+
+    @property
+    def shape(self) -> tuple[int]:
+        return self.codes.shape
+
+    def __len__(self) -> int:
+        return len(self.codes)
+
+    def _objects(self) -> np.ndarray:
+        table = np.empty(len(self.values), dtype=object)
+        table[:] = self.values
+        return table
+
+    def __array__(self, dtype=None, copy=None):
+        out = self._objects()[self.codes] if self.values else np.empty(len(self), dtype=object)
+        return out if dtype is None else out.astype(dtype)
+
+    def __iter__(self):
+        return (self.values[c] for c in self.codes.tolist())
+
+    def tolist(self) -> list[str]:
+        return list(self)
+
+    def __getitem__(self, index):
+        if isinstance(index, (int, np.integer)):
+            return self.values[int(self.codes[index])]
+        return FlagColumn(self.codes[index], self.values)
+
+    def _code_of(self, value) -> int:
+        try:
+            return self.values.index(str(value))
+        except ValueError:
+            return -1
+
+    def __eq__(self, other):
+        if isinstance(other, str):
+            return self.codes == self._code_of(other)
+        return np.asarray(self) == np.asarray(other)
+
+    def __ne__(self, other):
+        return ~np.asarray(self.__eq__(other), dtype=bool)
+
+    __hash__ = None
+
+    def present_values(self) -> list[str]:
+        """The distinct values that occur, sorted."""
+        return sorted(self.values[c] for c in np.unique(self.codes).tolist())
+
+    def max_length(self) -> int:
+        return max((len(self.values[c]) for c in np.unique(self.codes).tolist()), default=0)
+
+    def __repr__(self) -> str:
+        return f"FlagColumn({len(self)} rows, {len(self.values)} distinct values)"
+
+
 @dataclass(eq=False)
 class ToaTable:
     """A table of times of arrival.
@@ -27,8 +108,8 @@ class ToaTable:
     the text; ``err_us``: 1-sigma uncertainty in microseconds; ``freq_mhz``:
     observing frequency in MHz (``inf`` = infinite frequency, no dispersion);
     ``site``: site names (resolved against the site table elsewhere);
-    ``pulse``: int64 pulse numbers or None; ``flags``: column name -> str
-    array; ``line_numbers``: 1-based line of each TOA in its file (None for
+    ``pulse``: int64 pulse numbers or None; ``flags``: column name ->
+    :class:`FlagColumn` (compact: codes + distinct values); ``line_numbers``: 1-based line of each TOA in its file (None for
     tables made in code); ``path``: source file or None.
     """
 
@@ -52,8 +133,7 @@ class ToaTable:
         self.site = np.atleast_1d(np.asarray(self.site, dtype=str))
         if self.pulse is not None:
             self.pulse = np.atleast_1d(np.asarray(self.pulse, dtype=np.int64))
-        self.flags = {str(k): np.atleast_1d(np.asarray(v, dtype=str))
-                      for k, v in (self.flags or {}).items()}
+        self.flags = {str(k): FlagColumn.of(v) for k, v in (self.flags or {}).items()}
         if self.line_numbers is not None:
             self.line_numbers = np.atleast_1d(np.asarray(self.line_numbers, dtype=np.int64))
         if self.path is not None:

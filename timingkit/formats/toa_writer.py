@@ -66,7 +66,9 @@ def write_toa_table(toas: ToaTable, path, extra_columns: dict | None = None) -> 
     }
     if toas.pulse is not None:
         columns[PULSE_COLUMN] = toas.pulse.astype(str)
-    columns.update(toas.flags)
+    for name, column in toas.flags.items():     # FlagColumn: distinct values + codes
+        values = np.asarray(column.values if column.values else [""], dtype=str)
+        columns[name] = values[column.codes]
     for name, values in (extra_columns or {}).items():
         if name in columns:
             raise InputError(f"extra column {name!r} clashes with an existing column",

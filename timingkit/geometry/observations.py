@@ -118,6 +118,10 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
             tdb = tt.add_seconds(delta)
             tdb_day[idx], tdb_frac[idx], offset_s[idx] = tdb.day, tdb.frac, delta
         else:
+            if not any(table.applies_to(site.name) for table in clock_tables):
+                warnings.append(f"no clock corrections for site {site.name}: its clock is taken "
+                                "as UTC (errors of up to µs possible; supply a clock table for it "
+                                "in settings.clock)")
             for table in clock_tables:
                 if table.applies_to(site.name):
                     clock_s, warn = table.offset_s(given.mjd, site.name)
@@ -153,9 +157,6 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
     tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")
     lost_hi, lost_lo = tdb_all.seconds_since(day, frac)
     correction_s = (offset_s - lost_hi) - lost_lo
-    if not clock_tables and not np.all(bary | (names == "geocentre")):
-        warnings.append("no observatory clock corrections applied: site clocks are taken as UTC "
-                        "(errors of up to µs possible; supply clock tables in settings.clock)")
     return observations_at(toas, tdb_all, site_pos, site_vel, bary, names.astype(str), ephemeris,
                            planets, clock_corrections=sorted(set(used_clocks)),
                            warnings=_unique(warnings), tdb_correction_s=correction_s,

@@ -4,6 +4,7 @@ tables, ephemeris), checked and barycentred once (:func:`load_inputs`).
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
@@ -12,7 +13,7 @@ import numpy as np
 
 from timingkit.formats.clock_table import ClockTable, read_clock_table
 from timingkit.geometry.ephemeris import Ephemeris, load_ephemeris
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.model.timing_model import TimingModel
 from timingkit.geometry.observations import Observations
 from timingkit.geometry.sites import SiteTable
@@ -55,8 +56,24 @@ def load_context(model: TimingModel, sites_paths=(), ephemeris=None, clock_paths
     eph = load_ephemeris(ephemeris) if ephemeris else load_ephemeris(model.settings["ephemeris"],
                                                                       base_dir=base)
     clock_files = [_resolve(p, base) for p in model.settings["clock"]] + list(clock_paths)
-    clocks = [read_clock_table(p) for p in clock_files]
+    clocks = [clock_for_sites(read_clock_table(p), sites) for p in clock_files]
     return sites, eph, clocks
+
+
+def clock_for_sites(table: ClockTable, sites: SiteTable) -> ClockTable:
+    """The table with its ``# site:`` names resolved to site names (other names
+    allowed); a name that matches no site is an error at that line."""
+    if "*" in table.sites:
+        return table
+    names = []
+    for name in table.sites:
+        try:
+            names.append(sites.lookup(name).name)
+        except InputError:
+            raise InputError(f"this clock table is for site {excerpt(name, 30)}, which matches no "
+                             f"known site ({', '.join(sites.names)}; other names are accepted)",
+                             path=table.path, line=table.site_line, field="site") from None
+    return dataclasses.replace(table, sites=tuple(dict.fromkeys(names)))
 
 
 def reference_observations(model: TimingModel, sites, eph, clocks) -> Observations | None:
