@@ -64,11 +64,16 @@ def _tree_digest(root: Path) -> dict[str, str]:
             for p in sorted(root.rglob("*")) if p.is_file()}
 
 
+def _hidden_leftovers(outdir: Path) -> list[Path]:
+    """Hidden entries of OUTDIR besides the lock file (which stays, empty, by design)."""
+    return [p for p in outdir.iterdir() if p.name.startswith(".") and p.name != ".timingkit-lock"]
+
+
 def _assert_no_partial_folders(outdir: Path) -> None:
     """Every visible source folder is either a complete fit or a bare error.txt."""
     for folder in outdir.iterdir():
         if folder.is_dir() and not folder.name.startswith("."):
-            names = {p.name for p in folder.iterdir()}
+            names = {p.name for p in folder.iterdir() if not p.name.startswith(".")}
             assert names == {"error.txt"} or FIT_OUTPUTS <= names, (folder, names)
             if "report.json" in names:
                 json.loads((folder / "report.json").read_text())
@@ -139,10 +144,11 @@ def test_nine_succeed_and_the_broken_one_is_reported(pool_run, ten_sources):
     assert "demo-batch-006" in broken["message"] and "obs.toas" in broken["message"]
     assert "mjd" in broken["message"] and "\n" not in broken["message"]
     assert all(broken[c] == "" for c in ISSUE_COLUMNS[2:-1])
-    assert {p.name for p in (outdir / "demo-batch-006").iterdir()} == {"error.txt"}
+    assert {p.name for p in (outdir / "demo-batch-006").iterdir()
+            if not p.name.startswith(".")} == {"error.txt"}
     assert (outdir / "demo-batch-006" / "error.txt").read_text().startswith(broken["message"])
     _assert_no_partial_folders(outdir)
-    assert not [p for p in outdir.iterdir() if p.name.startswith(".")]  # no leftovers
+    assert not _hidden_leftovers(outdir)  # no leftovers
     assert not (outdir / "notes").exists()
 
     for i, row in enumerate(rows):
@@ -318,7 +324,7 @@ def test_worker_killed_mid_source_is_isolated(three_sources, tmp_path):
     assert result.succeeded == ["demo-batch-000", "demo-batch-002"]
     assert "worker process died" in result.rows[1]["message"]
     _assert_no_partial_folders(outdir)
-    assert not [p for p in outdir.iterdir() if p.name.startswith(".")]
+    assert not _hidden_leftovers(outdir)
 
 
 def test_interrupted_run_leaves_no_partial_report_and_rerun_completes(three_sources, tmp_path):
@@ -353,7 +359,7 @@ def test_interrupted_run_leaves_no_partial_report_and_rerun_completes(three_sour
                       fit_function=fit_or_stall)
     assert rerun.exit_status == 0 and rerun.refitted == ["demo-batch-002"]
     _assert_no_partial_folders(outdir)
-    assert not [p for p in outdir.iterdir() if p.name.startswith(".")]
+    assert not _hidden_leftovers(outdir)
     assert len(_read_csv(outdir / "summary.csv")) == 3
 
 
@@ -501,6 +507,7 @@ def test_bad_engine_options(tmp_path, options, field):
 
 
 def test_leftover_folder_names_parse_back_to_source_names():
-    assert batch._tmp_folder_source_name(".tmp-demo-batch-002-0a1b2c3d") == "demo-batch-002"
-    assert batch._tmp_folder_source_name(".tmp-a-ffffffff") == "a"
-    assert batch._tmp_folder_source_name(".old-a-ffffffff") is None
+    from timingkit.outputs.output_set import work_folder_source
+    assert work_folder_source(".tmp-demo-batch-002-0a1b2c3d") == "demo-batch-002"
+    assert work_folder_source(".tmp-a-ffffffff") == "a"
+    assert work_folder_source(".old-a-ffffffff") is None

@@ -39,7 +39,13 @@ from timingkit.formats.errors import FitError, InputError
 from timingkit.batch.outcomes import STATUS_FAILED, STATUS_OK, BatchResult, SourceOutcome, one_line
 from timingkit.batch.fingerprint import HASH_FILE, software_fingerprint, function_name, inputs_sha256
 from timingkit.batch.summary import REPORT_FILE, read_report, summary_row, write_summaries
-from timingkit.batch.sources import Source, discover_sources
+from timingkit.batch.sources import TOP_LEVEL_OUTPUTS, Source, discover_sources
+from timingkit.batch.worker_guard import (outputs_intact, parent_is_gone,
+                                          record_outputs, stop_pool, terminate_on_signals,
+                                          watch_parent)
+from timingkit.outputs.folder_lock import lock_output_folder
+from timingkit.outputs.output_set import (flush_to_disk, is_own_folder, new_work_folder,
+                                          remove_own_leftovers, swap_into_place)
 
 
 ERROR_FILE = "error.txt"
@@ -60,56 +66,28 @@ class _Job:
     outdir: str
     digest: str
     fit_function: Callable
+    batch_pid: int | None = None     # the batch's main process (None on Dask)
 
 
 def _new_work_folder(outdir: str, name: str) -> Path:
-    """Create ``OUTDIR/.tmp-NAME-xxxxxxxx`` with the usual permissions (0o777 minus umask)."""
-    while True:
-        path = Path(outdir) / f".tmp-{name}-{os.urandom(4).hex()}"
-        try:
-            path.mkdir(mode=0o777)
-            return path
-        except FileExistsError:
-            continue
+    return new_work_folder(outdir, name, purpose="batch source folder")
 
+
+def _remove_leftovers(outdir: Path) -> set[str]:
+    """Remove the marked work folders of earlier interrupted work (never a user's
+    files); return the names of the sources whose work folders were found."""
+    return remove_own_leftovers(outdir, TOP_LEVEL_OUTPUTS)
 
 
 def _reason(exc: BaseException) -> tuple[str, bool]:
-    """One-line reason for a failure, and whether it is a timingkit bug."""
-    if isinstance(exc, (InputError, FitError)):
+    """One-line reason for a failure, and whether it is a timingkit bug. The reason of
+    bad input names file, line and field but quotes none of the file's contents
+    (summaries are meant for sharing)."""
+    if isinstance(exc, InputError):
+        return one_line(exc.public_message or type(exc).__name__), False
+    if isinstance(exc, FitError):
         return one_line(str(exc) or type(exc).__name__), False
     return one_line(f"internal error ({type(exc).__name__}): {exc}"), True
-
-
-def _flush_to_disk(folder: Path) -> None:
-    """fsync every file in ``folder`` so that a folder renamed into place after a
-    crash of the machine holds complete files, not empty ones (best effort)."""
-    for path in folder.iterdir():
-        try:
-            descriptor = os.open(path, os.O_RDONLY)
-        except OSError:
-            continue
-        try:
-            os.fsync(descriptor)
-        except OSError:
-            pass  # not supported here (e.g. read-only handles on some systems)
-        finally:
-            os.close(descriptor)
-
-
-def _swap_into_place(tmp: Path, final: Path) -> None:
-    """Rename the finished folder ``tmp`` to ``final``; an older ``final`` is moved aside
-    first and removed after, so ``final`` is at every moment absent or complete."""
-    old = None
-    if final.exists() or final.is_symlink():
-        old = final.with_name(f".old-{final.name}-{os.urandom(4).hex()}")
-        os.replace(final, old)
-    os.replace(tmp, final)
-    if old is not None:
-        if old.is_dir() and not old.is_symlink():
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            old.unlink(missing_ok=True)
 
 
 def install_failure(outdir: str, source: Source, reason: str, details: str = "") -> None:
@@ -120,7 +98,7 @@ def install_failure(outdir: str, source: Source, reason: str, details: str = "")
     if details:
         text += "\n" + details.rstrip() + "\n"
     (tmp / ERROR_FILE).write_text(text, encoding="utf-8")
-    _swap_into_place(tmp, Path(outdir) / source.name)
+    swap_into_place(tmp, Path(outdir) / source.name)
 
 
 def process_source(job: _Job) -> dict:
@@ -146,12 +124,18 @@ def process_source(job: _Job) -> dict:
         if not (tmp / REPORT_FILE).is_file():
             raise RuntimeError(f"the fit returned without writing {REPORT_FILE}")
         (tmp / HASH_FILE).write_text(job.digest + "\n", encoding="utf-8")
-        _flush_to_disk(tmp)
-        _swap_into_place(tmp, Path(job.outdir) / source.name)
+        record_outputs(tmp)
+        flush_to_disk(tmp)
+        if parent_is_gone(job.batch_pid):      # the batch has ended: write nothing more
+            shutil.rmtree(tmp, ignore_errors=True)
+            os._exit(1)
+        swap_into_place(tmp, Path(job.outdir) / source.name)
     except Exception as exc:
         status = STATUS_FAILED
         message, internal = _reason(exc)
         shutil.rmtree(tmp, ignore_errors=True)
+        if parent_is_gone(job.batch_pid):
+            os._exit(1)
         install_failure(job.outdir, source, message, traceback.format_exc() if internal else "")
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -180,40 +164,19 @@ def _one_numerical_thread():
                 os.environ[n] = value
 
 
-def _tmp_folder_source_name(entry: str) -> str | None:
-    """Source name of a ``.tmp-NAME-xxxxxxxx`` folder (the hex suffix contains no '-')."""
-    if not entry.startswith(".tmp-") or "-" not in entry[5:]:
-        return None
-    return entry[5:].rsplit("-", 1)[0]
-
-
-def _remove_leftovers(outdir: Path) -> set[str]:
-    """Remove temporary folders and files of earlier interrupted work; return the
-    names of the sources whose temporary folders were found."""
-    names = set()
-    for entry in outdir.iterdir():
-        if entry.name.startswith((".tmp-", ".old-")) or (entry.name.startswith(".")
-                                                         and entry.name.endswith(".tmp")):
-            name = _tmp_folder_source_name(entry.name)
-            if name is not None and entry.is_dir():
-                names.add(name)
-            if entry.is_dir() and not entry.is_symlink():
-                shutil.rmtree(entry, ignore_errors=True)
-            else:
-                entry.unlink(missing_ok=True)
-    return names
-
-
 def _pool_pass(jobs: list[_Job], workers: int, done: Callable[[dict], None]) -> list[_Job]:
     """Run ``jobs`` on a fresh process pool; return those left unfinished by a dead worker."""
     import multiprocessing
 
     unfinished = []
     # spawn: clean workers on every platform (no forked threads or locks); each worker
-    # imports timingkit and opens the ephemeris once, then serves many sources.
+    # imports timingkit and opens the ephemeris once, then serves many sources. Each
+    # worker watches this process and ends when it is gone (watch_parent).
     context = multiprocessing.get_context("spawn")
-    with _one_numerical_thread(), ProcessPoolExecutor(max_workers=workers,
-                                                      mp_context=context) as pool:
+    with _one_numerical_thread():
+        pool = ProcessPoolExecutor(max_workers=workers, mp_context=context,
+                                   initializer=watch_parent, initargs=(os.getpid(),))
+    try:
         futures = {pool.submit(process_source, job): job for job in jobs}
         for future in as_completed(futures):
             try:
@@ -223,6 +186,10 @@ def _pool_pass(jobs: list[_Job], workers: int, done: Callable[[dict], None]) -> 
             except Exception as exc:  # the job could not be sent, or the worker's own I/O failed
                 _record_failure(futures[future], one_line(
                     f"internal error in the batch worker ({type(exc).__name__}: {exc})"), done)
+    except BaseException:
+        stop_pool(pool)          # interrupted: no worker outlives the batch
+        raise
+    pool.shutdown(wait=True)
     return unfinished
 
 
@@ -312,7 +279,8 @@ def _run_on_dask(jobs: list[_Job], cluster: str, workers: int, done: Callable[[d
 
 def _check_outputs_spare_inputs(sources: Sequence[Source], outdir: Path) -> None:
     """Refuse an OUTDIR whose per-source folders would hold (and so replace) inputs,
-    e.g. ``-o`` pointing at the source directory itself."""
+    e.g. ``-o`` pointing at the source directory itself, or an OUTDIR that is the
+    folder of a source's inputs (the summaries would land among them)."""
     for source in sources:
         final = outdir / source.name
         inputs = [source.toas_path, source.model_path, *source.sites_paths,
@@ -322,6 +290,21 @@ def _check_outputs_spare_inputs(sources: Sequence[Source], outdir: Path) -> None
                 raise InputError(f"the output folder would replace the inputs of source "
                                  f"'{source.name}' ({path}); choose another output folder",
                                  path=str(outdir), field="outdir")
+        for path in filter(None, (source.toas_path, source.model_path)):
+            if Path(path).resolve().parent == outdir:
+                raise InputError(f"the output folder is the input folder of source "
+                                 f"'{source.name}' ({path}); choose another output folder",
+                                 path=str(outdir), field="outdir")
+
+
+def _check_folders_are_own(sources: Sequence[Source], outdir: Path) -> None:
+    """Refuse to replace an ``OUTDIR/NAME`` that timingkit did not write."""
+    for source in sources:
+        final = outdir / source.name
+        if (final.exists() or final.is_symlink()) and not is_own_folder(final):
+            raise InputError(f"{final} exists and holds files timingkit did not write; move it "
+                             f"away or choose another output folder (source '{source.name}')",
+                             path=str(outdir), field="outdir")
 
 
 def _default_fit_function() -> Callable:
@@ -336,7 +319,8 @@ def _reusable(outdir: Path, source: Source, digest: str) -> bool:
         stored = (folder / HASH_FILE).read_text(encoding="utf-8").strip()
     except OSError:
         return False
-    return stored == digest and (folder / REPORT_FILE).is_file() and not (folder / ERROR_FILE).exists()
+    return (stored == digest and not (folder / ERROR_FILE).exists()
+            and outputs_intact(folder, required=(REPORT_FILE, HASH_FILE)))
 
 
 def _progress_bar(total: int, progress: bool | None):
@@ -349,7 +333,7 @@ def _progress_bar(total: int, progress: bool | None):
 
 def run_batch(sources, outdir, workers: int | None = None, cluster: str | None = None,
               resume: bool = False, progress: bool | None = True,
-              fit_function: Callable | None = None) -> BatchResult:
+              fit_function: Callable | None = None, wait: bool = False) -> BatchResult:
     """Fit every source and write the per-source folders and the summary files.
 
     ``sources``: a list of :class:`Source`, or a manifest/directory path (see
@@ -360,8 +344,10 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
     sources whose :func:`inputs_sha256` matches their last successful run.
     ``progress``: True/False, or None for "only on a terminal".
     ``fit_function``: a picklable function with the signature of
-    ``timingkit.pipeline.fit_run.fit_files`` (default). Raises InputError for bad
-    arguments or a bad manifest; individual sources never raise.
+    ``timingkit.pipeline.fit_run.fit_files`` (default). ``wait``: when another run
+    holds OUTDIR's lock, wait for it instead of refusing. Raises InputError for bad
+    arguments, a bad manifest or a locked OUTDIR; individual sources never raise.
+    SIGTERM/SIGINT stop the workers and leave every finished source in place.
     """
     started = time.perf_counter()
     outdir = Path(outdir).expanduser().resolve()
@@ -382,9 +368,20 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
                          "such as tcp://HOST:PORT", field="cluster")
     if cluster is not None:
         _require_dask()
-    outdir.mkdir(parents=True, exist_ok=True)
-    _remove_leftovers(outdir)
+    try:
+        outdir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"cannot create the output folder ({exc.strerror})", path=str(outdir),
+                         field="outdir") from None
+    with lock_output_folder(outdir, wait=wait), terminate_on_signals():
+        _check_folders_are_own(sources, outdir)
+        _remove_leftovers(outdir)
+        return _run_locked(sources, outdir, workers, cluster, resume, progress, fit_function,
+                           started)
 
+
+def _run_locked(sources, outdir, workers, cluster, resume, progress, fit_function,
+                started) -> BatchResult:
     software = software_fingerprint()
     outcomes: dict[str, SourceOutcome] = {}
     pending, jobs = [], []
@@ -414,7 +411,8 @@ def run_batch(sources, outdir, workers: int | None = None, cluster: str | None =
             pending.append((source, digest))
         if pending:
             function = fit_function or _default_fit_function()
-            jobs = [_Job(source, str(outdir), digest, function) for source, digest in pending]
+            pid = os.getpid() if cluster is None else None
+            jobs = [_Job(source, str(outdir), digest, function, pid) for source, digest in pending]
         if not jobs:
             engine = "none (nothing to fit)"
         elif cluster is None:

@@ -39,13 +39,16 @@ class InputError(TimingkitError):
     ``path``, ``line`` (1-based) and ``field`` are optional and, when given,
     are put in front of the message as ``path:line: field 'x': message``.
     ``excerpt``: the piece of input that could not be read, shown sanitised and
-    cut short after the message, and left out of :attr:`public_message`.
+    cut short after the message, and left out of :attr:`public_message`;
+    ``quoted``: pieces of input that the message itself quotes, replaced by '...'
+    in :attr:`public_message`.
     """
 
     def __init__(self, message: str, path: str | None = None,
                  line: int | None = None, field: str | None = None,
-                 excerpt: str | None = None):
+                 excerpt: str | None = None, quoted=()):
         self.message = cap(str(message))
+        self.quoted = tuple(str(q) for q in quoted if q)
         self.path = None if path is None else cap(str(path), 300)
         self.line = line
         self.field = None if field is None else cap(str(field), 120)
@@ -70,13 +73,18 @@ class InputError(TimingkitError):
     @property
     def public_message(self) -> str:
         """The message without any excerpt of the input (for shared outputs)."""
-        return self._where() + self.message
+        message = self.message
+        for piece in sorted(self.quoted, key=len, reverse=True):
+            message = message.replace(repr(piece), "'...'").replace(piece, "...")
+        return self._where() + message + (" (the text is not shown here)"
+                                          if self.excerpt is not None else "")
 
     def located(self, path=None, line=None, field=None) -> "InputError":
         """A copy with the place filled in where this error lacks it."""
         return InputError(self.message, path=self.path or path,
                           line=self.line if self.line is not None else line,
-                          field=self.field or field, excerpt=self.excerpt)
+                          field=self.field or field, excerpt=self.excerpt,
+                          quoted=self.quoted)
 
 
 class FitError(TimingkitError):

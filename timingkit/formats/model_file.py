@@ -14,12 +14,12 @@ from __future__ import annotations
 
 import math
 import os
-import tempfile
 import tomllib
 from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation
 from typing import Any
 
+from timingkit.formats.atomic_file import atomic_write_bytes, atomic_write_text  # noqa: F401
 from timingkit.formats.errors import InputError
 from timingkit.formats.textfile import parse_toml, read_text_file
 
@@ -267,21 +267,3 @@ def write_model_document(data: dict, path: str, comment: str | None = None) -> N
     text = format_model_document(data, comment)
     tomllib.loads(text)  # never write a file we could not read back
     atomic_write_text(path, text)
-
-
-def atomic_write_text(path: str, text: str) -> None:
-    atomic_write_bytes(path, text.encode("utf-8"))
-
-
-def atomic_write_bytes(path: str, data: bytes) -> None:
-    """Write a temporary file in the same folder, then rename it over ``path``."""
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".tmp-", dir=folder)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise

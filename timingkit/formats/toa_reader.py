@@ -365,7 +365,7 @@ def _row_error(data, path, line_no, names) -> InputError:
         elif name == PULSE_COLUMN:
             problem = _pulse_problem(text)
         if problem:
-            return InputError(problem, path=path, line=line_no, field=name)
+            return InputError(problem, path=path, line=line_no, field=name, quoted=(text,))
     raise RuntimeError(f"internal error: the fast and careful TOA parsers disagree about "
                        f"{path}:{line_no}")
 

@@ -14,17 +14,15 @@ nanosecond), ``residual_phase`` with 13 significant digits, ``freq_mhz`` and
 
 from __future__ import annotations
 
-import contextlib
 import csv
 import math
-import os
 import re
-import uuid
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from timingkit.formats.atomic_file import atomic_output
 from timingkit.formats.errors import InputError
 
 CORE_COLUMNS = ("mjd", "site", "freq_mhz", "err_us", "residual_us",
@@ -35,28 +33,6 @@ OPTIONAL_COLUMNS = ("toa_line", "orbital_phase", "left_out")
 # so no precision is lost between the TOA table and this file).
 _MJD_TEXT = re.compile(r"^[+-]?(\d+(\.\d*)?|\.\d+)$")
 _INTEGER_TEXT = re.compile(r"^[+-]?\d+$")
-
-
-@contextlib.contextmanager
-def atomic_output(path, binary: bool = False):
-    """Open a temporary file beside ``path`` for writing; rename it to ``path``
-    only when the block finishes without error (else delete it). The file gets
-    the usual permissions (0o666 minus the umask), like a plain open()."""
-    path = Path(path)
-    temporary = path.with_name(f".{path.name}.{os.getpid()}.{uuid.uuid4().hex[:8]}.tmp")
-    descriptor = os.open(temporary, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666)
-    try:
-        if binary:
-            handle = os.fdopen(descriptor, "wb")
-        else:
-            handle = os.fdopen(descriptor, "w", newline="", encoding="utf-8")
-        with handle:
-            yield handle
-        os.replace(temporary, path)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(temporary)
-        raise
 
 
 def _text_array(values) -> np.ndarray:

@@ -13,8 +13,9 @@ import os
 
 from timingkit.fit.fitter import FitResult, compute_residuals, fit, goodness_warnings
 from timingkit.geometry.observations import Observations
+from timingkit.outputs.output_set import check_output_folder, output_set
 from timingkit.outputs.report import build_report, residual_table, settings_entry, write_json
-from timingkit.pipeline.inputs import Inputs, load_inputs
+from timingkit.pipeline.inputs import Inputs, check_color_by, load_inputs
 from timingkit.pipeline.left_out import full_tables, selection_entry
 
 
@@ -54,8 +55,9 @@ def fit_inputs(inputs: Inputs, outdir: str | None = None, make_plots: bool = Tru
                                         glitch_epochs_mjd=glitch_epochs_mjd)
         report["suggestions"] = suggestions_entry(comparisons, suggest_level)
     if outdir is not None:
-        write_fit_outputs(result, inputs.obs, report, outdir, make_plots, color_by,
-                          selection=inputs.selection, reference=inputs.reference)
+        with output_set(outdir, inputs=inputs.paths) as work:
+            write_fit_outputs(result, inputs.obs, report, str(work), make_plots, color_by,
+                              selection=inputs.selection, reference=inputs.reference)
     if bar:
         bar.update(1)
         bar.close()
@@ -75,7 +77,8 @@ def _stage_bar(progress: bool, description: str):
 def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir: str,
                       make_plots: bool = True, color_by: str = "site", *, selection=None,
                       kept_obs: Observations | None = None, reference=None) -> None:
-    """The outputs of a fit. With ``selection`` (pipeline.left_out) the residual
+    """The outputs of a fit, written into ``outdir`` (callers pass the work folder of an
+    output set, so the files appear together or not at all). With ``selection`` (pipeline.left_out) the residual
     tables and figures also show the left-out TOAs, marked; ``kept_obs``: the
     TOAs the selection kept, when the fit used only part of them (``obs``)."""
     os.makedirs(outdir, exist_ok=True)
@@ -129,6 +132,14 @@ def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color
             title=f"{report['source']}: post-fit residuals by orbital phase", **common)
 
 
+def check_before_work(inputs: Inputs, outdir, make_plots: bool, color_by: str) -> None:
+    """Options and the output folder are checked before the fit, not after it."""
+    if make_plots:
+        check_color_by(inputs.toas, color_by)
+    if outdir is not None:
+        check_output_folder(outdir, inputs.paths)
+
+
 def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(), ephemeris=None,
               clock_paths=(), make_plots=True, progress=False, color_by="site",
               suggest=False, suggest_level=0.01, glitch_epochs_mjd=(),
@@ -145,6 +156,7 @@ def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(),
     inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
                          ephemeris=ephemeris, clock_paths=clock_paths,
                          exclude_paths=exclude_paths, select=select, leave_out=leave_out)
+    check_before_work(inputs, outdir, make_plots, color_by)
     _, report = fit_inputs(inputs, outdir, make_plots=make_plots, color_by=color_by,
                            progress=progress, suggest=suggest, suggest_level=suggest_level,
                            glitch_epochs_mjd=glitch_epochs_mjd, max_iterations=max_iterations)
@@ -159,10 +171,16 @@ def residual_files(toas_path, model_path, outdir, *, sites_paths=(), ephemeris=N
     inputs = load_inputs(toas_path, model_path, sites_paths=sites_paths, ephemeris=ephemeris,
                          clock_paths=clock_paths, exclude_paths=exclude_paths, select=select,
                          leave_out=leave_out)
+    check_before_work(inputs, outdir, make_plots, color_by)
     res = compute_residuals(inputs.model, inputs.obs, reference=inputs.reference)
     [table] = full_tables([(residual_table(inputs.obs, res), inputs.model, res)], inputs.obs,
                           inputs.selection, inputs.obs, inputs.reference)
-    os.makedirs(outdir, exist_ok=True)
+    with output_set(outdir, inputs=inputs.paths) as work:
+        return _write_residual_outputs(inputs, res, table, str(work), make_plots, color_by)
+
+
+def _write_residual_outputs(inputs: Inputs, res, table, outdir: str, make_plots: bool,
+                            color_by: str) -> dict:
     table.write_csv(os.path.join(outdir, "residuals.csv"))
     stats = {"source": inputs.model.name, "toas": len(inputs.obs), "fitted": False,
              "chi2": res.chi_square(), "dof": len(inputs.obs) - 1,

@@ -19,8 +19,9 @@ from timingkit.formats.errors import FitError
 from timingkit.glitch.results import GlitchSearchResult, GlitchSearchSettings
 from timingkit.glitch.search import search_glitches
 from timingkit.pipeline.inputs import load_inputs
-from timingkit.pipeline.fit_run import write_fit_outputs
+from timingkit.pipeline.fit_run import check_before_work, write_fit_outputs
 from timingkit.pipeline.left_out import selection_entry
+from timingkit.outputs.output_set import output_set
 from timingkit.outputs.report import build_report, write_json
 
 
@@ -72,19 +73,20 @@ def glitch_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=
     inputs = load_inputs(toas_path, model_path, free=free, fix=fix, sites_paths=sites_paths,
                          ephemeris=ephemeris, clock_paths=clock_paths,
                          exclude_paths=exclude_paths, select=select, leave_out=leave_out)
+    check_before_work(inputs, outdir, make_plots, color_by)
     result = search_glitches(inputs.model, inputs.obs, settings, reference=inputs.reference)
     if result.fit is None:
         raise FitError("the glitch search found nothing and the starting model could not be "
                        "fitted: " + "; ".join(result.warnings))
-    os.makedirs(outdir, exist_ok=True)
-    write_json(os.path.join(outdir, GLITCH_FILE), result.to_json())
-    if make_plots:
-        write_glitch_figure(result, os.path.join(outdir, FIGURE_FILE),
-                            title=f"{inputs.model.name}: glitch search "
-                                  "(frequency relative to the fitted spin-down)")
     report = glitch_report(result)
     report.update(selection_entry(inputs.selection))
-    write_fit_outputs(result.fit, result.obs, report, outdir, make_plots, color_by,
-                      selection=inputs.selection, kept_obs=inputs.obs,
-                      reference=inputs.reference)
+    with output_set(outdir, inputs=inputs.paths) as work:
+        write_json(os.path.join(work, GLITCH_FILE), result.to_json())
+        if make_plots:
+            write_glitch_figure(result, os.path.join(work, FIGURE_FILE),
+                                title=f"{inputs.model.name}: glitch search "
+                                      "(frequency relative to the fitted spin-down)")
+        write_fit_outputs(result.fit, result.obs, report, str(work), make_plots, color_by,
+                          selection=inputs.selection, kept_obs=inputs.obs,
+                          reference=inputs.reference)
     return report

@@ -34,6 +34,7 @@ class Inputs:
     obs: Observations | None = None
     reference: Observations | None = None
     selection: "Selection | None" = None    # TOAs left out of the fit (pipeline.left_out)
+    paths: tuple[str, ...] = ()          # every file read: no output may replace one
 
 
 def _resolve(path: str, base: str) -> str:
@@ -76,6 +77,28 @@ def clock_for_sites(table: ClockTable, sites: SiteTable) -> ClockTable:
     return dataclasses.replace(table, sites=tuple(dict.fromkeys(names)))
 
 
+def input_paths(toas_path, model: TimingModel, sites_paths=(), ephemeris=None,
+                clock_paths=()) -> tuple[str, ...]:
+    """Every file a command reads for this source (TOA table, model, and the site,
+    clock and ephemeris files it names or is given)."""
+    base = model.base_dir
+    named = [*model.settings["sites"], *model.settings["clock"]]
+    if model.settings["ephemeris"] not in ("builtin", "de421", ""):
+        named.append(model.settings["ephemeris"])
+    paths = [toas_path, model.path, *sites_paths, *clock_paths, ephemeris]
+    paths += [_resolve(p, base) for p in named]
+    return tuple(os.fspath(p) for p in paths if p)
+
+
+def check_color_by(toas: ToaTable, color_by: str) -> None:
+    """Refuse a ``--color-by`` that names no column of the TOA table (before any work)."""
+    legal = ["site", "freq", *toas.flags]
+    if color_by not in legal:
+        raise InputError(f"cannot colour by {excerpt(color_by, 30)}: the TOA table has no such "
+                         f"column; choose one of {', '.join(legal)}", path=toas.path,
+                         field="--color-by")
+
+
 def reference_observations(model: TimingModel, sites, eph, clocks) -> Observations | None:
     pz = model.phase_zero
     if pz is None:
@@ -103,7 +126,9 @@ def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths
     model = load_model(model_path, free, fix)
     sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     toas = read_toa_table(toas_path)
-    inputs = Inputs(toas=toas, model=model, sites=sites, ephemeris=eph, clocks=clocks)
+    inputs = Inputs(toas=toas, model=model, sites=sites, ephemeris=eph, clocks=clocks,
+                    paths=input_paths(toas_path, model, sites_paths, ephemeris, clock_paths)
+                    + tuple(os.fspath(p) for p in exclude_paths))
     inputs.selection = choose_toas(
         toas, exclude_paths, select, leave_out,
         canonical_site=lambda name: sites.lookup(name).name if name in sites else name)

@@ -1,0 +1,125 @@
+"""Keeping a batch's workers and outputs honest under faults.
+
+- :func:`watch_parent` (a pool initializer): a worker polls its batch's main
+  process and ends itself, removing its unfinished work folder, as soon as the
+  main process is gone (SIGKILL included), so nothing outlives the batch.
+- :func:`terminate_on_signals`: in the main process, SIGTERM (and SIGHUP) raise
+  KeyboardInterrupt like SIGINT does, so the pool is shut down and its workers
+  stopped (:func:`stop_pool`) on every way of stopping a batch.
+- :func:`record_outputs` / :func:`outputs_intact`: ``outputs.sha256`` (the format
+  of ``sha256sum``) lists every output of a source folder with its content hash;
+  ``--resume`` keeps a folder only when all of them are there, unchanged.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import os
+import signal
+import threading
+import time
+from pathlib import Path
+
+from timingkit.outputs.output_set import MARKER
+
+OUTPUTS_HASH_FILE = "outputs.sha256"
+POLL_S = 0.25                       # how often a worker looks for its batch
+
+
+def parent_is_gone(batch_pid: int | None) -> bool:
+    """True when this process was started by ``batch_pid`` and that process has ended
+    (the worker has been handed to another parent)."""
+    return batch_pid is not None and os.getppid() != batch_pid
+
+
+def _watch(batch_pid: int) -> None:
+    while True:
+        time.sleep(POLL_S)
+        if parent_is_gone(batch_pid):
+            os._exit(1)             # nothing more is written; the next run cleans up
+
+
+def watch_parent(batch_pid: int) -> None:
+    """Pool initializer: end this worker when the batch's main process is gone."""
+    threading.Thread(target=_watch, args=(batch_pid,), name="timingkit-watch-batch",
+                     daemon=True).start()
+
+
+@contextlib.contextmanager
+def terminate_on_signals():
+    """SIGTERM and SIGHUP raise KeyboardInterrupt in the main thread for the block
+    (handlers restored after); elsewhere (not the main thread) it does nothing."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def interrupt(signum, frame):
+        raise KeyboardInterrupt(f"stopped by signal {signal.Signals(signum).name}")
+
+    names = [n for n in ("SIGTERM", "SIGHUP") if hasattr(signal, n)]
+    saved = {n: signal.signal(getattr(signal, n), interrupt) for n in names}
+    try:
+        yield
+    finally:
+        for n, handler in saved.items():
+            signal.signal(getattr(signal, n), handler)
+
+
+def stop_pool(pool, grace_s: float = 5.0) -> None:
+    """Cancel a ProcessPoolExecutor's queued jobs and end its worker processes now
+    (SIGTERM, then SIGKILL after ``grace_s``), waiting until they are gone."""
+    processes = list(getattr(pool, "_processes", {}).values())   # no public accessor
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        with contextlib.suppress(Exception):
+            process.terminate()
+    deadline = time.monotonic() + grace_s
+    for process in processes:
+        with contextlib.suppress(Exception):
+            process.join(max(0.0, deadline - time.monotonic()))
+            if process.is_alive():
+                process.kill()
+                process.join(1.0)
+
+
+def _sha256(path: Path) -> str:
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def record_outputs(folder) -> None:
+    """Write ``folder/outputs.sha256``: one ``HASH  NAME`` line per file."""
+    folder = Path(folder)
+    lines = [f"{_sha256(p)}  {p.name}" for p in sorted(folder.iterdir())
+             if p.is_file() and p.name not in (OUTPUTS_HASH_FILE, MARKER)]
+    (folder / OUTPUTS_HASH_FILE).write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+def outputs_intact(folder, required=()) -> bool:
+    """Whether every file listed in ``folder/outputs.sha256`` is there with its
+    recorded hash, and the ``required`` names are among them."""
+    folder = Path(folder)
+    try:
+        lines = (folder / OUTPUTS_HASH_FILE).read_text(encoding="utf-8").splitlines()
+    except (OSError, UnicodeDecodeError):
+        return False
+    listed = {}
+    for line in lines:
+        digest, _, name = line.partition("  ")
+        if not name or "/" in name or len(digest) != 64:
+            return False
+        listed[name] = digest
+    if not set(required) <= set(listed):
+        return False
+    for name, digest in listed.items():
+        path = folder / name
+        try:
+            if path.is_symlink() or not path.is_file() or _sha256(path) != digest:
+                return False
+        except OSError:
+            return False
+    return True
