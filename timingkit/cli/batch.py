@@ -11,7 +11,7 @@ from timingkit.batch.runner import run_batch
 
 def add_parsers(subparsers):
     """Add ``timingkit batch MANIFEST_OR_DIR [-o OUTDIR] [--workers N]
-    [--cluster ADDRESS|local] [--resume] [--glitches]``; the handler is ``args.func``."""
+    [--cluster ADDRESS|local] [--resume] [--wait] [--glitches]``; the handler is ``args.func``."""
     parser = subparsers.add_parser(
         "batch", help="fit many sources (process pool or Dask cluster)",
         description="Fit every source of a manifest or of a directory of source folders; "
@@ -31,6 +31,9 @@ def add_parsers(subparsers):
     parser.add_argument("--resume", action="store_true",
                         help="skip sources whose inputs and settings are unchanged since their "
                              "last successful run")
+    parser.add_argument("--wait", action="store_true",
+                        help="when another run is writing into OUTDIR, wait for it to finish "
+                             "instead of refusing (exit 2)")
     parser.add_argument("--glitches", action="store_true",
                         help="also search every source for glitches (as 'timingkit glitches'; "
                              "fills the glitch_candidates column)")
@@ -45,7 +48,8 @@ def run_batch_command(args) -> int:
         from timingkit.pipeline.glitch_run import glitch_files as fit_function
     try:
         result = run_batch(args.inputs, args.outdir, workers=args.workers, cluster=args.cluster,
-                           resume=args.resume, progress=None, fit_function=fit_function)
+                           resume=args.resume, progress=None, fit_function=fit_function,
+                           wait=args.wait)
     except InputError as exc:
         if getattr(args, "debug", False):
             raise

@@ -27,12 +27,14 @@ def cmd_convert(args) -> int:
     from timingkit.model.timing_model import TimingModel
     if not args.frame and not args.binary_model:
         raise InputError("nothing to do: give --frame and/or --binary-model", field="convert")
-    if os.path.abspath(args.output) == os.path.abspath(args.model):
-        raise InputError("refusing to overwrite the input model; choose another --output",
-                         path=args.output)
+    from timingkit.outputs.output_set import refuse_output_over_inputs, writing_error
+    refuse_output_over_inputs(args.output, [args.model])
     model = TimingModel.from_file(args.model)
     new = convert_model(model, args.frame, args.binary_model)
-    new.write(args.output, comment=f"converted by timingkit from {os.path.basename(args.model)}")
+    try:
+        new.write(args.output, comment=f"converted by timingkit from {os.path.basename(args.model)}")
+    except OSError as exc:
+        raise writing_error(exc, args.output) from None
     print(f"wrote {args.output} (position frame {new.astrometry.frame}"
           + (f", binary model {args.binary_model}" if args.binary_model else "") + ")")
     for comp in new.extra:

@@ -18,12 +18,14 @@ from timingkit.cli.options import (
     selection_arguments,
 )
 from timingkit.formats.errors import InputError
+from timingkit.outputs.output_set import refuse_output_over_inputs
 
 
 def add_parsers(sub) -> None:
     p = sub.add_parser("fit", help="fit a timing model to TOAs")
     add_input_options(p)
-    p.add_argument("-o", "--outdir", default="timingkit-fit", help="output folder")
+    p.add_argument("-o", "--outdir", default=None,
+                   help="output folder (default: SOURCE-fit, after the model's name)")
     add_free_fix_options(p, "parameters to fit besides the model's [fit] free",
                          "parameters to hold fixed")
     p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
@@ -46,7 +48,8 @@ def add_parsers(sub) -> None:
 
     p = sub.add_parser("residuals", help="residuals of a model without fitting")
     add_input_options(p)
-    p.add_argument("-o", "--outdir", default="timingkit-residuals")
+    p.add_argument("-o", "--outdir", default=None,
+                   help="output folder (default: SOURCE-residuals, after the model's name)")
     p.add_argument("--color-by", default="site")
     add_selection_options(p)
     p.set_defaults(func=cmd_residuals)
@@ -64,9 +67,22 @@ def add_parsers(sub) -> None:
     p.set_defaults(func=cmd_plot)
 
 
+def default_outdir(args, command: str) -> str:
+    """``-o`` as given, else SOURCE-COMMAND after the model's name (or the TOA file)."""
+    if args.outdir is not None:
+        return args.outdir
+    from timingkit.formats.model_file import read_model_document
+    from timingkit.outputs.output_set import default_output_folder
+    name = read_model_document(args.model).data.get("name")
+    args.outdir = default_output_folder(name if isinstance(name, str) else None, args.toas,
+                                        command)
+    return args.outdir
+
+
 def cmd_fit(args) -> int:
     from timingkit.pipeline.fit_run import fit_files
     from timingkit.outputs.report import summary_text
+    default_outdir(args, "fit")
     if args.glitch_candidate and not args.suggest:
         raise InputError("--glitch-candidate needs --suggest", field="--glitch-candidate")
     if args.max_iterations < 1:
@@ -98,6 +114,7 @@ def cmd_fit(args) -> int:
 
 def cmd_residuals(args) -> int:
     from timingkit.pipeline.fit_run import residual_files
+    default_outdir(args, "residuals")
     stats = residual_files(args.toas, args.model, args.outdir, sites_paths=args.sites,
                            ephemeris=args.ephemeris, clock_paths=args.clock,
                            color_by=args.color_by, **selection_arguments(args))
@@ -132,18 +149,9 @@ def cmd_plot(args) -> int:
     post = ResidualTable.read_csv(post_path)
     pre_path = os.path.join(args.outdir, "prefit_residuals.csv")
     pre = ResidualTable.read_csv(pre_path) if os.path.exists(pre_path) else None
-    freq = None
-    report_path = os.path.join(args.outdir, "report.json")
-    title = None
-    if os.path.exists(report_path):
-        with open(report_path) as fh:
-            rep = json.load(fh)
-        title = rep.get("source")
-        try:
-            freq = float(rep["parameters"]["spin.frequency_hz"]["value"])
-        except (KeyError, TypeError, ValueError):
-            freq = None
+    title, freq = _report_title_and_frequency(os.path.join(args.outdir, "report.json"))
     out = args.output or os.path.join(args.outdir, "residuals.png")
+    refuse_output_over_inputs(out, [post_path, pre_path, os.path.join(args.outdir, "report.json")])
     plot_residuals(post, prefit=pre, color_by=args.color_by, title=title, frequency_hz=freq,
                    glitch_epochs_mjd=_fitted_glitch_epochs(args.outdir), path=out)
     print(f"wrote {out}")
@@ -159,3 +167,25 @@ def _fitted_glitch_epochs(outdir: str) -> list[float]:
         return [float(g["epoch_mjd"]) for g in glitches]
     except (OSError, ValueError, KeyError, TypeError):
         return []
+
+
+def _report_title_and_frequency(report_path: str):
+    """(source name, spin frequency in Hz) from a fit's report.json, or Nones
+    when there is none; a corrupt report is bad input."""
+    if not os.path.exists(report_path):
+        return None, None
+    from timingkit.formats.textfile import read_text_file
+    try:
+        report = json.loads(read_text_file(report_path, "fit report (JSON)"))
+    except ValueError as exc:
+        raise InputError(f"not a valid report.json ({exc.__class__.__name__}); rerun the fit",
+                         path=report_path, line=getattr(exc, "lineno", None)) from None
+    if not isinstance(report, dict):
+        raise InputError("not a valid report.json (not a JSON object); rerun the fit",
+                         path=report_path)
+    title = report.get("source")
+    try:
+        freq = float(report["parameters"]["spin.frequency_hz"]["value"])
+    except (KeyError, TypeError, ValueError):
+        freq = None
+    return (title if isinstance(title, str) else None), freq

@@ -47,7 +47,8 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
                     "glitches, fit each glitch as a [[glitch]] section of the model.")
     p.add_argument("toas", help="TOA table (plain text)")
     p.add_argument("model", help="starting timing model (TOML)")
-    p.add_argument("-o", "--outdir", default="timingkit-glitches", help="output folder")
+    p.add_argument("-o", "--outdir", default=None,
+                   help="output folder (default: SOURCE-glitches, after the model's name)")
     window = p.add_mutually_exclusive_group()
     window.add_argument("--window-toas", type=int, metavar="N",
                         help="TOAs in the window on each side of a gap (default 10)")
@@ -81,6 +82,8 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
 
 
 def cmd_glitches(args) -> int:
+    from timingkit.cli.fit import default_outdir
+    default_outdir(args, "glitches")
     settings = GlitchSearchSettings(
         window_toas=args.window_toas, window_days=args.window_days,
         min_significance=args.min_significance, known_epochs_mjd=args.known_epochs,

@@ -14,7 +14,7 @@ import os
 import sys
 
 from timingkit import __version__
-from timingkit.formats.errors import FitError, InputError
+from timingkit.formats.errors import FitError, InputError, cap
 
 DESCRIPTION = ("timingkit: pulsar timing from arrival times to a fitted timing model. "
                "Barycentre TOAs, fit spin, position, dispersion and orbit, inspect residuals, "
@@ -87,7 +87,7 @@ def main(argv=None) -> int:
             raise
         from timingkit.cli.options import name_options
         name_options(exc)
-        print(f"timingkit: error: {exc}", file=sys.stderr)
+        print(f"timingkit: error: {cap(str(exc))}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("timingkit: interrupted", file=sys.stderr)
@@ -95,7 +95,7 @@ def main(argv=None) -> int:
     except Exception as exc:  # internal failure: say so, briefly
         if args.debug:
             raise
-        print(f"timingkit: internal error: {type(exc).__name__}: {exc} "
+        print(f"timingkit: internal error: {type(exc).__name__}: {cap(str(exc))} "
               "(run with --debug for the traceback)", file=sys.stderr)
         return 1
 

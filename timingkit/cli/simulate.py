@@ -45,9 +45,11 @@ def add_parsers(sub) -> None:
 
 
 def cmd_simulate(args) -> int:
-    from timingkit.pipeline.inputs import load_context, load_model, reference_observations
+    from timingkit.pipeline.inputs import (input_paths, load_context, load_model,
+                                           reference_observations)
     from timingkit.model.simulate import simulate_toas
     from timingkit.formats.toa_writer import write_toa_table
+    from timingkit.outputs.output_set import refuse_output_over_inputs, writing_error
     model = load_model(args.model)
     if args.solar_wind_density_cm3 is not None:
         from timingkit.model.solar_wind import set_solar_wind
@@ -60,12 +62,16 @@ def cmd_simulate(args) -> int:
             raise InputError(f"expected NAME=V1,V2, found {item!r}", field="--flag")
         flags[name] = values.split(",")
     noise = _simulated_noise(model, args)
+    refuse_output_over_inputs(args.output, input_paths(None, model, args.sites, args.ephemeris))
     toas = simulate_toas(model, args.start, args.end, args.count, args.error_us, sites, eph,
                          site_names=args.site, freqs_mhz=args.freq_mhz or [1400.0], seed=args.seed,
                          clocks=clocks, flags=flags, add_noise=not args.no_noise,
                          reference=reference_observations(model, sites, eph, clocks),
                          noise=noise)
-    write_toa_table(toas, args.output)
+    try:
+        write_toa_table(toas, args.output)
+    except OSError as exc:
+        raise writing_error(exc, args.output) from None
     print(f"wrote {len(toas)} TOAs to {args.output}")
     if len(toas) < args.count:
         print(f"left out {args.count - len(toas)} requested TOAs whose line of sight crosses the "

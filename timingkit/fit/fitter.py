@@ -27,7 +27,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.linalg
 
-from timingkit.formats.errors import FitError
+from timingkit.formats.errors import FitError, InputError
 from timingkit.fit.gls import FourierFactor, GlsSolution, gls_solve, marginal_log_likelihood
 from timingkit.model.base import Evaluation
 from timingkit.model.correlations import set_covariance
@@ -135,7 +135,22 @@ def pulse_numbers_from_table(obs: Observations, ev: Evaluation) -> np.ndarray | 
     if pulse is None:
         return None
     shift = np.round(np.median(ev.phase_int - pulse))
-    return pulse.astype(float) + shift
+    pinned = pulse.astype(float) + shift
+    # A pulse number that differs from the model's count by more than 1 % of the turns
+    # over the whole span (at least a million) is a wild value, not a pinned turn.
+    seconds = (obs.tdb.day - obs.tdb.day.min() + obs.tdb.frac) * 86400.0
+    frequency = float(np.median(np.abs(ev.spin_frequency_hz)))
+    limit = max(1e6, 0.01 * frequency * float(np.ptp(seconds)))
+    wild = np.flatnonzero(np.abs(ev.phase_int - pinned) > limit)
+    if len(wild):
+        row = int(wild[0])
+        lines = obs.toas.line_numbers
+        raise InputError(f"pulse number {int(pulse[row])} is {abs(ev.phase_int[row] - pinned[row]):.3g} "
+                         f"turns away from the model's count (more than {limit:.3g}, 1 % of the "
+                         "turns over the span): a wrong value in the 'pulse' column?",
+                         path=obs.toas.path, line=None if lines is None else int(lines[row]),
+                         field="pulse")
+    return pinned
 
 
 def _solve(design_s: np.ndarray, resid_s: np.ndarray, err_s: np.ndarray, names: list[str]):

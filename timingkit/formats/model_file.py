@@ -14,14 +14,19 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import tomllib
 from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation
 from typing import Any
 
 from timingkit.formats.atomic_file import atomic_write_bytes, atomic_write_text  # noqa: F401
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.textfile import parse_toml, read_text_file
+
+def np_list(value) -> list:
+    return value if isinstance(value, list) else [value]
+
 
 KINDS = ("text", "decimal", "number", "integer", "bool", "list_decimal", "list_number",
          "list_text", "list_list_number", "mjd", "table", "bool_or_list_text")
@@ -33,22 +38,55 @@ MAX_DECIMAL_DIGITS = 40
 
 @dataclass(frozen=True)
 class Key:
-    """Spec of one key: its kind, whether required, its default, a unit note."""
+    """Spec of one key: its kind, whether required, its default, a unit note, and the
+    physical range of its numbers (each entry of a list): ``low <= value <= high``,
+    and ``value > above`` when ``above`` is given. Numbers are always finite."""
     kind: str
     required: bool = False
     default: Any = None
     unit: str = ""
+    low: float | None = None
+    high: float | None = None
+    above: float | None = None
 
     def __post_init__(self):
         if self.kind not in KINDS:
             raise ValueError(f"unknown kind {self.kind}")
 
+    def range_text(self) -> str:
+        unit = f" {self.unit}" if self.unit else ""
+        if self.above is not None:
+            lower = f"> {self.above:g}"
+            return lower + (f" and <= {self.high:g}{unit}" if self.high is not None else unit)
+        if self.low is not None and self.high is not None:
+            return f"between {self.low:g} and {self.high:g}{unit}"
+        return f">= {self.low:g}{unit}" if self.low is not None else f"<= {self.high:g}{unit}"
+
+    def check_range(self, value, where: str, path: str | None) -> None:
+        """An InputError when the number ``value`` (or a list of them) lies outside."""
+        if self.low is None and self.high is None and self.above is None:
+            return
+        if isinstance(value, list):
+            for i, v in enumerate(value):
+                self.check_range(v, f"{where}.{i}", path)
+            return
+        if value is None or isinstance(value, (str, bool)):
+            return
+        number = float(value)
+        ok = ((self.low is None or number >= self.low) and (self.high is None or number <= self.high)
+              and (self.above is None or number > self.above))
+        if not ok:
+            raise InputError(f"must be {self.range_text()}, found {number:g}", path=path,
+                             field=where)
+
 
 @dataclass
 class ModelDocument:
-    """A parsed model file: its data (nested dicts) and where it came from."""
+    """A parsed model file: its data (nested dicts), where it came from, and its text
+    (to find the line of a key, :func:`key_line`)."""
     data: dict
     path: str | None
+    text: str | None = None
 
     @property
     def base_dir(self) -> str:
@@ -63,12 +101,51 @@ def parse_model_text(text: str, path: str | None = None) -> ModelDocument:
     data = parse_toml(text, path, parse_float=Decimal)
     if not data:
         raise InputError("model file is empty", path=path)
-    return ModelDocument(data=data, path=path)
+    return ModelDocument(data=data, path=path, text=text)
+
+
+_HEADER = re.compile(r"^\s*(\[\[?)\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
+_KEY = re.compile(r"^\s*([A-Za-z0-9_.\"' -]+?)\s*=")
+
+
+def _parts(dotted: str) -> tuple[str, ...]:
+    return tuple(p.strip().strip("\"'") for p in dotted.split("."))
+
+
+def key_line(text: str, field: str) -> int | None:
+    """The 1-based line of the model-file key ``field`` (a dotted name such as
+    ``spin.frequency_hz``, ``glitch.0.decay_time_days`` for the first [[glitch]],
+    ``spin.frequency_derivatives.1``): the line of the longest part of it that is
+    written as a key or a table header; None when not found. Written by hand
+    because tomllib keeps no positions."""
+    wanted = _parts(field)
+    best, best_length = None, 0
+    table: tuple[str, ...] = ()
+    arrays: dict[tuple[str, ...], int] = {}
+    for number, line in enumerate(text.splitlines(), 1):
+        header = _HEADER.match(line)
+        if header:
+            table = _parts(header.group(2))
+            if header.group(1) == "[[":
+                arrays[table] = arrays.get(table, -1) + 1
+                table = table + (str(arrays[table]),)
+            path = table
+        else:
+            key = _KEY.match(line)
+            if not key:
+                continue
+            path = table + _parts(key.group(1))
+        length = len(path)
+        if length > best_length and wanted[:length] == path:
+            best, best_length = number, length
+    return best
 
 
 def _convert(kind: str, value: Any, where: str, path: str | None):
     def bad(expect: str):
-        return InputError(f"expected {expect}, found {value!r}", path=path, field=where)
+        shown = excerpt(value) if isinstance(value, str) else excerpt(repr(value))
+        return InputError(f"expected {expect}, found {shown}", path=path, field=where,
+                          quoted=(str(value),))
 
     if kind == "text":
         if not isinstance(value, str):
@@ -91,8 +168,10 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
             raise bad("a number or decimal string")
         if kind == "mjd" and (not dec.is_finite() or dec < 0 or dec > 200000):
             raise bad("an MJD (0-200000)")
-        if kind == "decimal" and not dec.is_finite() and str(value).strip().lower() not in ("inf", "+inf"):
+        if kind == "decimal" and not dec.is_finite():
             raise bad("a finite number")
+        if kind == "decimal" and abs(dec.adjusted()) > 300:
+            raise bad("a number of magnitude 1e-300 to 1e300")
         return dec
     if kind == "number":
         if isinstance(value, bool):
@@ -106,8 +185,8 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
                 raise bad("a number") from None
         else:
             raise bad("a number")
-        if math.isnan(out):
-            raise bad("a number (not nan)")
+        if not math.isfinite(out):
+            raise bad("a finite number")
         return out
     if kind == "integer":
         if isinstance(value, bool) or not isinstance(value, int):
@@ -142,6 +221,9 @@ def _check_digit_count(value, where: str, path: str | None) -> None:
                          "the spin frequency and ~21 for MJDs)", path=path, field=where)
 
 
+_UNCERTAINTY = Key("number", low=0.0)
+
+
 def take_section(data: dict | None, section: str, spec: dict[str, Key],
                  path: str | None, allow_uncertainty: bool = True) -> dict:
     """Validate one section against ``spec``: converts values, fills defaults,
@@ -161,6 +243,7 @@ def take_section(data: dict | None, section: str, spec: dict[str, Key],
         where = f"{section}.{key}" if section else key
         if key in data:
             out[key] = _convert(ks.kind, data[key], where, path)
+            ks.check_range(out[key], where, path)
         elif ks.required:
             raise InputError(f"missing required key '{key}' in [{section or 'top level'}]",
                              path=path, field=where)
@@ -182,6 +265,8 @@ def take_section(data: dict | None, section: str, spec: dict[str, Key],
                     else _convert("number", v, f"{where}.{i}", path) for i, v in enumerate(value)]
             else:
                 out["uncertainty"][key] = _convert("number", value, where, path)
+            _UNCERTAINTY.check_range([u for u in np_list(out["uncertainty"][key])
+                                      if not math.isnan(u)], where, path)
     return out
 
 

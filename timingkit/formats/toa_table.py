@@ -234,7 +234,7 @@ class ToaTable:
             raise InputError("MJD day and fraction must be finite", field="mjd")
         if np.any(day != np.round(day)):
             i = int(np.flatnonzero(day != np.round(day))[0])
-            raise InputError(f"mjd_day must be whole days (row {i}: {day[i]!r}); give the "
+            raise InputError(f"mjd_day must be whole days (row {i}: {float(day[i])!r}); give the "
                              "fraction of the day separately, or an astropy Time (one "
                              "float64 MJD holds the time only to ~1 µs)", field="mjd")
         shift = np.floor(frac)
@@ -255,11 +255,11 @@ class ToaTable:
         bad = ~(np.isfinite(err) & (err > 0))
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"must be finite and > 0 (row {i}: {err[i]!r})", field="err_us")
+            raise InputError(f"must be finite and > 0 (row {i}: {float(err[i])!r})", field="err_us")
         bad = np.isnan(freq) | ~(freq > 0)
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
-            raise InputError(f"must be > 0 or inf (row {i}: {freq[i]!r})", field="freq_mhz")
+            raise InputError(f"must be > 0 or inf (row {i}: {float(freq[i])!r})", field="freq_mhz")
         flag_arrays = {k: np.broadcast_to(np.asarray(v, dtype=str), (n,)).copy()
                        for k, v in (flags or {}).items()}
         pulses = None

@@ -33,7 +33,7 @@ from decimal import Decimal
 import numpy as np
 
 from timingkit.geometry import delays
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.model.correlations import with_fitted_covariance
 from timingkit.model.base import ModelSection, Evaluation
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
@@ -41,24 +41,26 @@ from timingkit.formats.model_file import Key, take_section
 from timingkit.numerics.timearray import SECONDS_PER_DAY
 
 FRAMES = ("equatorial", "ecliptic")
+# 10 arcsec/yr: faster than any star seen from the Sun (pulsars: < 1 arcsec/yr)
+PROPER_MOTION_RANGE = {"unit": "mas/yr", "low": -1e4, "high": 1e4}
 COMMON_KEYS = {
     "frame": Key("text", default="equatorial"),
     "epoch_mjd": Key("mjd"),
-    "parallax_mas": Key("number", default=0.0),
-    "distance_kpc": Key("number"),
+    "parallax_mas": Key("number", default=0.0, unit="mas", low=-1000.0, high=1000.0),
+    "distance_kpc": Key("number", unit="kpc", above=0.0, high=1000.0),
 }
 EQUATORIAL_KEYS = {
     "ra": Key("text", required=True),
     "dec": Key("text", required=True),
-    "pm_ra_cosdec_mas_per_yr": Key("number", default=0.0),
-    "pm_dec_mas_per_yr": Key("number", default=0.0),
+    "pm_ra_cosdec_mas_per_yr": Key("number", default=0.0, **PROPER_MOTION_RANGE),
+    "pm_dec_mas_per_yr": Key("number", default=0.0, **PROPER_MOTION_RANGE),
     **COMMON_KEYS,
 }
 ECLIPTIC_KEYS = {
-    "ecliptic_longitude_deg": Key("number", required=True),
-    "ecliptic_latitude_deg": Key("number", required=True),
-    "pm_longitude_coslat_mas_per_yr": Key("number", default=0.0),
-    "pm_latitude_mas_per_yr": Key("number", default=0.0),
+    "ecliptic_longitude_deg": Key("number", required=True, unit="deg", low=-360.0, high=360.0),
+    "ecliptic_latitude_deg": Key("number", required=True, unit="deg", low=-90.0, high=90.0),
+    "pm_longitude_coslat_mas_per_yr": Key("number", default=0.0, **PROPER_MOTION_RANGE),
+    "pm_latitude_mas_per_yr": Key("number", default=0.0, **PROPER_MOTION_RANGE),
     **COMMON_KEYS,
 }
 POSITION_KEYS = EQUATORIAL_KEYS     # kept for callers of the old name
@@ -107,15 +109,21 @@ def parse_angle(text: str, unit: str, field: str, path: str | None) -> float:
     """Right ascension (hours) or declination (degrees) in radians, from
     sexagesimal ('07h41m27.4s', '07:41:27.4') or decimal degrees ('78.14d')."""
     try:
-        fast = _parse_sexagesimal(text, unit)
-        if fast is not None:
-            return fast
-        from astropy.coordinates import Angle
-        ang = Angle(text, unit=unit)
+        value = _parse_sexagesimal(text, unit)
+        if value is None:
+            from astropy.coordinates import Angle
+            value = float(Angle(text, unit=unit).radian)
     except Exception:
-        raise InputError(f"cannot read angle {text!r} (e.g. '07h41m27.392s' or '07:41:27.392'"
-                         f" for ra, '-03d26m51.48s' for dec)", path=path, field=field) from None
-    return float(ang.radian)
+        raise InputError(f"cannot read angle {excerpt(text)} (e.g. '07h41m27.392s' or "
+                         "'07:41:27.392' for ra, '-03d26m51.48s' for dec)", path=path,
+                         field=field, quoted=(text,)) from None
+    if unit == "hourangle" and not 0.0 <= value < 2 * math.pi:
+        raise InputError(f"right ascension must lie in 0h to 24h, found {excerpt(text)}",
+                         path=path, field=field, quoted=(text,))
+    if unit != "hourangle" and not -math.pi / 2 <= value <= math.pi / 2:
+        raise InputError(f"declination must lie in -90d to +90d, found {excerpt(text)}",
+                         path=path, field=field, quoted=(text,))
+    return value
 
 
 def format_ra(ra_rad: float) -> str:

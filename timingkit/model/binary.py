@@ -93,6 +93,25 @@ _SHAPIRO_MASS = {
     "companion_mass_msun": ("M_sun", "companion mass (Shapiro delay)", 0.0, False),
     "sin_inclination": ("", "sine of the orbital inclination (Shapiro delay)", 0.0, False),
 }
+# Physical ranges (generous: they catch typing errors and absurd values, not rare systems);
+# eccentricity, shapiro_shape and sin_inclination are checked in Binary._check
+RANGES = {
+    "orbital_period_days": {"low": 1e-3, "high": 1e6},          # 86 s to 2700 yr
+    "orbital_period_derivative": {"low": -1e-4, "high": 1e-4},
+    "projected_semi_major_axis_lt_s": {"low": 0.0, "high": 1e5},
+    "projected_semi_major_axis_derivative_lt_s_per_s": {"low": -1e-6, "high": 1e-6},
+    "eccentricity_derivative_per_s": {"low": -1e-6, "high": 1e-6},
+    "periastron_longitude_deg": {"low": -360.0, "high": 360.0},
+    "periastron_advance_deg_per_yr": {"low": -1e4, "high": 1e4},
+    "einstein_delay_amplitude_s": {"low": -1.0, "high": 1.0},
+    "e_sin_omega": {"low": -0.999999, "high": 0.999999},
+    "e_cos_omega": {"low": -0.999999, "high": 0.999999},
+    "e_sin_omega_derivative_per_s": {"low": -1e-6, "high": 1e-6},
+    "e_cos_omega_derivative_per_s": {"low": -1e-6, "high": 1e-6},
+    "shapiro_range_s": {"low": 0.0, "high": 1e-3},             # companion up to ~200 M_sun
+    "companion_mass_msun": {"low": 0.0, "high": 200.0},
+}
+MAX_ORBITAL_SPEED_C = 0.1           # 2 pi x / Pb: far above any binary pulsar (~0.002 c)
 EPOCH_KEYS = ("periastron_epoch_mjd", "ascending_node_epoch_mjd")
 HIGH_PRECISION_KEYS = ("orbital_period_days", *EPOCH_KEYS)
 
@@ -128,7 +147,8 @@ class Binary(ModelSection):
             kind = "decimal" if key in HIGH_PRECISION_KEYS else "number"
             if key in EPOCH_KEYS:
                 kind = "mjd"
-            spec[key] = Key(kind, required=required, default=default, unit=unit)
+            spec[key] = Key(kind, required=required, default=default, unit=unit,
+                            **RANGES.get(key, {}))
         s = take_section(section, SECTION, spec, path)
         unc = s.get("uncertainty", {})
         self.given = {k for k in section if k in keys}
@@ -173,6 +193,15 @@ class Binary(ModelSection):
             bad("projected_semi_major_axis_lt_s", "projected semi-major axis must be >= 0")
         if "eccentricity" in p and not 0 <= p["eccentricity"].value < 1:
             bad("eccentricity", "eccentricity must lie in [0, 1)")
+        speed = (2 * math.pi * p["projected_semi_major_axis_lt_s"].value
+                 / (p["orbital_period_days"].value * 86400.0))
+        if speed > MAX_ORBITAL_SPEED_C:
+            bad("projected_semi_major_axis_lt_s",
+                f"this orbit is impossible: a projected speed 2 pi x / Pb of {speed:.3g} c "
+                f"(the limit is {MAX_ORBITAL_SPEED_C:g} c); check orbital_period_days and "
+                "projected_semi_major_axis_lt_s")
+        if "e_sin_omega" in p and math.hypot(p["e_sin_omega"].value, p["e_cos_omega"].value) >= 1:
+            bad("e_sin_omega", "e_sin_omega and e_cos_omega give an eccentricity >= 1")
         for key in ("shapiro_shape", "sin_inclination"):
             if key in p and not 0 <= p[key].value < 1:
                 bad(key, f"{key} must lie in [0, 1)")

@@ -27,11 +27,12 @@ from timingkit.model.parameters import Parameter, derivative_unit, mjd_decimal, 
 from timingkit.formats.model_file import Key, take_section
 
 DISPERSION_KEYS = {
-    "dm": Key("number", default=0.0, unit="pc cm^-3"),
+    "dm": Key("number", default=0.0, unit="pc cm^-3", low=0.0, high=1e5),
     "epoch_mjd": Key("mjd"),
-    "derivatives": Key("list_number", default=list, unit="pc cm^-3 / yr^k"),
-    "dm_offset_ranges_mjd": Key("list_list_number", default=list, unit="MJD"),
-    "dm_offsets": Key("list_number", default=list, unit="pc cm^-3"),
+    "derivatives": Key("list_number", default=list, unit="pc cm^-3 / yr^k", low=-1e3, high=1e3),
+    "dm_offset_ranges_mjd": Key("list_list_number", default=list, unit="MJD", low=0.0,
+                                high=200000.0),
+    "dm_offsets": Key("list_number", default=list, unit="pc cm^-3", low=-1e3, high=1e3),
 }
 
 # Two observing frequencies closer than this (relative) count as one.

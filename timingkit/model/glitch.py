@@ -42,15 +42,16 @@ DECAY_TIME = "decay_time_days"
 
 def _spec(section: dict) -> dict[str, Key]:
     """Key specs; the two decay keys take a number or a list of numbers."""
-    def number_or_list(key):
-        return Key("list_number" if isinstance(section.get(key), list) else "number")
+    def number_or_list(key, **limits):
+        return Key("list_number" if isinstance(section.get(key), list) else "number", **limits)
     return {
         "epoch_mjd": Key("mjd", required=True),
-        "phase_step": Key("number", default=0.0, unit="cycles"),
-        "frequency_step_hz": Key("number", default=0.0, unit="Hz"),
-        "frequency_derivative_step": Key("number", default=0.0, unit="Hz/s"),
-        DECAY_AMPLITUDE: number_or_list(DECAY_AMPLITUDE),
-        DECAY_TIME: number_or_list(DECAY_TIME),
+        "phase_step": Key("number", default=0.0, unit="cycles", low=-1e6, high=1e6),
+        "frequency_step_hz": Key("number", default=0.0, unit="Hz", low=-1.0, high=1.0),
+        "frequency_derivative_step": Key("number", default=0.0, unit="Hz/s", low=-1e-6,
+                                         high=1e-6),
+        DECAY_AMPLITUDE: number_or_list(DECAY_AMPLITUDE, unit="Hz", low=-1.0, high=1.0),
+        DECAY_TIME: number_or_list(DECAY_TIME, unit="days", above=0.0, high=1e5),
     }
 
 

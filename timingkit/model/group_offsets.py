@@ -27,7 +27,7 @@ SECTION = "time_offset"
 OFFSET_KEYS = {
     "flag": Key("text", required=True),
     "value": Key("text", required=True),
-    "offset_s": Key("number", default=0.0, unit="s"),
+    "offset_s": Key("number", default=0.0, unit="s", low=-1e5, high=1e5),
 }
 
 

@@ -65,9 +65,10 @@ WHITE_NOISE_KEYS = {
 RED_NOISE_KEYS = {
     "amplitude_log10": Key("number", required=True),
     "spectral_index": Key("number", required=True),
-    "corner_frequency_per_yr": Key("number", default=0.0, unit="1/yr"),
+    "corner_frequency_per_yr": Key("number", default=0.0, unit="1/yr", high=1e3),
     "frequencies": Key("integer", default=30),
-    "span_days": Key("number", default=None, unit="d"),
+    # a span below a day cannot hold a red-noise basis of TOAs (common practice: years)
+    "span_days": Key("number", default=None, unit="d", low=1.0, high=1e6),
 }
 
 # legal ranges (used to validate model files and as the search bounds of the

@@ -26,6 +26,7 @@ from timingkit.geometry.observations import Observations
 from timingkit.geometry.solar_approach import SOLAR_RADIUS_M, closest_approach_m
 from timingkit.geometry.sites import SiteTable
 from timingkit.numerics.timearray import SplitTime
+from timingkit.formats.toa_reader import ERR_US_RANGE, FREQ_MHZ_RANGE
 from timingkit.formats.toa_table import ToaTable
 
 MAX_NEWTON_STEPS = 6
@@ -37,6 +38,9 @@ def arrival_times(start_mjd: float, end_mjd: float, count: int, rng: np.random.G
     """Roughly even cadence over the span, jittered within each slot; sorted."""
     if count < 1:
         raise InputError("count must be >= 1", field="count")
+    for name, value in (("start", start_mjd), ("end", end_mjd)):
+        if not (np.isfinite(value) and 0 <= value <= 200000):
+            raise InputError(f"expected an MJD (0-200000), got {float(value):g}", field=name)
     if not end_mjd > start_mjd:
         raise InputError("end MJD must be later than start MJD", field="end")
     edges = np.linspace(start_mjd, end_mjd, count + 1)
@@ -76,8 +80,16 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
     err_us = np.broadcast_to(np.asarray(error_us, dtype=float), (count,)).copy()
     if np.any(~np.isfinite(err_us)) or np.any(err_us <= 0):
         raise InputError("TOA error must be > 0 µs", field="error_us")
+    if np.any(err_us < ERR_US_RANGE[0]) or np.any(err_us > ERR_US_RANGE[1]):
+        raise InputError(f"TOA error must lie between {ERR_US_RANGE[0]:g} and "
+                         f"{ERR_US_RANGE[1]:g} µs", field="error_us")
     site_col = np.array([site_names[i % len(site_names)] for i in range(count)])
     freq_col = np.array([float(freqs_mhz[i % len(freqs_mhz)]) for i in range(count)])
+    low, high = FREQ_MHZ_RANGE
+    for value in map(float, freqs_mhz):
+        if not (low <= value <= high or value == np.inf):
+            raise InputError(f"observing frequency must lie between {low:g} and {high:g} MHz, or "
+                             f"be inf (no dispersion); got {value:g}", field="freq_mhz")
     flag_cols = {}
     for name, values in (flags or {}).items():
         values = list(values) if isinstance(values, (list, tuple)) else [values]

@@ -21,7 +21,7 @@ from timingkit.formats.model_file import Key, take_section
 
 SPIN_KEYS = {
     "epoch_mjd": Key("mjd", required=True),
-    "frequency_hz": Key("decimal", required=True, unit="Hz"),
+    "frequency_hz": Key("decimal", required=True, unit="Hz", above=0.0, high=5000.0),
     "frequency_derivatives": Key("list_decimal", default=list),
 }
 
@@ -54,6 +54,12 @@ class Spin(ModelSection):
                                    uncertainty=unc.get("frequency_hz"),
                                    description="spin frequency")
         self.frequency.set_decimal(s["frequency_hz"])
+        for k, value in enumerate(s["frequency_derivatives"]):
+            limit = Decimal(10) ** (-3 * (k + 1))
+            if abs(value) > limit:
+                raise InputError(f"frequency derivative {k + 1} must lie within ±{limit} "
+                                 f"Hz/s^{k + 1}, found {float(value):g}", path=path,
+                                 field=f"spin.frequency_derivatives.{k}")
         dunc = unc.get("frequency_derivatives") or []
         self.derivatives = []
         for k, value in enumerate(s["frequency_derivatives"]):

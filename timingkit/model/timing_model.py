@@ -10,7 +10,7 @@ from decimal import Decimal
 import numpy as np
 
 from timingkit.numerics import ddmath
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.model.astrometry import Astrometry
 from timingkit.model.base import ModelSection, Evaluation, notable_delay_s
 from timingkit.model.dispersion import Dispersion
@@ -21,13 +21,14 @@ from timingkit.model.group_offsets import build_group_offsets
 from timingkit.model.parameters import Parameter, mjd_decimal, mjd_parts
 from timingkit.model.solar_wind import build_solar_wind, unmodelled_solar_wind_warning
 from timingkit.model.spin import Spin
-from timingkit.formats.model_file import (Key, ModelDocument, read_model_document, take_section,
-                                 write_model_document)
+from timingkit.formats.model_file import (Key, ModelDocument, key_line, read_model_document,
+                                          take_section, write_model_document)
 from timingkit.geometry.delays import DISPERSION_CONSTANTS_S_MHZ2
 from timingkit.geometry.observations import Observations, prepare_observations
 from timingkit.geometry.solar_approach import solar_approach_warnings
 
 TOP_KEYS = {"name": Key("text", default="unnamed")}
+MAX_NAME_CHARS = 200
 FIT_KEYS = {"free": Key("list_text", default=list)}
 SETTINGS_KEYS = {
     "ephemeris": Key("text", default="builtin"),
@@ -60,10 +61,26 @@ class TimingModel:
     """A pulsar timing model built from a model document (TOML)."""
 
     def __init__(self, document: ModelDocument):
+        try:
+            self._build(document)
+        except InputError as exc:
+            if exc.line is not None or not exc.field or not document.text or (
+                    exc.path and exc.path != document.path):
+                raise
+            raise exc.located(line=key_line(document.text, exc.field)) from None
+
+    def line_of(self, field: str) -> int | None:
+        """Line of the key ``field`` in the model file (None when unknown)."""
+        return key_line(self.text, field) if self.text else None
+
+    def _build(self, document: ModelDocument) -> None:
+        self.text = document.text
         data = dict(document.data)
         path = document.path
         self.path = path
         self.base_dir = document.base_dir
+        if "settings" in data and not isinstance(data["settings"], dict):
+            raise InputError("expected a [settings] table", path=path, field="settings")
         if isinstance(data.get("settings", {}).get("sites"), str):
             data["settings"] = dict(data["settings"])
             data["settings"]["sites"] = [data["settings"]["sites"]]
@@ -75,6 +92,10 @@ class TimingModel:
         top = take_section({k: v for k, v in data.items() if k == "name"}, "", TOP_KEYS, path,
                            allow_uncertainty=False)
         self.name = top["name"]
+        if not self.name.isprintable() or not 0 < len(self.name) <= MAX_NAME_CHARS:
+            raise InputError(f"the source name must be one printable line of 1 to "
+                             f"{MAX_NAME_CHARS} characters, found {excerpt(self.name)}",
+                             path=path, field="name")
         self.settings = take_section(data.get("settings"), "settings", SETTINGS_KEYS, path,
                                      allow_uncertainty=False)
         self.dispersion_constant_s_mhz2 = _dispersion_constant(self.settings, path)
@@ -305,6 +326,23 @@ class TimingModel:
         if "settings" in doc:
             doc["settings"] = self._settings_relative_to(os.path.dirname(os.path.abspath(path)))
         write_model_document(doc, path, comment)
+
+    def files_outside_own_folder(self) -> list[dict]:
+        """Files named in [settings] that are absolute paths or climb out of the
+        model's folder (allowed, but listed in report.json for a reviewer):
+        ``{"setting", "path", "resolved"}`` per file."""
+        out = []
+        given = [("sites", p) for p in self.settings["sites"]]
+        given += [("clock", p) for p in self.settings["clock"]]
+        if self.settings["ephemeris"] not in ("builtin", "de421", ""):
+            given.append(("ephemeris", self.settings["ephemeris"]))
+        own = os.path.realpath(self.base_dir)
+        for key, given_path in given:
+            resolved = os.path.realpath(os.path.join(self.base_dir, given_path))
+            if os.path.isabs(given_path) or os.path.commonpath([own, resolved]) != own:
+                out.append({"setting": f"settings.{key}", "path": given_path,
+                            "resolved": resolved})
+        return out
 
     def _settings_relative_to(self, folder: str) -> dict:
         def move(p: str) -> str:

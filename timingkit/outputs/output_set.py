@@ -150,13 +150,13 @@ def refuse_output_over_inputs(output, inputs) -> None:
                              field="output")
 
 
-def _writing_error(exc: OSError, final: Path) -> InputError:
+def writing_error(exc: OSError, final) -> InputError:
     reason = {errno.ENOSPC: "no space left on the disk", errno.EDQUOT: "disk quota exceeded",
               errno.EROFS: "the file system is read-only", errno.EACCES: "permission denied",
               errno.EPERM: "permission denied", errno.EFBIG: "file too large for the disk "
               "or the user's limit"}.get(exc.errno, exc.strerror or str(exc))
-    return InputError(f"cannot write the outputs ({reason}); nothing was changed in the "
-                      "output folder", path=str(final), field="outdir")
+    return InputError(f"cannot write the output ({reason}); nothing was changed there",
+                      path=str(final), field="output")
 
 
 def check_output_folder(folder, inputs=()) -> Path:
@@ -190,14 +190,14 @@ def output_set(folder, inputs=(), purpose: str = "outputs"):
         final.parent.mkdir(parents=True, exist_ok=True)
         work = new_work_folder(final.parent, final.name, purpose)
     except OSError as exc:
-        raise _writing_error(exc, final) from None
+        raise writing_error(exc, final) from None
     try:
         yield work
         flush_to_disk(work)
         swap_into_place(work, final)
     except OSError as exc:
         shutil.rmtree(work, ignore_errors=True)
-        raise _writing_error(exc, final) from None
+        raise writing_error(exc, final) from None
     except BaseException:
         shutil.rmtree(work, ignore_errors=True)
         raise

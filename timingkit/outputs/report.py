@@ -103,7 +103,8 @@ def build_report(result: FitResult, obs: Observations, source_path: str | None =
 
 def settings_entry(obs: Observations, model: TimingModel | None = None) -> dict:
     """What the delays rest on: ephemeris, clock corrections and, with the
-    model, the bodies of the Shapiro delay and the dispersion constant."""
+    model, the bodies of the Shapiro delay, the dispersion constant and the files
+    its [settings] name outside its own folder (``files_outside_model_folder``)."""
     out = {"ephemeris": obs.ephemeris_label,
            "clock_corrections": "; ".join(obs.clock_corrections) or "none applied"}
     if model is not None:
@@ -118,6 +119,7 @@ def settings_entry(obs: Observations, model: TimingModel | None = None) -> dict:
             "solar_wind": ({"model": "spherical, n0 (1 au / r)^2",
                             "electron_density_at_1au_cm3": wind[0].density.value}
                            if wind else "not modelled"),
+            "files_outside_model_folder": model.files_outside_own_folder(),
         })
     return out
 

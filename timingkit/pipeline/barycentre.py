@@ -5,7 +5,8 @@ from __future__ import annotations
 
 
 from timingkit.formats import csv_columns
-from timingkit.formats.model_file import atomic_write_text
+from timingkit.formats.atomic_file import atomic_write_text
+from timingkit.outputs.output_set import refuse_output_over_inputs, writing_error
 from timingkit.pipeline.inputs import Inputs, load_inputs
 
 
@@ -30,6 +31,8 @@ def barycentre_files(toas_path, model_path, csv_path=None, *, sites_paths=(), ep
     """Write the barycentring table to ``csv_path`` (or return it as text)."""
     inputs = load_inputs(toas_path, model_path, sites_paths=sites_paths, ephemeris=ephemeris,
                          clock_paths=clock_paths)
+    if csv_path is not None:
+        refuse_output_over_inputs(csv_path, inputs.paths)
     rows = barycentre_rows(inputs)
     obs = inputs.obs
     # whole columns at once (timingkit.formats.csv_columns); delays in s with 12 decimals
@@ -45,5 +48,8 @@ def barycentre_files(toas_path, model_path, csv_path=None, *, sites_paths=(), ep
                csv_columns.split_mjd(bary.day, bary.frac, 15)]
     text = csv_columns.csv_bytes(BARYCENTRE_COLUMNS, columns).decode("utf-8")
     if csv_path is not None:
-        atomic_write_text(csv_path, text)
+        try:
+            atomic_write_text(csv_path, text)
+        except OSError as exc:
+            raise writing_error(exc, csv_path) from None
     return text

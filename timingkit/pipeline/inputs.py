@@ -18,7 +18,7 @@ from timingkit.model.timing_model import TimingModel
 from timingkit.geometry.observations import Observations
 from timingkit.geometry.sites import SiteTable
 from timingkit.formats.toa_table import ToaTable
-from timingkit.formats.toa_reader import read_toa_table
+from timingkit.formats.toa_reader import FREQ_MHZ_RANGE, read_toa_table
 
 if TYPE_CHECKING:
     from timingkit.pipeline.left_out import Selection
@@ -105,14 +105,25 @@ def reference_observations(model: TimingModel, sites, eph, clocks) -> Observatio
         return None
     from timingkit.model.parameters import mjd_parts
     day, frac = mjd_parts(pz["mjd"])
+
+    def bad(message: str, key: str) -> InputError:
+        field = f"phase_zero.{key}"
+        return InputError(message, path=model.path, line=model.line_of(field), field=field)
+
+    low, high = FREQ_MHZ_RANGE
     try:
         freq = float(pz["freq_mhz"])
     except ValueError:
-        raise InputError("expected a frequency in MHz or 'inf'", path=model.path,
-                         field="phase_zero.freq_mhz") from None
+        raise bad("expected a frequency in MHz or 'inf'", "freq_mhz") from None
+    if not (low <= freq <= high or freq == np.inf):
+        raise bad(f"must lie between {low:g} and {high:g} MHz, or be 'inf'; found {freq:g}",
+                  "freq_mhz")
     toas = ToaTable.from_arrays(np.array([day]), np.array([frac]), np.array([1.0]),
                             np.array([freq]), np.array([pz["site"]]))
-    return model.prepare_observations(toas, sites, eph, clocks)
+    try:
+        return model.prepare_observations(toas, sites, eph, clocks)
+    except InputError as exc:
+        raise bad(exc.message, "site" if exc.field == "site" else "mjd") from None
 
 
 def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths=(),
@@ -136,4 +147,48 @@ def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths
         toas, inputs.selection, lambda table: model.prepare_observations(table, sites, eph, clocks))
     inputs.obs.warnings.extend(model.data_warnings(inputs.obs))   # the TOAs the fit uses
     inputs.reference = reference_observations(model, sites, eph, clocks)
+    inputs.obs.warnings.extend(duplicate_toa_warnings(toas) + unmatched_group_warnings(model,
+                                                                                        inputs.obs))
     return inputs
+
+
+def duplicate_toa_warnings(toas: ToaTable) -> list[str]:
+    """A warning when TOAs repeat (same MJD, site and frequency): every copy is
+    counted, so the fit's uncertainties shrink as if the data were independent."""
+    if len(toas) < 2:
+        return []
+    _, site_code = np.unique(toas.site, return_inverse=True)
+    order = np.lexsort((toas.freq_mhz, site_code.reshape(-1), toas.mjd_frac, toas.mjd_day))
+    same = np.ones(len(order) - 1, dtype=bool)
+    for column in (toas.mjd_day, toas.mjd_frac, toas.freq_mhz, site_code.reshape(-1)):
+        ordered = column[order]
+        same &= ordered[1:] == ordered[:-1]
+    if not same.any():
+        return []
+    first = int(np.flatnonzero(same)[0])
+    rows = sorted(int(order[first + k]) for k in (0, 1))
+    where = (f"lines {toas.line_numbers[rows[0]]} and {toas.line_numbers[rows[1]]}"
+             if toas.line_numbers is not None else f"rows {rows[0]} and {rows[1]}")
+    return [f"{int(same.sum())} TOA(s) repeat an earlier one (same MJD, site and frequency; "
+            f"first: {where} of {toas.path or 'the TOA table'}): each copy counts, so the "
+            "uncertainties shrink as if they were independent; remove the copies"]
+
+
+def unmatched_group_warnings(model: TimingModel, obs: Observations) -> list[str]:
+    """Warnings for [[time_offset]] and [[white_noise]] groups that select no TOA."""
+    out = []
+    for section in model.extra:
+        flag, value = getattr(section, "flag", None), getattr(section, "value", None)
+        if section.section not in ("time_offset", "white_noise") or flag is None:
+            continue
+        if flag == "site":
+            hit = (obs.toas.site == value) | (np.asarray(obs.site_names) == value)
+        elif flag in obs.toas.flags:
+            hit = obs.toas.flags[flag] == value
+        else:
+            hit = np.zeros(len(obs), dtype=bool)
+        if not np.any(hit):
+            out.append(f"[[{section.section}]] number {section.array_index + 1} ({flag} = "
+                       f"{value}) matches no TOA of {obs.toas.path or 'the table'}; it has "
+                       "no effect")
+    return out
