@@ -73,8 +73,21 @@ def discover_sources(path, outdir=None) -> list[Source]:
         if folder.name.startswith(".") or folder.resolve() == skip:
             continue
         source = _source_from_folder(folder)
-        if source is not None:
-            sources.append(source)
+        if source is None:
+            continue
+        if folder.name in TOP_LEVEL_OUTPUTS:
+            raise InputError(f"a source folder may not be named {folder.name!r}, the name of a "
+                             "batch output file; rename the folder", path=str(folder))
+        if skip is not None and skip.is_relative_to(folder.resolve()):
+            raise InputError(f"the output folder lies inside the input folder of source "
+                             f"'{folder.name}'; choose an output folder outside it",
+                             path=str(skip), field="outdir")
+        sources.append(source)
+    if skip is not None and skip in {f.resolve() for f in path.iterdir() if f.is_dir()
+                                     and not f.name.startswith(".")} and (
+            _source_from_folder(skip) is not None):
+        raise InputError("the output folder is one of the source folders; choose an output "
+                         "folder outside them", path=str(skip), field="outdir")
     if not sources:
         raise InputError(f"no source folders found (each needs one TOA table, '{TOA_TABLE_NAME}' "
                          f"or '*{TOA_TABLE_SUFFIX}', and one '*.toml' model)", path=str(path))

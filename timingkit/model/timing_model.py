@@ -64,8 +64,9 @@ class TimingModel:
         try:
             self._build(document)
         except InputError as exc:
+            own = None if document.path is None else os.fspath(document.path)
             if exc.line is not None or not exc.field or not document.text or (
-                    exc.path and exc.path != document.path):
+                    exc.path and exc.path != own):
                 raise
             raise exc.located(line=key_line(document.text, exc.field)) from None
 

@@ -1,0 +1,201 @@
+"""The batch runner under faults (issue 15): workers end with the batch, one run per
+output folder, only its own leftovers removed, no output among the inputs, resume
+only of intact folders, shared outputs without file contents.
+
+Most tests use a quick stand-in fit function (``quick_fit``: writes a small report
+and sleeps when asked), so they test the runner, not the fit.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import threading
+import time
+from pathlib import Path
+
+import pytest
+
+from timingkit.batch.runner import run_batch
+from timingkit.batch.sources import Source, discover_sources
+from timingkit.formats.errors import InputError
+from timingkit.outputs.folder_lock import lock_output_folder
+
+ROOT = Path(__file__).resolve().parents[1]
+TESTS = Path(__file__).resolve().parent
+SAMPLE = ROOT / "timingkit" / "sample_data"
+SECRET = "api_key SECRET-TOKEN-123"
+
+
+def quick_fit(toas_path, model_path, outdir, **options):
+    """Stand-in fit: a report and a figure; records its pid and sleeps
+    $TIMINGKIT_TEST_SLEEP seconds first when $TIMINGKIT_TEST_PIDS is set."""
+    pids = os.environ.get("TIMINGKIT_TEST_PIDS")
+    if pids:
+        Path(pids, str(os.getpid())).write_text(Path(toas_path).parent.name)
+        time.sleep(float(os.environ.get("TIMINGKIT_TEST_SLEEP", "0")))
+    name = Path(toas_path).parent.name
+    Path(outdir, "report.json").write_text(json.dumps({"source": name, "toas": 1}))
+    Path(outdir, "residuals.png").write_bytes(b"not really a figure")
+    return {"source": name}
+
+
+def _sources(root: Path, count: int) -> Path:
+    for i in range(count):
+        folder = root / f"src-{i:02d}"
+        folder.mkdir(parents=True)
+        (folder / "toas.txt").write_text(f"mjd err_us freq_mhz site\n5800{i}.5 1 1400 ssb\n")
+        (folder / "model.toml").write_text(f'name = "src-{i:02d}"\n')
+    return root
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/status") as handle:
+            state = next(line for line in handle if line.startswith("State:"))
+    except (FileNotFoundError, StopIteration):
+        return False
+    return "Z" not in state.split()[1]        # a zombie has ended
+
+
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT, signal.SIGKILL])
+def test_workers_end_with_the_batch_and_write_nothing_after_it(tmp_path, signum):
+    sources, outdir, pids = _sources(tmp_path / "sources", 8), tmp_path / "out", tmp_path / "pids"
+    pids.mkdir()
+    program = ("from timingkit.batch.runner import run_batch; from test_batch_faults import "
+               f"quick_fit; run_batch({str(sources)!r}, {str(outdir)!r}, workers=2, "
+               "progress=False, fit_function=quick_fit)")
+    env = dict(os.environ, TIMINGKIT_TEST_PIDS=str(pids), TIMINGKIT_TEST_SLEEP="3",
+               PYTHONPATH=os.pathsep.join([str(TESTS), str(ROOT), os.environ.get("PYTHONPATH", "")]))
+    main = subprocess.Popen([sys.executable, "-c", program], env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE)
+    deadline = time.monotonic() + 60
+    while len(list(pids.iterdir())) < 2:
+        assert main.poll() is None, main.communicate()[1].decode()[-2000:]
+        assert time.monotonic() < deadline, "the workers never started"
+        time.sleep(0.05)
+    workers = [int(p.name) for p in pids.iterdir()]
+    main.send_signal(signum)           # the main process only, as a scheduler would
+    main.wait(30)
+    deadline = time.monotonic() + 10
+    while any(_alive(pid) for pid in workers) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert not any(_alive(pid) for pid in workers), "a worker outlived the batch"
+    started = {p.read_text() for p in pids.iterdir()}
+    visible = {p.name for p in outdir.iterdir() if not p.name.startswith(".")}
+    time.sleep(4)                      # longer than a source takes: nothing more appears
+    assert {p.read_text() for p in pids.iterdir()} == started
+    assert {p.name for p in outdir.iterdir() if not p.name.startswith(".")} == visible
+    assert not visible & {p.read_text() for p in pids.iterdir()
+                          if int(p.name) in workers}, "a source in flight was written"
+
+
+def test_a_second_batch_on_a_locked_folder_is_refused_or_waits(tmp_path, capsys):
+    sources, outdir = _sources(tmp_path / "sources", 2), tmp_path / "out"
+    outdir.mkdir()
+    with lock_output_folder(outdir):
+        with pytest.raises(InputError) as caught:
+            run_batch(sources, outdir, workers=1, progress=False, fit_function=quick_fit)
+        assert caught.value.field == "outdir" and f"pid {os.getpid()}" in str(caught.value)
+        assert not (outdir / "summary.csv").exists()
+        from timingkit.cli.main import main
+        assert main(["batch", str(sources), "-o", str(outdir)]) == 2
+        assert "in use by" in capsys.readouterr().err
+    holder = threading.Thread(target=_hold_lock, args=(outdir, 1.0))
+    holder.start()
+    time.sleep(0.2)
+    result = run_batch(sources, outdir, workers=1, progress=False, fit_function=quick_fit,
+                       wait=True)
+    holder.join()
+    assert result.exit_status == 0 and (outdir / "summary.csv").exists()
+    assert (outdir / ".timingkit-lock").read_text() == ""     # released: names nobody
+
+
+def _hold_lock(folder, seconds):
+    with lock_output_folder(folder):
+        time.sleep(seconds)
+
+
+def test_clean_up_removes_only_folders_timingkit_marked(tmp_path):
+    sources, outdir = _sources(tmp_path / "sources", 2), tmp_path / "out"
+    outdir.mkdir()
+    mine = {".old-drafts": "draft\n", ".tmp-scratch": "scratch\n", ".tmp-notes-0a1b2c3d": "x\n"}
+    for name, text in mine.items():
+        (outdir / name).mkdir()
+        (outdir / name / "keep.txt").write_text(text)
+    (outdir / ".vimrc.tmp").write_text("set number\n")
+    (outdir / ".summary.csv.123.0a1b2c3d.tmp").write_text("half a summary")   # ours
+    run_batch(sources, outdir, workers=1, progress=False, fit_function=quick_fit)
+    for name, text in mine.items():
+        assert (outdir / name / "keep.txt").read_text() == text
+    assert (outdir / ".vimrc.tmp").read_text() == "set number\n"
+    assert not (outdir / ".summary.csv.123.0a1b2c3d.tmp").exists()
+
+
+def test_a_user_folder_named_like_a_source_is_never_replaced(tmp_path):
+    sources, outdir = _sources(tmp_path / "sources", 2), tmp_path / "out"
+    (outdir / "src-01").mkdir(parents=True)
+    (outdir / "src-01" / "thesis.tex").write_text("chapter 1\n")
+    with pytest.raises(InputError) as caught:
+        run_batch(sources, outdir, workers=1, progress=False, fit_function=quick_fit)
+    assert "src-01" in str(caught.value)
+    assert (outdir / "src-01" / "thesis.tex").read_text() == "chapter 1\n"
+
+
+@pytest.mark.parametrize("where", ["src-01", "src-01/out"])
+def test_output_inside_a_source_folder_is_refused(tmp_path, where):
+    sources = _sources(tmp_path / "sources", 3)
+    with pytest.raises(InputError) as caught:
+        run_batch(sources, sources / where, workers=1, progress=False, fit_function=quick_fit)
+    assert caught.value.field == "outdir"
+    assert sorted(p.name for p in (sources / "src-01").iterdir())[:2] == ["model.toml", "toas.txt"]
+    assert not (sources / "src-01" / "summary.csv").exists()
+
+
+def test_a_source_folder_named_like_a_batch_output_is_refused(tmp_path):
+    sources = _sources(tmp_path / "sources", 1)
+    shutil.copytree(sources / "src-00", sources / "summary.csv")
+    with pytest.raises(InputError) as caught:
+        discover_sources(sources)
+    assert "summary.csv" in str(caught.value)
+
+
+def test_resume_reuses_only_folders_whose_outputs_are_intact(tmp_path):
+    sources, outdir = _sources(tmp_path / "sources", 4), tmp_path / "out"
+    run_batch(sources, outdir, workers=1, progress=False, fit_function=quick_fit)
+    (outdir / "src-01" / "residuals.png").unlink()                       # deleted
+    (outdir / "src-02" / "report.json").write_text('{"source": "edited"}')  # overwritten
+    (outdir / "src-03" / "outputs.sha256").unlink()                      # no record
+    again = run_batch(sources, outdir, workers=1, progress=False, resume=True,
+                      fit_function=quick_fit)
+    assert again.refitted == ["src-01", "src-02", "src-03"]
+    assert [o.name for o in again.outcomes if o.reused] == ["src-00"]
+    assert (outdir / "src-01" / "residuals.png").exists()
+
+
+def test_shared_batch_outputs_carry_reasons_without_file_contents(tmp_path):
+    secret = tmp_path / "credentials.txt"
+    secret.write_text(SECRET + "\nroot:x:0:0:root:/root:/bin/bash\n")
+    folder = tmp_path / "data"
+    folder.mkdir()
+    for name in ("demo-slow.toas", "demo-slow.toml", "sites.toml"):
+        shutil.copy(SAMPLE / name, folder / name)
+    model = folder / "demo-slow.toml"
+    model.write_text(model.read_text() + f'clock = ["{secret}"]\n')
+    manifest = tmp_path / "manifest.toml"
+    manifest.write_text(f'[[source]]\nname = "clocked"\ntoas = "data/demo-slow.toas"\n'
+                        f'model = "data/demo-slow.toml"\n\n[[source]]\nname = "passwords"\n'
+                        f'toas = "{secret}"\nmodel = "data/demo-slow.toml"\n')
+    outdir = tmp_path / "out"
+    result = run_batch(manifest, outdir, workers=1, progress=False)
+    assert result.failed == ["clocked", "passwords"]
+    shared = [outdir / "summary.csv", outdir / "summary.json", outdir / "overview.html",
+              outdir / "clocked" / "error.txt", outdir / "passwords" / "error.txt"]
+    for path in shared:
+        text = path.read_text()
+        assert "SECRET" not in text and "root:x" not in text, path
+    assert "credentials.txt:1" in (outdir / "clocked" / "error.txt").read_text()
