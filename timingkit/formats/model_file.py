@@ -12,6 +12,7 @@ values are written as exact strings in a stable, readable layout.
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import re
@@ -305,9 +306,8 @@ def _format_value(value: Any) -> str:
         if math.isinf(value):
             return "inf" if value > 0 else "-inf"
         return repr(value)
-    if isinstance(value, str):
-        escaped = value.replace("\\", "\\\\").replace('"', '\\"')
-        return f'"{escaped}"'
+    if isinstance(value, str):   # JSON's escapes are TOML's too (control characters as \\uXXXX)
+        return json.dumps(value, ensure_ascii=False).replace("\x7f", "\\u007f")
     if isinstance(value, (list, tuple)):
         return "[" + ", ".join(_format_value(v) for v in value) + "]"
     raise TypeError(f"cannot write {type(value).__name__} to TOML")
