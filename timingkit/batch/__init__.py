@@ -5,6 +5,7 @@
 - ``fingerprint``: content hashes for ``--resume``.
 - ``outcomes``: :class:`BatchResult` and per-source outcomes.
 - ``summary``: summary.csv, summary.json, the P-Pdot diagram and the overview page.
+- ``worker_guard``: workers that end with the batch; ``outputs.sha256`` for resume.
 
 ::
 

@@ -7,7 +7,11 @@ becomes a ``failed`` row with a one-line reason and an ``error.txt``. Every
 source writes into ``OUTDIR/.tmp-NAME-xxxxxxxx`` and the folder is renamed to
 ``OUTDIR/NAME`` only when complete, so an interrupted batch never leaves a
 half-written report. ``inputs.sha256`` in each folder records a content hash of
-the inputs and settings; ``resume=True`` keeps sources whose hash is unchanged.
+the inputs and settings, ``outputs.sha256`` the hash of every output; ``resume=True``
+keeps sources whose input hash is unchanged and whose outputs are intact. OUTDIR is
+locked for the run (timingkit.outputs.folder_lock); clean-up removes only marked work
+folders (timingkit.outputs.output_set); workers end with the batch
+(timingkit.batch.worker_guard).
 
 Engines: a ``concurrent.futures`` process pool (default, one process per core),
 ``cluster="local"`` (a Dask ``LocalCluster``) or ``cluster="tcp://HOST:PORT"``

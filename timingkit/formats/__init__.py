@@ -1,8 +1,10 @@
 """Readers and writers of the project's own files, and the errors they raise.
 
 - ``errors``: :class:`InputError` (file, line, field) and :class:`FitError`.
+- ``safe_read``: regular files only, with size limits (a device or FIFO is refused).
 - ``textfile``: the one text-file reader (encoding, size, line errors) and TOML reader
   (syntax errors with their line), used by the model, site and batch-manifest files.
+- ``atomic_file``: one output file written atomically, with the user's umask.
 - ``mjd_text``: exact decimal MJD text <-> whole day + fraction.
 - ``toa_table``, ``toa_reader``, ``toa_writer``: the TOA table (:class:`ToaTable`).
 - ``model_file``: the TOML model file (exact decimals, key validation, atomic writes).

@@ -2,7 +2,7 @@
 
 - ``report``: report.json and the terminal summary.
 - ``numbers``: values rounded to their uncertainty, units as physicists write them.
-- ``residual_table``: residuals.csv (read and write) and atomic output folders.
+- ``residual_table``: residuals.csv (read and write).
 - ``figure_basics``: Agg figures, atomic saving, units by scale, the outside colour key.
 - ``plotting``: residual figures (against MJD, day of year, orbital phase, frequency).
 - ``diagnostic_figures``: the P–Pdot diagram, the glitch-search figure, the power spectrum.
@@ -10,6 +10,8 @@
 - ``overview_page``: the HTML overview of a batch (embedded figures, or linked thumbnails).
 - ``profile_figure``: profile.png of folded photon events (two cycles, unpulsed level).
 - ``explorer_page``: explorer.html, the interactive residual explorer of one fit.
+- ``output_set``: a command's output folder written as one marked set (:func:`output_set`).
+- ``folder_lock``: one run at a time per output folder (:func:`lock_output_folder`).
 """
 
 from timingkit import lazy_exports
