@@ -84,7 +84,7 @@ def test_simulate_and_convert_never_overwrite_their_model(slow, capsys):
 
 # ------------------------------------------------------------ regular files only, size limits
 
-@pytest.mark.parametrize("role", ["toas", "clock", "sites"])
+@pytest.mark.parametrize("role", ["toas", "clock", "sites", "ephemeris"])
 def test_a_device_is_refused_as_any_input(slow, capsys, role):
     model = slow / "demo-slow.toml"
     toas = slow / "demo-slow.toas"
@@ -92,7 +92,7 @@ def test_a_device_is_refused_as_any_input(slow, capsys, role):
     if role == "toas":
         toas = Path("/dev/zero")
     else:
-        extra = ["--clock" if role == "clock" else "--sites", "/dev/zero"]
+        extra = [f"--{role}", "/dev/zero"]
     status, err = _run(capsys, "residuals", toas, model, *extra, "-o", slow / "out")
     message = _one_message(err)
     assert status == 2 and "/dev/zero" in message and "not a regular file" in message
@@ -224,12 +224,7 @@ frequency_step_hz = 1e-7
 decaying_frequency_step_hz = 1e-8
 decay_time_days = 50.0
 """
-RED = """
-[red_noise]
-amplitude_log10 = -13.0
-spectral_index = 4.0
-span_days = 1000.0
-"""
+RED = "\n[red_noise]\namplitude_log10 = -13.0\nspectral_index = 4.0\nspan_days = 1000.0\n"
 
 
 def _edit(text, old, new):

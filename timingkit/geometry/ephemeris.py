@@ -17,6 +17,7 @@ import numpy as np
 from jplephem.spk import SPK
 
 from timingkit.formats.errors import InputError
+from timingkit.formats.safe_read import check_regular_file
 from timingkit.numerics.chebyshev_grid import chebyshev_sum
 from timingkit.numerics.timearray import SplitTime
 
@@ -47,6 +48,7 @@ class Ephemeris:
     def __init__(self, path: str, label: str):
         self.path = path
         self.label = label
+        check_regular_file(path, "JPL SPK ephemeris (.bsp)")   # never a device or FIFO
         try:
             self._kernel = SPK.open(path)
         except FileNotFoundError:
