@@ -33,10 +33,11 @@ def add_parsers(sub) -> None:
 
 
 def _is_predictor_file(path: str) -> bool:
+    from timingkit.formats.safe_read import open_regular
     try:
-        with open(path, "rb") as fh:
+        with open_regular(path, "model or predictor file") as fh:
             head = fh.read(200)
-    except OSError:
+    except (OSError, InputError):
         return False
     return b"timingkit-phase-predictor" in head
 
@@ -53,6 +54,9 @@ def cmd_predict(args) -> int:
     if not args.output and not args.table:
         raise InputError("give -o FILE to write the predictor (or --table to print it)",
                          field="--output")
+    if args.output:
+        from timingkit.outputs.output_set import refuse_output_over_inputs
+        refuse_output_over_inputs(args.output, [args.model])
     predictor = build_from_files(args)
     data = predictor.data
     if args.output:

@@ -33,6 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from timingkit.formats.errors import InputError
+from timingkit.formats.safe_read import check_regular_file
 from timingkit.formats.model_file import atomic_write_bytes
 from timingkit.formats.mjd_text import parse_mjd_strings
 
@@ -122,6 +123,7 @@ def write_template_file(template: Template, path: str) -> None:
 
 
 def _load(path: str, what: str, fmt: str, legal) -> dict:
+    check_regular_file(path, what)       # a device or FIFO is never read
     try:
         with np.load(path, allow_pickle=False) as npz:
             arrays = {k: npz[k] for k in npz.files}
