@@ -11,6 +11,7 @@ from __future__ import annotations
 import errno
 import json
 import os
+import re
 import shutil
 import stat
 import sys
@@ -205,7 +206,20 @@ def test_settings_files_outside_the_model_folder_are_listed_in_the_report(slow, 
 
 # ------------------------------------------------------------ every bad model value is clear
 
-BASE = (SAMPLE / "demo-slow.toml").read_text()
+def _base_model() -> str:
+    """The sample slow pulsar's model with the values the edits below start from."""
+    text = (SAMPLE / "demo-slow.toml").read_text()
+    for pattern, value in ((r'frequency_hz = "[^"]+"', 'frequency_hz = "0.712345678900"'),
+                           (r"frequency_derivatives = \[[^\]]*\]",
+                            'frequency_derivatives = ["-2.30e-15"]'),
+                           (r"dm = [0-9.]+", "dm = 112.0"), (r'ra = "[^"]+"', 'ra = "19h03m45.11s"'),
+                           (r'dec = "[^"]+"', 'dec = "+44d17m09.8s"')):
+        text, count = re.subn(pattern, value, text, count=1)
+        assert count == 1, pattern
+    return text
+
+
+BASE = _base_model()
 BINARY = """
 [binary]
 model = "relativistic"

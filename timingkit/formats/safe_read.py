@@ -47,7 +47,7 @@ def open_regular(path, what: str, limit: int = MAX_TEXT_INPUT_BYTES):
     try:
         descriptor = os.open(path, flags)
     except FileNotFoundError:
-        raise InputError(f"cannot read this {what}: not found", path=path) from None
+        raise InputError(f"{what} not found", path=path) from None
     except IsADirectoryError:
         raise InputError(f"is a directory, expected a {what}", path=path) from None
     except PermissionError:
