@@ -189,14 +189,17 @@ def fold_event_files(events_path, model_path, outdir, *, site=None, orbit=None, 
               **fold,
               "settings": settings_entry(inputs, timing), "cautions": cautions,
               "warnings": inputs.warnings + inputs.events.notes}
-    os.makedirs(outdir, exist_ok=True)
-    _write_phases(inputs, clock, timing, os.path.join(outdir, "phases.fits"))
+    from timingkit.outputs.output_set import output_set
     from timingkit.outputs.report import write_json
-    write_json(os.path.join(outdir, "events_report.json"), report)
-    if make_plot:
-        from timingkit.outputs.profile_figure import plot_event_profile
-        phase, smooth = smooth_profile(fold, sums, n)
-        plot_event_profile(report, phase, smooth, path=os.path.join(outdir, "profile.png"))
+    read = [events_path, model_path, *sites_paths, *clock_paths, ephemeris,
+            orbit if isinstance(orbit, (str, os.PathLike)) else None]
+    with output_set(outdir, inputs=read) as work:      # one set, never over an input
+        _write_phases(inputs, clock, timing, os.path.join(work, "phases.fits"))
+        write_json(os.path.join(work, "events_report.json"), report)
+        if make_plot:
+            from timingkit.outputs.profile_figure import plot_event_profile
+            phase, smooth = smooth_profile(fold, sums, n)
+            plot_event_profile(report, phase, smooth, path=os.path.join(work, "profile.png"))
     return report
 
 
