@@ -27,7 +27,7 @@ def cmd_convert(args) -> int:
     from timingkit.model.timing_model import TimingModel
     if not args.frame and not args.binary_model:
         raise InputError("nothing to do: give --frame and/or --binary-model", field="convert")
-    from timingkit.outputs.output_set import refuse_output_over_inputs, writing_error
+    from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
     refuse_output_over_inputs(args.output, [args.model])
     model = TimingModel.from_file(args.model)
     new = convert_model(model, args.frame, args.binary_model)

@@ -18,7 +18,7 @@ from timingkit.cli.options import (
     selection_arguments,
 )
 from timingkit.formats.errors import InputError
-from timingkit.outputs.output_set import refuse_output_over_inputs
+from timingkit.formats.atomic_file import refuse_output_over_inputs
 
 
 def add_parsers(sub) -> None:

@@ -55,7 +55,7 @@ def cmd_predict(args) -> int:
         raise InputError("give -o FILE to write the predictor (or --table to print it)",
                          field="--output")
     if args.output:
-        from timingkit.outputs.output_set import refuse_output_over_inputs
+        from timingkit.formats.atomic_file import refuse_output_over_inputs
         refuse_output_over_inputs(args.output, [args.model])
     predictor = build_from_files(args)
     data = predictor.data

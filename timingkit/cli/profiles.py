@@ -63,7 +63,7 @@ def cmd_profile_toas(args) -> int:
     from timingkit.formats.toa_writer import write_toa_table
     from timingkit.profiles.templates import auto_template, resample
     from timingkit.profiles.toas import gather_profiles, time_profiles
-    from timingkit.outputs.output_set import refuse_output_over_inputs
+    from timingkit.formats.atomic_file import refuse_output_over_inputs
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
     sets = [read_profile_file(path) for path in args.profiles]
     timed = gather_profiles(sets, args.per_channel, args.per_subint)

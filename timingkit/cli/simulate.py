@@ -49,7 +49,7 @@ def cmd_simulate(args) -> int:
                                            reference_observations)
     from timingkit.model.simulate import simulate_toas
     from timingkit.formats.toa_writer import write_toa_table
-    from timingkit.outputs.output_set import refuse_output_over_inputs, writing_error
+    from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
     model = load_model(args.model)
     if args.solar_wind_density_cm3 is not None:
         from timingkit.model.solar_wind import set_solar_wind

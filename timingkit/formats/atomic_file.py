@@ -1,4 +1,4 @@
-"""Writing one output file atomically, with the user's umask.
+"""Writing one output file atomically, with the user's umask; never over an input.
 
 The data go to a temporary file beside the target, which is renamed over it
 only when complete, so a reader never sees half a file. The temporary file is
@@ -9,10 +9,13 @@ created with mode 0o666 and the process umask applies, exactly as for a plain
 from __future__ import annotations
 
 import contextlib
+import errno
 import os
 import re
 import uuid
 from pathlib import Path
+
+from timingkit.formats.errors import InputError
 
 # .NAME.PID.XXXXXXXX.tmp: the temporary files of atomic_output (see own_temporary_file)
 _TEMPORARY_NAME = re.compile(r"^\.(?P<name>.+)\.\d+\.[0-9a-f]{8}\.tmp$")
@@ -56,3 +59,24 @@ def own_temporary_file(name: str, targets) -> bool:
     """Whether ``name`` is a temporary file atomic_output made for one of ``targets``."""
     found = _TEMPORARY_NAME.match(name)
     return bool(found) and found.group("name") in set(targets)
+
+
+def refuse_output_over_inputs(output, inputs) -> None:
+    """An InputError when the output file ``output`` is one of ``inputs``."""
+    target = Path(output).resolve()
+    for path in filter(None, inputs):
+        if Path(path).resolve() == target:
+            raise InputError("the output file is an input of this command; writing it would "
+                             "replace the input: choose another output path", path=str(output),
+                             field="output")
+
+
+def writing_error(exc: OSError, final) -> InputError:
+    """The InputError for an output that could not be written (full disk, read-only
+    folder, permissions, ...), naming ``final``."""
+    reason = {errno.ENOSPC: "no space left on the disk", errno.EDQUOT: "disk quota exceeded",
+              errno.EROFS: "the file system is read-only", errno.EACCES: "permission denied",
+              errno.EPERM: "permission denied", errno.EFBIG: "file too large for the disk "
+              "or the user's limit"}.get(exc.errno, exc.strerror or str(exc))
+    return InputError(f"cannot write the output ({reason}); nothing was changed there",
+                      path=str(final), field="output")

@@ -15,7 +15,6 @@ timingkit's output files): a user's own files are never removed.
 from __future__ import annotations
 
 import contextlib
-import errno
 import json
 import os
 import shutil
@@ -23,7 +22,8 @@ import socket
 import time
 from pathlib import Path
 
-from timingkit.formats.atomic_file import own_temporary_file
+from timingkit.formats.atomic_file import (own_temporary_file, refuse_output_over_inputs,  # noqa: F401
+                                          writing_error)
 from timingkit.formats.errors import InputError
 
 MARKER = ".timingkit-output"
@@ -138,25 +138,6 @@ def refuse_inputs_inside(folder, inputs, what: str = "output folder") -> None:
             raise InputError(f"the {what} holds an input of this command ({path}); writing the "
                              "outputs would replace it: choose another output folder",
                              path=str(folder), field="outdir")
-
-
-def refuse_output_over_inputs(output, inputs) -> None:
-    """An InputError when the output file ``output`` is one of ``inputs``."""
-    target = Path(output).resolve()
-    for path in filter(None, inputs):
-        if Path(path).resolve() == target:
-            raise InputError("the output file is an input of this command; writing it would "
-                             "replace the input: choose another output path", path=str(output),
-                             field="output")
-
-
-def writing_error(exc: OSError, final) -> InputError:
-    reason = {errno.ENOSPC: "no space left on the disk", errno.EDQUOT: "disk quota exceeded",
-              errno.EROFS: "the file system is read-only", errno.EACCES: "permission denied",
-              errno.EPERM: "permission denied", errno.EFBIG: "file too large for the disk "
-              "or the user's limit"}.get(exc.errno, exc.strerror or str(exc))
-    return InputError(f"cannot write the output ({reason}); nothing was changed there",
-                      path=str(final), field="output")
 
 
 def check_output_folder(folder, inputs=()) -> Path:

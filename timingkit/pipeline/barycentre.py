@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from timingkit.formats import csv_columns
 from timingkit.formats.atomic_file import atomic_write_text
-from timingkit.outputs.output_set import refuse_output_over_inputs, writing_error
+from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
 from timingkit.pipeline.inputs import Inputs, load_inputs
 
 
