@@ -306,7 +306,7 @@ def bench_predict(n: int, tmp: str) -> None:
         out = dict(build=build, segments=len(p), phase_s=phase_s, phase_cpu=phase_cpu,
                    random_s=random_s, random_cpu=random_cpu, freq_s=freq_s, err=err)
     """)
-    print(f"phase predictor (287 Hz MSP, 1 day at desert-dish): built in {r['build']:.2f} s "
+    print(f"phase predictor (sample MSP, 1 day at desert-dish): built in {r['build']:.2f} s "
           f"({r['segments']} segments); {n:,} phases in {r['phase_s']:.2f} s "
           f"({r['phase_cpu']:.2f} s CPU) in time order, {r['random_s']:.2f} s "
           f"({r['random_cpu']:.2f} s CPU) shuffled; frequencies {r['freq_s']:.2f} s (target "
@@ -334,7 +334,7 @@ def bench_profiles(n: int, tmp: str) -> None:
                 site="desert-dish", centre_freq_mhz=1400.0, dedispersion_dm=20.0,
                 channel_freq_mhz=1400.0 + np.arange(8) * 10.0,
                 reference_mjd=[f"60000.{{k:02d}}{{j}}" for j in range(4)],
-                folding_frequency_hz=np.full(4, 287.0),
+                folding_frequency_hz=np.full(4, 401.7),
                 data=profiles[k * 32:(k + 1) * 32].reshape(4, 8, 1024)),
                 os.path.join(folder, f"obs-{{k:02d}}.npz"))
         from timingkit.cli.main import main

@@ -121,7 +121,7 @@ def _simulate(text, n, sites, eph, times=None, seed=1):
 
 
 def _timed_fit(model, obs, free, repeats: int = 1):
-    from timingkit.fit.fitter import fit
+    from timingkit.fit.least_squares import fit
     start = model.copy()
     start.parameter("spin.frequency_hz").add(2e-11)
     best, res = float("inf"), None

@@ -93,7 +93,7 @@ def _timed_search(model, obs):
 def bench_glitches(n_toas: int = 2000, years: float = 10.0) -> dict:
     os.environ.setdefault("MPLBACKEND", "Agg")
     from timingkit.geometry.ephemeris import load_ephemeris
-    from timingkit.fit.fitter import fit
+    from timingkit.fit.least_squares import fit
     from timingkit.model import TimingModel
     from timingkit.geometry.observations import prepare_observations
     from timingkit.model.simulate import simulate_toas

@@ -95,7 +95,7 @@ def _measure(toas: int, sizes) -> dict:
     import numpy as np
 
     from timingkit.geometry.ephemeris import load_ephemeris
-    from timingkit.fit.fitter import fit
+    from timingkit.fit.least_squares import fit
     from timingkit.fit.gls import gls_solve
     from timingkit.model import TimingModel
     from timingkit.model.noise import fourier_basis, fourier_prior_variances

@@ -4,6 +4,13 @@ import pytest
 
 os.environ.setdefault("MPLBACKEND", "Agg")
 
+# The tests compare with astropy's own paths, offline: astropy must never try to
+# download IERS tables during them (timingkit itself only opens astropy.utils.iers
+# with downloads off; see timingkit.geometry.earth_orientation.astropy_iers).
+from astropy.utils import iers as _astropy_iers  # noqa: E402
+
+_astropy_iers.conf.auto_download = False
+
 SAMPLE = os.path.join(os.path.dirname(__file__), "..", "timingkit", "sample_data")
 
 

@@ -85,7 +85,7 @@ def test_api_errors_name_arguments_and_the_command_line_names_options(tmp_path, 
     with pytest.raises(InputError) as info:
         load_model(os.path.join(SAMPLE, "demo-slow.toml"), free=["no.such"])
     assert info.value.field == "free" and "--" not in str(info.value)
-    from timingkit.fit.fitter import fit
+    from timingkit.fit.least_squares import fit
     from timingkit.pipeline.inputs import load_inputs
     inputs = load_inputs(os.path.join(SAMPLE, "demo-slow.toas"),
                          os.path.join(SAMPLE, "demo-slow.toml"))

@@ -20,7 +20,6 @@ from pathlib import Path
 
 import pytest
 
-from timingkit.batch import runner as batch
 from timingkit.batch.sources import Source, discover_sources, read_manifest
 from timingkit.cli.batch import add_parsers as add_batch_parser
 from timingkit.batch.fingerprint import inputs_sha256

@@ -21,7 +21,7 @@ from pathlib import Path
 import pytest
 
 from timingkit.batch.runner import run_batch
-from timingkit.batch.sources import Source, discover_sources
+from timingkit.batch.sources import discover_sources
 from timingkit.formats.errors import InputError
 from timingkit.outputs.folder_lock import lock_output_folder
 

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from timingkit.formats.errors import FitError, InputError
-from timingkit.fit.fitter import compute_residuals, fit
+from timingkit.fit.least_squares import compute_residuals, fit
 from timingkit.model import TimingModel
 from timingkit.model.binary import keplerian_section, low_eccentricity_section
 from timingkit.model.kepler import solve_kepler, true_anomaly

@@ -37,8 +37,21 @@ def _utc(mjd):
     return SplitTime(day, mjd - day, "utc"), Time(day, mjd - day, format="mjd", scale="utc")
 
 
-def test_import_switches_astropy_downloads_off():
-    assert iers.conf.auto_download is False
+def test_timingkit_opens_the_iers_table_with_downloads_off(tmp_path, monkeypatch):
+    # A cold cache makes timingkit parse astropy's bundled table; it must switch
+    # astropy's downloads off before opening it, whatever the setting was.
+    old = iers.conf.auto_download
+    monkeypatch.setenv("TIMINGKIT_CACHE_DIR", str(tmp_path))
+    eo.eop_table.cache_clear()
+    try:
+        iers.conf.auto_download = True
+        table = eo.eop_table()
+        assert iers.conf.auto_download is False
+        assert table.last_mjd > table.first_mjd + 10000
+        assert list(tmp_path.glob("eop-*.npz")), "the parsed table is cached"
+    finally:
+        iers.conf.auto_download = old
+        eo.eop_table.cache_clear()
 
 
 def test_ut1_minus_utc_matches_astropy_inside_and_outside_the_table():

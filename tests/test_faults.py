@@ -14,7 +14,6 @@ import os
 import re
 import shutil
 import stat
-import sys
 from pathlib import Path
 
 import numpy as np
@@ -402,6 +401,23 @@ def test_duplicate_toas_and_groups_that_match_nothing_are_warned(slow):
     assert any("[[white_noise]] number 1 (site = north-ridge) matches no TOA" in w
                for w in warnings)
 
+
+
+def test_duplicates_are_found_among_equal_times_at_several_sites():
+    # Copies are found even when another TOA at the same time (another site or
+    # frequency) sorts between them; equal times that differ otherwise are no copies.
+    from timingkit.formats.toa_table import ToaTable
+    from timingkit.pipeline.inputs import duplicate_toa_warnings
+    day = [59000.0, 59000.0, 59000.0, 59000.0, 59001.0]
+    frac = [0.25, 0.25, 0.25, 0.25, 0.5]
+    sites = ["north-ridge", "lake-array", "north-ridge", "lake-array", "lake-array"]
+    freq = [1400.0, 1400.0, 1400.0, 820.0, 1400.0]
+    table = ToaTable.from_arrays(day, frac, [1.0] * 5, freq, sites)
+    [warning] = duplicate_toa_warnings(table)
+    assert warning.startswith("1 TOA(s) repeat an earlier one") and "rows 0 and 2" in warning
+    table = ToaTable.from_arrays(day, frac, [1.0] * 5, [1400.0, 1400.0, 820.0, 820.0, 1400.0],
+                                 sites)
+    assert duplicate_toa_warnings(table) == []
 
 # ------------------------------------------------------------ options and output folders
 

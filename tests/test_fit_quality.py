@@ -15,7 +15,7 @@ from functools import partial
 from timingkit.batch.runner import run_batch
 from timingkit.batch.sources import discover_sources
 from timingkit.cli.main import main
-from timingkit.fit.fitter import fit, goodness_warnings
+from timingkit.fit.least_squares import fit, goodness_warnings
 from timingkit.formats.toa_reader import read_toa_table
 from timingkit.formats.toa_writer import write_toa_table
 from timingkit.pipeline.fit_run import fit_files

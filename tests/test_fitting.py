@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from timingkit.formats.errors import FitError
-from timingkit.fit.fitter import compute_residuals, fit
+from timingkit.fit.least_squares import compute_residuals, fit
 from timingkit.model import TimingModel
 from timingkit.geometry.observations import prepare_observations
 from timingkit.model.simulate import simulate_toas

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from timingkit.formats.errors import InputError
-from timingkit.fit.fitter import fit
+from timingkit.fit.least_squares import fit
 from timingkit.model import TimingModel
 from timingkit.model.glitch import Glitch, glitch_phase, model_glitches
 from timingkit.formats.model_file import format_model_document

@@ -68,7 +68,7 @@ def glitch_free(observe_at_ssb):
 def test_red_noise_is_well_above_white_in_these_simulations(glitch_free):
     # the premise of the tests below: a plain weighted fit leaves red residuals
     # several times the TOA errors (else the tests would not be about red noise)
-    from timingkit.fit.fitter import fit
+    from timingkit.fit.least_squares import fit
     rms = [fit(without_noise_model(), obs).postfit.rms_us() for obs in glitch_free[:10]]
     assert 2.5 * ERR_US < np.median(rms) < 10 * ERR_US
 

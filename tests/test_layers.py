@@ -68,7 +68,7 @@ def test_imports_flow_one_way():
 def test_the_check_catches_a_backward_import(tmp_path):
     # The test above must be able to fail: a formats module importing the fitter.
     bad = tmp_path / "bad.py"
-    bad.write_text("from timingkit.fit.fitter import fit\nfrom timingkit import cli\n")
+    bad.write_text("from timingkit.fit.least_squares import fit\nfrom timingkit import cli\n")
     modules = [m for _, m in _imported_modules(bad)]
     assert [_stage(m) for m in modules] == ["fit", "cli"]
     assert LAYERS.index("fit") > LAYERS.index("formats")

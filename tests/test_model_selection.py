@@ -15,7 +15,7 @@ import pytest
 import scipy.stats
 
 from timingkit.cli.main import main
-from timingkit.fit.fitter import fit
+from timingkit.fit.least_squares import fit
 from timingkit.model import OPTIONAL_SECTIONS, TimingModel
 from timingkit.fit.model_selection import (compare_fits, f_test, information_criteria_change,
                                        next_derivative_candidate, suggest)

@@ -18,7 +18,7 @@ import scipy.integrate
 import scipy.stats
 
 from timingkit.formats.errors import FitError, InputError
-from timingkit.fit.fitter import fit
+from timingkit.fit.least_squares import fit
 from timingkit.fit.gls import (RedLikelihood, dense_gls, gls_solve, marginal_log_likelihood,
                            red_covariance_dense)
 from timingkit.model import TimingModel

@@ -7,6 +7,7 @@ skipped, saying why, only where no chromium binary is found.
 import base64
 import json
 import re
+import os
 import shutil
 import subprocess
 from pathlib import Path
@@ -22,6 +23,9 @@ COLUMNS = ("source", "status", "toas", "rms_us", "frequency_hz", "period_s", "me
 
 CHROMIUM = next((shutil.which(n) for n in ("chromium", "chromium-browser", "google-chrome")
                  if shutil.which(n)), None)
+if CHROMIUM is None and os.environ.get("TIMINGKIT_REQUIRE_BROWSER"):
+    # .ci/run sets this: on CI the browser check must run, never skip
+    raise RuntimeError("TIMINGKIT_REQUIRE_BROWSER is set but no chromium binary is on PATH")
 needs_chromium = pytest.mark.skipif(
     CHROMIUM is None, reason="no chromium binary on PATH (Debian package 'chromium'; .ci/run "
                              "installs it): the page cannot be checked in a real browser here")

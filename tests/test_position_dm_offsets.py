@@ -11,7 +11,7 @@ from astropy import units as u
 from astropy.coordinates import BarycentricMeanEcliptic, SkyCoord
 
 from timingkit.formats.errors import FitError, InputError
-from timingkit.fit.fitter import compute_residuals, fit
+from timingkit.fit.least_squares import compute_residuals, fit
 from timingkit.model import TimingModel
 from timingkit.model.astrometry import (ICRS_TO_ECLIPTIC, convert_model_frame,
                                         ecliptic_to_equatorial, equatorial_to_ecliptic)

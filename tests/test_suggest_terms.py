@@ -4,7 +4,7 @@ sites (seeded simulations); the truth is the simulated model. The F-test
 itself is checked in test_model_selection.py."""
 
 
-from timingkit.fit.fitter import fit
+from timingkit.fit.least_squares import fit
 from timingkit.fit.model_selection import suggest
 from timingkit.geometry.observations import prepare_observations
 from timingkit.model import TimingModel

@@ -53,7 +53,7 @@ def profile_loop(data: str, outdir: str) -> None:
     """Both ends of an observation on invented data: a predictor from a slightly
     wrong model folds simulated observations of the sample MSP; their profiles
     give TOAs (auto template); a fit from the wrong model recovers the true one."""
-    from timingkit.fit.fitter import fit
+    from timingkit.fit.least_squares import fit
     from timingkit.formats.profile_file import write_profile_file, write_template_file
     from timingkit.formats.toa_writer import write_toa_table
     from timingkit.pipeline.inputs import load_context, load_model

@@ -121,7 +121,7 @@ def cmd_residuals(args) -> int:
     print(f"{stats['source']}: {stats['toas']} TOAs, rms {stats['rms_us']:.4g} µs, weighted rms "
           f"{stats['weighted_rms_us']:.4g} µs, reduced chi2 {stats['reduced_chi2']:.3f} (no fit)"
           + (f"; {stats['excluded_toas']} left out" if stats["excluded_toas"] else ""))
-    from timingkit.fit.fitter import LOUD_WARNINGS
+    from timingkit.fit.least_squares import LOUD_WARNINGS
     for w in stats["warnings"]:
         print(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
     print(f"wrote {args.outdir}/: residuals.csv, residuals.png, report.json")

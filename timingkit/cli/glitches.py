@@ -134,7 +134,7 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
                      f"{limit['fractional_size']:.2g}")
     if n:
         lines.append(f"  note: {found.get('assumptions', '')}")
-    from timingkit.fit.fitter import LOUD_WARNINGS
+    from timingkit.fit.least_squares import LOUD_WARNINGS
     for w in report.get("warnings", []):
         lines.append(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
     figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""

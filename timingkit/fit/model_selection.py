@@ -52,7 +52,7 @@ from typing import Callable
 import scipy.stats
 
 from timingkit.formats.errors import FitError, InputError
-from timingkit.fit.fitter import FitResult, fit
+from timingkit.fit.least_squares import FitResult, fit
 from timingkit.model.parameters import Parameter, derivative_unit
 from timingkit.model.timing_model import OPTIONAL_SECTIONS, TimingModel
 from timingkit.geometry.observations import Observations

@@ -23,7 +23,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from timingkit.formats.errors import InputError, excerpt
+from timingkit.formats.errors import InputError
 from timingkit.formats.textfile import read_text_file
 
 

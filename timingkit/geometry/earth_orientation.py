@@ -3,7 +3,9 @@
 Values come from astropy's bundled IERS table (``astropy.utils.iers.IERS_Auto``
 read from the ``astropy-iers-data`` package: IERS-B where final, IERS-A
 (Bulletin A, including its one-year forecast) after that). Nothing is ever
-downloaded: ``astropy.utils.iers.conf.auto_download`` is set to False on import.
+downloaded: ``astropy.utils.iers.conf.auto_download`` is set to False before the table is
+opened (astropy.utils.iers is imported only then: with the parsed table cached on disk, most
+runs never import it).
 
 Interpolation follows astropy's own rule exactly (linear between the daily
 rows, UT1-UTC steps at leap seconds removed before interpolating), so the
@@ -33,12 +35,10 @@ from dataclasses import dataclass
 
 import erfa
 import numpy as np
-from astropy.utils import iers
 
 from timingkit.numerics.chebyshev_grid import NodeCache, evaluate_on_grid
 from timingkit.numerics.timearray import SplitTime
 
-iers.conf.auto_download = False
 
 ARCSEC_TO_RAD = np.pi / (180.0 * 3600.0)
 
@@ -86,8 +86,7 @@ def _cache_path() -> str | None:
     import os
     try:
         from importlib.metadata import version
-        import astropy
-        key = f"astropy-{astropy.__version__}-iers-{version('astropy-iers-data')}"
+        key = f"astropy-{version('astropy')}-iers-{version('astropy-iers-data')}"
     except Exception:
         return None
     root = os.environ.get("TIMINGKIT_CACHE_DIR") or os.path.join(
@@ -95,8 +94,15 @@ def _cache_path() -> str | None:
     return os.path.join(root, f"eop-{key}.npz")
 
 
+def astropy_iers():
+    """astropy.utils.iers with downloads switched off (the only way timingkit opens it)."""
+    from astropy.utils import iers
+    iers.conf.auto_download = False
+    return iers
+
+
 def _parse_bundled() -> EopTable:
-    table = iers.IERS_Auto.open()
+    table = astropy_iers().IERS_Auto.open()
     return EopTable(
         mjd=np.asarray(table["MJD"].to_value("d"), dtype=float),
         ut1_minus_utc_s=np.asarray(table["UT1_UTC"].to_value("s"), dtype=float),

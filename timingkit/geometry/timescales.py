@@ -1,6 +1,7 @@
 """Time scales: site clock -> UTC -> TT(TAI) -> TDB at the site.
 
-UTC -> TT goes through astropy (bundled leap-second table; never downloaded).
+UTC -> TT goes through ERFA with the bundled leap-second table (geometry.leap_seconds;
+the table astropy uses, never downloaded).
 TT -> TDB uses ``erfa.dtdb`` (Fairhead & Bretagnon 1990 series with the
 topocentric terms of the site, ~2 µs daily), evaluated with UT1 as the
 "universal time" argument, as the SOFA documentation prescribes. Accuracy of
@@ -13,13 +14,9 @@ import warnings
 
 import erfa
 import numpy as np
-from astropy.time import Time
-from astropy.utils import iers
-
+from timingkit.geometry import leap_seconds
 from timingkit.numerics.chebyshev_grid import NodeCache, evaluate_on_grid
 from timingkit.numerics.timearray import MJD_TO_JD, SplitTime
-
-iers.conf.auto_download = False
 
 
 def _from_jd(jd1: np.ndarray, jd2: np.ndarray, scale: str) -> SplitTime:
@@ -29,13 +26,16 @@ def _from_jd(jd1: np.ndarray, jd2: np.ndarray, scale: str) -> SplitTime:
 
 
 def utc_to_tt(utc: SplitTime) -> SplitTime:
-    """UTC -> TT (= TAI + 32.184 s) with astropy's bundled leap seconds."""
+    """UTC -> TT (= TAI + 32.184 s): erfa.utctai and erfa.taitt with the bundled
+    leap seconds (the path of astropy's ``Time(...).tt``, without importing it)."""
+    leap_seconds.install()
     # erfa warns "dubious year" beyond the leap-second table; the caller turns
     # that into one clear warning for the report (see leap_second_warnings)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
-        t = Time(utc.jd1, utc.jd2, format="jd", scale="utc", precision=9).tt
-        return _from_jd(t.jd1, t.jd2, "tt")
+        tai1, tai2 = erfa.utctai(utc.jd1, utc.jd2)
+        tt1, tt2 = erfa.taitt(tai1, tai2)
+        return _from_jd(tt1, tt2, "tt")
 
 
 def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
@@ -55,10 +55,12 @@ def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
 
 
 def tt_to_utc(tt: SplitTime) -> SplitTime:
+    leap_seconds.install()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
-        t = Time(tt.jd1, tt.jd2, format="jd", scale="tt").utc
-        return _from_jd(t.jd1, t.jd2, "utc")
+        tai1, tai2 = erfa.tttai(tt.jd1, tt.jd2)
+        utc1, utc2 = erfa.taiutc(tai1, tai2)
+        return _from_jd(utc1, utc2, "utc")
 
 
 # Chebyshev grids (timingkit.numerics.chebyshev_grid) for the functions G, C, S, B of
@@ -150,9 +152,8 @@ def tdb_to_tt_geocentric(tdb: SplitTime) -> SplitTime:
 def leap_second_table_end_mjd() -> float:
     """Last MJD for which the bundled leap-second table is known valid."""
     try:
-        table = iers.LeapSeconds.auto_open()
-        return float(table.expires.mjd)
-    except Exception:  # pragma: no cover - astropy internals vary
+        return leap_seconds.install()
+    except Exception:  # pragma: no cover - a damaged bundled file
         return float("nan")
 
 

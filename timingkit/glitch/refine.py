@@ -12,7 +12,7 @@ import numpy as np
 import scipy.special
 import scipy.stats
 
-from timingkit.fit.fitter import FitResult, fit
+from timingkit.fit.least_squares import FitResult, fit
 from timingkit.formats.errors import FitError
 from timingkit.glitch.candidates import AcceptedGlitch, PhaseData, phase_data
 from timingkit.glitch.epochs import epoch_decimal, glitch_at, glitch_time_s

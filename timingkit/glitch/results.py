@@ -12,7 +12,7 @@ import numpy as np
 import scipy.special
 import scipy.stats
 
-from timingkit.fit.fitter import FitResult
+from timingkit.fit.least_squares import FitResult
 from timingkit.formats.errors import InputError
 from timingkit.geometry.observations import Observations
 from timingkit.glitch.tracking import MIN_WINDOW_TOAS

@@ -25,7 +25,7 @@ The search works on the pulse-phase residuals of a starting timing model
 3. **Fit**: pulses are numbered across the data (intervals between glitches,
    pieces joined where unambiguous) and held fixed; the model plus one
    [[glitch]] section per candidate (phase step, frequency step,
-   frequency-derivative step) is fitted with timingkit.fit.fitter. A decaying
+   frequency-derivative step) is fitted with timingkit.fit.least_squares. A decaying
    frequency step is kept where it is significant (time-scale grid, then
    fitted). When the model fits, each glitch is tried in the nearby gaps with
    phase continuity required, and the gaps the fit allows (chi-square within
@@ -48,7 +48,7 @@ null realisations are drawn from the whole noise model (white plus the red
 process on its Fourier basis, in cycles, in the search's time order), the
 covariance of each gap's steps includes the red noise of both windows
 (timingkit.glitch.scan), and every fit is the generalised least squares of
-timingkit.fit.fitter; noise parameters left free in the model are estimated in
+timingkit.fit.least_squares; noise parameters left free in the model are estimated in
 those fits and used by the next pass. Without red noise in the model, red
 timing noise in the data makes the false-alarm probabilities optimistic
 (spurious candidates).
@@ -72,7 +72,7 @@ import numpy as np
 import scipy.special
 import scipy.stats
 
-from timingkit.fit.fitter import FitResult
+from timingkit.fit.least_squares import FitResult
 from timingkit.formats.errors import FitError, InputError
 from timingkit.geometry.observations import Observations
 from timingkit.glitch.candidates import (

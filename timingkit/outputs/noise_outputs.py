@@ -23,7 +23,7 @@ import os
 
 import numpy as np
 
-from timingkit.fit.fitter import FitResult
+from timingkit.fit.least_squares import FitResult
 from timingkit.model.noise import SECONDS_PER_YEAR, NoiseModel
 
 S3_PER_US2_YR = 1e-12 * SECONDS_PER_YEAR     # one µs^2 yr in s^2/Hz = s^3

@@ -10,7 +10,7 @@ import numpy as np
 
 from timingkit.physics import spin as derived_mod
 from timingkit.physics.binary_report import extra_report_sections
-from timingkit.fit.fitter import LOUD_WARNINGS, FitResult, ResidualSet
+from timingkit.fit.least_squares import LOUD_WARNINGS, FitResult, ResidualSet
 from timingkit.model.astrometry import angle_entry, format_dec, format_ra
 from timingkit.model.correlations import covariance_of, with_fitted_covariance
 from timingkit.model.timing_model import TimingModel

@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import os
 
-from timingkit.fit.fitter import FitResult, compute_residuals, fit, goodness_warnings
+from timingkit.fit.least_squares import FitResult, compute_residuals, fit, goodness_warnings
 from timingkit.geometry.observations import Observations
 from timingkit.outputs.output_set import check_output_folder, output_set
 from timingkit.outputs.report import build_report, residual_table, settings_entry, write_json

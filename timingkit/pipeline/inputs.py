@@ -157,11 +157,23 @@ def duplicate_toa_warnings(toas: ToaTable) -> list[str]:
     counted, so the fit's uncertainties shrink as if the data were independent."""
     if len(toas) < 2:
         return []
-    _, site_code = np.unique(toas.site, return_inverse=True)
-    order = np.lexsort((toas.freq_mhz, site_code.reshape(-1), toas.mjd_frac, toas.mjd_day))
+    # Copies share the float MJD: sort on it alone (one argsort) and compare every
+    # column only among the few TOAs whose float MJD equals a neighbour's.
+    mjd = toas.mjd_day + toas.mjd_frac
+    by_mjd = np.argsort(mjd, kind="stable")
+    tied = np.flatnonzero(mjd[by_mjd][1:] == mjd[by_mjd][:-1])
+    if len(tied) == 0:
+        return []
+    candidates = np.unique(np.concatenate([by_mjd[tied], by_mjd[tied + 1]]))
+    _, site_code = np.unique(toas.site[candidates], return_inverse=True)
+    site_code = site_code.reshape(-1)
+    columns = (toas.mjd_day[candidates], toas.mjd_frac[candidates],
+               toas.freq_mhz[candidates], site_code)
+    order_c = np.lexsort(columns[::-1])
+    order = candidates[order_c]
     same = np.ones(len(order) - 1, dtype=bool)
-    for column in (toas.mjd_day, toas.mjd_frac, toas.freq_mhz, site_code.reshape(-1)):
-        ordered = column[order]
+    for column in columns:
+        ordered = column[order_c]
         same &= ordered[1:] == ordered[:-1]
     if not same.any():
         return []

@@ -25,7 +25,7 @@ from timingkit.formats.toa_table import ToaTable
 from timingkit.geometry.observations import Observations
 
 if TYPE_CHECKING:     # imported where used: `timingkit barycentre` loads neither (start-up)
-    from timingkit.fit.fitter import ResidualSet
+    from timingkit.fit.least_squares import ResidualSet
     from timingkit.outputs.residual_table import ResidualTable
 
 
@@ -139,7 +139,7 @@ def residuals_of_left_out(model, kept: ResidualSet, left_obs: Observations,
         phase = ev.phase_frac - offset_s * f_hz
         turns = np.round(phase)
         pulse, time_s = ev.phase_int + turns, (phase - turns) / f_hz
-    from timingkit.fit.fitter import ResidualSet
+    from timingkit.fit.least_squares import ResidualSet
     return ResidualSet(phase=time_s * f_hz, time_s=time_s, pulse_number=pulse,
                        err_s=left_obs.toas.err_us * 1e-6, evaluation=ev)
 
