@@ -11,7 +11,7 @@ from pathlib import Path
 from typing import Sequence
 
 from timingkit.formats.errors import InputError
-from timingkit.formats.textfile import read_toml_file
+from timingkit.formats.textfile import read_toml_file, top_level_table
 
 
 # A source folder holds exactly one TOA table: a file named ``toas.txt`` or ending ``.toas``.
@@ -138,11 +138,8 @@ def read_manifest(path) -> list[Source]:
     path = Path(path).expanduser()
     where = str(path)
     data = read_toml_file(where, "batch manifest")
-    unknown = sorted(set(data) - {"defaults", "source"})
-    if unknown:
-        raise InputError(f"unknown top-level key(s) {', '.join(unknown)}; legal: [defaults], "
-                         "[[source]]", path=where, field=unknown[0])
-    defaults = data.get("defaults", {})
+    defaults = top_level_table(data, "defaults", ("defaults", "source"), where,
+                               "[defaults], [[source]]", default={})
     if not isinstance(defaults, dict):
         raise InputError("must be a table", path=where, field="defaults")
     _check_keys(defaults, MANIFEST_DEFAULT_KEYS, where, "defaults")

@@ -142,6 +142,19 @@ def key_line(text: str, field: str) -> int | None:
     return best
 
 
+
+def _as_decimal(value, bad, expected: str, expected_text: str) -> Decimal:
+    """A TOML number or decimal string as a Decimal; ``bad(what)`` makes the error
+    (``expected`` for the wrong type, ``expected_text`` for unreadable text)."""
+    if isinstance(value, bool) or not isinstance(value, (int, Decimal, str)):
+        raise bad(expected)
+    if isinstance(value, str):
+        try:
+            return Decimal(value.strip())
+        except InvalidOperation:
+            raise bad(expected_text) from None
+    return Decimal(value)
+
 def _convert(kind: str, value: Any, where: str, path: str | None):
     def bad(expect: str):
         shown = excerpt(value) if isinstance(value, str) else excerpt(repr(value))
@@ -156,17 +169,7 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
             and kind in ("decimal", "mjd", "number"):
         _check_digit_count(value, where, path)
     if kind in ("decimal", "mjd"):
-        if isinstance(value, bool):
-            raise bad("a number or decimal string")
-        if isinstance(value, (int, Decimal)):
-            dec = Decimal(value)
-        elif isinstance(value, str):
-            try:
-                dec = Decimal(value.strip())
-            except InvalidOperation:
-                raise bad("a decimal number as a string") from None
-        else:
-            raise bad("a number or decimal string")
+        dec = _as_decimal(value, bad, "a number or decimal string", "a decimal number as a string")
         if kind == "mjd" and (not dec.is_finite() or dec < 0 or dec > 200000):
             raise bad("an MJD (0-200000)")
         if kind == "decimal" and not dec.is_finite():
@@ -175,17 +178,7 @@ def _convert(kind: str, value: Any, where: str, path: str | None):
             raise bad("a number of magnitude 1e-300 to 1e300")
         return dec
     if kind == "number":
-        if isinstance(value, bool):
-            raise bad("a number")
-        if isinstance(value, (int, Decimal)):
-            out = float(value)
-        elif isinstance(value, str):
-            try:
-                out = float(Decimal(value.strip()))
-            except InvalidOperation:
-                raise bad("a number") from None
-        else:
-            raise bad("a number")
+        out = float(_as_decimal(value, bad, "a number", "a number"))
         if not math.isfinite(out):
             raise bad("a finite number")
         return out

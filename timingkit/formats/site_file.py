@@ -21,7 +21,7 @@ import erfa
 import numpy as np
 
 from timingkit.formats.errors import InputError
-from timingkit.formats.textfile import parse_toml, read_text_file
+from timingkit.formats.textfile import parse_toml, read_text_file, top_level_table
 
 SITE_KINDS = ("earth", "geocentre", "ssb")
 
@@ -252,11 +252,8 @@ def load_site_file(path) -> list[Site]:
     path = os.fspath(path)
     text = read_text_file(path, "site file")
     data = parse_toml(text, path)
-    unknown = [k for k in data if k != "site"]
-    if unknown:
-        raise InputError(f"unknown top-level key '{unknown[0]}': a site file holds only "
-                         "[site.NAME] tables", path=path, field=unknown[0])
-    entries = data.get("site", {})
+    entries = top_level_table(data, "site", ("site",), path,
+                              "[site.NAME] tables only", default={})
     if not isinstance(entries, dict):
         raise InputError("'site' must be a table of [site.NAME] tables", path=path, field="site")
     lines = text.splitlines()

@@ -61,3 +61,14 @@ def read_toml_file(path, what: str, parse_float=float) -> dict:
     """Read and parse a TOML file, with the errors of :func:`read_text_file`
     and :func:`parse_toml`."""
     return parse_toml(read_text_file(path, what), path, parse_float)
+
+
+def top_level_table(data: dict, key: str, legal: tuple[str, ...], path, legal_text: str,
+                    default=None):
+    """``data[key]`` of a parsed TOML file after refusing top-level keys outside
+    ``legal`` (the message lists ``legal_text``); ``default`` when absent."""
+    unknown = sorted(set(data) - set(legal))
+    if unknown:
+        raise InputError(f"unknown top-level key(s) {', '.join(unknown)}; legal: {legal_text}",
+                         path=path, field=unknown[0])
+    return data.get(key, default)

@@ -25,17 +25,22 @@ def _from_jd(jd1: np.ndarray, jd2: np.ndarray, scale: str) -> SplitTime:
     return SplitTime(day, (mjd1 - day) + jd2, scale).normalized()
 
 
-def utc_to_tt(utc: SplitTime) -> SplitTime:
-    """UTC -> TT (= TAI + 32.184 s): erfa.utctai and erfa.taitt with the bundled
-    leap seconds (the path of astropy's ``Time(...).tt``, without importing it)."""
+def _through_tai(time: SplitTime, to_tai, from_tai, scale: str) -> SplitTime:
+    """Convert through TAI with two erfa functions, the bundled leap seconds
+    installed first (the path of astropy's ``Time(...).tt``/``.utc``, without
+    importing astropy.time). erfa warns "dubious year" beyond the leap-second
+    table; the caller turns that into one clear warning for the report (see
+    leap_second_warnings)."""
     leap_seconds.install()
-    # erfa warns "dubious year" beyond the leap-second table; the caller turns
-    # that into one clear warning for the report (see leap_second_warnings)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", erfa.ErfaWarning)
-        tai1, tai2 = erfa.utctai(utc.jd1, utc.jd2)
-        tt1, tt2 = erfa.taitt(tai1, tai2)
-        return _from_jd(tt1, tt2, "tt")
+        jd1, jd2 = from_tai(*to_tai(time.jd1, time.jd2))
+        return _from_jd(jd1, jd2, scale)
+
+
+def utc_to_tt(utc: SplitTime) -> SplitTime:
+    """UTC -> TT (= TAI + 32.184 s) with the bundled leap seconds."""
+    return _through_tai(utc, erfa.utctai, erfa.taitt, "tt")
 
 
 def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
@@ -55,12 +60,8 @@ def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
 
 
 def tt_to_utc(tt: SplitTime) -> SplitTime:
-    leap_seconds.install()
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", erfa.ErfaWarning)
-        tai1, tai2 = erfa.tttai(tt.jd1, tt.jd2)
-        utc1, utc2 = erfa.taiutc(tai1, tai2)
-        return _from_jd(utc1, utc2, "utc")
+    """TT -> UTC with the bundled leap seconds."""
+    return _through_tai(tt, erfa.tttai, erfa.taiutc, "utc")
 
 
 # Chebyshev grids (timingkit.numerics.chebyshev_grid) for the functions G, C, S, B of
