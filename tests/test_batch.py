@@ -159,7 +159,7 @@ def test_nine_succeed_and_the_broken_one_is_reported(pool_run, ten_sources):
         # the summary carries the report's values unchanged ...
         assert row["frequency_hz"] == str(report["parameters"]["spin.frequency_hz"]["value"])
         assert float(row["period_s"]) == report["derived"]["period_s"]["value"]
-        # ... and they are the simulated truth: P = 1/f, Pdot = -fdot/f^2 (Lorimer &
+        # ... and they are the simulated truth: P = 1/f, Pdot = -frequency_derivative/f^2 (Lorimer &
         # Kramer 2005, Handbook of Pulsar Astronomy, sec. 1.2), 5 µs TOAs over 400 d
         f_sigma = report["parameters"]["spin.frequency_hz"]["uncertainty"]
         assert abs(float(row["frequency_hz"]) - truth["frequency_hz"]) < 5 * f_sigma

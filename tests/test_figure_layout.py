@@ -59,7 +59,7 @@ def test_glitch_figure_units_error_bars_and_labelled_candidates():
     inputs = glitch_inputs()
     inputs["residual_us"] = np.linspace(-2e5, 4e5, 20)
     inputs["track_freq_hz"] = inputs["track_freq_hz"] - inputs["track_freq_hz"][0]
-    inputs["track_fdot"] = -1e-13 + np.linspace(0, 3e-16, 7)
+    inputs["track_derivative"] = -1e-13 + np.linspace(0, 3e-16, 7)
     figure = plotting.plot_glitch_search(**inputs, frequency_reference_hz=0.0,
                                          offset_name="frequency − fitted spin-down")
     figure.canvas.draw()

@@ -84,7 +84,7 @@ def test_keys_and_parameter_names():
 def test_phase_after_the_epoch_matches_the_published_formula(sites, ephemeris):
     # Glitch phase model as given in Lorimer & Kramer 2005, Handbook of Pulsar Astronomy,
     # timing chapter (section from memory): for dt > 0
-    # phase = phase_step + df dt + dfdot dt^2 / 2 + df_d tau (1 - exp(-dt / tau)),
+    # phase = phase_step + df dt + derivative_step dt^2 / 2 + df_d tau (1 - exp(-dt / tau)),
     # and nothing before the epoch. The polynomial part is evaluated here in exact
     # rational arithmetic, the decay with math.exp.
     with_glitch = TimingModel.from_text(ONE_GLITCH)

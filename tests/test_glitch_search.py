@@ -24,14 +24,14 @@ from conftest import glitch_text, young_pulsar_text
 START_MJD = 58000.0
 
 
-def simulate(observe, glitches=(), f=10.0, fdot=-1e-11, years=2.0, cadence_days=7.0,
+def simulate(observe, glitches=(), f=10.0, frequency_derivative=-1e-11, years=2.0, cadence_days=7.0,
              err_us=50.0, seed=1):
     """(starting model without glitches, observations, truth model); ``observe``
     is the ``observe_at_ssb`` fixture."""
     days = 365.25 * years
-    truth = TimingModel.from_text(young_pulsar_text(f, fdot)
+    truth = TimingModel.from_text(young_pulsar_text(f, frequency_derivative)
                                   + "".join(glitch_text(*g) for g in glitches))
-    start = TimingModel.from_text(young_pulsar_text(f, fdot))
+    start = TimingModel.from_text(young_pulsar_text(f, frequency_derivative))
     obs = observe(truth, START_MJD, START_MJD + days, int(days / cadence_days), err_us, seed)
     return start, obs, truth
 
@@ -59,14 +59,14 @@ CONFIGS = [
 @pytest.mark.parametrize("size, f, cadence, err_us, years", CONFIGS)
 def test_injected_glitches_are_found_bracketed_and_measured(observe_at_ssb, size, f, cadence,
                                                             err_us, years):
-    fdot = -1e-11 if f < 20 else -3e-11
+    frequency_derivative = -1e-11 if f < 20 else -3e-11
     successes, extra, limits = 0, 0, []
     for k in range(40):
         rng = np.random.default_rng(1000 + k)
         days = 365.25 * years
         epoch = round(rng.uniform(START_MJD + 0.3 * days, START_MJD + 0.7 * days), 6)
         step = size * f
-        start, obs, _ = simulate(observe_at_ssb, [(epoch, step, 1e-3 * fdot)], f=f, fdot=fdot,
+        start, obs, _ = simulate(observe_at_ssb, [(epoch, step, 1e-3 * frequency_derivative)], f=f, frequency_derivative=frequency_derivative,
                                  years=years, cadence_days=cadence, err_us=err_us, seed=1000 + k)
         result = search_glitches(start, obs)
         successes += bool(found(result.candidates, epoch, step))
@@ -203,8 +203,8 @@ def test_known_epochs_are_tested_instead_of_searched(observe_at_ssb):
 
 
 def test_steps_are_reported_in_the_stated_units(observe_at_ssb):
-    epoch, step, fdot_step = 58400.3, 2e-6, -2e-14
-    start, obs, _ = simulate(observe_at_ssb, [(epoch, step, fdot_step)], seed=9)
+    epoch, step, derivative_step_hz_per_s = 58400.3, 2e-6, -2e-14
+    start, obs, _ = simulate(observe_at_ssb, [(epoch, step, derivative_step_hz_per_s)], seed=9)
     result = search_glitches(start, obs)
     (c,) = result.candidates
     data = result.to_json()
@@ -213,7 +213,7 @@ def test_steps_are_reported_in_the_stated_units(observe_at_ssb):
     assert data["units"]["phase_step"] == "cycles"
     entry = data["candidates"][0]
     assert abs(entry["frequency_step_hz"] - step) <= 3 * entry["frequency_step_uncertainty_hz"]
-    assert abs(entry["frequency_derivative_step"] - fdot_step) \
+    assert abs(entry["frequency_derivative_step"] - derivative_step_hz_per_s) \
         <= 3 * entry["frequency_derivative_step_uncertainty"]
     assert entry["fractional_size"] == pytest.approx(step / 10.0, rel=1e-3)
     # the epoch is where the phase step vanishes: zero within its uncertainty, in cycles

@@ -452,8 +452,8 @@ def glitch_inputs(step_hz=1.2e-6):
     freq = base + np.where(track_mjd > 59250.0, step_hz, 0.0)
     return dict(mjd=np.linspace(59000, 59600, 20), residual_us=np.linspace(-5, 5, 20),
                 err_us=np.full(20, 1.0), track_mjd=track_mjd, track_freq_hz=freq,
-                track_freq_err_hz=np.full(7, 2e-9), track_fdot=np.full(7, -2.2e-11),
-                track_fdot_err=np.full(7, 1e-14), candidate_epochs_mjd=[59300.0, 59450.5])
+                track_freq_err_hz=np.full(7, 2e-9), track_derivative=np.full(7, -2.2e-11),
+                track_derivative_err=np.full(7, 1e-14), candidate_epochs_mjd=[59300.0, 59450.5])
 
 
 def test_glitch_search_three_shared_panels():

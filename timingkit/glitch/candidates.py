@@ -28,7 +28,7 @@ from timingkit.model.glitch import model_glitches
 from timingkit.model.noise import NoiseModel, toa_times_s
 from timingkit.model.timing_model import TimingModel
 
-FDOT_FRACTIONAL_RANGE = 0.2        # |frequency-derivative offset| <= this * |fdot| ...
+FDOT_FRACTIONAL_RANGE = 0.2        # |frequency-derivative offset| <= this * |frequency_derivative| ...
 FDOT_RANGE_FLOOR = 1e-14           # ... or this (Hz/s), whichever is larger
 DEFER_DAYS = 900.0                 # candidates this soon after a glitch accepted in the ...
 DEFER_RATIO = 0.1                  # ... same pass and this much smaller wait a pass
@@ -92,7 +92,7 @@ class AcceptedGlitch:
     stat: float | None
     df_hz: float | None
     df_err_hz: float | None
-    dfdot: float | None
+    derivative_step: float | None
     known: bool = False
     forced: bool = False
     search_pass: int = 1
@@ -132,7 +132,7 @@ def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
         return AcceptedGlitch(gap=int(win.gaps[k]), fap=fap, stat=float(stat_value),
                          df_hz=float(-d[k, 0] / SECONDS_PER_DAY),
                          df_err_hz=float(math.sqrt(c[k, 0, 0]) / SECONDS_PER_DAY),
-                         dfdot=float(-d[k, 1] / SECONDS_PER_DAY ** 2), known=known,
+                         derivative_step=float(-d[k, 1] / SECONDS_PER_DAY ** 2), known=known,
                          search_pass=search_pass, fap_upper_limit=upper, fap_method=method)
 
     trials = int(settings.null_trials)
@@ -156,7 +156,7 @@ def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
                              "measure it from the windows; fitted without a false-alarm "
                              "probability")
                 accepted.append(AcceptedGlitch(gap=gap, fap=None, stat=None, df_hz=None,
-                                          df_err_hz=None, dfdot=None, known=True,
+                                          df_err_hz=None, derivative_step=None, known=True,
                                           search_pass=search_pass))
                 continue
             k = int(hit[0])

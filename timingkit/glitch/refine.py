@@ -336,7 +336,7 @@ def refine_epoch(model: TimingModel, g: Glitch, t_a: float, t_b: float):
     """Epoch in [t_a, t_b] (s since the spin epoch) where the glitch phase
     step vanishes modulo whole turns. Moving the epoch within the bracket
     changes no prediction when the phase step becomes the glitch phase there
-    and the steps are carried along (df' = df + dfdot d, decaying amplitude
+    and the steps are carried along (df' = df + derivative_step d, decaying amplitude
     times exp(-d/tau)). Returns (t_new, phase_step_new, number of such
     epochs in the gap, their mean square distance from t_new (s^2; the gap's
     uniform variance when there is none), section at the new epoch)."""
@@ -377,7 +377,7 @@ def refine_epoch(model: TimingModel, g: Glitch, t_a: float, t_b: float):
 
 def transported(model: TimingModel, g: Glitch, t_new: float, phase_step: float | None) -> dict:
     """Section of glitch ``g`` moved to ``t_new`` (s since the spin epoch) with
-    the same predictions after both epochs: df' = df + dfdot d, decaying
+    the same predictions after both epochs: df' = df + derivative_step d, decaying
     amplitudes times exp(-d/tau), phase step = the glitch phase at t_new
     (or ``phase_step``, which differs from it by whole turns)."""
     delta = t_new - glitch_time_s(model, g)
@@ -392,7 +392,7 @@ def glitch_uncertainties(res: FitResult, g: Glitch, acc: AcceptedGlitch) -> dict
     """Uncertainties of the steps with the epoch's propagated: the fit holds
     the epoch fixed and frees the phase step; equivalently the phase step is
     zero and the epoch moves by d = -phase_step / (glitch frequency change at
-    the epoch), which carries df by dfdot d and each decaying amplitude by
+    the epoch), which carries df by derivative_step d and each decaying amplitude by
     -A d / tau. When several epochs in the gap zero the phase step (a glitch
     that unwinds more than a turn there) their spread is added; with none,
     the epoch variance is that of a uniform spread over the gap; and it is at
@@ -404,7 +404,7 @@ def glitch_uncertainties(res: FitResult, g: Glitch, acc: AcceptedGlitch) -> dict
     cov = res.covariance[:len(names), :len(names)]
     idx = {p.name: names.index(p.name) for p in g.parameters() if p.name in names}
     df_inst = g.frequency_step.value + sum(a for a, _ in g.decays)
-    m = 3 + len(g.decays)      # rows: df, dfdot, epoch, decaying amplitudes
+    m = 3 + len(g.decays)      # rows: df, derivative_step, epoch, decaying amplitudes
     jac = np.zeros((m, len(names)))
     shift = np.zeros(m)        # d(row)/d(epoch shift, s)
     for row, p in ((0, g.frequency_step), (1, g.frequency_derivative_step)):

@@ -189,9 +189,9 @@ def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, refe
             first = fit_pinned(trial, obs, reference, carry_pulses(res.model, trial, obs,
                                                               reference, pulse))
             data = phase_data(first.model, obs, reference)
-            f_range, fdot_range = ranges
-            chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range),
-                      track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range,
+            f_range, derivative_range_hz_per_s = ranges
+            chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s),
+                      track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s,
                                    backward=True))
             barriers = {int(np.searchsorted(data.t_s, glitch_time_s(first.model, h)) - 1)
                         for h in model_glitches(first.model)}
@@ -272,7 +272,7 @@ def search_glitches(model: TimingModel, obs: Observations,
     if obs.toas.pulse is not None:
         warnings.append("the TOA table's 'pulse' column was not used: the glitch search "
                         "numbers the pulses itself")
-    f_range, fdot_range = search_ranges(model, settings)
+    f_range, derivative_range_hz_per_s = search_ranges(model, settings)
     current = model.copy()
     use_obs = obs
     spin_epoch = current.spin.epoch_day + current.spin.epoch_frac
@@ -290,8 +290,8 @@ def search_glitches(model: TimingModel, obs: Observations,
         existing = [int(np.searchsorted(data.t_s, glitch_time_s(current, g)) - 1)
                     for g in model_glitches(current)]
         existing = [b for b in existing if 0 <= b < n - 1]
-        chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range),
-                  track_phases(data.t_s, data.frac, data.sigma, f_range, fdot_range,
+        chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s),
+                  track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s,
                                backward=True))
         for chain in chains:
             for pos in chain.ambiguous_at:
@@ -347,7 +347,7 @@ def search_glitches(model: TimingModel, obs: Observations,
                 barriers.add(promoted.gap)
             else:
                 accepted.append(AcceptedGlitch(gap=gap, fap=None, stat=None, df_hz=None,
-                                          df_err_hz=None, dfdot=None, forced=True,
+                                          df_err_hz=None, derivative_step=None, forced=True,
                                           search_pass=search_pass))
                 barriers.add(gap)
                 warnings.append(LOST_CONNECTION_WARNING)
@@ -357,7 +357,7 @@ def search_glitches(model: TimingModel, obs: Observations,
         for acc in accepted:
             t_mid = 0.5 * (data.t_s[acc.gap] + data.t_s[acc.gap + 1])
             acc.epoch = epoch_decimal(current, t_mid)
-            sections.append(glitch_section(acc.epoch, 0.0, acc.df_hz or 0.0, acc.dfdot or 0.0))
+            sections.append(glitch_section(acc.epoch, 0.0, acc.df_hz or 0.0, acc.derivative_step or 0.0))
             free[acc.epoch] = glitch_keys(0)
         trial = rebuild_with_glitches(current, sections, free)
         pulse = np.empty(len(use_obs), dtype=np.int64)
@@ -371,7 +371,7 @@ def search_glitches(model: TimingModel, obs: Observations,
         res = fit_pinned(trial, use_obs, reference, pulse)
         res, pulse = _settle(res, found, use_obs, reference, pulse, settings)
         res, pulse = _drop_unneeded_forced(res, found, use_obs, reference, pulse, settings,
-                                           (f_range, fdot_range), warnings)
+                                           (f_range, derivative_range_hz_per_s), warnings)
         res, pulse, _ = _drop_insignificant(res, found, use_obs, reference, pulse, settings,
                                             warnings)
         current, result_fit = res.model, res

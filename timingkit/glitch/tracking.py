@@ -65,7 +65,7 @@ def _chi2_limit(dof: int, p: float = SEED_PRUNE_P) -> float:
 
 # ============================================================================ seed solution
 
-def _choose_anchors(x, f_range, fdot_range):
+def _choose_anchors(x, f_range, derivative_range_hz_per_s):
     """Three seed TOAs (indices) with few pulse-count hypotheses and no two at
     nearly the same time."""
     order = np.argsort(x)
@@ -77,17 +77,17 @@ def _choose_anchors(x, f_range, fdot_range):
         d12, d23 = xs[i + 1] - xs[i], xs[i + 2] - xs[i + 1]
         if min(d12, d23) <= max(0.25 * typical, 1.0):
             continue
-        cost = (2 * f_range * d12 + 3) * (fdot_range * (d12 + d23) * d23 + 3)
+        cost = (2 * f_range * d12 + 3) * (derivative_range_hz_per_s * (d12 + d23) * d23 + 3)
         if cost < best_cost:
             best, best_cost = (order[i], order[i + 1], order[i + 2]), cost
     return best, best_cost
 
 
-def solve_seed(x_s, rho, sigma, f_range_hz, fdot_range, tolerance: float = 1.0):
+def solve_seed(x_s, rho, sigma, f_range_hz, derivative_range_hz_per_s, tolerance: float = 1.0):
     """Pulse-count offsets (integers, one per TOA) that make the residual
     phases ``rho`` (cycles, any integer offset each) at times ``x_s`` (s) lie
     on one quadratic, with |frequency offset| <= ``f_range_hz`` and
-    |frequency-derivative offset| <= ``fdot_range``. Returns (offsets,
+    |frequency-derivative offset| <= ``derivative_range_hz_per_s``. Returns (offsets,
     chi2, unique) or None when no hypothesis survives. ``tolerance`` scales the
     TOA uncertainties (for data noisier than stated)."""
     x_s = np.asarray(x_s, float)
@@ -101,7 +101,7 @@ def solve_seed(x_s, rho, sigma, f_range_hz, fdot_range, tolerance: float = 1.0):
     _, _, chi2 = _quadratic_fit(xd, rho, w)
     if chi2 <= _chi2_limit(m - 3):
         return np.zeros(m, dtype=np.int64), chi2, True
-    anchors, cost = _choose_anchors(x_s, f_range_hz, fdot_range)
+    anchors, cost = _choose_anchors(x_s, f_range_hz, derivative_range_hz_per_s)
     if anchors is None or cost > MAX_SEED_HYPOTHESES:
         return None
     i1, i2, i3 = anchors
@@ -112,8 +112,8 @@ def solve_seed(x_s, rho, sigma, f_range_hz, fdot_range, tolerance: float = 1.0):
                    math.ceil(f_range_hz * d12 - base12) + 2)
     s12 = (base12 + k2) / d12
     # phase change from t2 to t3 for the allowed frequency-derivative offsets
-    lo = (s12 - 0.5 * fdot_range * d13) * d23 - (rho[i3] - rho[i2]) + k2
-    hi = (s12 + 0.5 * fdot_range * d13) * d23 - (rho[i3] - rho[i2]) + k2
+    lo = (s12 - 0.5 * derivative_range_hz_per_s * d13) * d23 - (rho[i3] - rho[i2]) + k2
+    hi = (s12 + 0.5 * derivative_range_hz_per_s * d13) * d23 - (rho[i3] - rho[i2]) + k2
     k3_lo = np.floor(lo).astype(np.int64) - 1
     counts = (np.ceil(hi).astype(np.int64) + 1) - k3_lo + 1
     total = int(np.sum(counts))
@@ -162,7 +162,7 @@ def solve_seed(x_s, rho, sigma, f_range_hz, fdot_range, tolerance: float = 1.0):
         keep = chi2 <= _chi2_limit(len(idx) - 3)
         # the frequency-derivative bound holds for the whole seed, not only the anchors
         params = b @ ginv
-        keep &= np.abs(params[:, 2]) <= 1.5 * fdot_range * SECONDS_PER_DAY ** 2 + 1e-300
+        keep &= np.abs(params[:, 2]) <= 1.5 * derivative_range_hz_per_s * SECONDS_PER_DAY ** 2 + 1e-300
         offsets = offsets[keep]
         if len(offsets) == 0:
             return None
@@ -197,7 +197,7 @@ class TrackingChain:
     ambiguous_at: list
 
 
-def track_phases(t_s, frac, sigma, f_range_hz, fdot_range, backward: bool = False) -> TrackingChain:
+def track_phases(t_s, frac, sigma, f_range_hz, derivative_range_hz_per_s, backward: bool = False) -> TrackingChain:
     """Number the pulses TOA by TOA (module docstring, step 1). ``t_s`` sorted."""
     n = len(t_s)
     order = np.arange(n)[::-1] if backward else np.arange(n)
@@ -212,7 +212,7 @@ def track_phases(t_s, frac, sigma, f_range_hz, fdot_range, backward: bool = Fals
         while True:
             idx = order[p:p + size]
             for tol in (1.0, 10.0):
-                solved = solve_seed(t_s[idx], frac[idx], sigma[idx], f_range_hz, fdot_range, tol)
+                solved = solve_seed(t_s[idx], frac[idx], sigma[idx], f_range_hz, derivative_range_hz_per_s, tol)
                 if solved is not None:
                     break
             if solved is None or solved[2] or p + size >= n or size >= MAX_SEED_TOAS:

@@ -3,9 +3,9 @@
 After the glitch epoch t_g (TDB at the pulsar, like the spin epoch) the
 glitch adds, with dt = t_emit - t_g in seconds,
 
-    phase(dt)     = phase_step + df dt + 1/2 dfdot dt^2
+    phase(dt)     = phase_step + df dt + 1/2 derivative_step dt^2
                     + sum_k df_k tau_k (1 - exp(-dt / tau_k))          [cycles]
-    frequency(dt) = df + dfdot dt + sum_k df_k exp(-dt / tau_k)        [Hz]
+    frequency(dt) = df + derivative_step dt + sum_k df_k exp(-dt / tau_k)        [Hz]
 
 (the standard glitch phase model of the trade, as in Lorimer & Kramer 2005,
 Handbook of Pulsar Astronomy, in the chapter on timing; section cited from

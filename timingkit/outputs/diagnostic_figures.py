@@ -182,7 +182,7 @@ def _frequency_scale(offsets_hz, errors_hz):
 
 
 def plot_glitch_search(mjd, residual_us, err_us, track_mjd, track_freq_hz, track_freq_err_hz,
-                       track_fdot, track_fdot_err, candidate_epochs_mjd, path=None,
+                       track_derivative, track_derivative_err, candidate_epochs_mjd, path=None,
                        frequency_reference_hz: float | None = None, *,
                        offset_name: str = "frequency offset",
                        title: str | None = None, figsize=(8.0, 9.0),
@@ -211,8 +211,8 @@ def plot_glitch_search(mjd, residual_us, err_us, track_mjd, track_freq_hz, track
     n_track = len(track_mjd)
     track_freq_hz = column(track_freq_hz, "track_freq_hz", n_track)
     track_freq_err_hz = column(track_freq_err_hz, "track_freq_err_hz", n_track)
-    track_fdot = column(track_fdot, "track_fdot", n_track)
-    track_fdot_err = column(track_fdot_err, "track_fdot_err", n_track)
+    track_derivative = column(track_derivative, "track_derivative", n_track)
+    track_derivative_err = column(track_derivative_err, "track_derivative_err", n_track)
     candidates = column(candidate_epochs_mjd, "candidate_epochs_mjd")
 
     if frequency_reference_hz is None:
@@ -243,12 +243,12 @@ def plot_glitch_search(mjd, residual_us, err_us, track_mjd, track_freq_hz, track
         middle.set_ylabel(f"frequency - reference ({unit_name})")
         middle.text(0.01, 0.96, f"reference = {float(frequency_reference_hz):.15g} Hz",
                     transform=middle.transAxes, fontsize=8, va="top", gid="frequency_reference")
-    fdot_factor, fdot_unit = power_of_ten_unit(
-        float(np.nanmax(np.abs(track_fdot))) if np.any(np.isfinite(track_fdot)) else 1.0, "Hz/s")
-    bottom.errorbar(track_mjd, track_fdot * fdot_factor, yerr=track_fdot_err * fdot_factor,
+    derivative_factor, derivative_unit = power_of_ten_unit(
+        float(np.nanmax(np.abs(track_derivative))) if np.any(np.isfinite(track_derivative)) else 1.0, "Hz/s")
+    bottom.errorbar(track_mjd, track_derivative * derivative_factor, yerr=track_derivative_err * derivative_factor,
                     fmt="o", markersize=3, color="C2", elinewidth=0.8, capsize=2,
                     linestyle="-", linewidth=0.6)
-    bottom.set_ylabel(f"frequency derivative\n({fdot_unit})")
+    bottom.set_ylabel(f"frequency derivative\n({derivative_unit})")
     bottom.set_xlabel("MJD (days)")
     for ax in axes:
         for epoch in candidates:
