@@ -32,6 +32,7 @@ import numpy as np
 from timingkit.formats.event_list import EventList, split_time_from_seconds, take
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.geometry.observer import Observer
+from timingkit.geometry.utc_seconds import utc_elapsed_to_tt
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.grid_cubic import cubic_slope, evaluate_cubic, four_point_coefficients
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
@@ -49,12 +50,14 @@ FIRST_STEP_S = {"spacecraft": 32.0, "earth": 256.0, "geocentre": 1024.0, "ssb": 
 @dataclass
 class EventClock:
     """Event times on a continuous scale: ``reference_day + reference_frac +
-    (seconds + seconds_lo) / 86400`` on ``scale`` ('tt' or 'tdb')."""
+    (seconds + seconds_lo) / 86400`` on ``scale`` ('tt' or 'tdb'); ``notes``:
+    warnings of the conversion (leap seconds) for the report."""
     reference_day: int
     reference_frac: tuple[float, float]
     seconds: np.ndarray
     seconds_lo: np.ndarray | None
     scale: str
+    notes: list = field(default_factory=list)
 
     def __len__(self) -> int:
         return len(self.seconds)
@@ -66,17 +69,27 @@ class EventClock:
     def select(self, index) -> "EventClock":
         lo = None if self.seconds_lo is None else self.seconds_lo[index]
         return EventClock(self.reference_day, self.reference_frac, self.seconds[index], lo,
-                          self.scale)
+                          self.scale, self.notes)
 
 
 def event_clock(events: EventList, index, observer: Observer) -> EventClock:
-    """The selected events' times on the observer's continuous scale (UTC
-    stamps are carried to TT per event, exactly, through astropy's leap
-    seconds; other scales are taken as they are)."""
+    """The selected events' times, at the centres of their time bins, on the
+    observer's continuous scale. UTC TIME values of a FITS list are elapsed
+    seconds from MJDREF: TT - UTC at MJDREF goes into the reference, once
+    (timingkit.geometry.utc_seconds); UTC MJDs of a text list go to TT through
+    ERFA per event; other scales are taken as they are."""
+    reference = events.timed_reference_frac
+    seconds = take(events.seconds, index)
+    lo = None if events.seconds_lo is None else take(events.seconds_lo, index)
     if events.scale != "utc":
-        lo = None if events.seconds_lo is None else take(events.seconds_lo, index)
-        return EventClock(events.reference_day, events.reference_frac,
-                          take(events.seconds, index), lo, events.scale)
+        return EventClock(events.reference_day, reference, seconds, lo, events.scale)
+    if events.utc_elapsed_seconds:
+        first, last = (float(np.min(seconds)), float(np.max(seconds))) if len(seconds) else (0, 0)
+        base = events.reference_day + reference[0] + reference[1]
+        conversion = utc_elapsed_to_tt(*events.mjdref, base + first / SECONDS_PER_DAY,
+                                       base + last / SECONDS_PER_DAY)
+        return EventClock(events.reference_day, conversion.tt_reference_frac(reference),
+                          seconds, lo, "tt", notes=conversion.notes)
     tt = observer.to_continuous(events.times(index))
     hi, lo = tt.seconds_since(float(events.reference_day), 0.0)
     return EventClock(events.reference_day, (0.0, 0.0), hi, lo, "tt")

@@ -22,8 +22,8 @@ import numpy as np
 from timingkit.events.barycentre import EventClock, time_events
 from timingkit.events.template import PulseTemplate
 from timingkit.formats.errors import InputError
-from timingkit.geometry import timescales
 from timingkit.geometry.observer import Observer
+from timingkit.geometry.utc_seconds import utc_elapsed_to_tt
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 
 ENERGY_RANGE_KEV = (0.5, 10.0)
@@ -79,28 +79,22 @@ def simulate_events(model, observer: Observer, ephemeris, start_mjd: float, end_
 
 
 def _move_to_phase(model, observer, ephemeris, reference, reference_day, seconds, target):
-    """Times near ``seconds`` (output scale) whose model phase is ``target``."""
-    utc = observer.input_scale == "utc"
-    if utc:
-        tt = timescales.utc_to_tt(SplitTime(np.full(len(seconds), float(reference_day)),
-                                            seconds / SECONDS_PER_DAY, "utc").normalized())
-        hi, lo = tt.seconds_since(float(reference_day), 0.0)
-    else:
-        hi, lo = seconds.copy(), None
+    """Times near ``seconds`` (output scale) whose model phase is ``target``.
+    UTC TIME values are elapsed seconds from MJDREF, as ``timingkit events``
+    reads them: on TT they count from TT(MJDREF) (timingkit.geometry.utc_seconds)."""
+    start = (0.0, 0.0)
+    if observer.input_scale == "utc":
+        start = utc_elapsed_to_tt(reference_day, 0.0).tt_reference_frac(start)
+    hi = seconds.copy()
     scale = observer.continuous_scale
     for _ in range(8):
-        clock = EventClock(reference_day, (0.0, 0.0), hi, lo, scale)
+        clock = EventClock(reference_day, start, hi, None, scale)
         timing = time_events(clock, model, observer, ephemeris, reference, want_frequency=True)
         offset = (target - timing.phase + 0.5) % 1.0 - 0.5
         hi = hi + offset / timing.frequency_hz
         if np.max(np.abs(offset)) < CONVERGED_CYCLES:
             break
-    if not utc:
-        return hi
-    tt = EventClock(reference_day, (0.0, 0.0), hi, lo, "tt").at(hi, lo)
-    back = timescales.tt_to_utc(tt)
-    s_hi, s_lo = back.seconds_since(float(reference_day), 0.0)
-    return s_hi + s_lo
+    return hi
 
 
 EARTH_GM_M3_S2 = 3.986004418e14      # IERS Conventions 2010, Table 1.1 (TT-compatible)

@@ -7,10 +7,12 @@ first binary table with a ``TIME`` column that is not a GTI. Its timing
 keywords are read by ``timingkit.formats.ogip_time``. The good time intervals
 come from the first HDU named ``GTI`` or ``STDGTI`` (columns ``START`` and
 ``STOP``, on that HDU's own timing keywords, falling back to the events
-table's). ``OBSGEO-X/Y/Z`` (geocentric ITRS metres; Rots et al. 2015, A&A
-574, A36, the FITS time standard) give a ground observer's position when
-present. The file is opened read-only and memory-mapped: it is never changed
-and the TIME column is read without copying the other columns.
+table's); they select on the TIME values as written, while the events are
+timed at the centres of their time bins (``TIMEDEL``, ``TIMEPIXR``).
+``OBSGEO-X/Y/Z`` (geocentric ITRS metres; Rots et al. 2015, A&A 574, A36, the
+FITS time standard) give a ground observer's position when present. The file
+is opened read-only and memory-mapped: it is never changed and the TIME column
+is read without copying the other columns.
 
 Writing copies the input rows byte for byte (so every input column keeps its
 format, scaling and unit keywords) and appends the new columns; headers and
@@ -103,6 +105,9 @@ def read_fits_events(path: str) -> EventList:
     names = list(hdu.columns.names)
     energy = pick_energy_column([n for n in names if n != time_name], None, path)
     notes = [f"keyword defaulted by the OGIP memo: {d}" for d in keys.defaulted]
+    if keys.time_bin is None and "TIMEPIXR" in keys.keywords:
+        notes.append(f"TIMEPIXR = {keys.time_pixel_reference} is given without TIMEDEL: the "
+                     "bin width is unknown, so TIME is taken as the event's instant")
     events = EventList(
         path=path, kind="fits", reference_day=keys.reference_day,
         reference_frac=keys.reference_frac, seconds=seconds, scale=keys.scale,
@@ -113,7 +118,9 @@ def read_fits_events(path: str) -> EventList:
         energy_column=energy,
         energy_unit=(hdu.columns[energy].unit or "") if energy else "",
         notes=notes, keywords=dict(keys.keywords),
-        reader=lambda name: np.asarray(hdu.data.field(name)))
+        reader=lambda name: np.asarray(hdu.data.field(name)),
+        bin_centre_shift_s=keys.bin_centre_shift_s, time_bin_s=keys.time_bin_s,
+        time_pixel_reference=keys.time_pixel_reference, utc_elapsed_seconds=True)
     events.observer_itrf_m = _observer_position(hdu.header, primary, label, path)
     observatory = hdu.header.get("OBSERVAT", hdu.header.get("TELESCOP"))
     if observatory is not None:

@@ -6,7 +6,10 @@ reference epoch ``reference_day + reference_frac`` (integer MJD + a
 double-double fraction of a day) on the scale ``scale`` ('tt', 'tdb', 'utc'),
 observed at ``timeref`` ('local', 'geocentric', 'solarsystem'). For a FITS
 list the reference is MJDREF + TIMEZERO, so ``seconds`` is the TIME column
-itself (times ``TIMEUNIT``): nothing per event is rounded on reading.
+itself (times ``TIMEUNIT``): nothing per event is rounded on reading. An event
+is timed at the centre of its time bin (OGIP ``TIMEDEL``, ``TIMEPIXR``; see
+timingkit.formats.ogip_time): ``bin_centre_shift_s`` is added, exactly, to the
+reference (``timed_reference_frac``), never to the events one by one.
 
 Readers: :func:`read_event_list` picks FITS (``timingkit.formats.event_fits``)
 or plain text (``timingkit.formats.event_text``) from the file's first bytes.
@@ -39,7 +42,11 @@ class EventList:
     time ``t`` (seconds from the reference) is ``t + bary_shift_s`` seconds
     from MJDREF read as a TDB date; ``site``: the site named by the file;
     ``observer_itrf_m``: OBSGEO-X/Y/Z when given; ``notes``: facts for the
-    report (keywords defaulted, clock state).
+    report (keywords defaulted, clock state); ``bin_centre_shift_s``: (hi, lo)
+    seconds from a TIME stamp to its bin's centre, ``time_bin_s`` the bin width
+    (TIMEDEL, s; None when not given), ``time_pixel_reference`` TIMEPIXR.
+    ``utc_elapsed_seconds``: UTC ``seconds`` are elapsed SI seconds from MJDREF
+    (FITS TIME columns), not the fraction of a UTC day (text MJDs).
     """
     path: str
     kind: str
@@ -66,6 +73,17 @@ class EventList:
     notes: list[str] = field(default_factory=list)
     keywords: dict = field(default_factory=dict)
     reader: object = None          # callable(name) -> column values (FITS, on demand)
+    bin_centre_shift_s: tuple[float, float] = (0.0, 0.0)
+    time_bin_s: float | None = None
+    time_pixel_reference: float = 0.5
+    utc_elapsed_seconds: bool = False
+
+    @property
+    def timed_reference_frac(self) -> tuple[float, float]:
+        """(hi, lo) fraction of a day of the reference the events are timed from:
+        ``reference_frac`` plus the shift to the bin centre (double-double)."""
+        shift = ddmath.dd_div_d(*self.bin_centre_shift_s, SECONDS_PER_DAY)
+        return tuple(float(x) for x in ddmath.dd_add(*self.reference_frac, *shift))
 
     def __len__(self) -> int:
         return len(self.seconds)
@@ -86,11 +104,12 @@ class EventList:
         return list(self.columns)
 
     def times(self, index=None) -> SplitTime:
-        """The event times (all, or ``index``) as a SplitTime on ``scale``."""
+        """The event times (all, or ``index``) as a SplitTime on ``scale``, at
+        the centres of their time bins (UTC: the day's fraction of 86400 s)."""
         index = np.arange(len(self)) if index is None else index
         hi = take(self.seconds, index)
         lo = None if self.seconds_lo is None else take(self.seconds_lo, index)
-        return split_time_from_seconds(self.reference_day, self.reference_frac, hi, lo,
+        return split_time_from_seconds(self.reference_day, self.timed_reference_frac, hi, lo,
                                        self.scale)
 
     def span_seconds(self) -> tuple[float, float]:

@@ -5,10 +5,18 @@ Times in such a table are ``TIME`` values counted in ``TIMEUNIT`` from the
 reference ``MJDREFI + MJDREFF`` (or ``MJDREF``) plus ``TIMEZERO`` (or
 ``TIMEZERI + TIMEZERF``), on the scale ``TIMESYS``, observed at ``TIMEREF``.
 Required here: the reference MJD and ``TIMESYS``; the memo's defaults are used
-for the others (``TIMEUNIT = 's'``, ``TIMEZERO = 0``, ``TIMEREF = 'LOCAL'``)
-and the report says which were defaulted. A keyword found in neither the
-table's header nor the primary header, or with a value we cannot use, is an
-``InputError`` naming the keyword and the HDU.
+for the others (``TIMEUNIT = 's'``, ``TIMEZERO = 0``, ``TIMEREF = 'LOCAL'``,
+``TIMEPIXR = 0.5``) and the report says which were defaulted.
+
+Time bins: ``TIMEDEL`` (in ``TIMEUNIT``) is the width of the time bin an
+event was stamped in and ``TIMEPIXR`` (0 to 1) where within that bin the TIME
+value lies (0 its start, 0.5 its centre, 1 its end). timingkit times every
+event at the centre of its bin: ``bin_centre_shift_s`` gives
+(0.5 - TIMEPIXR) x TIMEDEL exactly, as a double-double, to be added to the
+reference (no TIMEDEL: no shift, the TIME value is taken as the instant).
+
+A keyword found in neither the table's header nor the primary header, or with
+a value we cannot use, is an ``InputError`` naming the keyword and the HDU.
 
 UTC time stamps: MJD(UTC) = MJDREF + (TIMEZERO + TIME) / 86400, i.e. a UTC
 day always counts 86400 s (the usual reading; an interval that spans a leap
@@ -50,12 +58,29 @@ class TimeKeywords:
     keywords: dict = field(default_factory=dict)     # as found, for the report
     defaulted: tuple = ()
     clock_applied: bool | None = None                # CLOCKAPP, None when absent
+    time_pixel_reference: float = 0.5                # TIMEPIXR (memo default 0.5)
+    time_bin: float | None = None                    # TIMEDEL in TIMEUNIT, None when absent
 
     @property
     def reference_frac(self) -> tuple[float, float]:
         """(hi, lo) of MJDREFF + TIMEZERO / 86400, days."""
         return ddmath.dd_add_d(*ddmath.dd_div_d(self.timezero_s, 0.0, SECONDS_PER_DAY),
                                self.mjdref_frac)
+
+    @property
+    def time_bin_s(self) -> float | None:
+        """TIMEDEL in seconds (None when absent)."""
+        return None if self.time_bin is None else self.time_bin * self.unit_s
+
+    @property
+    def bin_centre_shift_s(self) -> tuple[float, float]:
+        """(hi, lo) of (0.5 - TIMEPIXR) x TIMEDEL x TIMEUNIT in seconds, exact to
+        ~1e-32 relative: the shift from the TIME stamp to its bin's centre."""
+        if not self.time_bin:
+            return 0.0, 0.0
+        hi, lo = ddmath.two_sum(0.5, -self.time_pixel_reference)      # exact
+        hi, lo = ddmath.dd_mul_d(hi, lo, self.time_bin)
+        return tuple(float(x) for x in ddmath.dd_mul_d(hi, lo, self.unit_s))
 
 
 def _find(name: str, header, primary, hdu: str, path):
@@ -130,6 +155,7 @@ def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
             raise InputError(f"keyword TIMEUNIT = {unit_text!r} in HDU {hdu} is not supported; "
                              "legal: 's', 'd'", path=path, field="TIMEUNIT")
     timezero = _timezero(get, hdu, path, defaulted) * unit_s
+    pixel, time_bin = _time_bin(get, hdu, path, defaulted)
     ref_text = get("TIMEREF")
     if ref_text is None:
         defaulted.append("TIMEREF = 'LOCAL'")
@@ -147,7 +173,29 @@ def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
                         timezero_s=float(timezero), unit_s=float(unit_s), scale=scale,
                         timeref=timeref, keywords={k: _plain(v) for k, v in found.items()},
                         defaulted=tuple(defaulted),
-                        clock_applied=None if clock is None else bool(clock))
+                        clock_applied=None if clock is None else bool(clock),
+                        time_pixel_reference=pixel, time_bin=time_bin)
+
+
+def _time_bin(get, hdu: str, path, defaulted: list) -> tuple[float, float | None]:
+    """TIMEPIXR (default 0.5) and TIMEDEL (None when absent), checked."""
+    pixel_value, width_value = get("TIMEPIXR"), get("TIMEDEL")
+    pixel = 0.5
+    if pixel_value is not None:
+        pixel = _number(pixel_value, "TIMEPIXR", hdu, path)
+        if not 0.0 <= pixel <= 1.0:
+            raise InputError(f"keyword TIMEPIXR = {pixel_value!r} in HDU {hdu} must lie in "
+                             "[0, 1] (where within its time bin TIME lies: 0 the start, 0.5 "
+                             "the centre, 1 the end)", path=path, field="TIMEPIXR")
+    if width_value is None:
+        return pixel, None
+    width = _number(width_value, "TIMEDEL", hdu, path)
+    if width < 0:
+        raise InputError(f"keyword TIMEDEL = {width_value!r} in HDU {hdu} must be >= 0 (the "
+                         "width of a time bin, in TIMEUNIT)", path=path, field="TIMEDEL")
+    if pixel_value is None:
+        defaulted.append("TIMEPIXR = 0.5")
+    return pixel, width
 
 
 def _timezero(get, hdu: str, path, defaulted: list) -> float:

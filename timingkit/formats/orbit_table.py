@@ -40,11 +40,15 @@ UNIT_SCALE = {"": 1.0, "m": 1.0, "km": 1000.0, "m/s": 1.0, "km/s": 1000.0, "m s-
 @dataclass(eq=False)
 class OrbitTable:
     """Rows of an orbit file: ``times`` (SplitTime on ``times.scale``),
-    ``position_m`` (N, 3) GCRS metres, ``velocity_m_per_s`` (N, 3) or None."""
+    ``position_m`` (N, 3) GCRS metres, ``velocity_m_per_s`` (N, 3) or None;
+    ``utc_elapsed_from``: for a FITS TIME column on UTC, MJDREF (day, fraction):
+    ``times`` are then MJDREF + elapsed seconds / 86400, carried to TT as event
+    times are (timingkit.geometry.utc_seconds)."""
     path: str
     times: SplitTime
     position_m: np.ndarray
     velocity_m_per_s: np.ndarray | None = None
+    utc_elapsed_from: tuple[int, float] | None = None
 
     def __len__(self) -> int:
         return len(self.times)
@@ -164,6 +168,7 @@ def _read_fits(path: str) -> OrbitTable:
         hdu = hdul[index]
         label = f"{hdu.name} (HDU {index})" if hdu.name else f"HDU {index}"
         lookup = {c.upper(): c for c in hdu.columns.names}
+        utc_elapsed_from = None
 
         def column(name, units="m"):
             if name not in lookup:
@@ -180,6 +185,8 @@ def _read_fits(path: str) -> OrbitTable:
             seconds = np.asarray(hdu.data.field(lookup["TIME"]), dtype=float) * keys.unit_s
             times = split_time_from_seconds(keys.reference_day, keys.reference_frac, seconds,
                                             None, keys.scale)
+            if keys.scale == "utc":
+                utc_elapsed_from = (keys.reference_day, keys.mjdref_frac)
         elif "MJD" in lookup:
             system = hdu.header.get("TIMESYS", hdul[0].header.get("TIMESYS"))
             if system is None or str(system).strip().upper() not in TIME_SYSTEMS:
@@ -194,7 +201,9 @@ def _read_fits(path: str) -> OrbitTable:
         velocity = None
         if any(n in lookup for n in ("VX", "VY", "VZ")):
             velocity = np.column_stack([column(n, "m/s") for n in ("VX", "VY", "VZ")])
-    return _check(path, times, position, velocity, lambda row: row + 1)
+    table = _check(path, times, position, velocity, lambda row: row + 1)
+    table.utc_elapsed_from = utc_elapsed_from
+    return table
 
 
 def write_orbit_text(path, times: SplitTime, position_m, velocity_m_per_s=None) -> None:

@@ -29,6 +29,7 @@ from timingkit.geometry import timescales
 from timingkit.geometry.delays import SPEED_OF_LIGHT_M_PER_S
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.geometry.observations import Observations, observations_at
+from timingkit.geometry.utc_seconds import utc_elapsed_to_tt
 from timingkit.numerics.timearray import SplitTime
 
 WARN_ERROR_M = 30.0         # ~100 ns of light travel: say so
@@ -46,7 +47,7 @@ class SpacecraftTrajectory:
         from scipy.interpolate import CubicHermiteSpline, CubicSpline
         self.path = table.path
         self.name = name
-        tt = _to_tt(table.times)
+        tt = _to_tt(table)
         self.start_day, self.start_frac = float(tt.day[0]), float(tt.frac[0])
         self.start_tt, self.end_tt = tt[0], tt[len(tt) - 1]
         hi, lo = tt.seconds_since(self.start_day, self.start_frac)
@@ -117,9 +118,13 @@ class SpacecraftTrajectory:
         return self._interpolant(x), self._velocity(x)
 
 
-def _to_tt(times: SplitTime) -> SplitTime:
+def _to_tt(table: OrbitTable) -> SplitTime:
+    times = table.times
     if times.scale == "tt":
         return times
+    if table.utc_elapsed_from is not None:    # FITS TIME on UTC: elapsed seconds, as for events
+        offset_s = utc_elapsed_to_tt(*table.utc_elapsed_from).tt_minus_utc_s
+        return times.with_scale("tt").add_seconds(np.full(len(times), offset_s))
     if times.scale == "utc":
         return timescales.utc_to_tt(times)
     # TDB rows: the geocentric inverse; the spacecraft term (< 3 µs in time for

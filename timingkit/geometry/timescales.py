@@ -59,6 +59,19 @@ def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
     return out
 
 
+WHOLE_LEAP_SECONDS_FROM_MJD = 41317.0     # 1972 January 1: TAI - UTC whole seconds since (IERS)
+
+
+def tt_minus_utc_on_days(days) -> np.ndarray:
+    """TT - UTC (s) at 0h UTC of the whole MJDs ``days``, from the bundled
+    leap seconds through ERFA: n + 32.184 s exactly from 1972 on. TAI - UTC
+    then changes only at 0h UTC, so it holds for every clock reading of the day
+    (00:00:00 to 23:59:60)."""
+    days = np.atleast_1d(np.asarray(days, dtype=float))
+    utc = SplitTime(days, np.zeros_like(days), "utc")
+    return tt_minus_utc_s(utc, utc_to_tt(utc))
+
+
 def tt_to_utc(tt: SplitTime) -> SplitTime:
     """TT -> UTC with the bundled leap seconds."""
     return _through_tai(tt, erfa.tttai, erfa.taiutc, "utc")
