@@ -10,7 +10,10 @@ fresh process (wall time, CPU time and peak memory of that process):
 - the whole ``timingkit events EVENTS MODEL --orbit FILE -o OUT`` command on
   10^7 events (reading, barycentring, folding, statistics, phases.fits,
   events_report.json, profile.png); targets < 20 s and < 3 GB;
-- the same command on the 10^6-event list;
+- the same command on the 10^6-event list, and on a copy of it whose keywords
+  say TIMESYS = UTC (the same TIME values read as UTC elapsed seconds: the
+  UTC -> TT step, one constant through ERFA, against the TT case of the same
+  run);
 - astropy's own path on the 10^6 events: astropy.io.fits reads the list,
   ``Time(..., scale='tt').tdb`` gives geocentric TDB, the spacecraft position
   comes from scipy's CubicHermiteSpline through the orbit table, the Earth and
@@ -62,6 +65,7 @@ def _make_data(tmp: str, events: int) -> dict:
     orbit = os.path.join(tmp, "orbit.txt")
     big = os.path.join(tmp, "events.fits")
     small = os.path.join(tmp, "events_1e6.fits")
+    utc = os.path.join(tmp, "events_1e6_utc.fits")
     _child(f"""
         from timingkit.events.simulate import circular_orbit
         from timingkit.formats.orbit_table import write_orbit_text
@@ -77,9 +81,12 @@ def _make_data(tmp: str, events: int) -> dict:
             hdus = fits.HDUList([f[0].copy(), fits.BinTableHDU(f["EVENTS"].data[:keep],
                                  header=f["EVENTS"].header), f["GTI"].copy()])
             hdus.writeto({small!r}, overwrite=True)
+            for hdu in hdus[1:]:
+                hdu.header["TIMESYS"] = "UTC"
+            hdus.writeto({utc!r}, overwrite=True)
         out = {{}}
     """)
-    return {"model": model, "orbit": orbit, "big": big, "small": small}
+    return {"model": model, "orbit": orbit, "big": big, "small": small, "utc": utc}
 
 
 def _ours(files: dict, events_path: str, outdir: str) -> dict:
@@ -152,6 +159,7 @@ def bench_events(quick: bool = False) -> None:
         files = _make_data(tmp, events)
         big = _ours(files, files["big"], os.path.join(tmp, "out_big"))
         small = _ours(files, files["small"], os.path.join(tmp, "out_small"))
+        utc = _ours(files, files["utc"], os.path.join(tmp, "out_utc"))
         ref = _astropy(files, os.path.join(tmp, "out_astropy"))
         worst = _agreement(os.path.join(tmp, "out_small"), os.path.join(tmp, "out_astropy"))
     n_small = min(events, 1_000_000)
@@ -162,6 +170,9 @@ def bench_events(quick: bool = False) -> None:
           f"(targets < 20 s, < 3 GB)")
     print(f"timingkit events, {n_small:,} events: {small['wall_s']:.1f} s wall, "
           f"{small['cpu_s']:.1f} s CPU, peak {small['peak_rss_mb']:.0f} MB")
+    print(f"timingkit events, {n_small:,} events on UTC (TIMESYS = UTC): {utc['wall_s']:.1f} s "
+          f"wall, {utc['cpu_s']:.1f} s CPU; UTC / TT case {utc['cpu_s'] / small['cpu_s']:.2f} "
+          f"(CPU), {utc['wall_s'] / small['wall_s']:.2f} (wall)")
     print(f"astropy's own path, {n_small:,} events: {ref['wall_s']:.1f} s wall, "
           f"{ref['cpu_s']:.1f} s CPU, peak {ref['peak_rss_mb']:.0f} MB")
     print(f"per event (CPU): timingkit {per_big:.3f} µs at {events:,}, "
