@@ -88,6 +88,12 @@ def test_wide_bins_warn_and_the_report_states_width_and_shift(tmp_path):
     x = np.pi * WIDTH_S * 29.7123456789
     assert bins["amplitude_kept_fundamental"] == pytest.approx(np.sin(x) / x)
     assert any("time bins (TIMEDEL = 0.0123 s)" in w for w in report["warnings"])
+    # barycentric events: BARY_TIME is the bin's centre itself, TIME + TIMEDEL / 2
+    from astropy.io import fits
+    with fits.open(report_path.parent / "phases.fits") as hdus:
+        rows = hdus["EVENTS"].data
+        assert np.max(np.abs(rows["BARY_TIME"] - (rows["TIME"] + WIDTH_S / 2))) < 1e-9
+        assert "centre of each time bin" in str(hdus["EVENTS"].header["HISTORY"])
 
 
 def test_narrow_bins_do_not_warn(tmp_path):

@@ -105,7 +105,10 @@ class EventList:
 
     def times(self, index=None) -> SplitTime:
         """The event times (all, or ``index``) as a SplitTime on ``scale``, at
-        the centres of their time bins (UTC: the day's fraction of 86400 s)."""
+        the centres of their time bins, as MJDs (reference + seconds / 86400).
+        For a FITS list on UTC that is the UTC date only while no leap second
+        lies between MJDREF and the event (its seconds are elapsed seconds):
+        ``timingkit.events.barycentre.event_clock`` gives TT exactly."""
         index = np.arange(len(self)) if index is None else index
         hi = take(self.seconds, index)
         lo = None if self.seconds_lo is None else take(self.seconds_lo, index)

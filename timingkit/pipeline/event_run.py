@@ -122,7 +122,7 @@ def time_bin_entry(events: EventList, model: TimingModel) -> dict:
     with them, for the report's settings."""
     width_s = events.time_bin_s
     entry = {"events_timed_at": ("centre of each time bin" if width_s else
-                                 "the TIME value (no bin width given)"),
+                                 "the time as written (no bin width given)"),
              "bin_width_s": width_s, "time_pixel_reference": events.time_pixel_reference,
              "shift_to_bin_centre_s": events.bin_centre_shift_s[0] + events.bin_centre_shift_s[1],
              "shift_applied_to": "the reference time (MJDREF + TIMEZERO), in double-double"}
@@ -265,6 +265,9 @@ def _write_phases(inputs: EventInputs, clock: EventClock, timing: EventTiming, p
                          "MJDREFI+MJDREFF read as a TDB date (TIMEZERO included)", ""),
              ("HISTORY", f"observer: {inputs.observer.label}; ephemeris: "
                          f"{inputs.ephemeris.label}", "")]
+    if events.time_bin_s:
+        cards.append(("HISTORY", "BARY_TIME: of the centre of each time bin, TIME + (0.5 - "
+                                 "TIMEPIXR) x TIMEDEL", ""))
     if events.kind == "text":
         cards = [("MJDREFI", int(events.mjdref[0]), "reference of BARY_TIME (TDB)"),
                  ("MJDREFF", 0.0, "")] + cards
