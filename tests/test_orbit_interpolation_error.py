@@ -97,3 +97,10 @@ def test_report_states_the_error_per_region_and_warns_about_a_bad_gap(tmp_path):
     assert regions["gaps"][0]["start_mjd"] == pytest.approx(START + 9960.0 / 86400.0)
     assert regions["gaps"][0]["error_m"] > 30.0 > regions["interior"]["error_m"]
     assert any("gap(s) in the orbit table" in w for w in report["warnings"])
+    # events that all lie before the gap: no warning about it
+    early = ogip_events(tmp_path / "early.fits", np.linspace(100.0, 9000.0, 2000),
+                        {**TT_KEYWORDS, "CLOCKAPP": True})
+    assert main(["events", str(early), str(model), "--orbit", str(orbit), "--harmonics", "2",
+                 "--no-plot", "-o", str(tmp_path / "early")]) == 0
+    report = json.loads((tmp_path / "early" / "events_report.json").read_text())
+    assert not any("gap(s) in the orbit table" in w for w in report["warnings"])

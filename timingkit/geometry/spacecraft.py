@@ -101,21 +101,27 @@ class SpacecraftTrajectory:
         return self.interpolation_error_m / SPEED_OF_LIGHT_M_PER_S * 1e9
 
     def warnings(self) -> list[str]:
-        out = []
+        """A warning when the interpolation error away from gaps is large."""
         clean = self.clean_error_m
         if clean > WARN_ERROR_M:
-            out.append(f"the orbit table's interpolation error is up to about {clean:.0f} m "
-                       f"({clean / SPEED_OF_LIGHT_M_PER_S * 1e9:.0f} ns of light travel): give "
-                       "a denser table (with velocities) for better timing")
-        gaps = [g for g in self.regions.get("gaps", []) if g["error_m"] > WARN_ERROR_M]
-        if gaps:
-            worst = max(gaps, key=lambda g: g["error_m"])
-            out.append(f"{len(gaps)} gap(s) in the orbit table (rows over {GAP_FACTOR:g}x the "
-                       f"usual spacing apart) have interpolation errors over {WARN_ERROR_M:g} m, "
-                       f"up to {worst['error_m']:.3g} m ({worst['error_ns']:.3g} ns) in the "
-                       f"gap at MJD {worst['start_mjd']:.6f}; events there are timed that much "
-                       "less well (see settings.observer.interpolation_error_by_region)")
-        return out
+            return [f"the orbit table's interpolation error is up to about {clean:.0f} m "
+                    f"({clean / SPEED_OF_LIGHT_M_PER_S * 1e9:.0f} ns of light travel): give a "
+                    "denser table (with velocities) for better timing"]
+        return []
+
+    def gap_warnings(self, first_mjd: float, last_mjd: float) -> list[str]:
+        """A warning on the gaps between TT MJDs ``first_mjd`` and ``last_mjd``
+        whose interpolation error is large."""
+        gaps = [g for g in self.regions.get("gaps", []) if g["error_m"] > WARN_ERROR_M
+                and g["end_mjd"] > first_mjd and g["start_mjd"] < last_mjd]
+        if not gaps:
+            return []
+        worst = max(gaps, key=lambda g: g["error_m"])
+        return [f"{len(gaps)} gap(s) in the orbit table (rows over {GAP_FACTOR:g}x the usual "
+                f"spacing apart) within the events' span have interpolation errors over "
+                f"{WARN_ERROR_M:g} m, up to {worst['error_m']:.3g} m ({worst['error_ns']:.3g} ns) "
+                f"in the gap at MJD {worst['start_mjd']:.6f}; events there are timed that much "
+                "less well (see settings.observer.interpolation_error_by_region)"]
 
     def summary(self) -> dict:
         return {"orbit_file": self.path, "interpolation": self.method,

@@ -169,6 +169,11 @@ def time_selected(inputs: EventInputs, want_frequency=False) -> tuple[EventClock
     """Event clock and timing of the selected events."""
     clock = event_clock(inputs.events, inputs.index, inputs.observer)
     inputs.warnings.extend(w for w in clock.notes if w not in inputs.warnings)
+    trajectory = inputs.observer.trajectory
+    if trajectory is not None and len(clock):
+        first, last = _span(clock, clock.seconds)
+        inputs.warnings.extend(w for w in trajectory.gap_warnings(first, last)
+                               if w not in inputs.warnings)
     span = valid_span(clock, inputs.observer)
     if span is not None:
         outside = np.flatnonzero((clock.seconds < span[0]) | (clock.seconds > span[1]))
