@@ -88,3 +88,14 @@ def test_utc_orbit_table_rows_across_the_leap_second(tmp_path):
         assert abs(_seconds_between(got, want)[0]) < 1e-9
     # the rows stay evenly spaced on TT: no one-second jump at the leap second
     assert trajectory.max_spacing_s == pytest.approx(60.0, abs=1e-6)
+
+
+def test_reference_past_the_leap_second_table_is_a_caution(tmp_path):
+    from timingkit.geometry import timescales
+    end = timescales.leap_second_table_end_mjd()
+    keywords = {**UTC_KEYWORDS, "MJDREFI": int(end) + 30, "MJDREFF": 0.0, "TIMEZERO": 0.0}
+    inputs, clock, _ = _clock(tmp_path, keywords, np.array([10.0, 5000.0]))
+    assert any("bundled leap-second table expires" in w for w in inputs.warnings)
+    # no leap second assumed past the table: TT - UTC stays at its last value (IERS
+    # Bulletin C: 37 s since 2017 January 1, none announced since, from memory)
+    assert clock.reference_frac[0] * 86400 == pytest.approx(69.184, abs=1e-9)

@@ -18,9 +18,11 @@ reference (no TIMEDEL: no shift, the TIME value is taken as the instant).
 A keyword found in neither the table's header nor the primary header, or with
 a value we cannot use, is an ``InputError`` naming the keyword and the HDU.
 
-UTC time stamps: MJD(UTC) = MJDREF + (TIMEZERO + TIME) / 86400, i.e. a UTC
-day always counts 86400 s (the usual reading; an interval that spans a leap
-second is then off by that second, which the memo leaves open).
+UTC time stamps: MJDREF is a UTC date and TIMEZERO + TIME count elapsed SI
+seconds from it (the FITS time standard's relative time, Rots et al. 2015,
+A&A 574, A36, as astropy.io.fits reads it); timingkit.geometry.utc_seconds
+carries them to TT. ``reference_day + reference_frac + TIME / 86400`` is then
+the UTC date only while no leap second lies between MJDREF and the event.
 """
 
 from __future__ import annotations

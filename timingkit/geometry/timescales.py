@@ -59,9 +59,6 @@ def tt_minus_utc_s(utc: SplitTime, tt: SplitTime) -> np.ndarray:
     return out
 
 
-WHOLE_LEAP_SECONDS_FROM_MJD = 41317.0     # 1972 January 1: TAI - UTC whole seconds since (IERS)
-
-
 def tt_minus_utc_on_days(days) -> np.ndarray:
     """TT - UTC (s) at 0h UTC of the whole MJDs ``days``, from the bundled
     leap seconds through ERFA: n + 32.184 s exactly from 1972 on. TAI - UTC
