@@ -20,7 +20,7 @@ a value we cannot use, is an ``InputError`` naming the keyword and the HDU.
 
 UTC time stamps: MJDREF is a UTC date and TIMEZERO + TIME count elapsed SI
 seconds from it (the FITS time standard's relative time, Rots et al. 2015,
-A&A 574, A36, as astropy.io.fits reads it); timingkit.geometry.utc_seconds
+A&A 574, A36, as astropy.time adds it); timingkit.geometry.utc_seconds
 carries them to TT. ``reference_day + reference_frac + TIME / 86400`` is then
 the UTC date only while no leap second lies between MJDREF and the event.
 """

@@ -3,10 +3,10 @@ conversion per event.
 
 A FITS table on ``TIMESYS = 'UTC'`` counts ``TIMEZERO + TIME`` in elapsed SI
 seconds from ``MJDREF``, a UTC date (a relative time of the FITS time
-standard, Rots et al. 2015, A&A 574, A36; astropy.io.fits reads it the same
-way, as ``Time(MJDREF, scale='utc') + TimeDelta(TIME)``). Elapsed seconds are
-the same seconds on TT, so an event's TT is TT(MJDREF) + TIMEZERO + TIME: TT -
-UTC at MJDREF (the bundled leap seconds through ERFA,
+standard, Rots et al. 2015, A&A 574, A36; astropy.time counts it the same
+way: ``Time(MJDREF, scale='utc') + TimeDelta(TIME)`` adds elapsed seconds).
+Elapsed seconds are the same seconds on TT, so an event's TT is TT(MJDREF) +
+TIMEZERO + TIME: TT - UTC at MJDREF (the bundled leap seconds through ERFA,
 ``timescales.tt_minus_utc_s``; n + 32.184 s exactly from 1972 on) is added
 once to the reference, in double-double, and the events keep their TIME
 values. Leap seconds between MJDREF and the events then need nothing more, and
@@ -69,7 +69,7 @@ def utc_elapsed_to_tt(mjdref_day: int, mjdref_frac: float, first_tt_mjd: float |
         conversion.notes.append(
             f"{leaps} leap second(s) lie between the reference date MJDREF (UTC) and the "
             f"{what}: TIME on UTC is read as elapsed SI seconds from MJDREF (the FITS time "
-            "standard's relative time, as astropy reads it); if the mission's TIME counts UTC "
-            f"clock readings (86400 s to every day) instead, {what} beyond a leap second are "
-            "timed 1 s early per leap second (lists on TT have no such ambiguity)")
+            "standard's relative time, as astropy.time adds it); if the mission's TIME counts "
+            f"UTC clock readings (86400 s to every day) instead, {what} beyond a leap second "
+            "are timed 1 s early per leap second (lists on TT have no such ambiguity)")
     return conversion
