@@ -1,11 +1,14 @@
 """FITS event lists on UTC: TIME is elapsed SI seconds from MJDREF (the FITS
 time standard's relative time, Rots et al. 2015, A&A 574, A36), carried to TT
 through ERFA with one constant; checked against astropy.time across the leap
-second at the end of 2016 (IERS Bulletin C 52: TAI - UTC = 37 s from
-2017 January 1)."""
+second at the end of 2016 (IERS Bulletin C 52, from memory: TAI - UTC =
+37 s from 2017 January 1) and against astropy's own FITS time reader."""
+
+import warnings
 
 import numpy as np
 import pytest
+from astropy.table import Table
 from astropy.time import Time, TimeDelta
 
 from events_support import TT_KEYWORDS, ogip_events, write_inputs
@@ -49,6 +52,22 @@ def test_utc_seconds_across_a_leap_second_match_astropy(tmp_path):
     assert tt_minus_utc[0] == pytest.approx(68.184, abs=1e-6)
     assert tt_minus_utc[-1] == pytest.approx(69.184, abs=1e-6)
     assert any("1 leap second(s) lie between" in w for w in inputs.warnings)
+
+
+def test_astropy_fits_time_reader_reads_the_same_times(tmp_path):
+    # astropy's own reading of the FITS time keywords of the same file
+    # (Table.read(..., astropy_native=True): MJDREF + TimeDelta(TIME)); that reader
+    # takes MJDREF (not MJDREFI/MJDREFF) and leaves TIMEZERO out, so the file says
+    # MJDREF alone
+    keywords = {k: v for k, v in UTC_KEYWORDS.items()
+                if k not in ("MJDREFI", "MJDREFF", "TIMEZERO")}
+    _, clock, path = _clock(tmp_path, {**keywords, "MJDREF": 57753.25})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")          # "reference position will be ignored"
+        column = Table.read(path, hdu=1, astropy_native=True)["TIME"]
+    assert isinstance(column, Time) and column.scale == "utc"
+    ours = clock.at(clock.seconds, clock.seconds_lo)
+    assert np.max(np.abs(_seconds_between(ours, column.tt))) < 1e-9
 
 
 def test_no_note_without_a_leap_second_and_tt_lists_unchanged(tmp_path):
