@@ -151,3 +151,24 @@ def test_missing_clockapp_is_a_warning(tmp_path):
     report = json.loads((tmp_path / "o" / "events_report.json").read_text())
     assert any("CLOCKAPP missing" in w for w in report["warnings"])
     assert report["settings"]["clock"].startswith("unknown")
+
+
+def test_planet_list_is_honoured_and_checked(site_events, tmp_path, capsys):
+    # settings.shapiro_delay_planets as a list reaches the event path as a list:
+    # the report names exactly those bodies, and a name that is no planet is an
+    # input error on that setting (it was an internal error when the events path
+    # turned the list into 'true').
+    _, _, events = site_events
+    listed, _ = write_inputs(tmp_path, settings='shapiro_delay_planets = ["jupiter"]\n')
+    out = tmp_path / "listed"
+    assert main(["events", str(events), str(listed), "--site", "dune-array", "-o", str(out)]) == 0
+    report = json.loads((out / "events_report.json").read_text())
+    assert report["settings"]["shapiro_delay_bodies"] == ["sun", "jupiter"]
+    capsys.readouterr()
+    (tmp_path / "b").mkdir()
+    bad, _ = write_inputs(tmp_path / "b", settings='shapiro_delay_planets = ["vulcan"]\n')
+    assert main(["events", str(events), str(bad), "--site", "dune-array",
+                 "-o", str(tmp_path / "bad")]) == 2
+    err = capsys.readouterr().err
+    assert "settings.shapiro_delay_planets" in err and "internal error" not in err
+    assert not (tmp_path / "bad").exists()

@@ -122,7 +122,7 @@ class _Chain:
                  ephemeris: Ephemeris, reference):
         self.clock, self.model, self.observer = clock, model, observer
         self.ephemeris, self.reference = ephemeris, reference
-        self.planets = bool(model.settings["shapiro_delay_planets"])
+        self.planets = model.settings["shapiro_delay_planets"]    # true, false or a list
         self.warnings: list[str] = []
 
     def __call__(self, seconds, seconds_lo=None) -> _Exact:

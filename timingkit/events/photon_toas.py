@@ -127,7 +127,7 @@ def toa_at_shift(model, reference, ephemeris, tdb_guess: SplitTime, shift: np.nd
     the barycentre) is an integer plus ``shift``; returns (times, frequency_hz)."""
     ssb = Observer("ssb", "tdb")
     times = tdb_guess
-    planets = bool(model.settings["shapiro_delay_planets"])
+    planets = model.settings["shapiro_delay_planets"]     # true, false or a list
     frequency = None
     for _ in range(4):
         ev = model.evaluate(ssb.observations(times, ephemeris, planets), reference)

@@ -74,7 +74,7 @@ class Observer:
         return times
 
     def observations(self, times: SplitTime, ephemeris: Ephemeris,
-                     planets: bool = False) -> Observations:
+                     planets: bool | list = False) -> Observations:
         """Observations at ``times`` on ``continuous_scale``."""
         if times.scale != self.continuous_scale:
             raise ValueError(f"times must be on {self.continuous_scale}, not {times.scale}")

@@ -18,8 +18,10 @@ from timingkit.events.barycentre import (EventClock, EventTiming, event_clock, t
 from timingkit.formats.errors import InputError
 from timingkit.formats.event_list import EventList, read_event_list, select_events
 from timingkit.formats.site_file import BUILTIN_SITES, Site
+from timingkit.geometry.delays import PLANET_MASSES_SOURCE
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.geometry.observer import Observer
+from timingkit.geometry.shapiro_bodies import shapiro_planets
 from timingkit.geometry.sites import SiteTable
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
@@ -200,6 +202,10 @@ def settings_entry(inputs: EventInputs, timing: EventTiming) -> dict:
     accuracy = {k: v for k, v in timing.accuracy.items() if k != "warnings"}
     return {"observer": inputs.observer.summary(), "ephemeris": inputs.ephemeris.label,
             "clock": clock_state(inputs), "barycentring": accuracy,
+            "shapiro_delay_bodies": ["sun", *shapiro_planets(
+                inputs.model.settings["shapiro_delay_planets"], inputs.ephemeris,
+                inputs.model.path)],
+            "shapiro_delay_masses": PLANET_MASSES_SOURCE,
             "time_keywords": inputs.events.keywords,
             "time_bins": time_bin_entry(inputs.events, inputs.model), "model": inputs.model.path,
             "phase_zero": ("model [phase_zero]" if inputs.model.phase_zero is not None else
