@@ -53,6 +53,7 @@ from timingkit.outputs.output_set import (flush_to_disk, is_own_folder, new_work
 
 
 ERROR_FILE = "error.txt"
+TRACEBACK_FILE = "traceback.txt"    # an internal error's details: for debugging, not sharing
 
 
 
@@ -83,25 +84,34 @@ def _remove_leftovers(outdir: Path) -> set[str]:
     return remove_own_leftovers(outdir, TOP_LEVEL_OUTPUTS)
 
 
-def _reason(exc: BaseException) -> tuple[str, bool]:
-    """One-line reason for a failure, and whether it is a timingkit bug. The reason of
-    bad input names file, line and field but quotes none of the file's contents
-    (summaries are meant for sharing)."""
+def internal_reason(what: str, exc: BaseException, name: str) -> str:
+    """The shared reason of an unexpected failure: the exception's class and where its
+    details are, never its text (which may quote input)."""
+    return one_line(f"{what} ({type(exc).__name__}); the details are in "
+                    f"{name}/{TRACEBACK_FILE}")
+
+
+def _reason(exc: BaseException, name: str) -> tuple[str, bool]:
+    """One-line reason for a failure of source ``name``, and whether it is a timingkit
+    bug. The reason of bad input names file, line and field but quotes none of the
+    file's contents; that of a bug names the exception's class only (summaries are
+    meant for sharing)."""
     if isinstance(exc, InputError):
         return one_line(exc.public_message or type(exc).__name__), False
     if isinstance(exc, FitError):
         return one_line(str(exc) or type(exc).__name__), False
-    return one_line(f"internal error ({type(exc).__name__}): {exc}"), True
+    return internal_reason("internal error, please report it", exc, name), True
 
 
 def install_failure(outdir: str, source: Source, reason: str, details: str = "") -> None:
-    """Replace ``OUTDIR/NAME`` by a folder holding only ``error.txt``."""
+    """Replace ``OUTDIR/NAME`` by a folder holding ``error.txt`` (the reason) and, when
+    there are ``details`` (a traceback), ``traceback.txt``."""
     tmp = _new_work_folder(outdir, source.name)
     text = (f"{reason}\n\nsource: {source.name}\ntoas: {source.toas_path or '-'}\n"
             f"model: {source.model_path or '-'}\n")
-    if details:
-        text += "\n" + details.rstrip() + "\n"
     (tmp / ERROR_FILE).write_text(text, encoding="utf-8")
+    if details:
+        (tmp / TRACEBACK_FILE).write_text(details.rstrip() + "\n", encoding="utf-8")
     swap_into_place(tmp, Path(outdir) / source.name)
 
 
@@ -136,7 +146,7 @@ def process_source(job: _Job) -> dict:
         swap_into_place(tmp, Path(job.outdir) / source.name)
     except Exception as exc:
         status = STATUS_FAILED
-        message, internal = _reason(exc)
+        message, internal = _reason(exc, source.name)
         shutil.rmtree(tmp, ignore_errors=True)
         if parent_is_gone(job.batch_pid):
             os._exit(1)
@@ -188,8 +198,8 @@ def _pool_pass(jobs: list[_Job], workers: int, done: Callable[[dict], None]) -> 
             except BrokenProcessPool:
                 unfinished.append(futures[future])
             except Exception as exc:  # the job could not be sent, or the worker's own I/O failed
-                _record_failure(futures[future], one_line(
-                    f"internal error in the batch worker ({type(exc).__name__}: {exc})"), done)
+                _record_failure(futures[future], done, "internal error in the batch worker",
+                                exc)
     except BaseException:
         stop_pool(pool)          # interrupted: no worker outlives the batch
         raise
@@ -197,10 +207,16 @@ def _pool_pass(jobs: list[_Job], workers: int, done: Callable[[dict], None]) -> 
     return unfinished
 
 
-def _record_failure(job: _Job, reason: str, done: Callable[[dict], None]) -> None:
-    """A source whose worker could not report: write its error.txt here and count it."""
+def _record_failure(job: _Job, done: Callable[[dict], None], reason: str,
+                    exc: BaseException | None = None) -> None:
+    """A source whose worker could not report: write its error.txt here and count it.
+    With ``exc``, the reason names its class and traceback.txt holds its details."""
+    details = ""
+    if exc is not None:
+        details = "".join(traceback.format_exception(exc))
+        reason = internal_reason(reason, exc, job.source.name)
     try:
-        install_failure(job.outdir, job.source, reason)
+        install_failure(job.outdir, job.source, reason, details)
     except OSError:
         pass  # the row in the summary still says why
     done({"name": job.source.name, "status": STATUS_FAILED, "message": reason,
@@ -226,7 +242,7 @@ def _run_on_pool(jobs: list[_Job], workers: int, outdir: Path, done: Callable[[d
         # one worker runs the jobs in order: the culprit is the first unfinished one
         culprit = next((j for j in left if j.source.name in in_flight), left[0] if left else None)
         if culprit is not None:
-            _record_failure(culprit, WORKER_DIED_REASON, done)
+            _record_failure(culprit, done, WORKER_DIED_REASON)
         suspects = [j for j in left if j is not culprit]
 
 
@@ -267,11 +283,11 @@ def _run_on_dask(jobs: list[_Job], cluster: str, workers: int, done: Callable[[d
             try:
                 done(future.result())
             except Exception as exc:  # KilledWorker, lost scheduler, ...
-                reason = (WORKER_DIED_REASON + " (Dask tried it on several workers)"
-                          if type(exc).__name__ == "KilledWorker" else
-                          one_line(f"the Dask cluster lost this source ({type(exc).__name__}: "
-                                    f"{exc})"))
-                _record_failure(job, reason, done)
+                if type(exc).__name__ == "KilledWorker":
+                    _record_failure(job, done, WORKER_DIED_REASON
+                                    + " (Dask tried it on several workers)")
+                else:
+                    _record_failure(job, done, "the Dask cluster lost this source", exc)
         workers_seen = len(client.scheduler_info().get("workers", {}))
     finally:
         client.close()

@@ -130,7 +130,8 @@ def read_report(folder: Path, outcome: SourceOutcome) -> dict | None:
         return report
     except (OSError, ValueError) as exc:
         outcome.status = STATUS_FAILED
-        outcome.message = one_line(f"cannot read {folder / REPORT_FILE}: {exc}")
+        outcome.message = one_line(f"cannot read {folder.name}/{REPORT_FILE} "
+                                   f"({type(exc).__name__})")
         return None
 
 

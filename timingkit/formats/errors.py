@@ -11,6 +11,7 @@ from __future__ import annotations
 
 MAX_MESSAGE_CHARS = 600      # an error message is cut to this many characters
 MAX_EXCERPT_CHARS = 40       # a quoted piece of input is cut to this many
+MAX_PATH_CHARS, MAX_FIELD_CHARS = 300, 120   # and the path and field it names
 
 
 def excerpt(text, limit: int = MAX_EXCERPT_CHARS) -> str:
@@ -27,6 +28,24 @@ def cap(text: str, limit: int = MAX_MESSAGE_CHARS) -> str:
     if len(text) <= limit:
         return text
     return text[:limit - 40] + f" ... ({len(text) - limit + 40} more characters)"
+
+
+EXCERPT_LIMITS = (MAX_EXCERPT_CHARS, 30, 24)   # the lengths messages cut excerpts to
+MIN_BARE_PIECE_CHARS = 4    # shorter quoted pieces are hidden only where shown in quotes
+
+
+def hide_pieces(text: str, pieces) -> str:
+    """``text`` with every piece of input in ``pieces`` replaced by '...': as an
+    :func:`excerpt` (with or without its quotes), in quotes, and (pieces of at
+    least MIN_BARE_PIECE_CHARS characters) bare."""
+    for piece in sorted(set(pieces), key=len, reverse=True):
+        shown_as = [excerpt(piece, limit) for limit in EXCERPT_LIMITS]
+        for shown in shown_as + [repr(piece), f"'{piece}'", f'"{piece}"']:
+            text = text.replace(shown, "'...'")
+        for bare in [shown[1:-1] for shown in shown_as] + [piece]:
+            if len(bare) >= MIN_BARE_PIECE_CHARS:
+                text = text.replace(bare, "...")
+    return text
 
 
 class TimingkitError(Exception):
@@ -47,23 +66,26 @@ class InputError(TimingkitError):
     def __init__(self, message: str, path: str | None = None,
                  line: int | None = None, field: str | None = None,
                  excerpt: str | None = None, quoted=()):
-        self.message = cap(str(message))
-        self.quoted = tuple(str(q) for q in quoted if q)
-        self.path = None if path is None else cap(str(path), 300)
+        self._full_message = str(message)
+        self.message = cap(self._full_message)
+        self.quoted = tuple(str(q) for q in quoted if q is not None and str(q))
+        self.path = None if path is None else cap(str(path), MAX_PATH_CHARS)
         self.line = line
-        self.field = None if field is None else cap(str(field), 120)
+        self._full_field = None if field is None else str(field)
+        self.field = None if field is None else cap(self._full_field, MAX_FIELD_CHARS)
         self.excerpt = excerpt
         super().__init__(self.__str__())
 
-    def _where(self) -> str:
+    def _where(self, field: str | None = None) -> str:
+        field = self.field if field is None else field
         where = ""
         if self.path:
             where = self.path
             if self.line is not None:
                 where += f":{self.line}"
             where += ": "
-        if self.field:
-            where += f"field '{self.field}': "
+        if field:
+            where += f"field '{field}': "
         return where
 
     def __str__(self) -> str:
@@ -72,18 +94,19 @@ class InputError(TimingkitError):
 
     @property
     def public_message(self) -> str:
-        """The message without any excerpt of the input (for shared outputs)."""
-        message = self.message
-        for piece in sorted(self.quoted, key=len, reverse=True):
-            message = message.replace(repr(piece), "'...'").replace(piece, "...")
-        return self._where() + message + (" (the text is not shown here)"
-                                          if self.excerpt is not None else "")
+        """The message without any excerpt of the input (for shared outputs): the
+        ``quoted`` pieces become '...' wherever the message or the field shows them."""
+        message = hide_pieces(self._full_message, self.quoted)
+        field = hide_pieces(self._full_field or "", self.quoted)
+        where = self._where(cap(field, MAX_FIELD_CHARS))
+        return where + cap(message) + (" (the text is not shown here)"
+                                       if self.excerpt is not None else "")
 
     def located(self, path=None, line=None, field=None) -> "InputError":
         """A copy with the place filled in where this error lacks it."""
-        return InputError(self.message, path=self.path or path,
+        return InputError(self._full_message, path=self.path or path,
                           line=self.line if self.line is not None else line,
-                          field=self.field or field, excerpt=self.excerpt,
+                          field=self._full_field or field, excerpt=self.excerpt,
                           quoted=self.quoted)
 
 

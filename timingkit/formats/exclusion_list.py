@@ -32,7 +32,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.mjd_text import mjd_problem, parse_mjd_strings
 from timingkit.formats.textfile import read_text_file
 from timingkit.formats.toa_selection import SelectionRule, parse_rule
@@ -115,7 +115,7 @@ def _row(text: str, header: list[str], path: str, number: int) -> ExclusionRow:
     mjd = values["mjd"]
     problem = mjd_problem(mjd)
     if problem:
-        raise InputError(problem, path=path, line=number, field="mjd")
+        raise InputError(problem, path=path, line=number, field="mjd", quoted=(mjd,))
     toa_line = None
     if values.get("line", UNKNOWN_LINE) != UNKNOWN_LINE:
         try:
@@ -124,14 +124,16 @@ def _row(text: str, header: list[str], path: str, number: int) -> ExclusionRow:
             toa_line = 0
         if toa_line < 1:
             raise InputError(f"expected a line number (1, 2, ...) or '-', found "
-                             f"{values['line']!r}", path=path, line=number, field="line")
+                             f"{excerpt(values['line'])}", path=path, line=number, field="line",
+                             quoted=(values["line"],))
     freq = None
     if values.get("freq_mhz", UNKNOWN_LINE) != UNKNOWN_LINE:
         try:
             freq = float(values["freq_mhz"])
         except ValueError:
-            raise InputError(f"{values['freq_mhz']!r} is not a frequency in MHz", path=path,
-                             line=number, field="freq_mhz") from None
+            raise InputError(f"{excerpt(values['freq_mhz'])} is not a frequency in MHz",
+                             path=path, line=number, field="freq_mhz",
+                             quoted=(values["freq_mhz"],)) from None
     return ExclusionRow(list_line=number, toa_line=toa_line, mjd_text=mjd,
                         site=None if values.get("site") == UNKNOWN_LINE else values.get("site"),
                         freq_mhz=freq,

@@ -178,7 +178,7 @@ def parse_mjd_strings(texts) -> tuple[np.ndarray, np.ndarray]:
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
         problem = mjd_problem(texts[i]) or f"{texts[i]!r} is not a legal MJD"
-        raise InputError(f"entry {i}: {problem}", field="mjd")
+        raise InputError(f"entry {i}: {problem}", field="mjd", quoted=(texts[i],))
     return day, frac
 
 
@@ -210,5 +210,6 @@ def parse_mjd_column(texts, path, lines) -> tuple[np.ndarray, np.ndarray]:
         for text, line in zip(texts, lines):
             problem = mjd_problem(str(text))
             if problem:
-                raise InputError(problem, path=path, line=line, field="mjd") from None
+                raise InputError(problem, path=path, line=line, field="mjd",
+                                 quoted=(str(text),)) from None
         raise

@@ -230,9 +230,9 @@ def take_section(data: dict | None, section: str, spec: dict[str, Key],
     unknown = [k for k in data if k not in legal]
     if unknown:
         raise InputError(
-            f"unknown key{'s' if len(unknown) > 1 else ''} {', '.join(map(repr, unknown))} in "
+            f"unknown key{'s' if len(unknown) > 1 else ''} {', '.join(map(excerpt, unknown))} in "
             f"[{section}]; legal keys: {', '.join(sorted(legal))}",
-            path=path, field=f"{section}.{unknown[0]}" if section else unknown[0])
+            path=path, field=f"{section}.{unknown[0]}" if section else unknown[0], quoted=unknown)
     for key, ks in spec.items():
         where = f"{section}.{key}" if section else key
         if key in data:
@@ -250,8 +250,8 @@ def take_section(data: dict | None, section: str, spec: dict[str, Key],
         out["uncertainty"] = {}
         for key, value in unc.items():
             if key not in spec:
-                raise InputError(f"uncertainty given for unknown key '{key}'", path=path,
-                                 field=f"{section}.uncertainty.{key}")
+                raise InputError(f"uncertainty given for unknown key {excerpt(key)}", path=path,
+                                 field=f"{section}.uncertainty.{key}", quoted=(key,))
             where = f"{section}.uncertainty.{key}"
             if isinstance(value, list):  # nan marks an entry that was not fitted
                 out["uncertainty"][key] = [

@@ -219,7 +219,7 @@ def _check_segment(seg, i: int, path, line) -> dict:
             parse_mjd_strings([seg[key]])
         except InputError as exc:
             raise InputError(exc.message.removeprefix("entry 0: "), path=path, line=line,
-                             field=f"{where}.{key}") from None
+                             field=f"{where}.{key}", quoted=exc.quoted) from None
     if seg["seconds_per_day"] not in (86399, 86400, 86401):
         raise InputError(f"expected 86400 (or 86401/86399 on a leap-second day), found "
                          f"{seg['seconds_per_day']!r}", path=path, line=line,

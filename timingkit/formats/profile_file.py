@@ -189,7 +189,8 @@ def _check_profiles(a: dict, path) -> None:
     try:
         parse_mjd_strings(a["reference_mjd"])
     except InputError as exc:
-        raise InputError(exc.message, path=path, field="reference_mjd") from None
+        raise InputError(exc.message, path=path, field="reference_mjd",
+                         quoted=exc.quoted) from None
     if "simulated_shift_cycles" in a:
         shifts = _need(a, "simulated_shift_cycles", path, 2)
         if shifts.shape != (subints, channels):

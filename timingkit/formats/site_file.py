@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import erfa
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.textfile import parse_toml, read_text_file, top_level_table
 
 SITE_KINDS = ("earth", "geocentre", "ssb")
@@ -157,8 +157,8 @@ def _header_line(lines: list[str], name: str) -> int | None:
 
 def _number(value, path, line, fieldname, what):
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"{what} must be a number, got {value!r}", path=path, line=line,
-                         field=fieldname)
+        raise InputError(f"{what} must be a number, got {excerpt(value)}", path=path, line=line,
+                         field=fieldname, quoted=(value,))
     value = float(value)
     if not math.isfinite(value):
         raise InputError(f"{what} must be finite, got {value!r}", path=path, line=line,
@@ -168,22 +168,22 @@ def _number(value, path, line, fieldname, what):
 
 def _check_name(name, path, line, fieldname, what):
     if not isinstance(name, str) or not _NAME.match(name.lower()):
-        raise InputError(f"{what} {name!r} is not a plain site name: use lowercase letters, "
-                         "digits and - _ . + (starting with a letter or digit)",
-                         path=path, line=line, field=fieldname)
+        raise InputError(f"{what} {excerpt(name)} is not a plain site name: use lowercase "
+                         "letters, digits and - _ . + (starting with a letter or digit)",
+                         path=path, line=line, field=fieldname, quoted=(name,))
     return name.lower()
 
 
 def _site_from_entry(name: str, entry, path: str, line: int | None) -> Site:
     where = f"site.{name}"
     if not isinstance(entry, dict):
-        raise InputError(f"[{where}] must be a table of keys, got {entry!r}", path=path,
-                         line=line, field=where)
+        raise InputError(f"[{where}] must be a table of keys, got {excerpt(entry)}", path=path,
+                         line=line, field=where, quoted=(entry,))
     unknown = [k for k in entry if k not in _SITE_KEYS]
     if unknown:
-        raise InputError(f"unknown key '{unknown[0]}' in [{where}]; allowed keys: "
+        raise InputError(f"unknown key {excerpt(unknown[0])} in [{where}]; allowed keys: "
                          + ", ".join(_SITE_KEYS), path=path, line=line,
-                         field=f"{where}.{unknown[0]}")
+                         field=f"{where}.{unknown[0]}", quoted=(unknown[0],))
     has_xyz = "geocentric_itrf_m" in entry
     geo_given = [k for k in _GEODETIC_KEYS if k in entry]
     if has_xyz and geo_given:
@@ -199,7 +199,8 @@ def _site_from_entry(name: str, entry, path: str, line: int | None) -> Site:
         raw = entry["geocentric_itrf_m"]
         if not isinstance(raw, list) or len(raw) != 3:
             raise InputError(f"geocentric_itrf_m must be a list of 3 numbers [x, y, z] in metres, "
-                             f"got {raw!r}", path=path, line=line, field=key)
+                             f"got {excerpt(raw)}", path=path, line=line, field=key,
+                             quoted=(raw,))
         xyz = np.array([_number(v, path, line, key, "each geocentric_itrf_m component") for v in raw])
         radius = float(np.linalg.norm(xyz))
         lo, hi = _ITRF_RADIUS_RANGE_M
@@ -231,16 +232,17 @@ def _site_from_entry(name: str, entry, path: str, line: int | None) -> Site:
         describe = "WGS84 longitude, latitude, height"
     other_names = entry.get("other_names", [])
     if not isinstance(other_names, list):
-        raise InputError(f"other_names must be a list of names, got {other_names!r}", path=path,
-                         line=line, field=f"{where}.other_names")
+        raise InputError(f"other_names must be a list of names, got {excerpt(other_names)}",
+                         path=path, line=line, field=f"{where}.other_names",
+                         quoted=(other_names,))
     other_names = tuple(_check_name(a, path, line, f"{where}.other_names", "other name")
                         for a in other_names)
     source = entry.get("coordinates_from")
     if source is None:
         source = f"site file {path} ({describe}; accuracy not stated in the file)"
     elif not isinstance(source, str):
-        raise InputError(f"coordinates_from must be text, got {source!r}", path=path, line=line,
-                         field=f"{where}.coordinates_from")
+        raise InputError(f"coordinates_from must be text, got {excerpt(source)}", path=path,
+                         line=line, field=f"{where}.coordinates_from", quoted=(source,))
     else:
         source = f"site file {path}: {source}"
     return Site(name, "earth", xyz, other_names, source)

@@ -8,7 +8,7 @@ from __future__ import annotations
 import re
 import tomllib
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.safe_read import MAX_TEXT_INPUT_BYTES, open_regular, read_regular_bytes
 
 BYTE_ORDER_MARK = "\ufeff"
@@ -69,6 +69,6 @@ def top_level_table(data: dict, key: str, legal: tuple[str, ...], path, legal_te
     ``legal`` (the message lists ``legal_text``); ``default`` when absent."""
     unknown = sorted(set(data) - set(legal))
     if unknown:
-        raise InputError(f"unknown top-level key(s) {', '.join(unknown)}; legal: {legal_text}",
-                         path=path, field=unknown[0])
+        raise InputError(f"unknown top-level key(s) {', '.join(map(excerpt, unknown))}; legal: "
+                         f"{legal_text}", path=path, field=unknown[0], quoted=unknown)
     return data.get(key, default)

@@ -315,7 +315,7 @@ def _check_header(names: list[str], path: str, line_no: int) -> None:
         if name in seen:
             raise InputError(f"column {excerpt(name)} appears twice in the header "
                              f"(columns {seen[name]} and {pos})", path=path, line=line_no,
-                             field=excerpt(name)[1:-1])
+                             field=excerpt(name)[1:-1], quoted=(name,))
         seen[name] = pos
     missing = [c for c in REQUIRED_COLUMNS if c not in seen]
     if missing:
@@ -342,16 +342,17 @@ def _field_count_error(data, path, line_no, names) -> InputError:
     if k < c:
         msg = (f"{k} fields but the header names {c} columns ({cols}); "
                f"no value for {names[k]!r}")
-        fld = names[k]
+        fld, quoted = names[k], ()
     else:
+        quoted = (" ".join(tokens[c:]),)
         msg = (f"{k} fields but the header names {c} columns ({cols}); "
-               f"extra: {excerpt(' '.join(tokens[c:]))}")
+               f"extra: {excerpt(quoted[0])}")
         fld = None
     if any(t.startswith("#") for t in tokens):
         msg += "; comments must be on their own line starting with '#'"
     if re.search(rb",[ \t]*,", _line_bytes(data, line_no)):
         msg += "; empty fields are not allowed (repeated separators count as one)"
-    return InputError(msg, path=path, line=line_no, field=fld)
+    return InputError(msg, path=path, line=line_no, field=fld, quoted=quoted)
 
 
 def _row_error(data, path, line_no, names) -> InputError:

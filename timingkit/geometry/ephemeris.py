@@ -54,7 +54,8 @@ class Ephemeris:
         except FileNotFoundError:
             raise InputError("ephemeris file not found", path=path) from None
         except Exception as exc:  # jplephem raises assorted errors on non-SPK files
-            raise InputError(f"not a readable JPL SPK ephemeris ({exc})", path=path) from None
+            raise InputError("not a readable JPL SPK ephemeris", path=path,
+                             excerpt=str(exc)) from None
         self._segments = {(s.center, s.target): s for s in self._kernel.segments}
         self._arrays: dict = {}
         starts = [s.start_jd for s in self._kernel.segments]

@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.geometry.delays import SPEED_OF_LIGHT_M_PER_S
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.numerics.timearray import MJD_TO_JD, SECONDS_PER_DAY, SplitTime
@@ -43,9 +43,9 @@ def shapiro_planets(setting, ephemeris: Ephemeris, path: str | None = None) -> l
     out = []
     for name in setting:
         if name not in PLANETS:
-            raise InputError(f"unknown planet {name!r} in settings.shapiro_delay_planets; "
+            raise InputError(f"unknown planet {excerpt(name)} in settings.shapiro_delay_planets; "
                              f"legal: {', '.join(PLANETS)} (or true / false)", path=path,
-                             field="settings.shapiro_delay_planets")
+                             field="settings.shapiro_delay_planets", quoted=(name,))
         if not ephemeris.has_body(name):
             raise InputError(f"the ephemeris {ephemeris.label} holds no {name}; remove it from "
                              "settings.shapiro_delay_planets", path=path,

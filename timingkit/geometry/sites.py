@@ -29,7 +29,7 @@ from typing import Iterable, Sequence
 import erfa
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.site_file import BUILTIN_SITES, Site, load_site_file
 from timingkit.geometry import earth_orientation
 from timingkit.numerics.timearray import SplitTime
@@ -102,10 +102,10 @@ class SiteTable:
         """The site called ``name`` or one of its other_names, any case."""
         site = self._by_label.get(str(name).strip().lower())
         if site is None:
-            raise InputError(f"unknown site '{name}'; known sites: {self._known()}. "
+            raise InputError(f"unknown site {excerpt(name)}; known sites: {self._known()}. "
                              "Add sites with a site file (settings.sites in the model, or the sites "
                              "option).",
-                             field="site")
+                             field="site", quoted=(name,))
         return site
 
     def resolve_many(self, names) -> tuple[list[Site], np.ndarray]:

@@ -216,8 +216,8 @@ class Astrometry(ModelSection):
                              field="position")
         frame = section.get("frame", "equatorial") if isinstance(section, dict) else None
         if frame not in FRAMES:
-            raise InputError(f"unknown frame {frame!r}; legal: {', '.join(FRAMES)}", path=path,
-                             field="position.frame")
+            raise InputError(f"unknown frame {excerpt(frame)}; legal: {', '.join(FRAMES)}",
+                             path=path, field="position.frame", quoted=(frame,))
         spec = EQUATORIAL_KEYS if frame == "equatorial" else ECLIPTIC_KEYS
         s = take_section(section, "position", spec, path)
         unc = s.get("uncertainty", {})
@@ -354,8 +354,8 @@ class Astrometry(ModelSection):
         order from the parameters' own uncertainties (as uncorrelated: the
         model file keeps no correlations)."""
         if frame not in FRAMES:
-            raise InputError(f"unknown frame {frame!r}; legal: {', '.join(FRAMES)}",
-                             field="position.frame")
+            raise InputError(f"unknown frame {excerpt(frame)}; legal: {', '.join(FRAMES)}",
+                             field="position.frame", quoted=(frame,))
         if frame == self.frame:
             return
         params = self._angle_parameters()

@@ -48,7 +48,7 @@ from decimal import Decimal
 import numpy as np
 
 from timingkit.numerics import ddmath
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.model.base import ModelSection, Evaluation, notable_delay_s
 from timingkit.model.binary_orbits import (DEG_PER_YR_TO_RAD_PER_S, EccentricOrbit,
                                            LowEccentricityOrbit, ShapiroForm, SOLAR_MASS_TIME_S)
@@ -138,8 +138,8 @@ class Binary(ModelSection):
             raise InputError("expected a [binary] table", path=path, field=SECTION)
         model = section.get("model")
         if model not in MODELS:
-            raise InputError(f"binary model {model!r} unknown; legal: {', '.join(MODELS)}",
-                             path=path, field="binary.model")
+            raise InputError(f"binary model {excerpt(model)} unknown; legal: {', '.join(MODELS)}",
+                             path=path, field="binary.model", quoted=(model,))
         self.model = model
         keys = model_keys(model)
         spec = {"model": Key("text", required=True)}

@@ -115,7 +115,7 @@ def set_solar_wind(model, density_cm3: float, field: str | None = None) -> None:
         section = SolarWind({DENSITY_KEY: Decimal(repr(float(density_cm3)))}, model.path,
                             model.dispersion_constant_s_mhz2)
     except InputError as exc:
-        raise InputError(exc.message, field=field) from None
+        raise InputError(exc.message, field=field, quoted=exc.quoted) from None
     model.extra = [c for c in model.extra if c.section != SECTION] + [section]
     model._by_name = {p.name: p for p in model.parameters()}
 

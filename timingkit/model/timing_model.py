@@ -88,15 +88,16 @@ class TimingModel:
         legal = set(CORE_SECTIONS) | set(OPTIONAL_SECTIONS)
         unknown = [k for k in data if k not in legal]
         if unknown:
-            raise InputError(f"unknown section or key {', '.join(map(repr, unknown))}; legal: "
-                             f"{', '.join(sorted(legal))}", path=path, field=unknown[0])
+            raise InputError(f"unknown section or key {', '.join(map(excerpt, unknown))}; legal: "
+                             f"{', '.join(sorted(legal))}", path=path, field=unknown[0],
+                             quoted=unknown)
         top = take_section({k: v for k, v in data.items() if k == "name"}, "", TOP_KEYS, path,
                            allow_uncertainty=False)
         self.name = top["name"]
         if not self.name.isprintable() or not 0 < len(self.name) <= MAX_NAME_CHARS:
             raise InputError(f"the source name must be one printable line of 1 to "
                              f"{MAX_NAME_CHARS} characters, found {excerpt(self.name)}",
-                             path=path, field="name")
+                             path=path, field="name", quoted=(self.name,))
         self.settings = take_section(data.get("settings"), "settings", SETTINGS_KEYS, path,
                                      allow_uncertainty=False)
         self.dispersion_constant_s_mhz2 = _dispersion_constant(self.settings, path)
@@ -170,8 +171,9 @@ class TimingModel:
         try:
             return self._by_name[name]
         except KeyError:
-            raise InputError(f"unknown parameter '{name}'; this model has: "
-                             f"{', '.join(self._by_name)}", path=path, field=field) from None
+            raise InputError(f"unknown parameter {excerpt(name)}; this model has: "
+                             f"{', '.join(self._by_name)}", path=path, field=field,
+                             quoted=(name,)) from None
 
     @property
     def free_names(self) -> list[str]:
@@ -373,9 +375,9 @@ def _setting_written(key: str, value) -> bool:
 def _dispersion_constant(settings: dict, path: str | None) -> float:
     name = settings["dispersion_constant"]
     if name not in DISPERSION_CONSTANTS_S_MHZ2:
-        raise InputError(f"unknown dispersion constant {name!r}; legal: "
+        raise InputError(f"unknown dispersion constant {excerpt(name)}; legal: "
                          f"{', '.join(DISPERSION_CONSTANTS_S_MHZ2)}", path=path,
-                         field="settings.dispersion_constant")
+                         field="settings.dispersion_constant", quoted=(name,))
     return DISPERSION_CONSTANTS_S_MHZ2[name]
 
 

@@ -200,7 +200,7 @@ def split_observations(toas: ToaTable, selection: Selection | None, prepare) -> 
             selection.left_obs = prepare(toas.select(~selection.kept))
         except InputError as exc:
             selection.warnings.append(f"the {selection.count} left-out TOAs cannot be "
-                                      f"barycentred ({exc}); residuals.csv lists only the "
+                                      f"barycentred ({exc.public_message}); residuals.csv lists only the "
                                       "fitted TOAs")
     obs.warnings.extend(selection.warnings)
     return obs
