@@ -202,7 +202,7 @@ class _Solver:
 
     def __init__(self, noise: NoiseModel, obs: Observations, columns: list[str]):
         self.noise, self.obs, self.columns = noise, obs, columns
-        self.group_index = noise.group_index(obs.toas)
+        self.group_index = noise.group_index(obs)
         self.times_s = self.basis = self.span_s = self.phi = self.factor = None
         if noise.red is not None:
             self.times_s = toa_times_s(obs)
@@ -320,7 +320,7 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
                             "timing fit and noise estimation")
             break
         noise_rounds += 1
-        estimate = fit_noise(noise, obs.toas, design, resid, toa_times_s(obs), noise_names)
+        estimate = fit_noise(noise, obs, design, resid, toa_times_s(obs), noise_names)
         settled = _apply_noise_estimate(model, estimate) < NOISE_TOLERANCE_SIGMA
         solver.refresh()
     if estimate is not None:

@@ -28,6 +28,7 @@ import numpy as np
 
 from timingkit.formats.errors import FitError
 from timingkit.fit.gls import RedLikelihood, marginal_log_likelihood
+from timingkit.model.flag_groups import toa_table_of
 from timingkit.model.noise import BOUNDS, NoiseModel
 
 AMPLITUDE_SCAN_HALF_WIDTH = 6.0    # decades of amplitude either side of the start
@@ -115,7 +116,8 @@ class _Coordinates:
 def fit_noise(noise: NoiseModel, toas, design_s: np.ndarray, resid_s: np.ndarray,
               times_s: np.ndarray, names: list[str]) -> NoiseEstimate:
     """Maximise the marginal likelihood over the noise parameters ``names``
-    (the others stay at the model's values); see the module docstring."""
+    (the others stay at the model's values); see the module docstring. ``toas``:
+    the Observations (or a bare ToaTable: see timingkit.model.flag_groups)."""
     params = {p.name: p for p in noise.parameters()}
     unknown = [n for n in names if n not in params]
     if unknown:
@@ -138,7 +140,7 @@ def fit_noise(noise: NoiseModel, toas, design_s: np.ndarray, resid_s: np.ndarray
         return NoiseEstimate(names=[], values={}, uncertainties={}, covariance=None,
                              log_likelihood=like({}), evaluations=like.evaluations,
                              success=True, warnings=warnings)
-    coords = _Coordinates(names, float(np.median(toas.err_us)))
+    coords = _Coordinates(names, float(np.median(toa_table_of(toas).err_us)))
     bounds = coords.bounds()
 
     def objective(y):

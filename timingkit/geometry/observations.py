@@ -48,6 +48,8 @@ class Observations:
     # d(TDB - tau)/dTDB of each observer's clock (0 for barycentric input)
     tdb_minus_proper_time_rate: np.ndarray | None = None
     memo: dict = field(default_factory=dict)    # results the model may reuse (per data set)
+    # every name (lowercase) of the sites these TOAs use -> the site's name
+    site_labels: dict = field(default_factory=dict)
 
     @property
     def planet_to_observer_m(self) -> PlanetVectors:
@@ -75,7 +77,7 @@ class Observations:
             tdb_correction_s=(None if self.tdb_correction_s is None
                               else self.tdb_correction_s[index]),
             tdb_minus_proper_time_rate=None if self.tdb_minus_proper_time_rate is None
-            else self.tdb_minus_proper_time_rate[index])
+            else self.tdb_minus_proper_time_rate[index], site_labels=dict(self.site_labels))
 
 
 def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
@@ -157,10 +159,13 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
     tdb_all = SplitTime(tdb_day, tdb_frac, "tdb")
     lost_hi, lost_lo = tdb_all.seconds_since(day, frac)
     correction_s = (offset_s - lost_hi) - lost_lo
-    return observations_at(toas, tdb_all, site_pos, site_vel, bary, names.astype(str), ephemeris,
-                           planets, clock_corrections=sorted(set(used_clocks)),
-                           warnings=_unique(warnings), tdb_correction_s=correction_s,
-                           model_path=model_path)
+    obs = observations_at(toas, tdb_all, site_pos, site_vel, bary, names.astype(str), ephemeris,
+                          planets, clock_corrections=sorted(set(used_clocks)),
+                          warnings=_unique(warnings), tdb_correction_s=correction_s,
+                          model_path=model_path)
+    obs.site_labels = {label.lower(): site.name for site in unique_sites
+                       for label in (site.name, *site.other_names)}
+    return obs
 
 
 def observations_at(toas: ToaTable, tdb: SplitTime, geocentric_m: np.ndarray,
@@ -205,7 +210,7 @@ def _resolve_sites(toas: ToaTable, sites: SiteTable):
                 sites.lookup(str(name))
             except InputError:
                 line = None if toas.line_numbers is None else int(toas.line_numbers[row])
-                raise InputError(exc.message, path=toas.path, line=line, field="site") from None
+                raise exc.located(path=toas.path, line=line, field="site") from None
         raise
 
 

@@ -56,7 +56,7 @@ def white_errors_us(model: TimingModel, obs: Observations,
     """TOA uncertainties the search weights with (µs): the table's, scaled by
     the model's [[white_noise]] groups when it has any."""
     noise = NoiseModel.from_timing_model(model) if noise is None else noise
-    return noise.white_errors_us(obs.toas) if noise.white else obs.toas.err_us
+    return noise.white_errors_us(obs) if noise.white else obs.toas.err_us
 
 
 def phase_data(model: TimingModel, obs: Observations, reference) -> PhaseData:

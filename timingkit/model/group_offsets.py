@@ -4,7 +4,7 @@ Model file: any number of tables ::
 
     [[time_offset]]
     flag = "backend"        # a TOA-table flag column, or "site"
-    value = "wide-b"        # TOAs whose flag equals this are shifted
+    value = "wide-b"        # TOAs whose flag equals this (for "site": any name of the site)
     offset_s = 0.0          # seconds; positive = those TOAs arrive late
 
 Each offset is the parameter ``time_offset.<k>.offset_s`` (k counts the
@@ -20,6 +20,7 @@ import numpy as np
 
 from timingkit.formats.errors import InputError
 from timingkit.model.base import ModelSection, Evaluation
+from timingkit.model.flag_groups import group_mask
 from timingkit.model.parameters import Parameter
 from timingkit.formats.model_file import Key, reject_repeated_groups, table_list, take_section
 
@@ -56,13 +57,9 @@ class GroupOffset(ModelSection):
 
     def mask(self, obs) -> np.ndarray:
         """TOAs of this group: flag column equal to ``value`` ('site' matches
-        the site name as written or its canonical name)."""
-        if self.flag == "site":
-            return (obs.toas.site == self.value) | (np.asarray(obs.site_names) == self.value)
-        column = obs.toas.flags.get(self.flag)
-        if column is None:
-            return np.zeros(len(obs), dtype=bool)
-        return column == self.value
+        any name of the site, timingkit.model.flag_groups)."""
+        mask = group_mask(obs, self.flag, self.value)
+        return np.zeros(len(obs), dtype=bool) if mask is None else mask
 
     def apply(self, ev: Evaluation) -> None:
         mask = self.mask(ev.obs)

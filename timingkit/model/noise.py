@@ -45,8 +45,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.model.base import ModelSection
+from timingkit.model.flag_groups import SITE_FLAG, group_mask, toa_table_of
 from timingkit.model.parameters import Parameter
 from timingkit.model.timing_model import OPTIONAL_SECTIONS
 from timingkit.formats.model_file import Key, reject_repeated_groups, table_list, take_section
@@ -330,7 +331,8 @@ class NoiseModel:
     def group_index(self, toas) -> np.ndarray:
         """Group number of every TOA (-1: in no group). A TOA matched by two
         flagged groups is an input error; the group without a flag takes every
-        TOA no flagged group claims."""
+        TOA no flagged group claims. ``toas``: Observations (a site group then
+        takes every name of its site) or a bare ToaTable (timingkit.model.flag_groups)."""
         n = len(toas)
         index = np.full(n, -1, dtype=int)
         default = None
@@ -338,14 +340,14 @@ class NoiseModel:
             if g.flag is None:
                 default = g.array_index
                 continue
-            column = _flag_column(toas, g.flag, self.path, g.array_index)
-            hit = column == g.value
+            hit = _group_mask(toas, g.flag, g.value, self.path, g.array_index)
             clash = hit & (index >= 0)
             if np.any(clash):
                 other = self.white[int(index[clash][0])]
                 raise InputError(f"TOAs belong to two white-noise groups ({other.label} and "
                                  f"{g.label}); make the groups disjoint", path=self.path,
-                                 field=f"white_noise.{g.array_index}")
+                                 field=f"white_noise.{g.array_index}",
+                                 quoted=(other.value, g.value))
             index[hit] = g.array_index
         if default is not None:
             index[index < 0] = default
@@ -365,7 +367,7 @@ class NoiseModel:
         scales = [values.get(g.error_scale.name, g.error_scale.value) for g in order]
         added = [values.get(g.added_error.name, g.added_error.value) for g in order]
         # group numbers are array indices 0..k-1 in file order
-        return scaled_errors_us(toas.err_us, group_index, scales, added)
+        return scaled_errors_us(toa_table_of(toas).err_us, group_index, scales, added)
 
     def red_prior(self, span_s: float, values: dict | None = None) -> np.ndarray:
         values = values or {}
@@ -413,12 +415,11 @@ def _dec(x: float):
     return Decimal(repr(float(x)))
 
 
-def _flag_column(toas, flag: str, path, index: int) -> np.ndarray:
-    if flag == "site":
-        return np.asarray(toas.site, dtype=str)
-    if flag in toas.flags:
-        return toas.flags[flag]
-    legal = ["site", *toas.flags]
-    raise InputError(f"white-noise group selects TOAs by flag '{flag}', which the TOA table "
-                     f"does not have; columns to choose from: {', '.join(legal)}", path=path,
-                     field=f"white_noise.{index}.flag")
+def _group_mask(toas, flag: str, value: str, path, index: int) -> np.ndarray:
+    mask = group_mask(toas, flag, value)
+    if mask is not None:
+        return mask
+    legal = [SITE_FLAG, *toa_table_of(toas).flags]
+    raise InputError(f"white-noise group selects TOAs by flag {excerpt(flag)}, which the TOA "
+                     f"table does not have; columns to choose from: {', '.join(legal)}",
+                     path=path, field=f"white_noise.{index}.flag", quoted=(flag,))

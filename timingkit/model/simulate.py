@@ -124,7 +124,7 @@ def simulate_toas(model: TimingModel, start_mjd: float, end_mjd: float, count: i
             break
     if add_noise:
         noise = NoiseModel.from_timing_model(model) if noise is None else noise
-        sigma_us = noise.white_errors_us(toas) if noise.white else err_us
+        sigma_us = noise.white_errors_us(obs) if noise.white else err_us
         offset_s = rng.normal(0.0, 1.0, count) * sigma_us * 1e-6
         if noise.red is not None:
             offset_s = offset_s + noise.red_realisation_s(toa_times_s(obs), rng)

@@ -15,6 +15,7 @@ from timingkit.formats.clock_table import ClockTable, read_clock_table
 from timingkit.geometry.ephemeris import Ephemeris, load_ephemeris
 from timingkit.formats.errors import InputError, excerpt
 from timingkit.model.timing_model import TimingModel
+from timingkit.model.flag_groups import group_mask
 from timingkit.geometry.observations import Observations
 from timingkit.geometry.sites import SiteTable
 from timingkit.formats.toa_table import ToaTable
@@ -73,7 +74,8 @@ def clock_for_sites(table: ClockTable, sites: SiteTable) -> ClockTable:
         except InputError:
             raise InputError(f"this clock table is for site {excerpt(name, 30)}, which matches no "
                              f"known site ({', '.join(sites.names)}; other names are accepted)",
-                             path=table.path, line=table.site_line, field="site") from None
+                             path=table.path, line=table.site_line, field="site",
+                             quoted=(name,)) from None
     return dataclasses.replace(table, sites=tuple(dict.fromkeys(names)))
 
 
@@ -96,7 +98,7 @@ def check_color_by(toas: ToaTable, color_by: str) -> None:
     if color_by not in legal:
         raise InputError(f"cannot colour by {excerpt(color_by, 30)}: the TOA table has no such "
                          f"column; choose one of {', '.join(legal)}", path=toas.path,
-                         field="--color-by")
+                         field="--color-by", quoted=(color_by,))
 
 
 def reference_observations(model: TimingModel, sites, eph, clocks) -> Observations | None:
@@ -106,9 +108,10 @@ def reference_observations(model: TimingModel, sites, eph, clocks) -> Observatio
     from timingkit.model.parameters import mjd_parts
     day, frac = mjd_parts(pz["mjd"])
 
-    def bad(message: str, key: str) -> InputError:
+    def bad(message: str, key: str, quoted=()) -> InputError:
         field = f"phase_zero.{key}"
-        return InputError(message, path=model.path, line=model.line_of(field), field=field)
+        return InputError(message, path=model.path, line=model.line_of(field), field=field,
+                          quoted=quoted)
 
     low, high = FREQ_MHZ_RANGE
     try:
@@ -123,7 +126,7 @@ def reference_observations(model: TimingModel, sites, eph, clocks) -> Observatio
     try:
         return model.prepare_observations(toas, sites, eph, clocks)
     except InputError as exc:
-        raise bad(exc.message, "site" if exc.field == "site" else "mjd") from None
+        raise bad(exc.message, "site" if exc.field == "site" else "mjd", exc.quoted) from None
 
 
 def load_inputs(toas_path: str, model_path: str, *, free=(), fix=(), sites_paths=(),
@@ -193,13 +196,8 @@ def unmatched_group_warnings(model: TimingModel, obs: Observations) -> list[str]
         flag, value = getattr(section, "flag", None), getattr(section, "value", None)
         if section.section not in ("time_offset", "white_noise") or flag is None:
             continue
-        if flag == "site":
-            hit = (obs.toas.site == value) | (np.asarray(obs.site_names) == value)
-        elif flag in obs.toas.flags:
-            hit = obs.toas.flags[flag] == value
-        else:
-            hit = np.zeros(len(obs), dtype=bool)
-        if not np.any(hit):
+        hit = group_mask(obs, flag, value)
+        if hit is None or not np.any(hit):
             out.append(f"[[{section.section}]] number {section.array_index + 1} ({flag} = "
                        f"{value}) matches no TOA of {obs.toas.path or 'the table'}; it has "
                        "no effect")
