@@ -407,16 +407,19 @@ def test_write_keeps_mjd_text_verbatim_and_extra_columns(tmp_path):
                             "58850 2 820 dd wide-b\n")
     t = read_toa_table(path)
     out = tmp_path / "out.txt"
-    write_toa_table(t, out, extra_columns={"residual_us": np.array([0.125, -1.5]),
+    write_toa_table(t, out, extra_columns={"delay_us": np.array([0.125, -1.5]),
                                       "group": ["g1", "g2"]})
     again = read_toa_table(out)
     assert list(again.mjd_text) == ["58849.100000000000000", "58850"]
-    assert list(again.flags) == ["backend", "residual_us", "group"]
-    assert list(again.flags["residual_us"]) == ["0.125", "-1.5"]
+    assert list(again.flags) == ["backend", "delay_us", "group"]
+    assert list(again.flags["delay_us"]) == ["0.125", "-1.5"]
     assert "58849.100000000000000" in out.read_text()
     with pytest.raises(InputError) as info:
         write_toa_table(t, out, extra_columns={"backend": ["a", "b"]})
     assert info.value.field == "backend"
+    with pytest.raises(InputError) as info:   # read back it would be a flag named like an
+        write_toa_table(t, out, extra_columns={"residual_us": [0.1, 0.2]})   # output column
+    assert info.value.field == "residual_us"
 
 
 def test_write_refuses_an_empty_table(tmp_path):

@@ -46,7 +46,7 @@ from timingkit.formats.mjd_text import (
     parse_mjd_tokens,
 )
 from timingkit.formats.toa_table import (PULSE_COLUMN, REQUIRED_COLUMNS, SPLIT_RE, FlagColumn,
-                                         ToaTable)
+                                         ToaTable, check_flag_name)
 
 _MAX_NUMBER_LEN = 64          # err_us / freq_mhz tokens longer than this are rejected
 
@@ -317,6 +317,8 @@ def _check_header(names: list[str], path: str, line_no: int) -> None:
                              f"(columns {seen[name]} and {pos})", path=path, line=line_no,
                              field=excerpt(name)[1:-1], quoted=(name,))
         seen[name] = pos
+        if name not in REQUIRED_COLUMNS and name != PULSE_COLUMN:
+            check_flag_name(name, path, line_no)
     missing = [c for c in REQUIRED_COLUMNS if c not in seen]
     if missing:
         hints = []

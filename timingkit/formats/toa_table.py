@@ -15,6 +15,22 @@ from timingkit.formats.quantities import in_unit, is_quantity, is_time, time_to_
 REQUIRED_COLUMNS = ("mjd", "err_us", "freq_mhz", "site")
 SPLIT_RE = re.compile(r"[ \t\r\n\v\f,]+")   # field separators: runs of whitespace and/or commas
 PULSE_COLUMN = "pulse"
+# the columns residuals.csv adds to a TOA table's (timingkit.outputs.residual_table):
+# a flag named so would clash with them, so no flag may be
+OUTPUT_COLUMNS = ("residual_us", "residual_phase", "pulse_number", "toa_line", "orbital_phase",
+                  "left_out")
+
+
+def check_flag_name(name: str, path=None, line: int | None = None) -> None:
+    """Refuse a flag named like a column of the TOA table itself or one that timingkit
+    writes beside the flags (InputError naming ``path``, ``line`` and the flag)."""
+    if name in REQUIRED_COLUMNS or name == PULSE_COLUMN:
+        raise InputError(f"a flag may not be named {name!r}: the TOA table has that column "
+                         "itself", path=path, line=line, field=name)
+    if name in OUTPUT_COLUMNS:
+        raise InputError(f"a flag may not be named {name!r}: timingkit writes a column of that "
+                         f"name in residuals.csv (its own columns: {', '.join(OUTPUT_COLUMNS)}); "
+                         "rename the flag", path=path, line=line, field=name)
 
 
 class FlagColumn:
@@ -148,8 +164,7 @@ class ToaTable:
                 raise ValueError(f"ToaTable.{name} has shape {arr.shape}, expected ({n},) "
                                  f"like mjd_text")
         for name in self.flags:
-            if name in REQUIRED_COLUMNS or name == PULSE_COLUMN:
-                raise ValueError(f"flag name {name!r} is a reserved column name")
+            check_flag_name(name, self.path)
 
     def __len__(self) -> int:
         return len(self.mjd_text)

@@ -8,7 +8,7 @@ import tempfile
 import numpy as np
 
 from timingkit.formats.errors import InputError
-from timingkit.formats.toa_table import PULSE_COLUMN, SPLIT_RE, ToaTable
+from timingkit.formats.toa_table import PULSE_COLUMN, SPLIT_RE, ToaTable, check_flag_name
 
 
 def _check_text_values(values: np.ndarray, name: str) -> None:
@@ -73,6 +73,7 @@ def write_toa_table(toas: ToaTable, path, extra_columns: dict | None = None) -> 
         if name in columns:
             raise InputError(f"extra column {name!r} clashes with an existing column",
                              path=path, field=name)
+        check_flag_name(name, path)          # read back, it is a flag
         arr = np.asarray(values)
         if arr.shape != (n,):
             raise InputError(f"extra column has shape {arr.shape}, expected ({n},)",
