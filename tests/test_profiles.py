@@ -208,3 +208,51 @@ def test_profile_commands(tmp_path, capsys):
                  "--start", "60000", "--end", "60010", "--count", "2", "--freq-mhz", "350",
                  "--bandwidth-mhz", "800", "-o", str(tmp_path / "bad")]) == 2
     assert "bandwidth" in capsys.readouterr().err and not (tmp_path / "bad").exists()
+
+
+def test_simulate_profiles_writes_its_outputs_as_one_set(tmp_path, capsys, monkeypatch):
+    # like every command's output folder (timingkit.outputs.output_set): complete or
+    # absent, a rerun replaces the whole set, a failure half-way leaves the old set
+    import errno
+    import timingkit.formats.profile_file as profile_file
+    data = tmp_path / "data"
+    shutil.copytree(SAMPLE, data)
+    sim = tmp_path / "sim"
+
+    def simulate(count, outdir=sim):
+        return main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
+                     "--start", "60000", "--end", "60010", "--count", str(count), "--bins", "64",
+                     "--freq-mhz", "350", "1400", "--seed", "3", "-o", str(outdir)])
+
+    assert simulate(3) == 0
+    assert sorted(p.name for p in sim.iterdir()) == [".timingkit-output", "obs-1.npz",
+                                                     "obs-2.npz", "obs-3.npz", "template.npz"]
+    assert simulate(2) == 0                               # no stale obs-3.npz of the first run
+    kept = {p.name: p.read_bytes() for p in sim.iterdir()}
+    assert sorted(kept) == [".timingkit-output", "obs-1.npz", "obs-2.npz", "template.npz"]
+    capsys.readouterr()
+
+    real_write = profile_file.write_profile_file
+    written = []
+
+    def disk_fills(profiles, path):
+        if written:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        written.append(path)
+        real_write(profiles, path)
+    monkeypatch.setattr(profile_file, "write_profile_file", disk_fills)
+    assert simulate(4) == 2
+    assert "no space left on the disk" in capsys.readouterr().err
+    assert written and {p.name: p.read_bytes() for p in sim.iterdir()} == kept
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".")]    # no leftovers
+    monkeypatch.setattr(profile_file, "write_profile_file", real_write)
+
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    (mine / "notes.txt").write_text("my own notes\n")
+    assert simulate(2, mine) == 2                         # a folder timingkit did not write
+    assert "did not write" in capsys.readouterr().err
+    assert sorted(p.name for p in mine.iterdir()) == ["notes.txt"]
+    assert simulate(2, data) == 2                         # the folder of the inputs
+    assert "holds an input" in capsys.readouterr().err
+    assert (data / "demo-slow.toml").exists() and not list(data.glob("obs-*.npz"))

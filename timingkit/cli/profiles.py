@@ -6,8 +6,6 @@ from __future__ import annotations
 import os
 import sys
 
-from timingkit.formats.errors import InputError
-
 
 def add_parsers(sub) -> None:
     p = sub.add_parser("profile-toas", help="TOAs from folded profiles (phase-gradient fit "
@@ -90,12 +88,18 @@ def cmd_profile_toas(args) -> int:
 def cmd_simulate_profiles(args) -> int:
     from timingkit.formats.profile_file import (read_template_file, write_profile_file,
                                                 write_template_file)
-    from timingkit.pipeline.inputs import load_context, load_model, reference_observations
+    from timingkit.outputs.output_set import check_output_folder, output_set
+    from timingkit.pipeline.inputs import (input_paths, load_context, load_model,
+                                           reference_observations)
     from timingkit.predict.model_phase import PhaseContext
     from timingkit.profiles.simulate import ProfileSimulation, simulate_profiles
     from timingkit.profiles.templates import builtin_template, resample
     from timingkit.formats.profile_file import Template
     true = load_model(args.model)
+    # one set, never over an input: checked before the work, written after it
+    inputs = [*input_paths(None, true, args.sites, args.ephemeris), args.folding_model,
+              args.template]
+    check_output_folder(args.outdir, inputs)
     sites, eph, clocks = load_context(true, args.sites, args.ephemeris)
     context = PhaseContext(sites, eph, clocks, reference_observations(true, sites, eph, clocks))
     if args.folding_model:
@@ -118,13 +122,11 @@ def cmd_simulate_profiles(args) -> int:
                             subints=args.subints, duration_s=args.duration_s, bins=args.bins,
                             snr=args.snr, seed=args.seed)
     sets = simulate_profiles(true, folding, sim, context, template)
-    if os.path.exists(args.outdir) and not os.path.isdir(args.outdir):
-        raise InputError("exists and is not a folder", path=args.outdir)
-    os.makedirs(args.outdir, exist_ok=True)
-    write_template_file(template, os.path.join(args.outdir, "template.npz"))
     width = len(str(len(sets)))
-    for k, ps in enumerate(sets, start=1):
-        write_profile_file(ps, os.path.join(args.outdir, f"obs-{k:0{width}d}.npz"))
+    with output_set(args.outdir, inputs, purpose="simulated profiles") as work:
+        write_template_file(template, os.path.join(work, "template.npz"))
+        for k, ps in enumerate(sets, start=1):
+            write_profile_file(ps, os.path.join(work, f"obs-{k:0{width}d}.npz"))
     print(f"wrote {len(sets)} profile files ({args.subints} sub-integration(s) x "
           f"{args.channels} channel(s) x {args.bins} bins) and template.npz to {args.outdir}")
     return 0
