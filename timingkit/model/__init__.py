@@ -6,6 +6,7 @@
 - ``parameters``: :class:`Parameter` (value, uncertainty, free flag, exact high part).
 - ``spin``, ``astrometry``, ``dispersion``, ``binary`` (+ ``binary_orbits``, ``kepler``),
   ``glitch``, ``group_offsets``, ``solar_wind``, ``noise``: the sections.
+- ``flag_groups``: which TOAs a ``[[time_offset]]`` or ``[[white_noise]]`` group takes.
 - ``correlations``: the ``[correlation]`` section; covariances from and to the uncertainties.
 - ``conversion``: the model in another sky frame or binary form, covariance carried along.
 - ``simulate``: TOAs that a model predicts exactly, plus noise.
