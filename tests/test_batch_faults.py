@@ -62,13 +62,30 @@ def _alive(pid: int) -> bool:
     return "Z" not in state.split()[1]        # a zombie has ended
 
 
-@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT, signal.SIGKILL])
-def test_workers_end_with_the_batch_and_write_nothing_after_it(tmp_path, signum):
+def _descendants(pid: int) -> set[int]:
+    """Every process below ``pid`` (Linux /proc: the children of each of its threads)."""
+    found, queue = set(), [pid]
+    while queue:
+        parent = queue.pop()
+        for children in Path(f"/proc/{parent}/task").glob("*/children"):
+            try:
+                kids = {int(k) for k in children.read_text().split()}
+            except OSError:
+                continue
+            queue.extend(kids - found)
+            found |= kids
+    return found
+
+
+def _stop_a_running_batch(tmp_path, signum, cluster=None) -> None:
+    """Start a batch of slow stand-in fits in a separate process, send its main process
+    ``signum`` once two sources are being fitted, then check that no worker (no process
+    the batch started) outlives it and that nothing more is written."""
     sources, outdir, pids = _sources(tmp_path / "sources", 8), tmp_path / "out", tmp_path / "pids"
     pids.mkdir()
     program = ("from timingkit.batch.runner import run_batch; from test_batch_faults import "
                f"quick_fit; run_batch({str(sources)!r}, {str(outdir)!r}, workers=2, "
-               "progress=False, fit_function=quick_fit)")
+               f"cluster={cluster!r}, progress=False, fit_function=quick_fit)")
     env = dict(os.environ, TIMINGKIT_TEST_PIDS=str(pids), TIMINGKIT_TEST_SLEEP="3",
                PYTHONPATH=os.pathsep.join([str(TESTS), str(ROOT), os.environ.get("PYTHONPATH", "")]))
     main = subprocess.Popen([sys.executable, "-c", program], env=env, stdout=subprocess.PIPE,
@@ -78,13 +95,15 @@ def test_workers_end_with_the_batch_and_write_nothing_after_it(tmp_path, signum)
         assert main.poll() is None, main.communicate()[1].decode()[-2000:]
         assert time.monotonic() < deadline, "the workers never started"
         time.sleep(0.05)
-    workers = [int(p.name) for p in pids.iterdir()]
+    workers = {int(p.name) for p in pids.iterdir()}
+    started_by_batch = _descendants(main.pid) | workers
     main.send_signal(signum)           # the main process only, as a scheduler would
     main.wait(30)
     deadline = time.monotonic() + 10
-    while any(_alive(pid) for pid in workers) and time.monotonic() < deadline:
+    while any(_alive(pid) for pid in started_by_batch) and time.monotonic() < deadline:
         time.sleep(0.1)
-    assert not any(_alive(pid) for pid in workers), "a worker outlived the batch"
+    assert not [pid for pid in workers if _alive(pid)], "a worker outlived the batch"
+    assert not [pid for pid in started_by_batch if _alive(pid)], "a process outlived the batch"
     started = {p.read_text() for p in pids.iterdir()}
     visible = {p.name for p in outdir.iterdir() if not p.name.startswith(".")}
     time.sleep(4)                      # longer than a source takes: nothing more appears
@@ -92,6 +111,16 @@ def test_workers_end_with_the_batch_and_write_nothing_after_it(tmp_path, signum)
     assert {p.name for p in outdir.iterdir() if not p.name.startswith(".")} == visible
     assert not visible & {p.read_text() for p in pids.iterdir()
                           if int(p.name) in workers}, "a source in flight was written"
+
+
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT, signal.SIGKILL])
+def test_workers_end_with_the_batch_and_write_nothing_after_it(tmp_path, signum):
+    _stop_a_running_batch(tmp_path, signum)
+
+
+def test_dask_local_workers_end_when_the_batch_is_killed(tmp_path):
+    pytest.importorskip("dask.distributed")
+    _stop_a_running_batch(tmp_path, signal.SIGKILL, cluster="local")
 
 
 def test_a_second_batch_on_a_locked_folder_is_refused_or_waits(tmp_path, capsys):
@@ -199,3 +228,50 @@ def test_shared_batch_outputs_carry_reasons_without_file_contents(tmp_path):
         text = path.read_text()
         assert "SECRET" not in text and "root:x" not in text, path
     assert "credentials.txt:1" in (outdir / "clocked" / "error.txt").read_text()
+
+
+def test_a_worker_not_started_by_the_batch_still_ends_with_it(tmp_path):
+    # a Dask worker may be started through a fork server, so its parent is not the
+    # batch: the watchdog then watches the batch's pid itself (here: a stand-in batch
+    # process and a "worker" that pytest started beside it)
+    batch = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    beats = tmp_path / "beats"
+    program = ("import sys, time; from timingkit.batch.worker_guard import watch_parent; "
+               f"watch_parent({batch.pid}); beats = open({str(beats)!r}, 'a')\n"
+               "for _ in range(600):\n    beats.write('.'); beats.flush(); time.sleep(0.05)\n")
+    worker = subprocess.Popen([sys.executable, "-c", program],
+                              env=dict(os.environ, PYTHONPATH=str(ROOT)))
+    deadline = time.monotonic() + 30
+    while not beats.exists() or not beats.read_text():
+        assert worker.poll() is None and time.monotonic() < deadline, "the worker never ran"
+        time.sleep(0.05)
+    time.sleep(0.6)
+    assert worker.poll() is None, "the watchdog stopped a worker whose batch is alive"
+    batch.kill()
+    batch.wait()
+    assert worker.wait(5) == 1                 # ended by its watchdog, within a few polls
+    written = beats.read_text()
+    time.sleep(0.3)
+    assert beats.read_text() == written
+
+
+def _watchdog_threads() -> list[str]:
+    return [t.name for t in threading.enumerate() if t.name == "timingkit-watch-batch"]
+
+
+def test_every_local_dask_worker_watches_the_batch_idle_or_not(tmp_path):
+    # distributed's own workers also end with their nanny; the watchdog does not rely
+    # on that: each worker of the local cluster, even one that never gets a source,
+    # runs it from the start, watching this process
+    pytest.importorskip("dask.distributed")
+    from timingkit.batch.runner import _dask_client
+    client, local = _dask_client("local", 2)
+    try:
+        threads = client.run(_watchdog_threads)
+        parents = client.run(os.getppid)
+    finally:
+        client.close()
+        local.close()
+    assert len(threads) == 2 and all(names == ["timingkit-watch-batch"]
+                                     for names in threads.values())
+    assert set(parents.values()) == {os.getpid()}

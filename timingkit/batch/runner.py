@@ -71,7 +71,7 @@ class _Job:
     outdir: str
     digest: str
     fit_function: Callable
-    batch_pid: int | None = None     # the batch's main process (None on Dask)
+    batch_pid: int | None = None     # the batch's main process (None on a remote Dask cluster)
 
 
 def _new_work_folder(outdir: str, name: str) -> Path:
@@ -123,6 +123,7 @@ def process_source(job: _Job) -> dict:
     the temporary folder and propagate.
     """
     os.environ.setdefault("MPLBACKEND", "Agg")
+    watch_parent(job.batch_pid)      # the pool's initializer or the cluster did it; once
     start = time.perf_counter()
     source = job.source
     tmp = _new_work_folder(job.outdir, source.name)
@@ -264,7 +265,15 @@ def _dask_client(cluster: str, workers: int):
             local = distributed.LocalCluster(n_workers=workers, threads_per_worker=1,
                                              processes=True, dashboard_address=None,
                                              silence_logs=logging.ERROR)
-        return distributed.Client(local), local
+        client = distributed.Client(local)
+        try:   # every worker, idle ones too, ends when this process is gone (even by SIGKILL)
+            client.wait_for_workers(workers)
+            client.run(watch_parent, os.getpid())
+        except BaseException:
+            client.close()
+            local.close()
+            raise
+        return client, local
     try:
         return distributed.Client(cluster, timeout="15s"), None
     except (OSError, TimeoutError, ValueError) as exc:
@@ -431,7 +440,7 @@ def _run_locked(sources, outdir, workers, cluster, resume, progress, fit_functio
             pending.append((source, digest))
         if pending:
             function = fit_function or _default_fit_function()
-            pid = os.getpid() if cluster is None else None
+            pid = os.getpid() if cluster in (None, "local") else None   # workers it starts
             jobs = [_Job(source, str(outdir), digest, function, pid) for source, digest in pending]
         if not jobs:
             engine = "none (nothing to fit)"

@@ -1,8 +1,10 @@
 """Keeping a batch's workers and outputs honest under faults.
 
-- :func:`watch_parent` (a pool initializer): a worker polls its batch's main
-  process and ends itself, removing its unfinished work folder, as soon as the
-  main process is gone (SIGKILL included), so nothing outlives the batch.
+- :func:`watch_parent` (a pool initializer, and run on every worker of a local
+  Dask cluster and by every fit there): a worker polls its batch's main process
+  and ends itself as soon as the main process is gone (SIGKILL included), so
+  nothing outlives the batch; its unfinished work folder is left, marked, for the
+  next run to remove.
 - :func:`terminate_on_signals`: in the main process, SIGTERM (and SIGHUP) raise
   KeyboardInterrupt like SIGINT does, so the pool is shut down and its workers
   stopped (:func:`stop_pool`) on every way of stopping a batch.
@@ -27,10 +29,30 @@ OUTPUTS_HASH_FILE = "outputs.sha256"
 POLL_S = 0.25                       # how often a worker looks for its batch
 
 
+_FIRST_PARENT: dict[int, int] = {}     # batch pid -> this process's parent when first asked
+_WATCHED: set[int] = set()             # batch pids a watchdog thread of this process watches
+
+
+def _exists(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True                     # someone's process: it exists
+    return True
+
+
 def parent_is_gone(batch_pid: int | None) -> bool:
-    """True when this process was started by ``batch_pid`` and that process has ended
-    (the worker has been handed to another parent)."""
-    return batch_pid is not None and os.getppid() != batch_pid
+    """True when the batch's main process ``batch_pid`` has ended. A worker that the
+    batch started itself (its parent was ``batch_pid`` when first asked) sees it by its
+    parent changing (immune to a reused pid, and immediate even while the dead batch is
+    a zombie); any other (e.g. started through a fork server) by the pid disappearing."""
+    if batch_pid is None:
+        return False
+    if _FIRST_PARENT.setdefault(batch_pid, os.getppid()) == batch_pid:
+        return os.getppid() != batch_pid
+    return not _exists(batch_pid)
 
 
 def _watch(batch_pid: int) -> None:
@@ -40,8 +62,14 @@ def _watch(batch_pid: int) -> None:
             os._exit(1)             # nothing more is written; the next run cleans up
 
 
-def watch_parent(batch_pid: int) -> None:
-    """Pool initializer: end this worker when the batch's main process is gone."""
+def watch_parent(batch_pid: int | None) -> None:
+    """End this worker when the batch's main process ``batch_pid`` is gone (a thread
+    polls every POLL_S). Started once per process and batch; None: no batch to watch
+    (a remote Dask cluster's workers outlive any one batch by design)."""
+    if batch_pid is None or batch_pid in _WATCHED:
+        return
+    _WATCHED.add(batch_pid)
+    parent_is_gone(batch_pid)       # records how this process tells (see there)
     threading.Thread(target=_watch, args=(batch_pid,), name="timingkit-watch-batch",
                      daemon=True).start()
 
