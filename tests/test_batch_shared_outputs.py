@@ -123,3 +123,24 @@ def test_an_internal_error_is_named_by_its_class_and_its_traceback_kept_apart(tm
     details = (outdir / "unknown-site" / "traceback.txt").read_text()
     assert "RuntimeError: could not handle api_key SECRET-TOKEN-123" in details
     assert "Traceback" in details
+
+
+@pytest.mark.parametrize("body, line, field", [
+    ("line mjd reason\n7 58000.5 fine\n{h} 58001.5 bad\n", 3, "line"),
+    ("line mjd reason\n7 {h} bad\n", 2, "mjd"),
+    ("# rules\nerr_us>5 noisy\n{h}>5 noisy\n", 3, None),
+    ("# rules\nerr_us>{h}\n", 2, None),
+])
+def test_an_exclusion_list_quotes_its_lines_only_for_the_terminal(tmp_path, body, line, field):
+    # exclusion lists go with batch sources (the manifest's exclude): what their
+    # messages quote of a line is left out of the shared form, the place is not
+    from timingkit.formats.exclusion_list import read_exclusion_list
+    path = tmp_path / "left-out.txt"
+    path.write_text(body.format(h=HOSTILE_NAME))
+    with pytest.raises(InputError) as caught:
+        read_exclusion_list(path)
+    error = caught.value
+    assert (error.line, error.field) == (line, field)
+    assert HOSTILE_NAME[:20] in str(error)
+    assert not any(mark in error.public_message for mark in MARKS), error.public_message
+    assert error.public_message.startswith(f"{path}:{line}: ")

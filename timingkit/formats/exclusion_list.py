@@ -100,7 +100,8 @@ def _header(names: list[str], path: str, number: int) -> list[str]:
     seen = set()
     for name in names:
         if name in seen:
-            raise InputError("column named twice", path=path, line=number, field=name)
+            raise InputError("column named twice", path=path, line=number, field=name,
+                             quoted=(name,))
         seen.add(name)
     return names
 

@@ -282,7 +282,7 @@ def reject_repeated_groups(items, section: str, noun: str, path: str | None) -> 
         if key in seen:
             raise InputError(f"two [[{section}]] {noun} for {item.label} (numbers {seen[key]} "
                              f"and {item.array_index}): give each group once", path=path,
-                             field=f"{section}.{item.array_index}")
+                             field=f"{section}.{item.array_index}", quoted=(item.value,))
         seen[key] = item.array_index
 
 

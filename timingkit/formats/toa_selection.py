@@ -28,7 +28,7 @@ from typing import Callable
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.mjd_text import mjd_problem, parse_mjd_strings
 from timingkit.formats.toa_table import ToaTable
 
@@ -94,13 +94,15 @@ def parse_rule(text: str, *, reason: str | None = None, origin: str = "", path=N
                line=None, option: str | None = None) -> SelectionRule:
     """Parse ``FIELD OP VALUE [reason ...]``; ``reason`` is used when the text
     gives none. Errors name ``path``/``line``, or the command-line ``option``."""
-    where = {"path": path, "line": line, "field": option}
+    # every message quotes pieces of the rule: quoted, so shared outputs leave them out
+    where = {"path": path, "line": line, "field": option, "quoted": (text.strip(),)}
     match = _RULE_RE.match(text)
     if not match:
-        raise InputError(f"{text.strip()!r} is not a rule; write FIELD=VALUES, FIELD>NUMBER or "
-                         "FIELD<NUMBER, e.g. mjd=58000..58500, site=desert-dish, err_us>5",
-                         **where)
+        raise InputError(f"{excerpt(text.strip())} is not a rule; write FIELD=VALUES, "
+                         "FIELD>NUMBER or FIELD<NUMBER, e.g. mjd=58000..58500, "
+                         "site=desert-dish, err_us>5", **where)
     name, operator, value, tail = match.groups()
+    where["quoted"] += (value,) if name in (*NUMERIC_FIELDS, "site") else (name, value)
     values = _parse_values(name, operator, value, where)
     return SelectionRule(field=name, operator=operator, value_text=value,
                          reason=tail or reason or "", origin=origin,
@@ -120,7 +122,7 @@ def _parse_values(name: str, operator: str, value: str, where: dict) -> tuple:
         return (_Interval(high=number, high_closed=high_closed),)
     items = value.split(",")
     if any(not item for item in items):
-        raise InputError(f"empty item in {value!r}", **where)
+        raise InputError(f"empty item in {excerpt(value)}", **where)
     if not numeric:
         return tuple(items)
     intervals = []
@@ -138,6 +140,7 @@ def _parse_values(name: str, operator: str, value: str, where: dict) -> tuple:
 
 
 def _number(name: str, text: str, where: dict):
+    where = {**where, "quoted": (*where.get("quoted", ()), text)}
     if name == "mjd":
         problem = mjd_problem(text)
         if problem:
@@ -147,9 +150,9 @@ def _number(name: str, text: str, where: dict):
     try:
         number = float(text)
     except ValueError:
-        raise InputError(f"{text!r} is not a number ({name})", **where) from None
+        raise InputError(f"{excerpt(text)} is not a number ({name})", **where) from None
     if np.isnan(number):
-        raise InputError(f"{text!r} is not a number ({name})", **where)
+        raise InputError(f"{excerpt(text)} is not a number ({name})", **where)
     return number
 
 
@@ -190,8 +193,9 @@ def check_select_rules(rules, toas: ToaTable) -> None:
         if not rule.applies_to(toas):
             columns = ", ".join(["mjd", "err_us", "freq_mhz", "site", *toas.flags]
                                 + (["line"] if toas.line_numbers is not None else []))
-            raise InputError(f"rule {rule.text!r}: the TOA table has no column '{rule.field}' "
-                             f"(its columns: {columns})", path=toas.path, field=rule.origin)
+            raise InputError(f"rule {excerpt(rule.text)}: the TOA table has no column "
+                             f"'{rule.field}' (its columns: {columns})", path=toas.path,
+                             field=rule.origin, quoted=(rule.text, rule.field))
 
 
 def keep_mask(rules, toas: ToaTable, canonical_site=None) -> np.ndarray:
