@@ -375,9 +375,10 @@ def suggest(result: FitResult, obs: Observations, reference: Observations | None
             cmp_ = compare_fits(base, ext, cand.addition, cand.parameters, level)
             if not ext.converged:
                 cmp_.note = "extended fit did not converge"
-        except (FitError, ValueError) as exc:
+        except (FitError, ValueError) as exc:   # a ValueError's text is not for reports
+            why = f": {exc}" if isinstance(exc, FitError) else f" ({type(exc).__name__})"
             cmp_ = Comparison(addition=cand.addition, parameters=cand.parameters,
-                              note=f"could not be fitted: {exc}")
+                              note=f"could not be fitted{why}")
         out.append(cmp_)
     return out
 
