@@ -275,3 +275,17 @@ def test_every_local_dask_worker_watches_the_batch_idle_or_not(tmp_path):
     assert len(threads) == 2 and all(names == ["timingkit-watch-batch"]
                                      for names in threads.values())
     assert set(parents.values()) == {os.getpid()}
+
+
+def test_a_local_dask_cluster_that_does_not_start_is_a_clear_error(tmp_path, monkeypatch):
+    distributed = pytest.importorskip("dask.distributed")
+
+    def never_ready(self, n_workers, timeout=None):
+        raise TimeoutError(f"only 0 of {n_workers} workers after {timeout} s")
+    monkeypatch.setattr(distributed.Client, "wait_for_workers", never_ready)
+    sources = _sources(tmp_path / "sources", 1)
+    with pytest.raises(InputError) as caught:
+        run_batch(sources, tmp_path / "out", workers=2, cluster="local", progress=False,
+                  fit_function=quick_fit)
+    assert caught.value.field == "cluster" and "did not start its 2 workers" in str(caught.value)
+    assert not (tmp_path / "out" / "src-00").exists()

@@ -63,6 +63,7 @@ WORKER_DIED_REASON = ("the worker process died while fitting this source (crash,
 
 
 CLUSTER_INSTALL_HINT = "install the cluster extra: pip install 'timingkit[cluster]'"
+LOCAL_CLUSTER_START_S = 120     # how long a local Dask cluster may take to start its workers
 
 
 @dataclass(frozen=True)
@@ -267,11 +268,15 @@ def _dask_client(cluster: str, workers: int):
                                              silence_logs=logging.ERROR)
         client = distributed.Client(local)
         try:   # every worker, idle ones too, ends when this process is gone (even by SIGKILL)
-            client.wait_for_workers(workers)
+            client.wait_for_workers(workers, timeout=LOCAL_CLUSTER_START_S)
             client.run(watch_parent, os.getpid())
-        except BaseException:
+        except BaseException as exc:
             client.close()
             local.close()
+            if isinstance(exc, TimeoutError):
+                raise InputError(f"the local Dask cluster did not start its {workers} workers "
+                                 f"within {LOCAL_CLUSTER_START_S} s; try fewer (--workers) or "
+                                 "the process pool (no --cluster)", field="cluster") from None
             raise
         return client, local
     try:
