@@ -13,8 +13,9 @@ from astropy.coordinates import BarycentricMeanEcliptic, SkyCoord
 from timingkit.formats.errors import FitError, InputError
 from timingkit.fit.least_squares import compute_residuals, fit
 from timingkit.model import TimingModel
-from timingkit.model.astrometry import (ICRS_TO_ECLIPTIC, convert_model_frame,
-                                        ecliptic_to_equatorial, equatorial_to_ecliptic)
+from timingkit.model.astrometry import (ICRS_TO_ECLIPTIC, ecliptic_to_equatorial,
+                                        equatorial_to_ecliptic)
+from timingkit.model.conversion import convert_frame
 from timingkit.geometry.observations import prepare_observations
 from timingkit.model.simulate import simulate_toas
 from numdiff import phase_partial
@@ -106,7 +107,7 @@ def test_frame_conversion_round_trip_with_proper_motion_and_covariance():
 
 def test_ecliptic_and_equatorial_forms_give_the_same_residuals(astrometric):
     truth, obs = astrometric
-    ecl = convert_model_frame(truth, "ecliptic")
+    ecl = convert_frame(truth, "ecliptic")
     assert ecl.astrometry.frame == "ecliptic"
     text = ecl.to_document()
     assert text["position"]["frame"] == "ecliptic" and "ecliptic_longitude_deg" in text["position"]
@@ -120,7 +121,7 @@ def test_ecliptic_and_equatorial_forms_give_the_same_residuals(astrometric):
     f_ecl = fit(ecl, obs, free=free_ecl)
     assert np.max(np.abs(f_eq.postfit.time_s - f_ecl.postfit.time_s)) < 1e-9
     assert f_eq.chi2 == pytest.approx(f_ecl.chi2, rel=1e-6)
-    back = convert_model_frame(f_ecl.model, "equatorial")
+    back = convert_frame(f_ecl.model, "equatorial")
     ra_err = f_eq.model.parameter("position.ra").uncertainty
     assert abs(back.parameter("position.ra").value
                - f_eq.model.parameter("position.ra").value) < 1e-3 * ra_err
@@ -130,7 +131,7 @@ def test_ecliptic_and_equatorial_forms_give_the_same_residuals(astrometric):
 def test_position_report_gives_both_frames_in_sexagesimal_degrees_and_mas(astrometric):
     from timingkit.outputs.report import build_report
     truth, obs = astrometric
-    ecl = convert_model_frame(truth, "ecliptic")
+    ecl = convert_frame(truth, "ecliptic")
     res = fit(ecl, obs, free=SPIN + ["position.ecliptic_longitude_deg",
                                      "position.ecliptic_latitude_deg"])
     rep = build_report(res, obs)
@@ -323,7 +324,7 @@ free = ["position.ra", "binary.eccentricity", "binary.projected_semi_major_axis_
 
 
 def test_new_design_matrix_columns_match_numerical_derivatives(sites, ephemeris):
-    text = convert_model_frame(TimingModel.from_text(DM_RANGES + GROUPS.split(SOURCE)[1]),
+    text = convert_frame(TimingModel.from_text(DM_RANGES + GROUPS.split(SOURCE)[1]),
                                "ecliptic")
     model = TimingModel.from_text(format_text(text.to_document()))
     toas = simulate_toas(model, 56900, 58700, 90, 1.0, sites, ephemeris,

@@ -589,14 +589,6 @@ def position_summary(astrometry: Astrometry, result=None) -> dict:
     return out
 
 
-def convert_model_frame(model, frame: str):
-    """A copy of ``model`` (a TimingModel) with its position in ``frame``."""
-    new = model.copy()
-    new.astrometry.convert(frame)
-    new._by_name = {p.name: p for p in new.parameters()}
-    return new
-
-
 def _scaled(value, factor):
     return None if value is None else float(value) * factor
 
@@ -609,5 +601,5 @@ def _present(unc: dict, angles: bool, motion: bool) -> dict:
 
 
 __all__ = ["Astrometry", "format_ra", "format_dec", "parse_angle", "SECONDS_PER_DAY",
-           "equatorial_to_ecliptic", "ecliptic_to_equatorial", "convert_model_frame",
+           "equatorial_to_ecliptic", "ecliptic_to_equatorial",
            "position_summary", "angle_entry", "ECLIPTIC_OBLIQUITY_ARCSEC", "ICRS_TO_ECLIPTIC"]
