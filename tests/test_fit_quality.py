@@ -18,6 +18,7 @@ from timingkit.cli.main import main
 from timingkit.fit.least_squares import fit, goodness_warnings
 from timingkit.formats.toa_reader import read_toa_table
 from timingkit.formats.toa_writer import write_toa_table
+from timingkit.outputs.residual_table import read_csv as read_residual_csv
 from timingkit.pipeline.fit_run import fit_files
 from timingkit.pipeline.inputs import load_inputs
 
@@ -82,9 +83,18 @@ def test_a_fit_that_does_not_converge_exits_4_and_marks_every_output(tmp_path, c
     assert report["converged"] is False
     assert any(w.startswith("fit did not converge") for w in report["warnings"])
     assert (out / "fitted.toml").read_text().startswith("# NOT CONVERGED")
+    # residuals.csv: a last column fit_status, not_converged in every row, read back
+    with open(out / "residuals.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    assert rows and {r["fit_status"] for r in rows} == {"not_converged"}
+    assert list(rows[0])[-1] == "fit_status"
+    assert read_residual_csv(out / "residuals.csv").converged is False
     # converged: status 0 and no mark
     assert main(["fit", toas, model, "--no-plot", "-o", str(tmp_path / "ok")]) == 0
     assert "NOT CONVERGED" not in (tmp_path / "ok" / "fitted.toml").read_text()
+    with open(tmp_path / "ok" / "residuals.csv") as fh:
+        assert "fit_status" not in next(csv.reader(fh))
+    assert read_residual_csv(tmp_path / "ok" / "residuals.csv").converged is True
 
 
 def test_batch_marks_sources_that_did_not_converge(tmp_path):

@@ -14,6 +14,7 @@ from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.simulate import simulate_toas
 from timingkit.formats.toa_writer import write_toa_table
+from timingkit.outputs.residual_table import read_csv as read_residual_csv
 from conftest import glitch_text, young_pulsar_text
 
 REQUIRED = {"epoch_mjd", "epoch_min_mjd", "epoch_max_mjd", "frequency_step_hz",
@@ -139,3 +140,35 @@ def test_glitch_files_takes_the_batch_fit_function_arguments(files, tmp_path):
     assert np.isfinite(report["chi2"])
     saved = json.loads((tmp_path / "b" / "report.json").read_text())
     assert saved["glitch_candidates"] == 1
+
+
+def test_a_search_whose_final_fit_did_not_converge_marks_every_output(files, tmp_path,
+                                                                      monkeypatch, capsys):
+    # the search's final fit is marked as not converged (as when it stops at its
+    # iteration limit): the command exits 4 and every output says so
+    from timingkit.pipeline import glitch_run
+    real = glitch_run.search_glitches
+
+    def unconverged(*args, **kwargs):
+        result = real(*args, **kwargs)
+        result.fit.converged = False
+        return result
+
+    monkeypatch.setattr(glitch_run, "search_glitches", unconverged)
+    out = tmp_path / "unconverged"
+    assert main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+                 "-o", str(out), "--no-plot"]) == 4
+    assert "NOT CONVERGED" in capsys.readouterr().out
+    data = json.loads((out / "glitches.json").read_text())
+    assert data["converged"] is False
+    assert data["warnings"][0].startswith("NOT CONVERGED")
+    assert json.loads((out / "report.json").read_text())["converged"] is False
+    assert (out / "fitted.toml").read_text().startswith("# NOT CONVERGED")
+    assert read_residual_csv(out / "residuals.csv").converged is False
+    # a converged search says so too
+    ok = tmp_path / "converged"
+    monkeypatch.setattr(glitch_run, "search_glitches", real)
+    assert main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+                 "-o", str(ok), "--no-plot"]) == 0
+    assert json.loads((ok / "glitches.json").read_text())["converged"] is True
+    assert read_residual_csv(ok / "residuals.csv").converged is True

@@ -31,6 +31,10 @@ LOST_CONNECTION_WARNING = ("phase connection was lost in a gap with no significa
                            "forced_by_lost_connection)")
 
 
+NOT_CONVERGED_NOTE = ("NOT CONVERGED: the final fit with these glitches stopped with its "
+                      "parameters still moving; the steps and uncertainties are not a solution")
+
+
 ASSUMPTIONS = ("false-alarm probabilities assume white TOA noise with the stated uncertainties "
                "and a locally quadratic phase over each window (red timing noise makes them "
                "optimistic); glitch epochs are only known to lie between the bracketing TOAs")
@@ -219,10 +223,19 @@ class GlitchSearchResult:
     assumptions: str = ASSUMPTIONS
     null_noise: str = "white noise with the TOA uncertainties of the table"
 
+    @property
+    def converged(self) -> bool:
+        """Whether the final fit converged (no fit: nothing to mark)."""
+        return self.fit is None or bool(self.fit.converged)
+
     def to_json(self) -> dict:
-        return {"candidates": [c.to_json() for c in self.candidates],
+        warnings = list(self.warnings)
+        if not self.converged:
+            warnings.insert(0, NOT_CONVERGED_NOTE)
+        return {"converged": self.converged,
+                "candidates": [c.to_json() for c in self.candidates],
                 "units": UNITS, "detection_limit": self.detection_limit,
                 "settings": self.settings.as_dict(), "assumptions": self.assumptions,
                 "null_noise": self.null_noise,
                 "toas_used": int(len(self.obs)), "toas_left_out": int(self.dropped_toas),
-                "warnings": list(self.warnings)}
+                "warnings": warnings}

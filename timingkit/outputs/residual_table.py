@@ -4,8 +4,9 @@ Columns, in this order: ``mjd`` (the arrival time exactly as read from the TOA
 table), ``site``, ``freq_mhz``, ``err_us``, ``residual_us``, ``residual_phase``,
 ``pulse_number``; then, when known, ``toa_line`` (the TOA's line in its table)
 and ``orbital_phase`` (cycles, binaries); then one column per TOA flag (e.g.
-``backend``); last, when some TOAs were left out of the fit, ``left_out`` (the
-reason, empty for fitted TOAs).
+``backend``); then, when some TOAs were left out of the fit, ``left_out`` (the
+reason, empty for fitted TOAs); last, when the fit did not converge, ``fit_status``
+(``not_converged`` in every row: these residuals are not those of a solution).
 
 Printed precision: ``residual_us`` with 6 decimals (1 ps steps, well below a
 nanosecond), ``residual_phase`` with 13 significant digits, ``freq_mhz`` and
@@ -27,7 +28,8 @@ from timingkit.formats.errors import InputError
 
 CORE_COLUMNS = ("mjd", "site", "freq_mhz", "err_us", "residual_us",
                 "residual_phase", "pulse_number")
-OPTIONAL_COLUMNS = ("toa_line", "orbital_phase", "left_out")
+OPTIONAL_COLUMNS = ("toa_line", "orbital_phase", "left_out", "fit_status")
+NOT_CONVERGED_STATUS = "not_converged"   # fit_status of the rows of a fit that did not converge
 
 # A decimal MJD: digits with an optional fraction, no exponent (kept as text
 # so no precision is lost between the TOA table and this file).
@@ -53,7 +55,9 @@ class ResidualTable:
     residual in pulse cycles; ``pulse_number``: int64 pulse numbers;
     ``flags``: flag name -> array of str, in column order. Optional:
     ``toa_line`` (int64, 0 = unknown), ``orbital_phase`` (cycles) and
-    ``left_out`` (str, the reason a TOA was left out of the fit, '' if fitted).
+    ``left_out`` (str, the reason a TOA was left out of the fit, '' if fitted);
+    ``converged``: False for the residuals of a fit that did not converge (written
+    as the ``fit_status`` column).
     """
 
     mjd_text: np.ndarray
@@ -68,6 +72,7 @@ class ResidualTable:
     toa_line: np.ndarray | None = None
     orbital_phase: np.ndarray | None = None
     left_out: np.ndarray | None = None
+    converged: bool = True
 
     def __post_init__(self):
         self.mjd_text = _text_array(np.atleast_1d(self.mjd_text))
@@ -126,7 +131,8 @@ class ResidualTable:
         """Column names as written to the CSV file."""
         optional = [name for name in OPTIONAL_COLUMNS[:2] if getattr(self, name) is not None]
         last = ["left_out"] if self.left_out is not None and any(self.left_out) else []
-        return list(CORE_COLUMNS) + optional + list(self.flags) + last
+        status = [] if self.converged else ["fit_status"]
+        return list(CORE_COLUMNS) + optional + list(self.flags) + last + status
 
     def fitted_mask(self) -> np.ndarray:
         """True for the TOAs the fit used (all of them without ``left_out``)."""
@@ -142,7 +148,8 @@ class ResidualTable:
                              self.residual_us[index], self.residual_phase[index],
                              self.pulse_number[index],
                              {k: v[index] for k, v in self.flags.items()},
-                             pick(self.toa_line), pick(self.orbital_phase), pick(self.left_out))
+                             pick(self.toa_line), pick(self.orbital_phase), pick(self.left_out),
+                             self.converged)
 
     @classmethod
     def concatenate(cls, tables) -> "ResidualTable":
@@ -153,7 +160,8 @@ class ResidualTable:
         flags = {k: np.concatenate([t.flags[k] for t in tables]) for k in tables[0].flags}
         return cls(*(join(name) for name in ("mjd_text", "mjd", "site", "freq_mhz", "err_us",
                                               "residual_us", "residual_phase", "pulse_number")),
-                   flags, join("toa_line"), join("orbital_phase"), join("left_out"))
+                   flags, join("toa_line"), join("orbital_phase"), join("left_out"),
+                   all(t.converged for t in tables))
 
     def rms_us(self) -> float:
         """Root-mean-square residual about zero, µs (nan for an empty table)."""
@@ -183,8 +191,10 @@ class ResidualTable:
                      "orbital_phase": lambda i: "%.9f" % self.orbital_phase[i]}
             before = [extra[name] for name in columns[len(CORE_COLUMNS):] if name in extra]
             flag_columns = list(self.flags.values())
-            if columns[-1] == "left_out":
+            if "left_out" in columns:
                 flag_columns.append(self.left_out)
+            if not self.converged:
+                flag_columns.append([NOT_CONVERGED_STATUS] * len(self))
             for i in range(len(self)):
                 writer.writerow([
                     self.mjd_text[i],
@@ -296,6 +306,12 @@ def read_csv(path) -> ResidualTable:
                                                           "orbital_phase"))
             if "left_out" in optional:
                 rows["left_out"].append(cell["left_out"])
+            if "fit_status" in optional:
+                if cell["fit_status"] not in ("", NOT_CONVERGED_STATUS):
+                    raise InputError(f"fit_status must be empty or {NOT_CONVERGED_STATUS!r}, "
+                                     f"found {cell['fit_status']!r}", path=path, line=line,
+                                     field="fit_status")
+                rows["fit_status"].append(cell["fit_status"])
 
     table = ResidualTable.from_columns(
         rows["mjd"], rows["site"], np.array(rows["freq_mhz"], dtype=float),
@@ -304,6 +320,9 @@ def read_csv(path) -> ResidualTable:
         np.array(rows["pulse_number"], dtype=np.int64),
         {name: rows[name] for name in flag_names})
     for name in optional:
+        if name == "fit_status":
+            table.converged = NOT_CONVERGED_STATUS not in rows[name]
+            continue
         setattr(table, name, np.asarray(rows[name]) if name != "left_out" else
                 _text_array(rows[name]))
     return table

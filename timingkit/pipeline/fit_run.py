@@ -86,6 +86,7 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
                              (residual_table(obs, result.prefit), result.prefit_model,
                               result.prefit)], obs, selection, kept_obs or obs, reference)
     result.model.write(os.path.join(outdir, "fitted.toml"), comment=_fitted_comment(report))
+    post.converged = bool(report["converged"])     # a fit_status column when it is not
     post.write_csv(os.path.join(outdir, "residuals.csv"))
     pre.write_csv(os.path.join(outdir, "prefit_residuals.csv"))
     if make_plots:
