@@ -4,6 +4,7 @@ change in frequency, and the choice of candidates to fit (see timingkit.glitch.s
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 from decimal import Decimal
@@ -23,7 +24,7 @@ from timingkit.glitch.scan import (
     reported_false_alarm,
     threshold_statistic,
 )
-from timingkit.glitch.tracking import SECONDS_PER_DAY
+from timingkit.glitch.tracking import SECONDS_PER_DAY, TrackingChain
 from timingkit.model.glitch import model_glitches
 from timingkit.model.noise import NoiseModel, toa_times_s
 from timingkit.model.timing_model import TimingModel
@@ -114,8 +115,43 @@ class AcceptedGlitch:
 
 
 def scan_pass(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
-          search_pass=1) -> tuple[list[AcceptedGlitch], dict, list[str]]:
-    """Steps 2-3: accept gaps one at a time until none is significant."""
+              search_pass=1) -> tuple[list[AcceptedGlitch], dict, list[str]]:
+    """Steps 2-3: accept gaps one at a time until none is significant. TOAs that
+    neither numbering connects to a neighbour (lone TOAs: often the first TOA after
+    a glitch, where a decaying term keeps any quadratic seed from fitting) are left
+    out of the scan, so that they do not hide the gap next to them; a gap found
+    across lone TOAs is given as the first of the gaps it spans (the fit then
+    places the epoch among the nearby gaps)."""
+    lone = np.ones(len(data.t_s), dtype=bool)
+    for chain in chains:
+        _, label, size = np.unique(chain.segment, return_inverse=True, return_counts=True)
+        lone &= size[label] == 1
+    if not np.any(lone) or np.sum(~lone) < 2:
+        return _scan_connected(data, chains, barriers, settings, rng, known_gaps, search_pass)
+    kept = np.nonzero(~lone)[0]
+
+    def to_sub(gap):            # full gap (between gap, gap + 1) -> gap of the kept TOAs
+        return int(np.searchsorted(kept, gap, side="right") - 1)
+
+    sub = dataclasses.replace(
+        data, order=data.order[kept], t_s=data.t_s[kept], frac=data.frac[kept],
+        phase_int=data.phase_int[kept], sigma=data.sigma[kept],
+        frequency_hz=data.frequency_hz[kept], red=None if data.red is None else data.red[kept])
+    sub_chains = tuple(TrackingChain(offsets=c.offsets[kept], segment=c.segment[kept],
+                                     ambiguous_at=[]) for c in chains)
+    sub_barriers = {to_sub(b) for b in barriers} - {-1, len(kept) - 1}
+    sub_known = None if known_gaps is None else [to_sub(j) for j in known_gaps]
+    accepted, limit, notes = _scan_connected(sub, sub_chains, sub_barriers, settings, rng,
+                                             sub_known, search_pass)
+    back = {} if known_gaps is None else dict(zip(sub_known, known_gaps))
+    for acc in accepted:
+        acc.gap = back.get(acc.gap, int(kept[min(max(acc.gap, 0), len(kept) - 1)]))
+    return accepted, limit, notes
+
+
+def _scan_connected(data: PhaseData, chains, barriers, settings, rng, known_gaps=None,
+                    search_pass=1) -> tuple[list[AcceptedGlitch], dict, list[str]]:
+    """:func:`scan_pass` on TOAs of which none stands alone."""
     fwd, bwd = chains
     r_fwd = data.frac + fwd.offsets     # residual phases numbered by each chain
     r_bwd = data.frac + bwd.offsets

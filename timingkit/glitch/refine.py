@@ -14,10 +14,10 @@ import scipy.stats
 
 from timingkit.fit.least_squares import FitResult, fit
 from timingkit.formats.errors import FitError
-from timingkit.glitch.candidates import AcceptedGlitch, PhaseData, phase_data
+from timingkit.glitch.candidates import AcceptedGlitch, PhaseData, phase_data, search_ranges
 from timingkit.glitch.epochs import epoch_decimal, glitch_at, glitch_time_s
 from timingkit.glitch.scan import MIN_GAP_DAYS
-from timingkit.glitch.tracking import SECONDS_PER_DAY
+from timingkit.glitch.tracking import SECONDS_PER_DAY, number_pulses, track_both
 from timingkit.model.glitch import (
     DECAY_AMPLITUDE,
     DECAY_TIME,
@@ -182,20 +182,67 @@ def without_glitch(model: TimingModel, epoch) -> TimingModel:
     return rebuild_with_glitches(model, sections, free)
 
 
+def renumbered_fit(first: FitResult, obs, reference, settings):
+    """(fit, pulses) of ``first.model`` with the pulses numbered afresh against it
+    (both tracking chains, every glitch of the model a barrier), or None when
+    that numbering does not connect every TOA: the counts across a gap are data
+    only where the tracking connects them."""
+    data = phase_data(first.model, obs, reference)
+    chains = track_both(data, *search_ranges(first.model, settings))
+    barriers = {int(np.searchsorted(data.t_s, glitch_time_s(first.model, h)) - 1)
+                for h in model_glitches(first.model)}
+    offsets, keep, forced = number_pulses(data, chains, barriers, [])
+    if forced or not np.all(keep):
+        return None
+    pulse = np.empty(len(obs), dtype=np.int64)
+    pulse[data.order] = (data.phase_int - offsets).astype(np.int64)
+    try:
+        return fit_pinned(first.model, obs, reference, pulse), pulse
+    except FitError:
+        return None
+
+
 def fit_without(res: FitResult, epoch, obs, reference, pulse, settings):
-    """The fit without the glitch at ``epoch`` (the same pulse numbers: the counts
-    are data, so the other terms must take up the turns it gave) and the
-    likelihood-ratio statistic of the glitch's own fitted steps:
-    (chi-square without it - with it) / max(1, reduced chi-square), against a
-    chi-square with the glitch's free parameters as degrees of freedom. When the
-    glitch before it has no decaying term, one is tried there first (its recovery
-    is what a spurious glitch just after it mimics). Returns (fit, statistic,
-    degrees of freedom), or None when the fit without it fails."""
+    """The fit without the glitch at ``epoch`` and the likelihood-ratio statistic
+    of the glitch's own fitted steps: (chi-square without it - with it) / max(1,
+    reduced chi-square), against a chi-square with the glitch's free parameters as
+    degrees of freedom. The fit without it is the best (least chi-square) of those
+    started from two numberings, each also numbered afresh against its fit
+    (:func:`renumbered_fit`, which must connect across the gap): the same pulse
+    counts (data where the tracking joined them across the gap), and the counts
+    carried from ``res`` (:func:`carry_pulses`: a forced glitch's gap was only
+    ever joined through the glitch, whose turns the other terms cannot make up).
+    The glitch is kept only if no numbering fits without it. Returns (fit, pulses,
+    statistic, degrees of freedom), or None when no fit without it succeeds."""
     g = glitch_at(res.model, epoch)
     dof = max(1, sum(1 for p in g.parameters() if p.free))
     trial = without_glitch(res.model, epoch)
+    t_g = glitch_time_s(res.model, g)
+    options = []
+    for counts in (np.asarray(pulse, dtype=np.int64),
+                   carry_pulses(res.model, trial, obs, reference, pulse)):
+        first = _fit_with_counts(trial, obs, reference, counts, t_g, settings)
+        if first is None:
+            continue
+        options.append((first, counts))
+        renumbered = renumbered_fit(first, obs, reference, settings)
+        if renumbered is not None:
+            options.append(renumbered)
+    if not options:
+        return None
+    fitted, counts = min(options, key=lambda o: (not o[0].converged, o[0].chi2))
+    statistic = (fitted.chi2 - res.chi2) / max(1.0, res.reduced_chi2)
+    return fitted, counts, float(statistic), dof
+
+
+def _fit_with_counts(trial: TimingModel, obs, reference, pulse, t_g: float, settings):
+    """:func:`fit_without`'s fit of ``trial`` with ``pulse`` pinned: decay time-scales
+    held first (a linear fit), then freed; when the glitch before ``t_g`` has no
+    decaying term, one is tried there (its recovery is what a spurious glitch just
+    after it mimics). None when the fit fails."""
+    trial = trial.copy()
     free_times = [p for h in model_glitches(trial) for p in h.decay_times if p.free]
-    for p in free_times:      # time-scales held first (a linear fit), then freed
+    for p in free_times:
         p.free = False
     try:
         fitted = fit_pinned(trial, obs, reference, pulse)
@@ -210,15 +257,13 @@ def fit_without(res: FitResult, epoch, obs, reference, pulse, settings):
             fitted = fit_pinned(released, obs, reference, pulse)
         except FitError:
             pass              # the held time-scales' fit: chi-square an upper bound
-    t_g = glitch_time_s(res.model, g)
     before = [h for h in model_glitches(fitted.model) if glitch_time_s(fitted.model, h) < t_g]
     if settings.fit_decays and before:
         previous = max(before, key=lambda h: glitch_time_s(fitted.model, h))
         if not previous.decays:
             better = decay_or_none(fitted, previous.epoch, obs, reference, pulse, settings)
             fitted = better if better is not None else fitted
-    statistic = (fitted.chi2 - res.chi2) / max(1.0, res.reduced_chi2)
-    return fitted, float(statistic), dof
+    return fitted
 
 
 def placement_fit(res: FitResult, epoch, gap: int, data: PhaseData, obs, reference, pulse):

@@ -107,6 +107,7 @@ from timingkit.glitch.refine import (
     refine_epochs,
     without_glitch,
 )
+from timingkit.glitch.reinclude import REINCLUDE_MAX_PHASE_SIGMA, put_back
 from timingkit.glitch.results import (
     LOST_CONNECTION_WARNING,
     FrequencyTrack,
@@ -121,7 +122,7 @@ from timingkit.glitch.tracking import (
     SECONDS_PER_DAY,
     _quadratic_fit,
     number_pulses,
-    track_phases,
+    track_both,
 )
 from timingkit.model.glitch import glitch_section, model_glitches, set_glitches
 from timingkit.model.timing_model import TimingModel
@@ -167,45 +168,28 @@ def _settle(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse, 
 
 
 def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse,
-                          settings, ranges, warnings):
+                          settings, warnings):
     """Forced glitches (connection lost before the other glitches' decaying terms
     and frequency-derivative steps were in the model: a local quadratic cannot
     follow a post-glitch recovery) re-checked once the fit holds them: one whose
     frequency step is below FORCED_STEP_Z sigma is dropped when the pulses,
     re-tracked against the fitted model without it, connect across its gap and
     the fit without it is not worse by more than the search threshold
-    (likelihood ratio, chi-square with its free parameters as degrees of freedom)."""
+    (likelihood ratio, chi-square with its free parameters as degrees of freedom).
+    The fit without it is :func:`timingkit.glitch.refine.fit_without`, as for the
+    candidates of the scan."""
     for acc in [a for a in found if a.forced and not a.rechecked and a.epoch is not None]:
         acc.rechecked = True
         g = glitch_at(res.model, acc.epoch)
         step, err = g.frequency_step.value, g.frequency_step.uncertainty
         if not err or abs(step) > FORCED_STEP_Z * err:
             continue
-        n_free = sum(1 for p in g.parameters() if p.free)
-        trial = without_glitch(res.model, acc.epoch)
-        try:
-            # the same counts first (the fit moves the other terms into place), then a
-            # fresh numbering against that fit, which must connect across the gap
-            first = fit_pinned(trial, obs, reference, carry_pulses(res.model, trial, obs,
-                                                              reference, pulse))
-            data = phase_data(first.model, obs, reference)
-            f_range, derivative_range_hz_per_s = ranges
-            chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s),
-                      track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s,
-                                   backward=True))
-            barriers = {int(np.searchsorted(data.t_s, glitch_time_s(first.model, h)) - 1)
-                        for h in model_glitches(first.model)}
-            offsets, keep, forced = number_pulses(data, chains, barriers, [])
-            if forced or not np.all(keep):
-                continue
-            new_pulse = np.empty(len(obs), dtype=np.int64)
-            new_pulse[data.order] = (data.phase_int - offsets).astype(np.int64)
-            fitted = fit_pinned(first.model, obs, reference, new_pulse)
-        except FitError:
+        trial = fit_without(res, acc.epoch, obs, reference, pulse, settings)
+        if trial is None:
             continue
-        threshold = scipy.stats.chi2.isf(settings.false_alarm_threshold, max(n_free, 1))
-        scale = max(1.0, res.reduced_chi2)
-        if not fitted.converged or (fitted.chi2 - res.chi2) / scale >= threshold:
+        fitted, new_pulse, statistic, dof = trial
+        if not fitted.converged or statistic >= scipy.stats.chi2.isf(
+                settings.false_alarm_threshold, dof):
             continue
         found.remove(acc)
         res, pulse = fitted, new_pulse
@@ -233,7 +217,7 @@ def _drop_insignificant(res: FitResult, found: list[AcceptedGlitch], obs, refere
         trial = fit_without(res, acc.epoch, obs, reference, pulse, settings)
         if trial is None:
             continue
-        fitted, statistic, dof = trial
+        fitted, new_pulse, statistic, dof = trial
         acc.fit_statistic, acc.fit_dof = statistic, dof
         if not fitted.converged or statistic >= scipy.stats.chi2.isf(
                 settings.false_alarm_threshold, dof):
@@ -247,7 +231,7 @@ def _drop_insignificant(res: FitResult, found: list[AcceptedGlitch], obs, refere
             f"false-alarm probability of the scan {_fap_text(acc)}) was not kept as a glitch: "
             f"fitted, its own steps {gain}, below the search threshold (often the "
             "unmodelled recovery of an earlier glitch)")
-        res = fitted
+        res, pulse = fitted, new_pulse
     return res, pulse, dropped
 
 
@@ -275,6 +259,7 @@ def search_glitches(model: TimingModel, obs: Observations,
     f_range, derivative_range_hz_per_s = search_ranges(model, settings)
     current = model.copy()
     use_obs = obs
+    used = np.arange(len(obs))             # indices into obs of the TOAs in use_obs
     spin_epoch = current.spin.epoch_day + current.spin.epoch_frac
     known_t = None
     if settings.known_epochs_mjd:
@@ -290,9 +275,7 @@ def search_glitches(model: TimingModel, obs: Observations,
         existing = [int(np.searchsorted(data.t_s, glitch_time_s(current, g)) - 1)
                     for g in model_glitches(current)]
         existing = [b for b in existing if 0 <= b < n - 1]
-        chains = (track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s),
-                  track_phases(data.t_s, data.frac, data.sigma, f_range, derivative_range_hz_per_s,
-                               backward=True))
+        chains = track_both(data, f_range, derivative_range_hz_per_s)
         for chain in chains:
             for pos in chain.ambiguous_at:
                 mjd = data.spin_epoch_mjd + data.t_s[pos] / SECONDS_PER_DAY
@@ -365,18 +348,28 @@ def search_glitches(model: TimingModel, obs: Observations,
         if not np.all(keep):
             kept = np.sort(data.order[keep])
             dropped += len(use_obs) - len(kept)
-            use_obs, pulse = use_obs.select(kept), pulse[kept]
+            use_obs, pulse, used = use_obs.select(kept), pulse[kept], used[kept]
             data = phase_data(current, use_obs, reference)
         found.extend(accepted)
         res = fit_pinned(trial, use_obs, reference, pulse)
         res, pulse = _settle(res, found, use_obs, reference, pulse, settings)
         res, pulse = _drop_unneeded_forced(res, found, use_obs, reference, pulse, settings,
-                                           (f_range, derivative_range_hz_per_s), warnings)
+                                           warnings)
         res, pulse, _ = _drop_insignificant(res, found, use_obs, reference, pulse, settings,
                                             warnings)
         current, result_fit = res.model, res
         if known_t is not None or not any(a.search_pass == search_pass for a in found):
             break       # nothing new is significant
+    if dropped and result_fit is not None:
+        result_fit, used, pulse, restored = put_back(result_fit, found, obs, used, pulse,
+                                                     reference, settings)
+        if restored:
+            use_obs, current, dropped = obs.select(used), result_fit.model, dropped - restored
+            warnings.append(f"{restored} TOA(s) left out while the pulses were numbered "
+                            "were put back: the fitted model gives their pulse numbers "
+                            f"to better than {REINCLUDE_MAX_PHASE_SIGMA:g} turns")
+            if not dropped:
+                warnings[:] = [w for w in warnings if not w.endswith("left out of the fit")]
     if result_fit is None:
         try:
             result_fit = fit_pinned(current, use_obs, reference)

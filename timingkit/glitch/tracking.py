@@ -258,6 +258,58 @@ def track_phases(t_s, frac, sigma, f_range_hz, derivative_range_hz_per_s, backwa
     return TrackingChain(offsets=offsets, segment=segment.astype(np.int64), ambiguous_at=ambiguous)
 
 
+def _segments(chain: TrackingChain):
+    """(start, end) position of each connected segment of ``chain``, time order."""
+    cuts = np.nonzero(np.diff(chain.segment) != 0)[0] + 1
+    starts = np.concatenate([[0], cuts])
+    ends = np.concatenate([cuts - 1, [len(chain.segment) - 1]])
+    return list(zip(starts.tolist(), ends.tolist()))
+
+
+def _dissolve(chain: TrackingChain, start: int, end: int) -> TrackingChain:
+    """``chain`` with the TOAs ``start..end`` each standing alone (unconnected)."""
+    breaks = np.diff(chain.segment) != 0
+    breaks[max(start - 1, 0):end + 1] = True
+    segment = np.concatenate([[0], np.cumsum(breaks)]).astype(np.int64)
+    return TrackingChain(offsets=chain.offsets, segment=segment,
+                         ambiguous_at=chain.ambiguous_at)
+
+
+def reconcile_chains(fwd: TrackingChain, bwd: TrackingChain):
+    """Make the two numberings agree: where a forward and a backward segment
+    share two or more TOAs but count different turns between them (offsets
+    not equal up to one constant), one is wrong; the shorter (confirmed by
+    fewer TOAs) is dissolved, the shortest such first, until they agree.
+    Typical case: a seed across a glitch accepted with a wrong pulse-count
+    hypothesis at a large false frequency offset (an alias of the TOA
+    spacing), which a scan window would take for a pair of huge steps."""
+    chains = [fwd, bwd]
+    while True:
+        worst = None
+        for a0, a1 in _segments(chains[0]):
+            for b0, b1 in _segments(chains[1]):
+                lo, hi = max(a0, b0), min(a1, b1)
+                if hi - lo < 1:
+                    continue
+                diff = chains[0].offsets[lo:hi + 1] - chains[1].offsets[lo:hi + 1]
+                if np.all(diff == diff[0]):
+                    continue
+                shorter = (0, a0, a1) if a1 - a0 <= b1 - b0 else (1, b0, b1)
+                if worst is None or shorter[2] - shorter[1] < worst[2] - worst[1]:
+                    worst = shorter
+        if worst is None:
+            return chains[0], chains[1]
+        which, start, end = worst
+        chains[which] = _dissolve(chains[which], start, end)
+
+
+def track_both(data, f_range_hz, derivative_range_hz_per_s):
+    """The forward and backward numberings of ``data`` (sorted ``t_s``,
+    ``frac``, ``sigma``), reconciled (:func:`reconcile_chains`)."""
+    args = (data.t_s, data.frac, data.sigma, f_range_hz, derivative_range_hz_per_s)
+    return reconcile_chains(track_phases(*args), track_phases(*args, backward=True))
+
+
 # ============================================================================ joining pieces
 
 def _bridge(t_s, sigma, r, conn, piece):
