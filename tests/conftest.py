@@ -29,7 +29,9 @@ def sites():
 # --- the glitch tests' simulation set-up (test_glitch_*.py, test_glitches_cli.py) ---------
 # An invented young pulsar, "demo-young", observed at the barycentre (site 'ssb': no
 # Earth rotation, so each simulated data set is fast). Tests import the two text
-# builders (``from conftest import ...``) and take the simulation as a fixture.
+# builders (``from conftest import ...``) and take the simulation as a fixture:
+# ``observe_at_ssb`` (TOAs of a given model) or ``simulate_young`` (the young pulsar with
+# glitches: starting model, TOAs and truth).
 
 def young_pulsar_text(frequency_hz=10.0, frequency_derivative=-1e-11, epoch_mjd="58000",
                       free=("spin.frequency_hz", "spin.frequency_derivatives.0")) -> str:
@@ -76,3 +78,23 @@ def observe_at_ssb(sites, ephemeris):
         return prepare_observations(toas, sites, ephemeris)
 
     return observe
+
+
+@pytest.fixture(scope="session")
+def simulate_young(observe_at_ssb):
+    """Factory: ``simulate(glitches, start_mjd, end_mjd, count, err_us, seed,
+    frequency_hz=10.0, frequency_derivative=-1e-11, epoch_mjd="58000", extra_text="")``
+    simulates the invented young pulsar with ``glitches`` (argument tuples of
+    :func:`glitch_text`) and ``extra_text`` (more model sections, e.g. noise) and
+    returns (the starting model: the same without the glitches, the observations,
+    the truth model)."""
+    from timingkit.model import TimingModel
+
+    def simulate(glitches, start_mjd, end_mjd, count, err_us, seed, frequency_hz=10.0,
+                 frequency_derivative=-1e-11, epoch_mjd="58000", extra_text=""):
+        spin = young_pulsar_text(frequency_hz, frequency_derivative, epoch_mjd) + extra_text
+        truth = TimingModel.from_text(spin + "".join(glitch_text(*g) for g in glitches))
+        obs = observe_at_ssb(truth, start_mjd, end_mjd, count, err_us, seed)
+        return TimingModel.from_text(spin), obs, truth
+
+    return simulate

@@ -15,6 +15,7 @@ simulations); the truth is the injected model.
 
 import numpy as np
 import pytest
+from scipy.stats import chi2 as scipy_chi2
 
 from timingkit.glitch.results import GlitchSearchSettings
 from timingkit.glitch.scan import NullDistribution
@@ -99,3 +100,39 @@ def test_reported_value_inside_the_simulated_range_is_the_estimate():
     assert fap == pytest.approx(1 / 1001) and upper
     fap, upper, _ = reported_false_alarm(null, 500.0, local=True)
     assert fap == pytest.approx(1 / 1001) and upper
+
+
+def test_removing_a_glitch_renumbers_the_pulses_it_joined(simulate_young):
+    # glitch-free data fitted with a spurious glitch whose phase step takes up 3 turns:
+    # the pulse counts across its gap were only joined through it (as for a glitch
+    # forced where connection was lost). The fit without it must not demand that the
+    # spin terms make up those turns: fit_without numbers the pulses as the forced-glitch
+    # re-check does (counts carried from the fit, renumbered afresh), and the glitch's
+    # own steps are then seen to be insignificant. Before, the counts were kept and its
+    # steps "improved" the fit by ~2e8 in chi-square.
+    from timingkit.glitch.refine import fit_pinned, fit_without
+    free = ("spin.frequency_hz", "spin.frequency_derivatives.0", "glitch.0.phase_step",
+            "glitch.0.frequency_step_hz", "glitch.0.frequency_derivative_step")
+    _, obs, truth = simulate_young([], 58000, 58730, 91, 50.0, 3)
+    spurious = TimingModel.from_text(young_pulsar_text(free=free) + glitch_text(
+        58365.5, 0.0, 0.0).replace("frequency_step_hz", "phase_step = 3.0\nfrequency_step_hz"))
+    true_count = truth.evaluate(obs).phase_int
+    after = (obs.toas.mjd_day + obs.toas.mjd_frac) > 58365.5
+    pinned = true_count + 3 * after
+    with_it = fit_pinned(spurious, obs, None, pinned)
+    assert with_it.reduced_chi2 < 1.5                  # the glitch took up the 3 turns
+    settings = GlitchSearchSettings()
+    fitted, counts, statistic, dof = fit_without(with_it, model_glitches(with_it.model)[0].epoch,
+                                                 obs, None, pinned, settings)
+    assert dof == 3
+    assert statistic < scipy_chi2.isf(settings.false_alarm_threshold, dof)
+    assert len(np.unique(counts - true_count)) == 1   # the true numbering, up to a constant
+    assert fitted.reduced_chi2 < 1.5 and not model_glitches(fitted.model)
+    # a real glitch stays significant with either numbering
+    _, obs, truth = simulate_young([(58365.5, 1e-7, -1e-14)], 58000, 58730, 91, 50.0, 3)
+    real = TimingModel.from_text(young_pulsar_text(free=free) + glitch_text(58365.5, 1e-7,
+                                                                           -1e-14))
+    with_it = fit_pinned(real, obs, None, truth.evaluate(obs).phase_int)
+    _, _, statistic, _ = fit_without(with_it, model_glitches(with_it.model)[0].epoch, obs,
+                                     None, truth.evaluate(obs).phase_int, settings)
+    assert statistic > 1000

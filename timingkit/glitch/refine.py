@@ -163,10 +163,9 @@ def decay_or_none(res, epoch, obs, reference, pulse, settings):
 
 
 def add_decays(res, accepted, obs, reference, pulse, settings):
-    """One decaying term tried on each glitch in ``accepted`` (in turn)."""
+    """One decaying term tried on each glitch in ``accepted`` (in turn), forced ones
+    too (kept only where significant, :func:`try_decay`)."""
     for acc in accepted:
-        if acc.forced:
-            continue
         better = decay_or_none(res, acc.epoch, obs, reference, pulse, settings)
         if better is not None:
             res = better

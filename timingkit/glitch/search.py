@@ -138,8 +138,8 @@ def _settle(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse, 
     phase steps vanish."""
     data = phase_data(res.model, obs, reference)
     if settings.fit_decays:
-        res = add_decays(res, [a for a in found if not (a.decay_tried or a.forced)], obs,
-                          reference, pulse, settings)
+        res = add_decays(res, [a for a in found if not a.decay_tried], obs, reference, pulse,
+                         settings)
     for acc in found:
         acc.decay_tried = True
     if res.reduced_chi2 <= ADEQUATE_REDUCED_CHI2:
