@@ -8,18 +8,15 @@ fitted the pulses connect without it, so the search must report one glitch.
 Invented data (seeded simulation); the truth is the injected model."""
 
 from timingkit.glitch.search import search_glitches
-from timingkit.model import TimingModel
-from conftest import glitch_text, young_pulsar_text
 
-START = young_pulsar_text(12.2071, -1.6932e-11, epoch_mjd="59000")
 STEP_HZ, AMPLITUDE_HZ, TAU_DAYS = 2.5e-5, 1.0e-7, 30.0
-GLITCH = glitch_text(59300.4, STEP_HZ, -1.0e-13, AMPLITUDE_HZ, TAU_DAYS)
+GLITCH = (59300.4, STEP_HZ, -1.0e-13, AMPLITUDE_HZ, TAU_DAYS)     # glitch_text arguments
 
 
-def test_no_forced_glitch_in_the_recovery_of_a_decaying_glitch(observe_at_ssb):
-    truth = TimingModel.from_text(START + GLITCH)
-    obs = observe_at_ssb(truth, 58800, 59800, 120, 50.0, 1)   # seed 1 loses connection
-    result = search_glitches(TimingModel.from_text(START), obs)
+def test_no_forced_glitch_in_the_recovery_of_a_decaying_glitch(simulate_young):
+    start, obs, _ = simulate_young([GLITCH], 58800, 59800, 120, 50.0, 1,   # seed 1 loses
+                                   12.2071, -1.6932e-11, epoch_mjd="59000")   # connection
+    result = search_glitches(start, obs)
     assert len(result.candidates) == 1
     (c,) = result.candidates
     assert not c.forced

@@ -30,7 +30,7 @@ from timingkit.glitch.tracking import track_phases
 from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
 from timingkit.model.noise import NoiseModel, toa_times_s
-from conftest import glitch_text, young_pulsar_text
+from conftest import young_pulsar_text
 
 START_MJD = 58000.0
 YEARS, CADENCE_DAYS, ERR_US = 3.0, 14.0, 30.0
@@ -46,10 +46,11 @@ frequencies = 30
 """
 
 
-def simulate(observe, seed, glitches=()):
+def simulate(simulate_young, seed, glitches=()):
+    """The TOAs of the young pulsar with red noise (``simulate_young``: conftest)."""
     days = 365.25 * YEARS
-    truth = TimingModel.from_text(SPIN + RED + "".join(glitch_text(*g) for g in glitches))
-    return observe(truth, START_MJD, START_MJD + days, int(days / CADENCE_DAYS), ERR_US, seed)
+    return simulate_young(glitches, START_MJD, START_MJD + days, int(days / CADENCE_DAYS),
+                          ERR_US, seed, F_HZ, FDOT, extra_text=RED)[1]
 
 
 def with_noise_model():
@@ -61,8 +62,8 @@ def without_noise_model():
 
 
 @pytest.fixture(scope="module")
-def glitch_free(observe_at_ssb):
-    return [simulate(observe_at_ssb, 6000 + k) for k in range(REALISATIONS)]
+def glitch_free(simulate_young):
+    return [simulate(simulate_young, 6000 + k) for k in range(REALISATIONS)]
 
 
 def test_red_noise_is_well_above_white_in_these_simulations(glitch_free):
@@ -105,13 +106,13 @@ def found(candidates, epoch, step_hz):
 
 
 @pytest.mark.parametrize("size", [1e-8, 1e-6])
-def test_injected_glitch_is_found_with_red_noise_present(observe_at_ssb, size):
+def test_injected_glitch_is_found_with_red_noise_present(simulate_young, size):
     step = size * F_HZ
     for k in range(10):
         rng = np.random.default_rng(8000 + k)
         days = 365.25 * YEARS
         epoch = round(rng.uniform(START_MJD + 0.3 * days, START_MJD + 0.7 * days), 6)
-        obs = simulate(observe_at_ssb, 8000 + k, [(epoch, step, 1e-3 * FDOT)])
+        obs = simulate(simulate_young, 8000 + k, [(epoch, step, 1e-3 * FDOT)])
         result = search_glitches(with_noise_model(), obs)
         limit = result.detection_limit["fractional_size"]
         assert size >= 30 * limit                    # well above the stated limit
@@ -125,7 +126,7 @@ def test_injected_glitch_is_found_with_red_noise_present(observe_at_ssb, size):
         assert result.fit.noise.method == "generalised least squares"
 
 
-def test_stated_detection_limit_includes_the_red_noise(observe_at_ssb, glitch_free):
+def test_stated_detection_limit_includes_the_red_noise(glitch_free):
     obs = glitch_free[0]
     red = search_glitches(with_noise_model(), obs).detection_limit
     white = search_glitches(without_noise_model(), obs).detection_limit
@@ -198,12 +199,12 @@ def test_scaled_white_errors_weight_the_search(observe_at_ssb):
     assert "scaled" in search_glitches(scaled, obs).null_noise
 
 
-def test_false_alarm_probability_is_calibrated_under_red_noise(observe_at_ssb):
+def test_false_alarm_probability_is_calibrated_under_red_noise(simulate_young):
     # uniform false-alarm probability of the largest gap statistic on glitch-free
     # red-noise data with the noise model's null (binomial bounds, 100 data sets)
     faps = []
     for k in range(100):
-        obs = simulate(observe_at_ssb, 9000 + k)
+        obs = simulate(simulate_young, 9000 + k)
         data, chains, win = _windows(with_noise_model(), obs)
         stat, *_ = gap_statistics(win, data.frac + chains[0].offsets,
                                   data.frac + chains[1].offsets)

@@ -17,23 +17,18 @@ from timingkit.glitch.results import GlitchSearchSettings
 from timingkit.glitch.scan import build_windows, false_alarm_probability, gap_statistics, null_distribution
 from timingkit.glitch.search import search_glitches
 from timingkit.glitch.tracking import solve_seed, track_phases
-from timingkit.model import TimingModel
 from timingkit.model.glitch import model_glitches
-from conftest import glitch_text, young_pulsar_text
 
 START_MJD = 58000.0
 
 
-def simulate(observe, glitches=(), f=10.0, frequency_derivative=-1e-11, years=2.0, cadence_days=7.0,
-             err_us=50.0, seed=1):
-    """(starting model without glitches, observations, truth model); ``observe``
-    is the ``observe_at_ssb`` fixture."""
+def simulate(simulate_young, glitches=(), f=10.0, frequency_derivative=-1e-11, years=2.0,
+             cadence_days=7.0, err_us=50.0, seed=1):
+    """(starting model without glitches, observations, truth model) over ``years``
+    from START_MJD at ``cadence_days``; ``simulate_young`` is the conftest fixture."""
     days = 365.25 * years
-    truth = TimingModel.from_text(young_pulsar_text(f, frequency_derivative)
-                                  + "".join(glitch_text(*g) for g in glitches))
-    start = TimingModel.from_text(young_pulsar_text(f, frequency_derivative))
-    obs = observe(truth, START_MJD, START_MJD + days, int(days / cadence_days), err_us, seed)
-    return start, obs, truth
+    return simulate_young(glitches, START_MJD, START_MJD + days, int(days / cadence_days),
+                          err_us, seed, f, frequency_derivative)
 
 
 def found(candidates, epoch, step_hz):
@@ -57,7 +52,7 @@ CONFIGS = [
 
 @pytest.mark.slow
 @pytest.mark.parametrize("size, f, cadence, err_us, years", CONFIGS)
-def test_injected_glitches_are_found_bracketed_and_measured(observe_at_ssb, size, f, cadence,
+def test_injected_glitches_are_found_bracketed_and_measured(simulate_young, size, f, cadence,
                                                             err_us, years):
     frequency_derivative = -1e-11 if f < 20 else -3e-11
     successes, extra, limits = 0, 0, []
@@ -66,7 +61,7 @@ def test_injected_glitches_are_found_bracketed_and_measured(observe_at_ssb, size
         days = 365.25 * years
         epoch = round(rng.uniform(START_MJD + 0.3 * days, START_MJD + 0.7 * days), 6)
         step = size * f
-        start, obs, _ = simulate(observe_at_ssb, [(epoch, step, 1e-3 * frequency_derivative)], f=f, frequency_derivative=frequency_derivative,
+        start, obs, _ = simulate(simulate_young, [(epoch, step, 1e-3 * frequency_derivative)], f=f, frequency_derivative=frequency_derivative,
                                  years=years, cadence_days=cadence, err_us=err_us, seed=1000 + k)
         result = search_glitches(start, obs)
         successes += bool(found(result.candidates, epoch, step))
@@ -80,11 +75,11 @@ def test_injected_glitches_are_found_bracketed_and_measured(observe_at_ssb, size
 
 
 @pytest.mark.slow
-def test_glitch_free_data_rarely_give_candidates(observe_at_ssb):
+def test_glitch_free_data_rarely_give_candidates(simulate_young):
     with_candidates = 0
     for k in range(40):
         weekly = k % 2 == 0
-        start, obs, _ = simulate(observe_at_ssb, (), years=2.0 if weekly else 6.0,
+        start, obs, _ = simulate(simulate_young, (), years=2.0 if weekly else 6.0,
                                  cadence_days=7.0 if weekly else 30.0,
                                  err_us=50.0 if weekly else 100.0, seed=5000 + k)
         result = search_glitches(start, obs)
@@ -95,13 +90,13 @@ def test_glitch_free_data_rarely_give_candidates(observe_at_ssb):
 
 
 @pytest.mark.slow
-def test_false_alarm_probability_is_calibrated_on_glitch_free_data(observe_at_ssb):
+def test_false_alarm_probability_is_calibrated_on_glitch_free_data(simulate_young):
     # an honest null: the global false-alarm probability of the largest gap statistic
     # is uniform on glitch-free data, so P(FAP < q) ~ q (binomial bounds, 150 data sets)
     settings = GlitchSearchSettings(null_trials=400)
     faps = []
     for k in range(150):
-        start, obs, _ = simulate(observe_at_ssb, (), years=1.5, cadence_days=7.0,
+        start, obs, _ = simulate(simulate_young, (), years=1.5, cadence_days=7.0,
                                  err_us=30.0, seed=7000 + k)
         ev = start.evaluate(obs)
         order = np.argsort(ev.extra["spin_dt_s"])
@@ -121,13 +116,13 @@ def test_false_alarm_probability_is_calibrated_on_glitch_free_data(observe_at_ss
     assert np.mean(faps < 0.01) <= 0.04
 
 
-def test_two_glitches_a_year_apart_are_both_found(observe_at_ssb):
+def test_two_glitches_a_year_apart_are_both_found(simulate_young):
     for k in range(6):
         rng = np.random.default_rng(3000 + k)
         e1 = round(START_MJD + rng.uniform(200.0, 300.0), 5)
         e2 = e1 + 365.25
         s1, s2 = 10 ** rng.uniform(-9, -5) * 10.0, 10 ** rng.uniform(-9, -5) * 10.0
-        start, obs, _ = simulate(observe_at_ssb, [(e1, s1, -1e-14), (e2, s2, -2e-14)],
+        start, obs, _ = simulate(simulate_young, [(e1, s1, -1e-14), (e2, s2, -2e-14)],
                                  years=3.0, cadence_days=14.0, err_us=30.0, seed=3000 + k)
         result = search_glitches(start, obs)
         assert found(result.candidates, e1, s1), (k, e1, s1)
@@ -136,12 +131,12 @@ def test_two_glitches_a_year_apart_are_both_found(observe_at_ssb):
         assert len(model_glitches(result.model)) == 2
 
 
-def test_decaying_part_is_fitted_with_amplitude_and_time_scale(observe_at_ssb):
+def test_decaying_part_is_fitted_with_amplitude_and_time_scale(simulate_young):
     amplitude, tau = 1e-7, 100.0
     for k in range(5):
         rng = np.random.default_rng(3000 + k)
         epoch = round(START_MJD + rng.uniform(250.0, 350.0), 5)
-        start, obs, _ = simulate(observe_at_ssb, [(epoch, 1e-6, -1e-14, amplitude, tau)],
+        start, obs, _ = simulate(simulate_young, [(epoch, 1e-6, -1e-14, amplitude, tau)],
                                  years=3.0, cadence_days=7.0, err_us=50.0, seed=3000 + k)
         result = search_glitches(start, obs)
         assert len(result.candidates) == 1
@@ -152,10 +147,10 @@ def test_decaying_part_is_fitted_with_amplitude_and_time_scale(observe_at_ssb):
         assert term["decay_time_uncertainty_days"] < 20.0     # measured, not just allowed
 
 
-def test_phase_stays_connected_across_a_glitch_of_many_turns(observe_at_ssb):
+def test_phase_stays_connected_across_a_glitch_of_many_turns(simulate_young):
     # 1e-5 of 10 Hz with monthly TOAs: the phase runs away by ~100 turns per gap
     epoch, step = 59000.3, 1e-4
-    start, obs, truth = simulate(observe_at_ssb, [(epoch, step, -1e-14)], years=6.0,
+    start, obs, truth = simulate(simulate_young, [(epoch, step, -1e-14)], years=6.0,
                                  cadence_days=30.0, err_us=100.0, seed=42)
     result = search_glitches(start, obs)
     assert found(result.candidates, epoch, step)
@@ -188,9 +183,9 @@ def test_seed_solution_recovers_scrambled_pulse_counts():
     assert solve_seed(t, rho, np.full(8, 1e-3), 1e-6, 1e-12) is None
 
 
-def test_known_epochs_are_tested_instead_of_searched(observe_at_ssb):
+def test_known_epochs_are_tested_instead_of_searched(simulate_young):
     epoch, step = 58400.3, 1e-7
-    start, obs, _ = simulate(observe_at_ssb, [(epoch, step, -1e-14)], seed=8)
+    start, obs, _ = simulate(simulate_young, [(epoch, step, -1e-14)], seed=8)
     result = search_glitches(start, obs, GlitchSearchSettings(known_epochs_mjd=[epoch, 58550.0]))
     assert len(result.candidates) == 2
     real = found(result.candidates, epoch, step)
@@ -202,9 +197,9 @@ def test_known_epochs_are_tested_instead_of_searched(observe_at_ssb):
     assert abs(other.frequency_step_hz) < 3 * other.frequency_step_uncertainty_hz
 
 
-def test_steps_are_reported_in_the_stated_units(observe_at_ssb):
+def test_steps_are_reported_in_the_stated_units(simulate_young):
     epoch, step, derivative_step_hz_per_s = 58400.3, 2e-6, -2e-14
-    start, obs, _ = simulate(observe_at_ssb, [(epoch, step, derivative_step_hz_per_s)], seed=9)
+    start, obs, _ = simulate(simulate_young, [(epoch, step, derivative_step_hz_per_s)], seed=9)
     result = search_glitches(start, obs)
     (c,) = result.candidates
     data = result.to_json()
@@ -223,9 +218,9 @@ def test_steps_are_reported_in_the_stated_units(observe_at_ssb):
     assert g.frequency_derivative_step.value == entry["frequency_derivative_step"]
 
 
-def test_glitch_already_in_the_model_is_kept_not_reported(observe_at_ssb):
+def test_glitch_already_in_the_model_is_kept_not_reported(simulate_young):
     epoch, step = 58400.3, 1e-6
-    start, obs, truth = simulate(observe_at_ssb, [(epoch, step, -1e-14)], seed=10)
+    start, obs, truth = simulate(simulate_young, [(epoch, step, -1e-14)], seed=10)
     truth.set_free(["glitch.0.frequency_step_hz", "glitch.0.phase_step"])
     result = search_glitches(truth, obs)
     assert result.candidates == []

@@ -33,18 +33,18 @@ WITH_GLITCH_FREE = young_pulsar_text(F_HZ, FDOT, epoch_mjd="59000", free=(
     "glitch.0.frequency_step_hz", "glitch.0.frequency_derivative_step"))
 
 
-def observations(observe_at_ssb, seed):
-    truth = TimingModel.from_text(START + glitch_text(EPOCH, STEP_HZ, FDOT_STEP, AMPLITUDE_HZ,
-                                                      TAU_DAYS))
-    return observe_at_ssb(truth, 58800, 59800, 120, 50.0, seed)
+def observations(simulate_young, seed):
+    """The TOAs of the glitch (``simulate_young``: conftest)."""
+    return simulate_young([(EPOCH, STEP_HZ, FDOT_STEP, AMPLITUDE_HZ, TAU_DAYS)], 58800, 59800,
+                          120, 50.0, seed, F_HZ, FDOT, epoch_mjd="59000")[1]
 
 
 # seed 5: a second "glitch" 30 d later with a step under 3 sigma inflated the real one's
 # uncertainty 50x; seed 3: the glitch in the gap after the right one, and a second
 # one before it (both before the fix)
 @pytest.mark.parametrize("seed", [3, 5])
-def test_a_decaying_recovery_gives_no_second_glitch(observe_at_ssb, seed):
-    result = search_glitches(TimingModel.from_text(START), observations(observe_at_ssb, seed))
+def test_a_decaying_recovery_gives_no_second_glitch(simulate_young, seed):
+    result = search_glitches(TimingModel.from_text(START), observations(simulate_young, seed))
     (c,) = result.candidates
     assert len(model_glitches(result.model)) == 1
     assert c.epoch_min_mjd <= EPOCH <= c.epoch_max_mjd
@@ -60,11 +60,11 @@ def test_a_decaying_recovery_gives_no_second_glitch(observe_at_ssb, seed):
 
 
 @pytest.mark.parametrize("seed", [1, 5])
-def test_a_glitch_already_in_the_model_gains_no_spurious_neighbours(observe_at_ssb, seed):
+def test_a_glitch_already_in_the_model_gains_no_spurious_neighbours(simulate_young, seed):
     # the model holds the glitch (as a batch source might) but not its decay: before the
     # fix every seed ended with two spurious glitches that mimicked the recovery
     start = TimingModel.from_text(WITH_GLITCH_FREE + glitch_text(EPOCH, STEP_HZ, FDOT_STEP))
-    result = search_glitches(start, observations(observe_at_ssb, seed))
+    result = search_glitches(start, observations(simulate_young, seed))
     assert result.candidates == []
     assert any("was not kept as a glitch" in w for w in result.warnings)
     (g,) = model_glitches(result.model)
@@ -72,8 +72,8 @@ def test_a_glitch_already_in_the_model_gains_no_spurious_neighbours(observe_at_s
     assert result.fit.reduced_chi2 < 1.5
 
 
-def test_false_alarm_probability_is_never_reported_below_one_over_the_trials(observe_at_ssb):
-    obs = observations(observe_at_ssb, 1)
+def test_false_alarm_probability_is_never_reported_below_one_over_the_trials(simulate_young):
+    obs = observations(simulate_young, 1)
     settings = GlitchSearchSettings(null_trials=300)
     result = search_glitches(TimingModel.from_text(START), obs, settings)
     (c,) = result.candidates

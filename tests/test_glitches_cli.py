@@ -60,6 +60,9 @@ def test_outputs_of_a_glitch_run(files, tmp_path, capsys):
     assert c["false_alarm_probability_upper_limit"] is True
     assert "upper limit" in c["false_alarm_probability_method"]
     assert "false-alarm probability < 0.001" in printed
+    # no decay was injected: one was tried, none is significant, and that is said
+    assert c["decaying_terms"] == [] and c["decaying_term_tried"] is True
+    assert "no significant decaying step (tried on time-scales 10, 30, 100, 300 days)" in printed
     # the fitted model carries the glitch and reads back
     fitted = TimingModel.from_file(str(out / "fitted.toml"))
     (g,) = model_glitches(fitted)

@@ -121,6 +121,11 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
             + ", false-alarm probability "
             + _fap_text(fap, c.get("false_alarm_probability_upper_limit"),
                         found["settings"]["null_trials"]))
+        if not c.get("decaying_terms"):
+            lines.append("    no significant decaying step (tried on time-scales "
+                         + ", ".join(f"{d:g}" for d in found["settings"]["decay_grid_days"])
+                         + " days)" if c.get("decaying_term_tried") else
+                         "    decaying steps not tried")
         for d in c.get("decaying_terms", []):
             lines.append("    decaying step "
                          + format_quantity(d["decaying_frequency_step_hz"],

@@ -6,6 +6,7 @@
 - ``scan``: gap windows, the change statistic and its simulated null distribution.
 - ``candidates``: one pass's phase data, scan and candidate choice.
 - ``refine``: decays, placement, epochs and uncertainties of fitted glitches.
+- ``reinclude``: TOAs left out while numbering, put back once the final model fits.
 - ``epochs``: times of the search (seconds since the spin epoch <-> MJDs).
 """
 

@@ -152,6 +152,7 @@ class GlitchCandidate:
     false_alarm_probability_method: str | None = None
     fitted_steps_chi2: float | None = None      # likelihood ratio of its own fitted steps
     fitted_steps_dof: int | None = None
+    decaying_term_tried: bool = False           # an empty decaying_terms: none significant
 
     def to_json(self) -> dict:
         return {
@@ -172,6 +173,7 @@ class GlitchCandidate:
             "permanent_fractional_size": self.permanent_fractional_size,
             "phase_step": self.phase_step, "phase_step_uncertainty": self.phase_step_uncertainty,
             "decaying_terms": self.decaying_terms,
+            "decaying_term_tried": self.decaying_term_tried,
             "significance_sigma": self.significance_sigma,
             "significance_lower_limit": self.false_alarm_probability_upper_limit,
             "detection_chi2": self.detection_chi2,

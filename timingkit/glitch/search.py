@@ -9,7 +9,10 @@ The search works on the pulse-phase residuals of a starting timing model
    the phase (possibly by many turns) the chain restarts from a seed solution
    that enumerates the pulse counts allowed by bounded frequency
    (``max_fractional_step`` of the spin frequency) and frequency-derivative
-   offsets and keeps the one the following TOAs confirm uniquely.
+   offsets and keeps the one the following TOAs confirm uniquely. Where
+   the two numberings share TOAs but count different turns between them, the
+   shorter segment is dissolved (timingkit.glitch.tracking.reconcile_chains:
+   a seed across a glitch can fit at a false alias frequency).
 2. **Frequency track and change points** (timingkit.glitch.scan): for every
    gap between TOAs, windows of TOAs before and after it (``window_toas`` or
    ``window_days``) are fitted with phase, frequency and frequency derivative
@@ -21,21 +24,26 @@ The search works on the pulse-phase residuals of a starting timing model
    probability is below the two-sided Gaussian tail of ``min_significance``
    sigma; windows are then cut at it and the next largest gap is tested.
    Candidates just after a much larger glitch accepted in the same pass wait
-   for the next pass (there, an unmodelled decay mimics small steps).
+   for the next pass (there, an unmodelled decay mimics small steps). TOAs
+   that neither numbering connects to a neighbour are left out of the scan
+   (they would hide the gap beside them).
 3. **Fit**: pulses are numbered across the data (intervals between glitches,
    pieces joined where unambiguous) and held fixed; the model plus one
    [[glitch]] section per candidate (phase step, frequency step,
    frequency-derivative step) is fitted with timingkit.fit.least_squares. A decaying
-   frequency step is kept where it is significant (time-scale grid, then
-   fitted). When the model fits, each glitch is tried in the nearby gaps with
+   frequency step is tried on every new glitch, forced ones too, and kept
+   where it is significant (time-scale grid, then fitted). When the model fits, each glitch is tried in the nearby gaps with
    phase continuity required, and the gaps the fit allows (chi-square within
    LOCALISE_DCHI2 of the best) form its reported bracket. Where pulses
    could not be numbered across a gap with no significant candidate, a
    glitch is forced there (forced_by_lost_connection); once the fit holds
    the other glitches' decays and frequency-derivative steps (which a local
    quadratic cannot follow), a forced glitch with an insignificant step is
-   dropped if the pulses, re-tracked without it, connect and the fit is not
-   significantly worse.
+   dropped if the fit without it (the pulses carried and re-tracked, or kept)
+   is not significantly worse; scan candidates are tested the same way
+   (timingkit.glitch.refine.fit_without). After the last pass, TOAs left out
+   while numbering are put back where the fitted model numbers them
+   (timingkit.glitch.reinclude).
 4. **Epoch**: each epoch moves, inside its gap, to where the phase step
    vanishes (common practice); when several epochs in the gap do so (a glitch
    that unwinds more than a turn there) the one nearest their mean is used and
@@ -387,7 +395,7 @@ def search_glitches(model: TimingModel, obs: Observations,
                         f"{result_fit.reduced_chi2:.2f} (> {ADEQUATE_REDUCED_CHI2:g}): epochs "
                         "were left in the gaps the frequency track points to, not compared "
                         "with nearby gaps (timing noise or unmodelled structure?)")
-    candidates = _candidates(current, result_fit, found)
+    candidates = _candidates(current, result_fit, found, settings.fit_decays)
     if any(c.epoch_choice.startswith("ambiguous") for c in candidates):
         warnings.append("some glitches unwound the phase by more than one turn between the "
                         "bracketing TOAs: their epochs are uncertain over the whole gap")
@@ -400,7 +408,8 @@ def search_glitches(model: TimingModel, obs: Observations,
         dropped_toas=dropped, assumptions=assumptions, null_noise=null_noise)
 
 
-def _candidates(model, res, found: list[AcceptedGlitch]) -> list[GlitchCandidate]:
+def _candidates(model, res, found: list[AcceptedGlitch],
+                fit_decays: bool) -> list[GlitchCandidate]:
     if res is None or not found:
         return []
     out = []
@@ -450,7 +459,8 @@ def _candidates(model, res, found: list[AcceptedGlitch]) -> list[GlitchCandidate
             known=acc.known, forced=acc.forced, search_pass=acc.search_pass,
             false_alarm_probability_upper_limit=acc.fap_upper_limit,
             false_alarm_probability_method=acc.fap_method,
-            fitted_steps_chi2=acc.fit_statistic, fitted_steps_dof=acc.fit_dof))
+            fitted_steps_chi2=acc.fit_statistic, fitted_steps_dof=acc.fit_dof,
+            decaying_term_tried=fit_decays and acc.decay_tried))
     out.sort(key=lambda c: c.epoch_mjd)
     return out
 
