@@ -286,11 +286,17 @@ def reconcile_chains(fwd: TrackingChain, bwd: TrackingChain):
     chains = [fwd, bwd]
     while True:
         worst = None
+        others = _segments(chains[1])
+        other_ends = np.array([b1 for _, b1 in others])
         for a0, a1 in _segments(chains[0]):
-            for b0, b1 in _segments(chains[1]):
+            if a1 == a0:
+                continue
+            for b0, b1 in others[int(np.searchsorted(other_ends, a0 + 1)):]:
+                if b0 >= a1:
+                    break
                 lo, hi = max(a0, b0), min(a1, b1)
                 if hi - lo < 1:
-                    continue
+                    continue       # one shared TOA says nothing about turns between TOAs
                 diff = chains[0].offsets[lo:hi + 1] - chains[1].offsets[lo:hi + 1]
                 if np.all(diff == diff[0]):
                     continue
