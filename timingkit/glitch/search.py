@@ -103,7 +103,6 @@ from timingkit.glitch.epochs import (
 from timingkit.glitch.refine import (
     ADEQUATE_REDUCED_CHI2,
     add_decays,
-    carry_pulses,
     fit_without,
     fit_pinned,
     free_flags,
@@ -113,7 +112,6 @@ from timingkit.glitch.refine import (
     localise,
     rebuild_with_glitches,
     refine_epochs,
-    without_glitch,
 )
 from timingkit.glitch.reinclude import REINCLUDE_MAX_PHASE_SIGMA, put_back
 from timingkit.glitch.results import (
@@ -196,6 +194,7 @@ def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, refe
         if trial is None:
             continue
         fitted, new_pulse, statistic, dof = trial
+        acc.fit_statistic, acc.fit_dof = statistic, dof
         if not fitted.converged or statistic >= scipy.stats.chi2.isf(
                 settings.false_alarm_threshold, dof):
             continue
