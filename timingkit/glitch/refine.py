@@ -32,6 +32,7 @@ LOCALISE_GAPS = 2                  # gaps tried on each side of the change point
 LOCALISE_MAX_GAPS = 6              # ... extended while the best is at the edge
 LOCALISE_DCHI2 = 9.0               # gaps this close to the best fit are in the bracket
 ADEQUATE_REDUCED_CHI2 = 4.0        # decays and placements only with a model that fits
+FORCED_STEP_Z = 3.0                # a glitch with a smaller frequency step (sigma) is re-checked
 
 
 def search_free_names(model: TimingModel):
@@ -206,32 +207,50 @@ def fit_without(res: FitResult, epoch, obs, reference, pulse, settings):
     of the glitch's own fitted steps: (chi-square without it - with it) / max(1,
     reduced chi-square), against a chi-square with the glitch's free parameters as
     degrees of freedom. The fit without it is the best (least chi-square) of those
-    started from two numberings, each also numbered afresh against its fit
-    (:func:`renumbered_fit`, which must connect across the gap): the same pulse
-    counts (data where the tracking joined them across the gap), and the counts
-    carried from ``res`` (:func:`carry_pulses`: a forced glitch's gap was only
-    ever joined through the glitch, whose turns the other terms cannot make up).
-    The glitch is kept only if no numbering fits without it. Returns (fit, pulses,
+    from two numberings: the same pulse counts (data where the tracking joined them
+    across the gap), and the counts carried from ``res`` (:func:`carry_pulses`: a
+    forced glitch's gap was only ever joined through the glitch, whose turns the
+    other terms cannot make up), and each numbered afresh against its own fit
+    (:func:`renumbered_fit`, which must connect across the gap). These cost fits
+    and tracking, so they are tried in that order only while the answer is open:
+    the carried and fresh numberings only for a glitch whose frequency step is below
+    FORCED_STEP_Z sigma (the kept counts already show a larger one to matter), and
+    none once one numbering makes the glitch insignificant. Returns (fit, pulses,
     statistic, degrees of freedom), or None when no fit without it succeeds."""
     g = glitch_at(res.model, epoch)
     dof = max(1, sum(1 for p in g.parameters() if p.free))
+    threshold = scipy.stats.chi2.isf(settings.false_alarm_threshold, dof)
     trial = without_glitch(res.model, epoch)
     t_g = glitch_time_s(res.model, g)
+
+    def statistic(option):
+        return (option[0].chi2 - res.chi2) / max(1.0, res.reduced_chi2)
+
+    def best(options):
+        return min(options, key=lambda o: (not o[0].converged, o[0].chi2))
+
+    def settled(options):
+        return options and best(options)[0].converged and statistic(best(options)) < threshold
+
+    step, err = g.frequency_step.value, g.frequency_step.uncertainty
+    small = bool(err) and abs(step) <= FORCED_STEP_Z * err
     options = []
     for counts in (np.asarray(pulse, dtype=np.int64),
                    carry_pulses(res.model, trial, obs, reference, pulse)):
         first = _fit_with_counts(trial, obs, reference, counts, t_g, settings)
-        if first is None:
-            continue
-        options.append((first, counts))
-        renumbered = renumbered_fit(first, obs, reference, settings)
-        if renumbered is not None:
-            options.append(renumbered)
+        if first is not None:
+            options.append((first, counts))
+        if settled(options) or not small:
+            break
+    if not settled(options) and small:
+        for first, _ in list(options):
+            renumbered = renumbered_fit(first, obs, reference, settings)
+            if renumbered is not None:
+                options.append(renumbered)
     if not options:
         return None
-    fitted, counts = min(options, key=lambda o: (not o[0].converged, o[0].chi2))
-    statistic = (fitted.chi2 - res.chi2) / max(1.0, res.reduced_chi2)
-    return fitted, counts, float(statistic), dof
+    chosen = best(options)
+    return chosen[0], chosen[1], float(statistic(chosen)), dof
 
 
 def _fit_with_counts(trial: TimingModel, obs, reference, pulse, t_g: float, settings):

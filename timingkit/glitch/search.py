@@ -102,6 +102,7 @@ from timingkit.glitch.epochs import (
 )
 from timingkit.glitch.refine import (
     ADEQUATE_REDUCED_CHI2,
+    FORCED_STEP_Z,
     add_decays,
     fit_without,
     fit_pinned,
@@ -133,7 +134,6 @@ from timingkit.glitch.tracking import (
 from timingkit.model.glitch import glitch_section, model_glitches, set_glitches
 from timingkit.model.timing_model import TimingModel
 
-FORCED_STEP_Z = 3.0                # a forced glitch with a smaller step (sigma) is re-checked
 
 
 def _settle(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse, settings):
@@ -178,12 +178,11 @@ def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, refe
     """Forced glitches (connection lost before the other glitches' decaying terms
     and frequency-derivative steps were in the model: a local quadratic cannot
     follow a post-glitch recovery) re-checked once the fit holds them: one whose
-    frequency step is below FORCED_STEP_Z sigma is dropped when the pulses,
-    re-tracked against the fitted model without it, connect across its gap and
-    the fit without it is not worse by more than the search threshold
-    (likelihood ratio, chi-square with its free parameters as degrees of freedom).
-    The fit without it is :func:`timingkit.glitch.refine.fit_without`, as for the
-    candidates of the scan."""
+    frequency step is below FORCED_STEP_Z sigma is dropped when the fit without it
+    (:func:`timingkit.glitch.refine.fit_without`, as for the candidates of the scan:
+    the pulse counts kept or carried, and re-tracked against the fit without it,
+    connected across its gap) is not worse by more than the search threshold
+    (likelihood ratio, chi-square with its free parameters as degrees of freedom)."""
     for acc in [a for a in found if a.forced and not a.rechecked and a.epoch is not None]:
         acc.rechecked = True
         g = glitch_at(res.model, acc.epoch)
