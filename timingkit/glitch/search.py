@@ -32,8 +32,9 @@ The search works on the pulse-phase residuals of a starting timing model
    [[glitch]] section per candidate (phase step, frequency step,
    frequency-derivative step) is fitted with timingkit.fit.least_squares. A decaying
    frequency step is tried on every new glitch, forced ones too, and kept
-   where it is significant (time-scale grid, then fitted). When the model fits, each glitch is tried in the nearby gaps with
-   phase continuity required, and the gaps the fit allows (chi-square within
+   where it is significant (time-scale grid, then fitted). When the model
+   fits, each glitch is tried in the nearby gaps with phase continuity
+   required, and the gaps the fit allows (chi-square within
    LOCALISE_DCHI2 of the best) form its reported bracket. Where pulses
    could not be numbered across a gap with no significant candidate, a
    glitch is forced there (forced_by_lost_connection); once the fit holds
@@ -133,7 +134,6 @@ from timingkit.glitch.tracking import (
 )
 from timingkit.model.glitch import glitch_section, model_glitches, set_glitches
 from timingkit.model.timing_model import TimingModel
-
 
 
 def _settle(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse, settings):
@@ -372,8 +372,8 @@ def search_glitches(model: TimingModel, obs: Observations,
         if restored:
             use_obs, current, dropped = obs.select(used), result_fit.model, dropped - restored
             warnings.append(f"{restored} TOA(s) left out while the pulses were numbered "
-                            "were put back: the fitted model gives their pulse numbers "
-                            f"to better than {REINCLUDE_MAX_PHASE_SIGMA:g} turns")
+                            "were put back: the fitted model predicts their phase to "
+                            f"better than {REINCLUDE_MAX_PHASE_SIGMA:g} turns (1 sigma)")
             if not dropped:
                 warnings[:] = [w for w in warnings if not w.endswith("left out of the fit")]
     if result_fit is None:
