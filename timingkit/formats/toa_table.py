@@ -18,7 +18,7 @@ PULSE_COLUMN = "pulse"
 # the columns residuals.csv adds to a TOA table's (timingkit.outputs.residual_table):
 # a flag named so would clash with them, so no flag may be
 OUTPUT_COLUMNS = ("residual_us", "residual_phase", "pulse_number", "toa_line", "orbital_phase",
-                  "left_out")
+                  "left_out", "fit_status")
 
 
 def check_flag_name(name: str, path=None, line: int | None = None) -> None:
