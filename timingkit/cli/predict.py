@@ -14,6 +14,12 @@ def add_parsers(sub) -> None:
     p.add_argument("--site", metavar="NAME", help="observing site")
     p.add_argument("--start", metavar="MJD", help="first time covered (UTC at the site)")
     p.add_argument("--end", metavar="MJD", help="last time covered (UTC at the site)")
+    p.add_argument("--windows", metavar="FILE",
+                   help="cover only these observing windows (a text file of start and end "
+                        "MJDs, one window per line; instead of --start/--end)")
+    p.add_argument("--flag", action="append", default=[], metavar="NAME=VALUE",
+                   help="a flag of the observation (repeatable), for the model's time-offset "
+                        "groups, e.g. --flag backend=wide-b")
     p.add_argument("--freq-mhz", type=float, metavar="F",
                    help="observing frequency in MHz (inf: no dispersion)")
     p.add_argument("--segment-minutes", type=float, metavar="M",
@@ -47,7 +53,10 @@ def cmd_predict(args) -> int:
     if args.table and not args.output and _is_predictor_file(args.model):
         print_table(read_predictor(args.model))
         return 0
-    missing = [f"--{name.replace('_', '-')}" for name in ("site", "start", "end", "freq_mhz")
+    span = ("windows",) if args.windows else ("start", "end")
+    if args.windows and (args.start or args.end):
+        raise InputError("give either --windows or --start/--end, not both", field="--windows")
+    missing = [f"--{name.replace('_', '-')}" for name in ("site", *span, "freq_mhz")
                if getattr(args, name) is None]
     if missing:
         raise InputError(f"building a predictor needs {', '.join(missing)}", field=missing[0])
@@ -56,7 +65,8 @@ def cmd_predict(args) -> int:
                          field="--output")
     if args.output:
         from timingkit.formats.atomic_file import refuse_output_over_inputs
-        refuse_output_over_inputs(args.output, [args.model])
+        refuse_output_over_inputs(args.output, [args.model, *([args.windows] if args.windows
+                                                               else [])])
     predictor = build_from_files(args)
     data = predictor.data
     if args.output:
@@ -64,8 +74,11 @@ def cmd_predict(args) -> int:
         write_predictor_file(data, args.output)
         print(f"wrote {len(predictor)} segments (degree {int(data.degrees.min())}-"
               f"{int(data.degrees.max())}) covering MJD {predictor.start_text} to "
-              f"{predictor.end_text} at {data.site}, {data.freq_mhz:g} MHz, to {args.output}; "
+              f"{predictor.end_text}{_in_windows(predictor)} at {data.site}, {data.freq_mhz:g} MHz, to {args.output}; "
               f"estimated largest error {data.estimated_max_error_cycles:.2g} cycles")
+    for offset in data.time_offsets_applied:
+        print(f"applied time offset {offset['offset_s']:.9g} s of the group {offset['flag']} = "
+              f"{offset['value']}")
     for warning in data.warnings:
         print(f"caution: {warning}", file=sys.stderr)
     if data.estimated_max_error_cycles > data.accuracy_cycles:
@@ -77,22 +90,51 @@ def cmd_predict(args) -> int:
     return 0
 
 
+def _in_windows(predictor) -> str:
+    count = len(predictor.windows())
+    return f" in {count} windows" if count > 1 else ""
+
+
+def parse_flag_options(texts: list[str]) -> dict[str, str]:
+    """``--flag NAME=VALUE`` options as a dict (a name given twice is an error)."""
+    flags: dict[str, str] = {}
+    for text in texts:
+        name, sep, value = text.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise InputError(f"expected NAME=VALUE, found {text!r}", field="--flag",
+                             quoted=(text,))
+        if name.strip() in flags:
+            raise InputError(f"flag {name.strip()!r} given twice", field="--flag")
+        flags[name.strip()] = value.strip()
+    return flags
+
+
 def build_from_files(args):
     from timingkit.pipeline.inputs import load_context, load_model, reference_observations
-    from timingkit.predict.build import build_predictor
+    from timingkit.predict.build import build_predictor, build_window_predictor
     from timingkit.predict.model_phase import PhaseContext
+    flags = parse_flag_options(args.flag)
+    windows = None
+    if args.windows:
+        from timingkit.formats.window_file import read_window_file
+        windows = read_window_file(args.windows)
     model = load_model(args.model)
     sites, eph, clocks = load_context(model, args.sites, args.ephemeris, args.clock)
     context = PhaseContext(sites, eph, clocks, reference_observations(model, sites, eph, clocks))
+    options = dict(segment_minutes=args.segment_minutes, degree=args.degree,
+                   accuracy_cycles=args.accuracy_cycles, flags=flags)
+    if windows is not None:
+        return build_window_predictor(model, args.site, windows, args.freq_mhz, context,
+                                      **options)
     return build_predictor(model, args.site, args.start, args.end, args.freq_mhz, context,
-                           segment_minutes=args.segment_minutes, degree=args.degree,
-                           accuracy_cycles=args.accuracy_cycles)
+                           **options)
 
 
 def print_table(predictor) -> None:
     d = predictor.data
-    print(f"phase predictor for {d.source or 'unnamed'} at {d.site}, {d.freq_mhz:g} MHz; "
-          "times UTC at the site")
+    flags = "".join(f", {k} = {v}" for k, v in d.flags.items())
+    print(f"phase predictor for {d.source or 'unnamed'} at {d.site}, {d.freq_mhz:g} MHz"
+          f"{flags}; times UTC at the site")
     print(f"{'segment':>7}  {'start MJD':<22} {'minutes':>8} {'degree':>6}  "
           f"{'frequency (Hz)':>20}  {'period (s)':>20}  phase at start (cycles)")
     for row in predictor.segment_table():

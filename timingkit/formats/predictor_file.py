@@ -8,6 +8,8 @@ predictor").
      "source": "...", "site": "...", "freq_mhz": 1400.0 (or "inf"),
      "time_scale": "...", "accuracy_cycles": 1e-9, "estimated_max_error_cycles": ...,
      "created_by": "timingkit 0.1.0", "model_file": "...", "warnings": [...],
+     "flags": {"backend": "..."},
+     "time_offsets_applied": [{"flag": "backend", "value": "...", "offset_s": ...}],
      "segments": [{"start_mjd": "60000.0", "end_mjd": "60000.03125",
                    "seconds_per_day": 86400, "phase_integer": 123, "phase_fraction": 0.25,
                    "coefficients": [...]}, ...]}
@@ -40,7 +42,8 @@ SEGMENT_KEYS = ("start_mjd", "end_mjd", "seconds_per_day", "phase_integer", "pha
                 "coefficients")
 HEADER_KEYS = ("format", "version", "source", "site", "freq_mhz", "time_scale",
                "accuracy_cycles", "estimated_max_error_cycles", "created_by", "model_file",
-               "warnings", "segments")
+               "warnings", "flags", "time_offsets_applied", "segments")
+OFFSET_KEYS = ("flag", "value", "offset_s")
 
 
 @dataclass
@@ -70,6 +73,8 @@ class PredictorData:
     created_by: str = ""
     model_file: str = ""
     warnings: list[str] = field(default_factory=list)
+    flags: dict = field(default_factory=dict)
+    time_offsets_applied: list = field(default_factory=list)
     time_scale: str = TIME_SCALE
     path: str | None = None
 
@@ -104,7 +109,8 @@ def predictor_text(data: PredictorData) -> str:
               "accuracy_cycles": _or_null(data.accuracy_cycles),
               "estimated_max_error_cycles": _or_null(data.estimated_max_error_cycles),
               "created_by": data.created_by, "model_file": data.model_file,
-              "warnings": list(data.warnings)}
+              "warnings": list(data.warnings), "flags": dict(data.flags),
+              "time_offsets_applied": [dict(o) for o in data.time_offsets_applied]}
     head = json.dumps(header, indent=1, allow_nan=False)      # ends with "\n}"
     segments = [json.dumps(_segment_record(data, i), allow_nan=False) for i in range(len(data))]
     return head[:-2] + ',\n "segments": [\n  ' + ",\n  ".join(segments) + "\n ]\n}\n"
@@ -181,9 +187,40 @@ def parse_predictor_text(text: str, path: str | None = None) -> PredictorData:
         estimated_max_error_cycles=_number(doc, "estimated_max_error_cycles", path),
         created_by=str(doc.get("created_by", "")), model_file=str(doc.get("model_file", "")),
         warnings=[str(w) for w in doc.get("warnings", [])],
+        flags=_flags(doc.get("flags", {}), path),
+        time_offsets_applied=_offsets(doc.get("time_offsets_applied", []), path),
         time_scale=str(doc.get("time_scale", TIME_SCALE)), path=path)
     _check_order(data, path, text)
     return data
+
+
+def _flags(value, path) -> dict:
+    if not isinstance(value, dict):
+        raise InputError("expected an object of flag names and values", path=path,
+                         field="flags")
+    for name, text in value.items():
+        if not isinstance(text, str) or not text:
+            raise InputError(f"expected the flag's value as text, found {text!r}", path=path,
+                             field=f"flags.{name}")
+    return dict(value)
+
+
+def _offsets(value, path) -> list[dict]:
+    if not isinstance(value, list):
+        raise InputError("expected a list of time-offset groups", path=path,
+                         field="time_offsets_applied")
+    for i, group in enumerate(value):
+        where = f"time_offsets_applied.{i}"
+        if not isinstance(group, dict) or sorted(group) != sorted(OFFSET_KEYS):
+            raise InputError(f"expected an object with the keys {', '.join(OFFSET_KEYS)}",
+                             path=path, field=where)
+        if not (isinstance(group["flag"], str) and isinstance(group["value"], str)):
+            raise InputError("expected the flag and value as text", path=path, field=where)
+        offset = group["offset_s"]
+        if isinstance(offset, bool) or not isinstance(offset, (int, float)):
+            raise InputError(f"expected seconds, found {offset!r}", path=path,
+                             field=f"{where}.offset_s")
+    return [dict(g) for g in value]
 
 
 def _or_null(value: float):

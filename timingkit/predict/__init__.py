@@ -2,10 +2,12 @@
 time at one site and observing frequency, for folding an observation.
 
 - ``build``: :func:`build_predictor` (segment length and degree chosen for a
-  requested accuracy, 1e-9 cycles by default).
+  requested accuracy, 1e-9 cycles by default), :func:`build_window_predictor`
+  (observing windows only); ``flags=`` states the observation's flag values.
 - ``predictor``: :class:`PhasePredictor` (``phase``, ``frequency_hz``,
   ``segment_table``) and :func:`read_predictor` for predictor files.
 - ``segments``: where segments must end (UTC days, glitches, DM ranges, clock tables).
+- ``time_offsets``: which ``[[time_offset]]`` groups an observation's flags take.
 - ``model_phase``: :class:`PhaseContext` and the full model's phase at site
   times, evaluated exactly.
 
@@ -20,6 +22,7 @@ from timingkit import lazy_exports
 
 EXPORTS = {
     "read_predictor": "predictor", "PhasePredictor": "predictor", "build_predictor": "build",
+    "build_window_predictor": "build",
     "PhaseContext": "model_phase", "model_phase_at": "model_phase",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)

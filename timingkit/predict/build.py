@@ -18,6 +18,8 @@ UTC day long and failing ones are halved until they pass (not below 10 s).
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 from numpy.polynomial import chebyshev
 
@@ -25,10 +27,13 @@ from timingkit import __version__
 from timingkit.formats.errors import InputError
 from timingkit.formats.mjd_text import parse_mjd_strings
 from timingkit.formats.predictor_file import PredictorData
+from timingkit.formats.window_file import check_windows
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.predict.model_phase import PhaseContext, evaluate_at
 from timingkit.predict.predictor import PhasePredictor, segment_x
+from timingkit.predict.time_offsets import (check_observation_flags, flag_cautions,
+                                            time_offsets_applied)
 from timingkit.predict.segments import (Segments, cut_points, plan_segments,
                                         seconds_per_day_of)
 
@@ -137,11 +142,7 @@ def _concatenate(fits: list[_SegmentFits]) -> _SegmentFits:
     return out.select(np.lexsort((segments.start_frac, segments.start_day)))
 
 
-def _check_request(start_text, end_text, freq_mhz, segment_minutes, degree, accuracy):
-    day, frac = parse_mjd_strings([start_text, end_text])
-    if not (day[1] - day[0]) + (frac[1] - frac[0]) > 0:
-        raise InputError(f"end MJD {end_text} must be later than start MJD {start_text}",
-                         field="end")
+def _check_options(freq_mhz, segment_minutes, degree, accuracy) -> None:
     if not (freq_mhz > 0):
         raise InputError("observing frequency must be > 0 MHz (or inf)", field="freq_mhz")
     if segment_minutes is not None and not segment_minutes > 0:
@@ -150,30 +151,71 @@ def _check_request(start_text, end_text, freq_mhz, segment_minutes, degree, accu
         raise InputError(f"degree must be 1 to {MAX_DEGREE}", field="degree")
     if not accuracy > 0:
         raise InputError("accuracy must be > 0 cycles", field="accuracy_cycles")
-    return (SplitTime(day[0], frac[0], "utc"), SplitTime(day[1], frac[1], "utc"))
 
 
 def build_predictor(model: TimingModel, site: str, start_mjd: str, end_mjd: str,
                     freq_mhz: float, context: PhaseContext, *,
                     segment_minutes: float | None = None, degree: int | None = None,
-                    accuracy_cycles: float = DEFAULT_ACCURACY_CYCLES) -> PhasePredictor:
+                    accuracy_cycles: float = DEFAULT_ACCURACY_CYCLES,
+                    flags: dict | None = None) -> PhasePredictor:
     """A predictor of ``model``'s phase at ``site`` and ``freq_mhz`` from
     ``start_mjd`` to ``end_mjd`` (MJD strings, UTC at the site). Its data's
     ``estimated_max_error_cycles`` is the largest check error plus rounding
     bound; above ``accuracy_cycles`` only when a given segment length or
-    degree, or the 10-s floor, did not allow better (the CLI then warns)."""
+    degree, or the 10-s floor, did not allow better (the CLI then warns).
+
+    ``flags``: the flag values of the observation (TOA-table column ->
+    value, e.g. {"backend": "wide-b"}); the model's ``[[time_offset]]`` groups
+    that select them (and those of the site) are applied, and the predictor
+    records both (``data.flags``, ``data.time_offsets_applied``)."""
     start_text, end_text = str(start_mjd).strip(), str(end_mjd).strip()
-    start, end = _check_request(start_text, end_text, freq_mhz, segment_minutes, degree,
-                                accuracy_cycles)
-    site_record = context.sites.lookup(site)
-    site_name = site_record.name
-    warnings: list[str] = []
-    cuts = cut_points(model, site_name, freq_mhz, start, end, context)
+    day, frac = parse_mjd_strings([start_text, end_text])
+    if not (day[1] - day[0]) + (frac[1] - frac[0]) > 0:
+        raise InputError(f"end MJD {end_text} must be later than start MJD {start_text}",
+                         field="end")
+    return _build(model, site, [(start_text, end_text)], freq_mhz, context, segment_minutes,
+                  degree, accuracy_cycles, flags)
+
+
+def build_window_predictor(model: TimingModel, site: str, windows, freq_mhz: float,
+                           context: PhaseContext, *, segment_minutes: float | None = None,
+                           degree: int | None = None,
+                           accuracy_cycles: float = DEFAULT_ACCURACY_CYCLES,
+                           flags: dict | None = None) -> PhasePredictor:
+    """As :func:`build_predictor`, for observing ``windows`` only: (start, end)
+    MJD-string pairs (UTC at the site, any order, touching but not
+    overlapping; :func:`timingkit.formats.window_file.read_window_file` reads
+    them from a file). The segments cover the windows and nothing between
+    them; the predictor refuses a time outside every window, naming the
+    nearest."""
+    return _build(model, site, check_windows(windows), freq_mhz, context, segment_minutes,
+                  degree, accuracy_cycles, flags)
+
+
+def _plan(model, site_name, freq_mhz, windows, context, segment_minutes) -> tuple[Segments, bool]:
+    """The first segments of every window, cut where the model requires."""
     if segment_minutes is not None:
         length_days, fixed = segment_minutes / 1440.0, True
     else:
         length_days, fixed = MAX_AUTO_SEGMENT_DAYS, False
-    pending = plan_segments(start_text, end_text, cuts, length_days, fixed)
+    plans = []
+    for start_text, end_text in windows:
+        day, frac = parse_mjd_strings([start_text, end_text])
+        start, end = SplitTime(day[0], frac[0], "utc"), SplitTime(day[1], frac[1], "utc")
+        cuts = cut_points(model, site_name, freq_mhz, start, end, context)
+        plans.append(plan_segments(start_text, end_text, cuts, length_days, fixed))
+    return (Segments(np.concatenate([p.start_text for p in plans]),
+                     np.concatenate([p.end_text for p in plans])), fixed)
+
+
+def _build(model, site, windows, freq_mhz, context, segment_minutes, degree, accuracy_cycles,
+           flags) -> PhasePredictor:
+    _check_options(freq_mhz, segment_minutes, degree, accuracy_cycles)
+    context = replace(context, flags={**context.flags, **check_observation_flags(flags)})
+    site_record = context.sites.lookup(site)
+    site_name = site_record.name
+    warnings: list[str] = flag_cautions(model, context.flags)
+    pending, fixed = _plan(model, site_name, freq_mhz, windows, context, segment_minutes)
     done: list[_SegmentFits] = []
     while len(pending):
         fits = _fit_round(model, site_name, freq_mhz, pending, context,
@@ -188,12 +230,15 @@ def build_predictor(model: TimingModel, site: str, start_mjd: str, end_mjd: str,
     error = float(np.max(fits.measured + fits.rounding))
     # times at the geocentre are TT and at the barycentre TDB: no leap seconds
     uniform = site_record.kind in ("geocentre", "ssb")
+    first = evaluate_at(model, fits.segments.times_at(np.array([-1.0]))[:1], site_name,
+                        freq_mhz, context)
     data = _data(fits.segments, fits.phase_integer, fits.phase_fraction,
                  fits.coefficients[:, :int(fits.degrees.max()) + 1], fits.degrees,
                  seconds_per_day=np.full(len(fits.segments), SECONDS_PER_DAY) if uniform else None,
                  source=model.name, site=site_name, freq_mhz=float(freq_mhz),
                  accuracy_cycles=float(accuracy_cycles), estimated_max_error_cycles=error,
                  created_by=f"timingkit {__version__}", model_file=str(model.path or ""),
-                 warnings=warnings, **({"time_scale": OTHER_TIME_SCALES[site_record.kind]}
-                                       if uniform else {}))
+                 warnings=warnings, flags=dict(context.flags),
+                 time_offsets_applied=time_offsets_applied(model, first),
+                 **({"time_scale": OTHER_TIME_SCALES[site_record.kind]} if uniform else {}))
     return PhasePredictor(data)

@@ -132,17 +132,36 @@ class PhasePredictor:
             text = str(np.atleast_1d(np.asarray(given))[i])
         else:
             text = str(format_mjd(day[i:i + 1], frac[i:i + 1])[0])
-        gaps = "" if self._contiguous() else " (with gaps between segments)"
         more = int(outside.sum()) - 1
-        raise InputError(f"MJD {text} is outside this predictor's segments, which cover MJD "
-                         f"{self.start_text} to {self.end_text}{gaps} at site {self.site}"
-                         + (f" ({more} more time(s) outside)" if more else ""),
-                         path=self.path, field="mjd")
+        more = f" ({more} more time(s) outside)" if more else ""
+        windows = self.windows()
+        if len(windows) == 1:
+            raise InputError(f"MJD {text} is outside this predictor's segments, which cover "
+                             f"MJD {self.start_text} to {self.end_text} at site {self.site}"
+                             + more, path=self.path, field="mjd")
+        near = self._nearest_window(day[i], frac[i], windows)
+        raise InputError(f"MJD {text} is outside every observing window of this predictor "
+                         f"(site {self.site}); the nearest window is MJD {near[0]} to "
+                         f"{near[1]} ({len(windows)} windows from MJD {self.start_text} to "
+                         f"{self.end_text})" + more, path=self.path, field="mjd")
 
-    def _contiguous(self) -> bool:
+    def windows(self) -> list[tuple[str, str]]:
+        """(start, end) MJD strings of the spans the segments cover without a
+        gap: the observing windows the predictor was built for (touching
+        windows show as one)."""
         d = self.data
-        return bool(np.all((d.start_day[1:] == d.end_day[:-1])
-                           & (d.start_frac[1:] == d.end_frac[:-1])))
+        gap = np.flatnonzero((d.start_day[1:] != d.end_day[:-1])
+                             | (d.start_frac[1:] != d.end_frac[:-1]))
+        first = np.r_[0, gap + 1]
+        last = np.r_[gap, len(d) - 1]
+        return [(str(d.start_text[a]), str(d.end_text[b])) for a, b in zip(first, last)]
+
+    def _nearest_window(self, day, frac, windows) -> tuple[str, str]:
+        starts_day, starts_frac = parse_mjd_strings([w[0] for w in windows])
+        ends_day, ends_frac = parse_mjd_strings([w[1] for w in windows])
+        before = (starts_day - day) + (starts_frac - frac)       # > 0: window is later
+        after = (day - ends_day) + (frac - ends_frac)            # > 0: window is earlier
+        return windows[int(np.argmin(np.maximum(before, after)))]
 
     def _by_segment(self, idx: np.ndarray, x: np.ndarray, coefficients: np.ndarray) -> np.ndarray:
         """Chebyshev series of each time's own segment, one numpy chebval per
