@@ -10,7 +10,8 @@ import sys
 def add_parsers(sub) -> None:
     p = sub.add_parser("profile-toas", help="TOAs from folded profiles (phase-gradient fit "
                                             "against a template)")
-    p.add_argument("profiles", nargs="+", help="profile files (.npz, one observation each)")
+    p.add_argument("profiles", nargs="+", help="profile files (.npz, one observation each, or "
+                                               "FITS, one or more)")
     p.add_argument("--template", required=True, metavar="FILE|auto",
                    help="template file (.npz), or 'auto' to build one from the profiles")
     p.add_argument("--write-template", metavar="FILE",
@@ -51,19 +52,21 @@ def add_parsers(sub) -> None:
     s.add_argument("--seed", type=int, default=None)
     s.add_argument("--sites", action="append", default=[], metavar="FILE")
     s.add_argument("--ephemeris", metavar="BSP")
+    s.add_argument("--profile-format", choices=("npz", "fits"), default="npz",
+                   help="file format of the profiles written (default npz)")
     s.add_argument("-o", "--outdir", required=True, metavar="DIR")
     s.set_defaults(func=cmd_simulate_profiles)
 
 
 def cmd_profile_toas(args) -> int:
-    from timingkit.formats.profile_file import (read_profile_file, read_template_file,
+    from timingkit.formats.profile_file import (read_profile_sets, read_template_file,
                                                 write_template_file)
     from timingkit.formats.toa_writer import write_toa_table
     from timingkit.profiles.templates import auto_template, resample
     from timingkit.profiles.toas import gather_profiles, time_profiles
     from timingkit.formats.atomic_file import refuse_output_over_inputs
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
-    sets = [read_profile_file(path) for path in args.profiles]
+    sets = [ps for path in args.profiles for ps in read_profile_sets(path)]
     timed = gather_profiles(sets, args.per_channel, args.per_subint)
     bins = timed.profiles.shape[1]
     if args.template == "auto":
@@ -80,8 +83,8 @@ def cmd_profile_toas(args) -> int:
         print(f"skipped {line}", file=sys.stderr)
     made = f"; template ({len(template.components)} components) written to {template_path}" \
         if template_path else ""
-    print(f"wrote {len(result.toas)} TOAs from {len(timed.profiles)} profiles in "
-          f"{len(sets)} files to {args.output}{made}")
+    print(f"wrote {len(result.toas)} TOAs from {len(timed.profiles)} profiles of "
+          f"{len(sets)} observations in {len(args.profiles)} files to {args.output}{made}")
     return 0
 
 
@@ -122,11 +125,11 @@ def cmd_simulate_profiles(args) -> int:
                             subints=args.subints, duration_s=args.duration_s, bins=args.bins,
                             snr=args.snr, seed=args.seed)
     sets = simulate_profiles(true, folding, sim, context, template)
-    width = len(str(len(sets)))
+    width, suffix = len(str(len(sets))), args.profile_format
     with output_set(args.outdir, inputs, purpose="simulated profiles") as work:
         write_template_file(template, os.path.join(work, "template.npz"))
         for k, ps in enumerate(sets, start=1):
-            write_profile_file(ps, os.path.join(work, f"obs-{k:0{width}d}.npz"))
-    print(f"wrote {len(sets)} profile files ({args.subints} sub-integration(s) x "
+            write_profile_file(ps, os.path.join(work, f"obs-{k:0{width}d}.{suffix}"))
+    print(f"wrote {len(sets)} profile files (.{suffix}, {args.subints} sub-integration(s) x "
           f"{args.channels} channel(s) x {args.bins} bins) and template.npz to {args.outdir}")
     return 0

@@ -1,5 +1,7 @@
 """Folded pulse profiles and profile templates, as NumPy ``.npz`` files (our own
 formats, README "Folded profiles"). Read without pickle (plain arrays only).
+Profiles may also be FITS (:mod:`timingkit.formats.profile_fits`, the same
+content); the readers here tell them apart by the file's first bytes.
 
 Profile file (one observation at one site)::
 
@@ -36,6 +38,7 @@ from timingkit.formats.errors import InputError
 from timingkit.formats.safe_read import check_regular_file
 from timingkit.formats.model_file import atomic_write_bytes
 from timingkit.formats.mjd_text import parse_mjd_strings
+from timingkit.formats.textfile import is_fits_file
 
 PROFILE_FORMAT = "timingkit-profiles"
 TEMPLATE_FORMAT = "timingkit-template"
@@ -61,6 +64,7 @@ class ProfileSet:
     duration_s: np.ndarray | None = None
     simulated_shift_cycles: np.ndarray | None = None
     path: str | None = None
+    part: str = ""        # which set of a file holding several ("hdu2"), else ""
 
     def __post_init__(self):
         self.channel_freq_mhz = np.atleast_1d(np.asarray(self.channel_freq_mhz, dtype=float))
@@ -95,8 +99,8 @@ def _save(path: str, arrays: dict) -> None:
     atomic_write_bytes(path, buffer.getvalue())
 
 
-def write_profile_file(profiles: ProfileSet, path: str) -> None:
-    """Write one observation's profiles (atomically)."""
+def profile_arrays(profiles: ProfileSet) -> dict:
+    """The arrays of a profile file (module docstring) of ``profiles``."""
     arrays = {"format": _text(PROFILE_FORMAT), "version": np.asarray(FORMAT_VERSION),
               "site": _text(profiles.site), "source": _text(profiles.source),
               "centre_freq_mhz": np.asarray(float(profiles.centre_freq_mhz)),
@@ -109,7 +113,19 @@ def write_profile_file(profiles: ProfileSet, path: str) -> None:
     for key in ("duration_s", "simulated_shift_cycles"):
         if getattr(profiles, key) is not None:
             arrays[key] = np.asarray(getattr(profiles, key), dtype=float)
-    _check_profiles(arrays, path)
+    return arrays
+
+
+def write_profile_file(profiles: ProfileSet, path: str) -> None:
+    """Write one observation's profiles (atomically): FITS
+    (:mod:`timingkit.formats.profile_fits`) when ``path`` ends in .fits or
+    .fit, else .npz."""
+    if str(path).lower().endswith((".fits", ".fit")):
+        from timingkit.formats.profile_fits import write_profile_fits
+        write_profile_fits([profiles], path)
+        return
+    arrays = profile_arrays(profiles)
+    check_profile_arrays(arrays, path)
     _save(path, arrays)
 
 
@@ -161,7 +177,8 @@ def _need(arrays: dict, key: str, path, ndim: int | None = None, kind: str = "f"
     return value
 
 
-def _check_profiles(a: dict, path) -> None:
+def check_profile_arrays(a: dict, path) -> None:
+    """The rules of a profile file's arrays (InputError naming the key)."""
     data = _need(a, "data", path, 3)
     subints, channels, bins = data.shape
     if subints < 1 or channels < 1 or bins < 8:
@@ -211,10 +228,29 @@ def _check_template(a: dict, path) -> None:
 
 
 def read_profile_file(path: str) -> ProfileSet:
-    """Read and check one observation's profiles; errors name the file and key."""
+    """Read and check one observation's profiles (.npz, or a FITS file of one
+    profile set); errors name the file and key."""
+    sets = read_profile_sets(path)
+    if len(sets) > 1:
+        raise InputError(f"holds {len(sets)} profile sets where one was expected",
+                         path=path, field="TKFORMAT")
+    return sets[0]
+
+
+def read_profile_sets(path: str) -> list[ProfileSet]:
+    """Every profile set of a file: the one of a .npz, or each of a FITS file's
+    (:mod:`timingkit.formats.profile_fits`)."""
     path = os.fspath(path)
+    if is_fits_file(path, "profile file"):
+        from timingkit.formats.profile_fits import read_profile_fits
+        return read_profile_fits(path)
     a = _load(path, "profile file", PROFILE_FORMAT, PROFILE_KEYS)
-    _check_profiles(a, path)
+    check_profile_arrays(a, path)
+    return [profile_set_of(a, path)]
+
+
+def profile_set_of(a: dict, path) -> ProfileSet:
+    """A ProfileSet of checked profile-file arrays."""
     return ProfileSet(
         site=str(a["site"]), source=str(a.get("source", "")),
         centre_freq_mhz=float(a["centre_freq_mhz"]), dedispersion_dm=float(a["dedispersion_dm"]),
@@ -232,5 +268,6 @@ def read_template_file(path: str) -> Template:
                     components=a.get("components"), path=path)
 
 
-__all__ = ["ProfileSet", "Template", "read_profile_file", "write_profile_file",
+__all__ = ["ProfileSet", "Template", "read_profile_file", "read_profile_sets",
+           "write_profile_file", "profile_arrays", "check_profile_arrays", "profile_set_of",
            "read_template_file", "write_template_file"]

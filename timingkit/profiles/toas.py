@@ -58,6 +58,7 @@ class ProfileToas:
 def _one_observation(ps: ProfileSet, per_channel: bool, per_subint: bool) -> dict:
     subints, channels, _ = ps.shape
     name = os.path.basename(ps.path) if ps.path else (ps.source or "profiles")
+    name += f":{ps.part}" if ps.part else ""
     if channels > 1 and not per_channel and ps.dedispersion_dm == 0:
         raise InputError("the channels are not dedispersed (dedispersion_dm = 0), so they "
                          "cannot be added: give --per-channel", path=ps.path,
