@@ -21,28 +21,16 @@ from test_predict import MSP_700, SAMPLE
 TARGET_CYCLES = 1e-9
 OFFSET_S = 3.7e-4
 SITE_OFFSET_S = -1.1e-5
-GROUPS = f"""
-[[time_offset]]
-flag = "backend"
-value = "wide-b"
-offset_s = {OFFSET_S}
 
-[[time_offset]]
-flag = "backend"
-value = "narrow-c"
-offset_s = 2.0e-3
 
-[[time_offset]]
-flag = "site"
-value = "desert-dish"
-offset_s = {SITE_OFFSET_S}
-"""
-RECEIVER_GROUP = """
-[[time_offset]]
-flag = "receiver"
-value = "low-band"
-offset_s = 5e-4
-"""
+def _group(flag, value, offset_s):
+    """One [[time_offset]] table of a model file."""
+    return f'\n[[time_offset]]\nflag = "{flag}"\nvalue = "{value}"\noffset_s = {offset_s}\n'
+
+
+GROUPS = (_group("backend", "wide-b", OFFSET_S) + _group("backend", "narrow-c", 2.0e-3)
+          + _group("site", "desert-dish", SITE_OFFSET_S))
+RECEIVER_GROUP = _group("receiver", "low-band", 5e-4)
 
 
 @pytest.fixture(scope="module")
@@ -78,8 +66,11 @@ def test_flagged_predictor_equals_the_model_on_flagged_toas(context):
     n0, f0 = without.phase((day[~wide], frac[~wide]))
     assert np.max(np.abs((n0 - mi[~wide]) + (f0 - mf[~wide]))) < TARGET_CYCLES
     # with and without differ by the offset times the frequency: the offset
-    # delays emission, d(phase) = -spin frequency x offset (first order; the
-    # spin frequency of the evaluation, at emission, to ~1e-9 relative)
+    # delays emission, and with the spin phase phi(t) = phi0 + F (t - t0) + ...
+    # (Lorimer & Kramer 2005, Handbook of Pulsar Astronomy, ch. 8; from memory)
+    # d(phase) = -F x offset to first order, F the spin frequency at emission;
+    # the apparent frequency would differ by the Doppler factor (~1e-4 x 0.26
+    # cycles, far above the tolerance)
     n0, f0 = without.phase((day[wide], frac[wide]))
     difference = (n - n0) + (f - f0)
     expected = -OFFSET_S * ev.spin_frequency_hz[wide]

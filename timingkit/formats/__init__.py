@@ -11,7 +11,9 @@
 - ``site_file``: :class:`Site` records and site files; the built-in ``geocentre`` and ``ssb``.
 - ``clock_table``: clock-correction tables.
 - ``predictor_file``: phase-predictor files (JSON Chebyshev segments).
-- ``profile_file``: folded-profile and template files (.npz).
+- ``window_file``: observing-window files (start and end MJD per line) for predictors.
+- ``profile_file``: folded-profile and template files (.npz); ``profile_fits``: folded
+  profiles in our FITS layout (one binary table per observation).
 - ``quantities``: astropy quantities and times from Python callers, converted or refused.
 - ``ogip_time``: the OGIP timing keywords of a FITS table (MJDREF, TIMEZERO, TIMESYS, ...).
 - ``event_list``, ``event_fits``, ``event_text``: photon event lists (:class:`EventList`;
@@ -32,6 +34,8 @@ EXPORTS = {
     "read_predictor_file": "predictor_file",
     "write_predictor_file": "predictor_file", "ProfileSet": "profile_file",
     "read_profile_file": "profile_file", "write_profile_file": "profile_file",
+    "read_profile_sets": "profile_file", "read_profile_fits": "profile_fits",
+    "write_profile_fits": "profile_fits", "read_window_file": "window_file",
     "read_text_file": "textfile", "read_toml_file": "textfile", "EventList": "event_list",
     "read_event_list": "event_list", "select_events": "event_list", "OrbitTable": "orbit_table",
     "read_orbit_table": "orbit_table",
