@@ -49,6 +49,14 @@ def test_round_trip_keeps_everything(tmp_path):
         assert hdu.data["PROFILE"].shape == (2, 2, 64)
         assert np.array_equal(hdu.data["PROFILE"][1, 0], ps.data[1, 0])
         assert hdu.columns["FOLDFREQ"].unit == "Hz"
+        # a table written without TDIM (channels x bins flat in each row) reads the same
+        cols = [fits.Column(name=c.name, format=c.format, unit=c.unit, array=hdu.data[c.name]
+                            if c.name != "PROFILE" else hdu.data[c.name].reshape(2, -1))
+                for c in hdu.columns]
+        flat = fits.BinTableHDU.from_columns(cols, header=hdu.header)
+        del flat.header["TDIM*"]
+        fits.HDUList([fits.PrimaryHDU(), flat]).writeto(tmp_path / "flat.fits")
+    assert np.array_equal(read_profile_file(str(tmp_path / "flat.fits")).data, back.data)
 
 
 def test_several_sets_in_one_file(tmp_path):
@@ -119,6 +127,22 @@ def _set_rows(column, values):
     return change
 
 
+def _replace_columns(hdul, columns):
+    new = fits.BinTableHDU.from_columns(columns, header=hdul[1].header, name="PROFILES")
+    hdul[1] = new
+
+
+def _numeric_mjd(hdul):
+    cols = [fits.Column(name="REFMJD", format="D", array=[60000.5, 60000.51])
+            if c.name == "REFMJD" else c for c in hdul[1].columns]
+    _replace_columns(hdul, cols)
+
+
+def _extra_column(hdul):
+    _replace_columns(hdul, [*hdul[1].columns, fits.Column(name="WEIGHTS", format="D",
+                                                           array=[1.0, 1.0])])
+
+
 @pytest.mark.parametrize("change,field,text", [
     (lambda h: h[1].header.remove("SITENAME"), "SITENAME", "keyword SITENAME missing in "
                                                            "PROFILES (HDU 1)"),
@@ -132,8 +156,10 @@ def _set_rows(column, values):
     (_set_rows("CHANFREQ", [[1350.0, 1450.0], [1350.0, 1451.0]]), "CHANFREQ", "differs in row 2"),
     (_set_rows("FOLDFREQ", [100.0, -1.0]), "FOLDFREQ", "values must be > 0"),
     (lambda h: h[1].header.remove("TKFORMAT"), "TKFORMAT", "no profile set in this FITS file"),
+    (_numeric_mjd, "REFMJD", "expected the MJDs as text"),
+    (_extra_column, "WEIGHTS", "unknown column WEIGHTS in PROFILES (HDU 1)"),
 ], ids=["no-site", "text-frequency", "negative-frequency", "version", "no-column", "bad-mjd",
-        "channels-differ", "negative-folding", "unmarked"])
+        "channels-differ", "negative-folding", "unmarked", "float-mjd", "unknown-column"])
 def test_bad_fits_names_hdu_and_keyword(tmp_path, capsys, change, field, text):
     bad = _broken(tmp_path, change)
     with pytest.raises(InputError) as err:

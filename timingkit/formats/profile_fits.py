@@ -140,12 +140,18 @@ def _arrays_of(hdu, label: str, path) -> dict:
                 continue
             raise InputError(f"column {column} missing in {label}", path=path, field=column)
         a[key] = np.asarray(hdu.data[names[column]])
+    if a["reference_mjd"].dtype.kind not in "SU":
+        # a float MJD resolves only ~1 us: the exact text is required
+        raise InputError(f"column REFMJD in {label}: expected the MJDs as text (format A), "
+                         f"found {a['reference_mjd'].dtype}", path=path, field="REFMJD")
     a["reference_mjd"] = np.char.strip(a["reference_mjd"].astype(str))
+    rows = len(a["reference_mjd"])
+    chan = a["channel_freq_mhz"].reshape(rows, -1)
     data = a["data"]
-    if data.ndim == 2:                              # one channel, or no TDIM
-        data = data[:, None, :]
+    if data.ndim == 2:                     # no TDIM: (rows, channels x bins)
+        width = max(chan.shape[1], 1)
+        data = data.reshape(rows, width, -1) if data.shape[1] % width == 0 else data[:, None]
     a["data"] = data
-    chan = a["channel_freq_mhz"].reshape(len(data), -1)
     if len(chan) and not np.all(chan == chan[:1]):
         row = int(np.flatnonzero(np.any(chan != chan[:1], axis=1))[0])
         raise InputError(f"column CHANFREQ in {label} differs in row {row + 1} from row 1: "
