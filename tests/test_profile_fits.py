@@ -11,9 +11,11 @@ from astropy.io import fits
 
 from timingkit.cli.main import main
 from timingkit.formats.errors import InputError
-from timingkit.formats.profile_file import ProfileSet, read_profile_file, read_profile_sets
+from timingkit.formats.profile_file import (ProfileSet, read_profile_file, read_profile_sets,
+                                            read_template_file, write_template_file)
 from timingkit.formats.profile_fits import write_profile_fits
 from timingkit.formats.toa_reader import read_toa_table
+from timingkit.profiles.templates import builtin_template
 
 SAMPLE = os.path.join(os.path.dirname(__file__), "..", "timingkit", "sample_data")
 
@@ -86,8 +88,9 @@ def test_npz_and_fits_give_identical_toas(tmp_path, capsys):
     tables = {}
     for name, files in (("npz", npz_files), ("fits", fits_files)):
         out = tmp_path / f"{name}.toas"
-        assert main(["profile-toas", *files, "--template", str(tmp_path / name / "template.npz"),
-                     "--per-channel", "-o", str(out)]) == 0
+        template = tmp_path / name / f"template.{name}"        # the format of the profiles
+        assert main(["profile-toas", *files, "--template", str(template), "--per-channel", "-o",
+                     str(out)]) == 0
         auto = tmp_path / f"{name}-auto.toas"
         assert main(["profile-toas", *files, "--template", "auto", "-o", str(auto)]) == 0
         tables[name] = read_toa_table(str(out)), read_toa_table(str(auto))
@@ -97,6 +100,36 @@ def test_npz_and_fits_give_identical_toas(tmp_path, capsys):
         assert np.array_equal(fixed.err_us, auto.err_us)
         assert [p.replace(".npz", "") for p in fixed.flags["profile"]] == [
             p.replace(".fits", "") for p in auto.flags["profile"]]
+
+
+def test_template_fits(tmp_path, capsys):
+    template = builtin_template(128)
+    path = tmp_path / "t.fits"
+    write_template_file(template, str(path))
+    back = read_template_file(str(path))
+    assert np.array_equal(back.profile, template.profile)
+    assert np.array_equal(back.components, template.components)
+    with fits.open(path) as hdul:                 # as an independent reader sees it
+        assert hdul["TEMPLATE"].header["TKFORMAT"] == "timingkit-template"
+        assert np.array_equal(hdul["COMPONENTS"].data["FWHM"], template.components[:, 1])
+        hdul["TEMPLATE"].data = np.ones(128)
+        hdul.writeto(tmp_path / "flat.fits")
+    with pytest.raises(InputError, match=r"TEMPLATE \(HDU 1\) data: a template needs") as err:
+        read_template_file(str(tmp_path / "flat.fits"))
+    assert err.value.field == "TEMPLATE"
+    with fits.open(path) as hdul:
+        cols = [c for c in hdul["COMPONENTS"].columns if c.name != "FWHM"]
+        hdul["COMPONENTS"] = fits.BinTableHDU.from_columns(cols, name="COMPONENTS")
+        hdul.writeto(tmp_path / "nofwhm.fits")
+    with pytest.raises(InputError, match=r"column FWHM missing in COMPONENTS \(HDU 2\)"):
+        read_template_file(str(tmp_path / "nofwhm.fits"))
+    # a profile file is not a template, nor the reverse
+    rng = np.random.default_rng(8)
+    write_profile_fits([_set(rng)], str(tmp_path / "obs.fits"))
+    with pytest.raises(InputError, match="no template in this FITS file"):
+        read_template_file(str(tmp_path / "obs.fits"))
+    with pytest.raises(InputError, match="no profile set in this FITS file"):
+        read_profile_sets(str(path))
 
 
 def _broken(tmp_path, change):

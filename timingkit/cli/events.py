@@ -42,14 +42,14 @@ def add_parsers(sub) -> None:
     p = sub.add_parser("event-toas", help="TOAs from photon events (unbinned likelihood)")
     _event_input_options(p)
     p.add_argument("--template", required=True, metavar="FILE|auto",
-                   help="pulse template file (.npz, as for profile-toas), or 'auto' to fit "
+                   help="pulse template file (.npz or FITS, as for profile-toas), or 'auto' to fit "
                         "one to the folded events")
     p.add_argument("--span-days", type=float, required=True, metavar="D",
                    help="one TOA per D days of events")
     p.add_argument("--min-events", type=int, default=20, metavar="N",
                    help="skip chunks with fewer events (default 20)")
     p.add_argument("--save-template", metavar="FILE",
-                   help="write the template used (.npz template file)")
+                   help="write the template used (template file; .fits: as FITS, else .npz)")
     p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
     p.set_defaults(func=cmd_event_toas)
 

@@ -13,10 +13,10 @@ def add_parsers(sub) -> None:
     p.add_argument("profiles", nargs="+", help="profile files (.npz, one observation each, or "
                                                "FITS, one or more)")
     p.add_argument("--template", required=True, metavar="FILE|auto",
-                   help="template file (.npz), or 'auto' to build one from the profiles")
+                   help="template file (.npz or FITS), or 'auto' to build one from the profiles")
     p.add_argument("--write-template", metavar="FILE",
-                   help="where --template auto writes its template (default: TOAS with "
-                        ".template.npz)")
+                   help="where --template auto writes its template (.fits: as FITS; "
+                        "default: TOAS with .template.npz)")
     p.add_argument("--per-channel", action="store_true", help="one TOA per channel")
     p.add_argument("--per-subint", action="store_true", help="one TOA per sub-integration")
     p.add_argument("--min-snr", type=float, default=8.0, metavar="S",
@@ -53,7 +53,7 @@ def add_parsers(sub) -> None:
     s.add_argument("--sites", action="append", default=[], metavar="FILE")
     s.add_argument("--ephemeris", metavar="BSP")
     s.add_argument("--profile-format", choices=("npz", "fits"), default="npz",
-                   help="file format of the profiles written (default npz)")
+                   help="file format of the profiles and template written (default npz)")
     s.add_argument("-o", "--outdir", required=True, metavar="DIR")
     s.set_defaults(func=cmd_simulate_profiles)
 
@@ -127,9 +127,9 @@ def cmd_simulate_profiles(args) -> int:
     sets = simulate_profiles(true, folding, sim, context, template)
     width, suffix = len(str(len(sets))), args.profile_format
     with output_set(args.outdir, inputs, purpose="simulated profiles") as work:
-        write_template_file(template, os.path.join(work, "template.npz"))
+        write_template_file(template, os.path.join(work, f"template.{suffix}"))
         for k, ps in enumerate(sets, start=1):
             write_profile_file(ps, os.path.join(work, f"obs-{k:0{width}d}.{suffix}"))
     print(f"wrote {len(sets)} profile files (.{suffix}, {args.subints} sub-integration(s) x "
-          f"{args.channels} channel(s) x {args.bins} bins) and template.npz to {args.outdir}")
+          f"{args.channels} channel(s) x {args.bins} bins) and template.{suffix} to {args.outdir}")
     return 0

@@ -13,7 +13,7 @@
 - ``predictor_file``: phase-predictor files (JSON Chebyshev segments).
 - ``window_file``: observing-window files (start and end MJD per line) for predictors.
 - ``profile_file``: folded-profile and template files (.npz); ``profile_fits``: folded
-  profiles in our FITS layout (one binary table per observation).
+  profiles (one binary table per observation) and templates in our FITS layout.
 - ``quantities``: astropy quantities and times from Python callers, converted or refused.
 - ``ogip_time``: the OGIP timing keywords of a FITS table (MJDREF, TIMEZERO, TIMESYS, ...).
 - ``event_list``, ``event_fits``, ``event_text``: photon event lists (:class:`EventList`;

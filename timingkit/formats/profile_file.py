@@ -93,6 +93,10 @@ def _text(value) -> np.ndarray:
     return np.asarray(str(value))
 
 
+def _is_fits_name(path) -> bool:
+    return str(path).lower().endswith((".fits", ".fit"))
+
+
 def _save(path: str, arrays: dict) -> None:
     buffer = io.BytesIO()
     np.savez_compressed(buffer, **arrays)
@@ -120,7 +124,7 @@ def write_profile_file(profiles: ProfileSet, path: str) -> None:
     """Write one observation's profiles (atomically): FITS
     (:mod:`timingkit.formats.profile_fits`) when ``path`` ends in .fits or
     .fit, else .npz."""
-    if str(path).lower().endswith((".fits", ".fit")):
+    if _is_fits_name(path):
         from timingkit.formats.profile_fits import write_profile_fits
         write_profile_fits([profiles], path)
         return
@@ -130,12 +134,24 @@ def write_profile_file(profiles: ProfileSet, path: str) -> None:
 
 
 def write_template_file(template: Template, path: str) -> None:
+    """Write a template (atomically): FITS when ``path`` ends in .fits or .fit
+    (:mod:`timingkit.formats.profile_fits`), else .npz."""
+    if _is_fits_name(path):
+        from timingkit.formats.profile_fits import write_template_fits
+        write_template_fits(template, path)
+        return
+    arrays = template_arrays(template)
+    check_template_arrays(arrays, path)
+    _save(path, arrays)
+
+
+def template_arrays(template: Template) -> dict:
+    """The arrays of a template file (module docstring) of ``template``."""
     arrays = {"format": _text(TEMPLATE_FORMAT), "version": np.asarray(FORMAT_VERSION),
               "profile": np.asarray(template.profile, dtype=float)}
     if template.components is not None:
         arrays["components"] = np.asarray(template.components, dtype=float)
-    _check_template(arrays, path)
-    _save(path, arrays)
+    return arrays
 
 
 def _load(path: str, what: str, fmt: str, legal) -> dict:
@@ -215,7 +231,8 @@ def check_profile_arrays(a: dict, path) -> None:
                              path=path, field="simulated_shift_cycles")
 
 
-def _check_template(a: dict, path) -> None:
+def check_template_arrays(a: dict, path) -> None:
+    """The rules of a template file's arrays (InputError naming the key)."""
     profile = _need(a, "profile", path, 1)
     if len(profile) < 8 or not np.ptp(profile) > 0:
         raise InputError("a template needs at least 8 bins and a pulse (not a flat line)",
@@ -261,13 +278,18 @@ def profile_set_of(a: dict, path) -> ProfileSet:
 
 
 def read_template_file(path: str) -> Template:
+    """Read and check a template (.npz, or FITS: :mod:`timingkit.formats.profile_fits`)."""
     path = os.fspath(path)
+    if is_fits_file(path, "template file"):
+        from timingkit.formats.profile_fits import read_template_fits
+        return read_template_fits(path)
     a = _load(path, "template file", TEMPLATE_FORMAT, TEMPLATE_KEYS)
-    _check_template(a, path)
+    check_template_arrays(a, path)
     return Template(profile=np.asarray(a["profile"], dtype=float),
                     components=a.get("components"), path=path)
 
 
 __all__ = ["ProfileSet", "Template", "read_profile_file", "read_profile_sets",
            "write_profile_file", "profile_arrays", "check_profile_arrays", "profile_set_of",
+           "check_template_arrays", "template_arrays",
            "read_template_file", "write_template_file"]

@@ -1,4 +1,4 @@
-"""Folded pulse profiles as FITS (our own layout, README "Folded profiles,
+"""Folded pulse profiles and templates as FITS (our own layout, README "Folded profiles,
 FITS"), read and written with astropy.io.fits.
 
 A file holds one or more profile sets (observations), each a binary-table
@@ -31,9 +31,13 @@ DURATION    number, s         integration time (optional)
 SIMSHIFT    channels, cycles  simulated shift (simulations only)
 ==========  ================  =========================================
 
-The content is the .npz profile file's (:mod:`timingkit.formats.profile_file`)
-and is checked by the same rules; errors name the HDU and the keyword or
-column.
+A template file holds an image HDU (named TEMPLATE) of the template's bins,
+marked ``TKFORMAT = 'timingkit-template'`` and ``TKFMTVER = 1``, and, for a
+fitted template, a binary table COMPONENTS with the columns CENTRE and FWHM
+(cycles) and AMPLITUDE, one row per von Mises component.
+
+The content is the .npz files' (:mod:`timingkit.formats.profile_file`) and is
+checked by the same rules; errors name the HDU and the keyword or column.
 """
 
 from __future__ import annotations
@@ -41,14 +45,16 @@ from __future__ import annotations
 import io
 import re
 import warnings
+from contextlib import contextmanager
 
 import numpy as np
 
 from timingkit.formats.errors import InputError
 from timingkit.formats.model_file import atomic_write_bytes
-from timingkit.formats.profile_file import (FORMAT_VERSION, PROFILE_FORMAT, ProfileSet,
-                                            check_profile_arrays, profile_arrays,
-                                            profile_set_of)
+from timingkit.formats.profile_file import (FORMAT_VERSION, PROFILE_FORMAT, TEMPLATE_FORMAT,
+                                            ProfileSet, Template, check_profile_arrays,
+                                            check_template_arrays, profile_arrays,
+                                            profile_set_of, template_arrays)
 from timingkit.formats.safe_read import check_regular_file
 
 EXTNAME = "PROFILES"
@@ -58,6 +64,9 @@ COLUMNS = {"reference_mjd": "REFMJD", "folding_frequency_hz": "FOLDFREQ",
            "channel_freq_mhz": "CHANFREQ", "data": "PROFILE", "duration_s": "DURATION",
            "simulated_shift_cycles": "SIMSHIFT"}
 OPTIONAL = ("OBJECT", "DURATION", "SIMSHIFT")
+TEMPLATE_EXTNAME = "TEMPLATE"
+COMPONENTS_EXTNAME = "COMPONENTS"
+COMPONENT_COLUMNS = ("CENTRE", "FWHM", "AMPLITUDE")
 
 
 def _hdu_table(profiles: ProfileSet, index: int):
@@ -181,22 +190,35 @@ def _checked(a: dict, label: str, path) -> dict:
 def read_profile_fits(path: str) -> list[ProfileSet]:
     """Every profile set (HDU with TKFORMAT = 'timingkit-profiles') of a FITS
     file, in HDU order; errors name the file, the HDU and the keyword or column."""
+    with _fits_file(path, "profile file") as hdul:
+        marked = _marked(hdul, PROFILE_FORMAT, "profile set", "binary-table", path)
+        return [_profile_set(hdul, i, path, len(marked) > 1) for i in marked]
+
+
+@contextmanager
+def _fits_file(path, what: str):
+    """The open HDU list of a regular file, read-only; astropy's warnings on a
+    damaged file are silenced (the errors raised say what is wrong)."""
     from astropy.io import fits
-    check_regular_file(path, "profile file")
-    with warnings.catch_warnings():              # astropy's own notes on a damaged file
+    check_regular_file(path, what)
+    with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         try:
             hdul = fits.open(path, memmap=False, mode="readonly")
-            marked = [i for i, h in enumerate(hdul)
-                      if h.header.get("TKFORMAT") == PROFILE_FORMAT]
+            len(hdul)                    # reads every header: a damaged file fails here
         except (OSError, ValueError) as exc:
             raise InputError(f"not a readable FITS file ({exc})", path=path) from None
         with hdul:
-            if not marked:
-                raise InputError(f"no profile set in this FITS file: expected a binary-table "
-                                 f"HDU with TKFORMAT = '{PROFILE_FORMAT}'", path=path,
-                                 field="TKFORMAT")
-            return [_profile_set(hdul, i, path, len(marked) > 1) for i in marked]
+            yield hdul
+
+
+def _marked(hdul, fmt: str, what: str, kind: str, path) -> list[int]:
+    """The HDUs marked TKFORMAT = ``fmt``; InputError when there is none."""
+    marked = [i for i, h in enumerate(hdul) if h.header.get("TKFORMAT") == fmt]
+    if not marked:
+        raise InputError(f"no {what} in this FITS file: expected a {kind} HDU with TKFORMAT = "
+                         f"'{fmt}'", path=path, field="TKFORMAT")
+    return marked
 
 
 def _profile_set(hdul, i: int, path, several: bool) -> ProfileSet:
@@ -214,4 +236,60 @@ def _profile_set(hdul, i: int, path, several: bool) -> ProfileSet:
     return ps
 
 
-__all__ = ["read_profile_fits", "write_profile_fits", "KEYWORDS", "COLUMNS"]
+def write_template_fits(template: Template, path: str) -> None:
+    """Write a template as FITS (module docstring), atomically, checked first."""
+    from astropy.io import fits
+    a = template_arrays(template)
+    check_template_arrays(a, path)
+    image = fits.ImageHDU(a["profile"], name=TEMPLATE_EXTNAME)
+    image.header["TKFORMAT"] = (TEMPLATE_FORMAT, "pulse template, timingkit layout")
+    image.header["TKFMTVER"] = (FORMAT_VERSION, "version of that layout")
+    hdus = [fits.PrimaryHDU(), image]
+    if "components" in a:
+        comps = a["components"]
+        hdus.append(fits.BinTableHDU.from_columns(
+            [fits.Column(name=name, format="D", unit="cycles" if k < 2 else None,
+                         array=comps[:, k]) for k, name in enumerate(COMPONENT_COLUMNS)],
+            name=COMPONENTS_EXTNAME))
+    buffer = io.BytesIO()
+    fits.HDUList(hdus).writeto(buffer)
+    atomic_write_bytes(path, buffer.getvalue())
+
+
+def read_template_fits(path: str) -> Template:
+    """The template of a FITS file: the image HDU marked TKFORMAT =
+    'timingkit-template' and, when present, the COMPONENTS table."""
+    from astropy.io import fits
+    with _fits_file(path, "template file") as hdul:
+        i = _marked(hdul, TEMPLATE_FORMAT, "template", "one-dimensional image", path)[0]
+        label = _label(hdul, i)
+        if hdul[i].header.get("TKFMTVER") != FORMAT_VERSION:
+            raise InputError(f"TKFMTVER {hdul[i].header.get('TKFMTVER')!r} in {label} is not "
+                             f"supported (this timingkit reads version {FORMAT_VERSION})",
+                             path=path, field="TKFMTVER")
+        profile = hdul[i].data if isinstance(hdul[i], (fits.ImageHDU, fits.PrimaryHDU)) else None
+        if profile is None or profile.ndim != 1:
+            raise InputError(f"{label}: expected a one-dimensional image of the template's bins",
+                             path=path, field="TKFORMAT")
+        a = {"profile": np.asarray(profile, dtype=float)}
+        names = {"profile": f"{label} data"}
+        if COMPONENTS_EXTNAME in hdul:
+            table = hdul[COMPONENTS_EXTNAME]
+            names["components"] = _label(hdul, hdul.index_of(COMPONENTS_EXTNAME))
+            missing = [c for c in COMPONENT_COLUMNS if c not in table.columns.names]
+            if missing:
+                raise InputError(f"column {missing[0]} missing in {names['components']}",
+                                 path=path, field=missing[0])
+            a["components"] = np.column_stack([np.asarray(table.data[c], dtype=float)
+                                               for c in COMPONENT_COLUMNS])
+        try:
+            check_template_arrays(a, path)
+        except InputError as exc:
+            raise InputError(f"{names.get(exc.field, exc.field)}: {exc.message}", path=path,
+                             field=TEMPLATE_EXTNAME if exc.field == "profile" else
+                             COMPONENTS_EXTNAME) from None
+        return Template(profile=a["profile"], components=a.get("components"), path=path)
+
+
+__all__ = ["read_profile_fits", "write_profile_fits", "read_template_fits",
+           "write_template_fits", "KEYWORDS", "COLUMNS"]
