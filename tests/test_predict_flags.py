@@ -125,6 +125,8 @@ def test_predict_command_flags(tmp_path, capsys):
     assert main(base + ["--flag", "backend=a", "--flag", "backend=b", "-o",
                         str(tmp_path / "x.json")]) == 2
     assert "given twice" in capsys.readouterr().err
+    assert main(base + ["--flag", "mjd=1", "-o", str(tmp_path / "x.json")]) == 2
+    assert "field '--flag': a flag may not be named 'mjd'" in capsys.readouterr().err
     assert not (tmp_path / "x.json").exists()
     assert main(base + ["-o", str(tmp_path / "y.json")]) == 0
     assert "caution: time-offset group(s) not applied" in capsys.readouterr().err

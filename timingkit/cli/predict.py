@@ -74,7 +74,8 @@ def cmd_predict(args) -> int:
         write_predictor_file(data, args.output)
         print(f"wrote {len(predictor)} segments (degree {int(data.degrees.min())}-"
               f"{int(data.degrees.max())}) covering MJD {predictor.start_text} to "
-              f"{predictor.end_text}{_in_windows(predictor)} at {data.site}, {data.freq_mhz:g} MHz, to {args.output}; "
+              f"{predictor.end_text}{_in_windows(predictor)} at {data.site}, "
+              f"{data.freq_mhz:g} MHz, to {args.output}; "
               f"estimated largest error {data.estimated_max_error_cycles:.2g} cycles")
     for offset in data.time_offsets_applied:
         print(f"applied time offset {offset['offset_s']:.9g} s of the group {offset['flag']} = "
@@ -113,7 +114,9 @@ def build_from_files(args):
     from timingkit.pipeline.inputs import load_context, load_model, reference_observations
     from timingkit.predict.build import build_predictor, build_window_predictor
     from timingkit.predict.model_phase import PhaseContext
+    from timingkit.predict.time_offsets import check_observation_flags
     flags = parse_flag_options(args.flag)
+    check_observation_flags(flags, field="--flag")
     windows = None
     if args.windows:
         from timingkit.formats.window_file import read_window_file

@@ -32,10 +32,10 @@ from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.predict.model_phase import PhaseContext, evaluate_at
 from timingkit.predict.predictor import PhasePredictor, segment_x
-from timingkit.predict.time_offsets import (check_observation_flags, flag_cautions,
-                                            time_offsets_applied)
 from timingkit.predict.segments import (Segments, cut_points, plan_segments,
                                         seconds_per_day_of)
+from timingkit.predict.time_offsets import (check_observation_flags, flag_cautions,
+                                            time_offsets_applied)
 
 DEFAULT_ACCURACY_CYCLES = 1e-9
 OTHER_TIME_SCALES = {"geocentre": "TT (the TOA-table convention for site geocentre)",

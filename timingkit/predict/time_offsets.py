@@ -27,7 +27,10 @@ def check_observation_flags(flags, field: str = "flags") -> dict[str, str]:
         name, value = str(name).strip(), str(value).strip()
         if not name:
             raise InputError("a flag needs a name (NAME=VALUE)", field=field)
-        check_flag_name(name)
+        try:
+            check_flag_name(name)
+        except InputError as exc:
+            raise InputError(exc.message, field=field) from None
         if not value or any(c.isspace() for c in value):
             raise InputError(f"flag {name!r} needs a value without spaces (NAME=VALUE), found "
                              f"{value!r}", field=field)
