@@ -1,6 +1,6 @@
 """Folded pulse profiles and profile templates, as NumPy ``.npz`` files (our own
 formats, README "Folded profiles"). Read without pickle (plain arrays only).
-Profiles may also be FITS (:mod:`timingkit.formats.profile_fits`, the same
+Profiles and templates may also be FITS (:mod:`timingkit.formats.profile_fits`, the same
 content); the readers here tell them apart by the file's first bytes.
 
 Profile file (one observation at one site)::
