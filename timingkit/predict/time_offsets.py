@@ -62,7 +62,8 @@ def flag_cautions(model: TimingModel, flags: dict[str, str]) -> list[str]:
         out.append(f"time-offset group(s) not applied, since no value of their flag "
                    f"({', '.join(names)}) was given for this observation: {listed}. If the "
                    "observation has that flag, state it (timingkit predict --flag "
-                   f"{names[0]}=VALUE) or the predicted phases are off by those offsets")
+                   f"{names[0]}=VALUE; flags= from Python), or the predicted phases are off by "
+                   "those offsets times the spin frequency")
     used = {g.flag for g in groups}
     for name in flags:
         if name not in used:
