@@ -256,3 +256,32 @@ def test_simulate_profiles_writes_its_outputs_as_one_set(tmp_path, capsys, monke
     assert simulate(2, data) == 2                         # the folder of the inputs
     assert "holds an input" in capsys.readouterr().err
     assert (data / "demo-slow.toml").exists() and not list(data.glob("obs-*.npz"))
+
+
+def test_profile_toas_carry_the_flags_given(tmp_path, capsys):
+    # --flag NAME=VALUE puts the observation's flag on every TOA, so a
+    # [[time_offset]] group of the model can take them; names profile-toas sets
+    # itself, or the TOA table's own columns, are refused naming the option.
+    from timingkit.formats.toa_reader import read_toa_table
+    data = tmp_path / "data"
+    shutil.copytree(SAMPLE, data)
+    sim = tmp_path / "sim"
+    assert main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
+                 "--start", "60000", "--end", "60004", "--count", "3", "--bins", "128",
+                 "--snr", "60", "--seed", "4", "-o", str(sim)]) == 0
+    files = sorted(str(p) for p in sim.glob("obs-*.npz"))
+    out = tmp_path / "flagged.toas"
+    assert main(["profile-toas", *files, "--template", str(sim / "template.npz"),
+                 "--flag", "backend=wide-b", "--flag", "receiver=low", "-o", str(out)]) == 0
+    table = read_toa_table(str(out))
+    assert list(table.flags["backend"]) == ["wide-b"] * 3
+    assert list(table.flags["receiver"]) == ["low"] * 3
+    assert set(table.flags) == {"profile", "snr", "backend", "receiver"}
+    capsys.readouterr()
+    for bad in ("snr=3", "mjd=1", "backend", "backend=a b"):
+        target = tmp_path / "bad.toas"
+        assert main(["profile-toas", *files, "--template", str(sim / "template.npz"),
+                     "--flag", bad, "-o", str(target)]) == 2
+        err = capsys.readouterr().err
+        assert "--flag" in err and "Traceback" not in err, (bad, err)
+        assert not target.exists()

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import argparse
 
+from timingkit.formats.errors import InputError, excerpt
+
 
 def comma_list(text: str) -> list[str]:
     """An option value that is a comma-separated list (``a,b,c``)."""
@@ -57,7 +59,7 @@ def converged_status(report: dict) -> int:
 
 
 # Python argument names (the library's error fields) and the options that set them
-OPTION_OF_ARGUMENT = {"free": "--free", "fix": "--fix", "window_toas": "--window-toas",
+OPTION_OF_ARGUMENT = {"free": "--free", "flags": "--flag", "fix": "--fix", "window_toas": "--window-toas",
                       "window_days": "--window-days", "window_toas/window_days":
                       "--window-toas/--window-days", "min_significance": "--min-significance",
                       "known_epochs_mjd": "--known-epochs", "null_trials": "--null-trials",
@@ -115,3 +117,18 @@ def selection_arguments(args) -> dict:
     files = [path for item in args.exclude for path in item.split(",") if path]
     return {"exclude_paths": files, "select": list(args.select),
             "leave_out": list(args.leave_out)}
+
+
+def parse_flag_options(texts: list[str]) -> dict[str, str]:
+    """``--flag NAME=VALUE`` options as a dict (a name given twice is an error)."""
+    flags: dict[str, str] = {}
+    for text in texts:
+        name, sep, value = text.partition("=")
+        if not sep or not name.strip() or not value.strip():
+            raise InputError(f"expected NAME=VALUE, found {excerpt(text)}", field="--flag",
+                             quoted=(text,))
+        if name.strip() in flags:
+            raise InputError(f"flag {excerpt(name.strip())} given twice", field="--flag",
+                             quoted=(name.strip(),))
+        flags[name.strip()] = value.strip()
+    return flags

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import sys
 
+from timingkit.cli.options import parse_flag_options
 from timingkit.formats.errors import InputError
 
 
@@ -94,20 +95,6 @@ def cmd_predict(args) -> int:
 def _in_windows(predictor) -> str:
     count = len(predictor.windows())
     return f" in {count} windows" if count > 1 else ""
-
-
-def parse_flag_options(texts: list[str]) -> dict[str, str]:
-    """``--flag NAME=VALUE`` options as a dict (a name given twice is an error)."""
-    flags: dict[str, str] = {}
-    for text in texts:
-        name, sep, value = text.partition("=")
-        if not sep or not name.strip() or not value.strip():
-            raise InputError(f"expected NAME=VALUE, found {text!r}", field="--flag",
-                             quoted=(text,))
-        if name.strip() in flags:
-            raise InputError(f"flag {name.strip()!r} given twice", field="--flag")
-        flags[name.strip()] = value.strip()
-    return flags
 
 
 def build_from_files(args):

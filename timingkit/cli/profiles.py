@@ -21,6 +21,9 @@ def add_parsers(sub) -> None:
     p.add_argument("--per-subint", action="store_true", help="one TOA per sub-integration")
     p.add_argument("--min-snr", type=float, default=8.0, metavar="S",
                    help="no TOA from a profile below this S/N (default 8)")
+    p.add_argument("--flag", action="append", default=[], metavar="NAME=VALUE",
+                   help="a flag put on every TOA (repeatable), e.g. --flag backend=wide-b so "
+                        "the model's [[time_offset]] groups take them")
     p.add_argument("-o", "--output", required=True, metavar="TOAS")
     p.set_defaults(func=cmd_profile_toas)
 
@@ -66,6 +69,8 @@ def cmd_profile_toas(args) -> int:
     from timingkit.profiles.toas import gather_profiles, time_profiles
     from timingkit.formats.atomic_file import refuse_output_over_inputs
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
+    from timingkit.cli.options import parse_flag_options
+    flags = parse_flag_options(args.flag)
     sets = [ps for path in args.profiles for ps in read_profile_sets(path)]
     timed = gather_profiles(sets, args.per_channel, args.per_subint)
     bins = timed.profiles.shape[1]
@@ -75,7 +80,7 @@ def cmd_profile_toas(args) -> int:
     else:
         template = read_template_file(args.template)
         template_path = None
-    result = time_profiles(timed, resample(template.profile, bins), args.min_snr)
+    result = time_profiles(timed, resample(template.profile, bins), args.min_snr, flags)
     if template_path:
         write_template_file(template, template_path)
     write_toa_table(result.toas, args.output)

@@ -28,6 +28,7 @@ from timingkit.formats.profile_file import ProfileSet
 from timingkit.formats.toa_table import ToaTable
 from timingkit.geometry.delays import dispersion_delay_s
 from timingkit.numerics.timearray import SplitTime
+from timingkit.predict.time_offsets import check_observation_flags
 from timingkit.profiles.phase_gradient import ShiftFit, fit_shifts
 
 DEFAULT_MIN_SNR = 8.0
@@ -108,10 +109,19 @@ def gather_profiles(sets: list[ProfileSet], per_channel: bool = False,
                          simulated_shift_cycles=truth)
 
 
+OWN_FLAGS = ("profile", "snr")       # flags every profile TOA carries
+
+
 def time_profiles(timed: TimedProfiles, template: np.ndarray,
-                  min_snr: float = DEFAULT_MIN_SNR) -> ProfileToas:
+                  min_snr: float = DEFAULT_MIN_SNR, flags: dict | None = None) -> ProfileToas:
     """One TOA per profile whose S/N reaches ``min_snr`` (flags ``profile`` and
-    ``snr``), in time order."""
+    ``snr``, plus ``flags``, name -> value, on every TOA: the observation's
+    backend, say, so the model's [[time_offset]] groups take them), in time order."""
+    flags = check_observation_flags(flags, field="flags")
+    clash = sorted(set(flags) & set(OWN_FLAGS))
+    if clash:
+        raise InputError(f"flag '{clash[0]}' is set by profile-toas itself; choose another "
+                         "name", field="flags")
     fit = fit_shifts(timed.profiles, template)
     keep = (fit.snr >= min_snr) & np.isfinite(fit.shift_err_cycles)
     skipped = [f"{label}: S/N {snr:.1f} below {min_snr:g}, no TOA"
@@ -127,5 +137,7 @@ def time_profiles(timed: TimedProfiles, template: np.ndarray,
     toas = ToaTable.from_arrays(t.day[rows], t.frac[rows], err_us[rows], timed.freq_mhz[rows],
                                 timed.site[rows], flags={
                                     "profile": timed.label[rows],
-                                    "snr": np.array([f"{s:.1f}" for s in fit.snr[rows]])})
+                                    "snr": np.array([f"{s:.1f}" for s in fit.snr[rows]]),
+                                    **{name: np.full(len(rows), value)
+                                       for name, value in flags.items()}})
     return ProfileToas(toas=toas, fit=fit, timed=timed, skipped=skipped)
