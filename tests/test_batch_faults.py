@@ -23,7 +23,7 @@ import pytest
 from timingkit.batch.runner import run_batch
 from timingkit.batch.sources import discover_sources
 from timingkit.formats.errors import InputError
-from timingkit.outputs.folder_lock import lock_output_folder
+from timingkit.outputs.folder_lock import lock_output_folder, lock_path
 
 ROOT = Path(__file__).resolve().parents[1]
 TESTS = Path(__file__).resolve().parent
@@ -141,7 +141,7 @@ def test_a_second_batch_on_a_locked_folder_is_refused_or_waits(tmp_path, capsys)
                        wait=True)
     holder.join()
     assert result.exit_status == 0 and (outdir / "summary.csv").exists()
-    assert (outdir / ".timingkit-lock").read_text() == ""     # released: names nobody
+    assert not lock_path(outdir).exists()                    # released: removed
 
 
 def _hold_lock(folder, seconds):

@@ -5,9 +5,9 @@
   and ends itself as soon as the main process is gone (SIGKILL included), so
   nothing outlives the batch; its unfinished work folder is left, marked, for the
   next run to remove.
-- :func:`terminate_on_signals`: in the main process, SIGTERM (and SIGHUP) raise
-  KeyboardInterrupt like SIGINT does, so the pool is shut down and its workers
-  stopped (:func:`stop_pool`) on every way of stopping a batch.
+- :func:`terminate_on_signals` (timingkit.outputs.stop_signals): in the main process,
+  SIGTERM (and SIGHUP) raise KeyboardInterrupt like SIGINT does, so the pool is shut
+  down and its workers stopped (:func:`stop_pool`) on every way of stopping a batch.
 - :func:`record_outputs` / :func:`outputs_intact`: ``outputs.sha256`` (the format
   of ``sha256sum``) lists every output of a source folder with its content hash;
   ``--resume`` keeps a folder only when all of them are there, unchanged.
@@ -18,12 +18,12 @@ from __future__ import annotations
 import contextlib
 import hashlib
 import os
-import signal
 import threading
 import time
 from pathlib import Path
 
 from timingkit.outputs.output_set import MARKER
+from timingkit.outputs.stop_signals import terminate_on_signals  # noqa: F401 (offered here)
 
 OUTPUTS_HASH_FILE = "outputs.sha256"
 POLL_S = 0.25                       # how often a worker looks for its batch
@@ -72,26 +72,6 @@ def watch_parent(batch_pid: int | None) -> None:
     parent_is_gone(batch_pid)       # records how this process tells (see there)
     threading.Thread(target=_watch, args=(batch_pid,), name="timingkit-watch-batch",
                      daemon=True).start()
-
-
-@contextlib.contextmanager
-def terminate_on_signals():
-    """SIGTERM and SIGHUP raise KeyboardInterrupt in the main thread for the block
-    (handlers restored after); elsewhere (not the main thread) it does nothing."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-
-    def interrupt(signum, frame):
-        raise KeyboardInterrupt(f"stopped by signal {signal.Signals(signum).name}")
-
-    names = [n for n in ("SIGTERM", "SIGHUP") if hasattr(signal, n)]
-    saved = {n: signal.signal(getattr(signal, n), interrupt) for n in names}
-    try:
-        yield
-    finally:
-        for n, handler in saved.items():
-            signal.signal(getattr(signal, n), handler)
 
 
 def stop_pool(pool, grace_s: float = 5.0) -> None:

@@ -3,7 +3,7 @@ from X-ray and gamma-ray observers."""
 
 from __future__ import annotations
 
-from timingkit.cli.options import add_context_options
+from timingkit.cli.options import add_context_options, add_wait_option
 
 
 def _observer_options(p) -> None:
@@ -37,6 +37,7 @@ def add_parsers(sub) -> None:
                    help="phase bins of the profile (default 32)")
     p.add_argument("-o", "--outdir", default="timingkit-events", help="output folder")
     p.add_argument("--no-plot", action="store_true", help="skip profile.png")
+    add_wait_option(p)
     p.set_defaults(func=cmd_events)
 
     p = sub.add_parser("event-toas", help="TOAs from photon events (unbinned likelihood)")
@@ -51,6 +52,7 @@ def add_parsers(sub) -> None:
     p.add_argument("--save-template", metavar="FILE",
                    help="write the template used (template file; .fits: as FITS, else .npz)")
     p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
+    add_wait_option(p, "the TOA table")
     p.set_defaults(func=cmd_event_toas)
 
     p = sub.add_parser("simulate-events", help="simulate a photon event list (OGIP FITS)")

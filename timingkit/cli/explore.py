@@ -3,6 +3,8 @@ from a fit's output folder."""
 
 from __future__ import annotations
 
+from timingkit.cli.options import add_wait_option
+
 
 def add_parsers(sub) -> None:
     p = sub.add_parser(
@@ -15,6 +17,7 @@ def add_parsers(sub) -> None:
     p.add_argument("outdir", help="folder written by 'fit', 'residuals' or 'glitches'")
     p.add_argument("-o", "--output", metavar="HTML", help="page to write (default "
                    "OUTDIR/explorer.html)")
+    add_wait_option(p, "into OUTDIR")
     p.set_defaults(func=cmd_explore)
 
 

@@ -8,6 +8,7 @@ import os
 import sys
 
 from timingkit.cli.options import (
+    add_wait_option,
     EXIT_NOT_CONVERGED,
     add_free_fix_options,
     add_input_options,
@@ -44,6 +45,7 @@ def add_parsers(sub) -> None:
     add_selection_options(p)
     p.add_argument("--explore", action="store_true",
                    help="also write explorer.html, the interactive residual explorer")
+    add_wait_option(p)
     p.set_defaults(func=cmd_fit)
 
     p = sub.add_parser("residuals", help="residuals of a model without fitting")
@@ -52,6 +54,7 @@ def add_parsers(sub) -> None:
                    help="output folder (default: SOURCE-residuals, after the model's name)")
     p.add_argument("--color-by", default="site")
     add_selection_options(p)
+    add_wait_option(p)
     p.set_defaults(func=cmd_residuals)
 
     p = sub.add_parser("barycentre", aliases=["barycenter"],

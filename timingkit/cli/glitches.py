@@ -17,6 +17,7 @@ import argparse
 import os
 
 from timingkit.cli.options import (
+    add_wait_option,
     add_free_fix_options,
     add_selection_options,
     converged_status,
@@ -77,6 +78,7 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
     p.add_argument("--no-plot", action="store_true", help="skip the figures")
     add_selection_options(p)
+    add_wait_option(p)
     p.set_defaults(func=cmd_glitches)
     return p
 

@@ -71,13 +71,22 @@ def _requested_group(argv) -> str | None:
     return None
 
 
+def _run(args):
+    """The command's handler; with --wait, busy output locks are waited for."""
+    if not getattr(args, "wait", False):
+        return args.func(args)
+    from timingkit.outputs.folder_lock import waiting_for_output_locks
+    with waiting_for_output_locks():
+        return args.func(args)
+
+
 def main(argv=None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     group = _requested_group(argv)
     parser = build_parser(None if group is None else [group])
     args = parser.parse_args(argv)
     try:
-        status = int(args.func(args) or 0)
+        status = int(_run(args) or 0)
         sys.stdout.flush()
         return status
     except BrokenPipeError:

@@ -50,6 +50,13 @@ def add_context_options(p: argparse.ArgumentParser) -> None:
                    help="clock-correction table; may be repeated")
 
 
+def add_wait_option(p: argparse.ArgumentParser, what: str = "the output") -> None:
+    """--wait: queue behind another run that holds the output's lock (outputs.folder_lock)."""
+    p.add_argument("--wait", action="store_true",
+                   help=f"when another timingkit run is writing {what}, wait for it to finish "
+                        "instead of refusing (exit 2)")
+
+
 EXIT_NOT_CONVERGED = 4     # outputs written, every one marked as not converged
 
 

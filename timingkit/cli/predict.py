@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from timingkit.cli.options import parse_flag_options
+from timingkit.cli.options import add_wait_option, parse_flag_options
 from timingkit.formats.errors import InputError
 
 
@@ -36,6 +36,7 @@ def add_parsers(sub) -> None:
                    help="print one line per segment: apparent frequency and period, phase "
                         "at the start")
     p.add_argument("-o", "--output", metavar="JSON", help="predictor file to write")
+    add_wait_option(p, "the predictor file")
     p.set_defaults(func=cmd_predict)
 
 
@@ -72,7 +73,9 @@ def cmd_predict(args) -> int:
     data = predictor.data
     if args.output:
         from timingkit.formats.predictor_file import write_predictor_file
-        write_predictor_file(data, args.output)
+        from timingkit.outputs.folder_lock import lock_output
+        with lock_output(args.output):
+            write_predictor_file(data, args.output)
         print(f"wrote {len(predictor)} segments (degree {int(data.degrees.min())}-"
               f"{int(data.degrees.max())}) covering MJD {predictor.start_text} to "
               f"{predictor.end_text}{_in_windows(predictor)} at {data.site}, "

@@ -6,6 +6,8 @@ from __future__ import annotations
 import os
 import sys
 
+from timingkit.cli.options import add_wait_option
+
 
 def add_parsers(sub) -> None:
     p = sub.add_parser("profile-toas", help="TOAs from folded profiles (phase-gradient fit "
@@ -25,6 +27,7 @@ def add_parsers(sub) -> None:
                    help="a flag put on every TOA (repeatable), e.g. --flag backend=wide-b so "
                         "the model's [[time_offset]] groups take them")
     p.add_argument("-o", "--output", required=True, metavar="TOAS")
+    add_wait_option(p, "the TOA table")
     p.set_defaults(func=cmd_profile_toas)
 
     s = sub.add_parser("simulate-profiles", help="simulate folded profiles of a model, folded "
@@ -58,6 +61,7 @@ def add_parsers(sub) -> None:
     s.add_argument("--profile-format", choices=("npz", "fits"), default="npz",
                    help="file format of the profiles and template written (default npz)")
     s.add_argument("-o", "--outdir", required=True, metavar="DIR")
+    add_wait_option(s)
     s.set_defaults(func=cmd_simulate_profiles)
 
 
@@ -68,6 +72,7 @@ def cmd_profile_toas(args) -> int:
     from timingkit.profiles.templates import auto_template, resample
     from timingkit.profiles.toas import gather_profiles, time_profiles
     from timingkit.formats.atomic_file import refuse_output_over_inputs
+    from timingkit.outputs.folder_lock import lock_output
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
     from timingkit.cli.options import parse_flag_options
     flags = parse_flag_options(args.flag)
@@ -81,9 +86,10 @@ def cmd_profile_toas(args) -> int:
         template = read_template_file(args.template)
         template_path = None
     result = time_profiles(timed, resample(template.profile, bins), args.min_snr, flags)
-    if template_path:
-        write_template_file(template, template_path)
-    write_toa_table(result.toas, args.output)
+    with lock_output(args.output):
+        if template_path:
+            write_template_file(template, template_path)
+        write_toa_table(result.toas, args.output)
     for line in result.skipped:
         print(f"skipped {line}", file=sys.stderr)
     made = f"; template ({len(template.components)} components) written to {template_path}" \

@@ -11,7 +11,9 @@
 - ``profile_figure``: profile.png of folded photon events (two cycles, unpulsed level).
 - ``explorer_page``: explorer.html, the interactive residual explorer of one fit.
 - ``output_set``: a command's output folder written as one marked set (:func:`output_set`).
-- ``folder_lock``: one run at a time per output folder (:func:`lock_output_folder`).
+- ``folder_lock``: one run at a time per output folder or file (:func:`lock_output`), a lock
+  file beside it; flock where there is fcntl, an O_EXCL file elsewhere.
+- ``stop_signals``: SIGTERM/SIGHUP raised as KeyboardInterrupt, so clean-up runs.
 """
 
 from timingkit import lazy_exports

@@ -27,6 +27,7 @@ from importlib import resources
 import numpy as np
 
 from timingkit.formats.errors import InputError
+from timingkit.outputs.folder_lock import lock_output
 from timingkit.outputs.residual_table import ResidualTable, atomic_output
 
 EXPLORER_FILE = "explorer.html"
@@ -225,9 +226,11 @@ def render_explorer_html(data: dict) -> str:
 
 
 def write_explorer(outdir: str, path: str | None = None) -> str:
-    """Write explorer.html (default ``outdir/explorer.html``) atomically; returns its path."""
+    """Write explorer.html (default ``outdir/explorer.html``) atomically, holding the lock
+    of ``outdir`` (outputs.folder_lock); returns its path."""
     path = path or os.path.join(outdir, EXPLORER_FILE)
-    text = render_explorer_html(explorer_data(outdir))
-    with atomic_output(path) as handle:
-        handle.write(text)
+    with lock_output(outdir):     # no run replaces the folder while it is read and written
+        text = render_explorer_html(explorer_data(outdir))
+        with atomic_output(path) as handle:
+            handle.write(text)
     return path

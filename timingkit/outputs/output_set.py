@@ -9,7 +9,8 @@ never half a set after a full disk, a read-only folder or a killed process.
 Every folder made here holds a marker file, :data:`MARKER`, naming timingkit as
 its writer. Clean-up (:func:`remove_own_leftovers`) and replacement touch only
 marked folders (or, for folders of earlier versions, folders holding nothing but
-timingkit's output files): a user's own files are never removed.
+timingkit's output files): a user's own files are never removed. The folder's
+lock (timingkit.outputs.folder_lock) is held while a set is written and swapped in.
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from pathlib import Path
 from timingkit.formats.atomic_file import (own_temporary_file, refuse_output_over_inputs,  # noqa: F401
                                           writing_error)
 from timingkit.formats.errors import InputError
+from timingkit.outputs.folder_lock import lock_output
 
 MARKER = ".timingkit-output"
 WORK_PREFIX, OLD_PREFIX = ".tmp-", ".old-"
@@ -157,31 +159,37 @@ def check_output_folder(folder, inputs=()) -> Path:
 
 
 @contextlib.contextmanager
-def output_set(folder, inputs=(), purpose: str = "outputs"):
+def output_set(folder, inputs=(), purpose: str = "outputs", wait: bool | None = None):
     """Write a command's outputs as one set: yields the work folder to write into,
     which becomes ``folder`` only when the block ends without error.
 
     Refuses (InputError) a ``folder`` that holds one of ``inputs``, that is a file,
     or that holds files timingkit did not write. A failure to write (full disk,
     read-only folder, permissions) is an InputError naming the folder; the old
-    ``folder`` is then left as it was.
+    ``folder`` is then left as it was. The folder's lock (outputs.folder_lock) is
+    held for the block: another run writing it is refused, or waited for with
+    ``wait`` (default: the CLI's --wait). A marked work folder (``.tmp-*``, a batch
+    worker's own) is private to its maker and is not locked.
     """
-    final = check_output_folder(folder, inputs)
-    try:
-        final.parent.mkdir(parents=True, exist_ok=True)
-        work = new_work_folder(final.parent, final.name, purpose)
-    except OSError as exc:
-        raise writing_error(exc, final) from None
-    try:
-        yield work
-        flush_to_disk(work)
-        swap_into_place(work, final)
-    except OSError as exc:
-        shutil.rmtree(work, ignore_errors=True)
-        raise writing_error(exc, final) from None
-    except BaseException:
-        shutil.rmtree(work, ignore_errors=True)
-        raise
+    check_output_folder(folder, inputs)       # refused at once, before any wait
+    private = Path(folder).name.startswith(WORK_PREFIX)
+    with contextlib.nullcontext() if private else lock_output(folder, wait=wait):
+        final = check_output_folder(folder, inputs)   # again: another run may have written it
+        try:
+            final.parent.mkdir(parents=True, exist_ok=True)
+            work = new_work_folder(final.parent, final.name, purpose)
+        except OSError as exc:
+            raise writing_error(exc, final) from None
+        try:
+            yield work
+            flush_to_disk(work)
+            swap_into_place(work, final)
+        except OSError as exc:
+            shutil.rmtree(work, ignore_errors=True)
+            raise writing_error(exc, final) from None
+        except BaseException:
+            shutil.rmtree(work, ignore_errors=True)
+            raise
 
 
 def default_output_folder(source_name: str | None, fallback: str, command: str) -> str:

@@ -296,6 +296,7 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     from timingkit.events.photon_toas import event_toas
     from timingkit.events.template import PulseTemplate
     from timingkit.formats.toa_writer import write_toa_table
+    from timingkit.outputs.folder_lock import lock_output
     if not span_days > 0:
         raise InputError(f"the chunk span must be > 0 days, found {span_days}", field="span_days")
     if not min_events >= 2:
@@ -312,9 +313,10 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     toas, facts, _ = event_toas(timing.phase, barycentric_mjd(clock, timing), span_days, shape,
                                 inputs.model, inputs.reference, inputs.ephemeris,
                                 min_events=min_events)
-    if save_template is not None:
-        shape.write(save_template)
-    write_toa_table(toas, toas_path)
+    with lock_output(toas_path):
+        if save_template is not None:
+            shape.write(save_template)
+        write_toa_table(toas, toas_path)
     facts.update(toas=len(toas), events=len(inputs.index),
                  warnings=inputs.warnings + facts.pop("warnings"),
                  observer=inputs.observer.label, clock=clock_state(inputs),
