@@ -78,6 +78,18 @@ def test_a_fit_on_a_locked_folder_exits_2_naming_the_holder(tmp_path, scheme, ca
     assert not lock_path(outdir).exists()                                 # released
 
 
+def test_a_busy_folder_is_refused_before_the_fit_not_after_it(tmp_path, monkeypatch, capsys):
+    import timingkit.pipeline.fit_run as fit_run
+
+    def no_fit(*args, **kwargs):
+        raise AssertionError("the fit ran although the output folder was busy")
+
+    monkeypatch.setattr(fit_run, "fit", no_fit)
+    with lock_output(tmp_path / "out"):
+        assert _fit(tmp_path / "out") == 2
+    assert "in use by" in capsys.readouterr().err
+
+
 def test_wait_queues_behind_the_holder_then_succeeds(tmp_path, scheme, capsys):
     outdir, started = tmp_path / "out", threading.Event()
     holder = threading.Thread(target=_hold, args=(outdir, 1.5, started))

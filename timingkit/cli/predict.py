@@ -67,8 +67,10 @@ def cmd_predict(args) -> int:
                          field="--output")
     if args.output:
         from timingkit.formats.atomic_file import refuse_output_over_inputs
+        from timingkit.outputs.folder_lock import refuse_if_locked
         refuse_output_over_inputs(args.output, [args.model, *([args.windows] if args.windows
                                                                else [])])
+        refuse_if_locked(args.output)
     predictor = build_from_files(args)
     data = predictor.data
     if args.output:

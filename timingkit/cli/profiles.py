@@ -72,8 +72,9 @@ def cmd_profile_toas(args) -> int:
     from timingkit.profiles.templates import auto_template, resample
     from timingkit.profiles.toas import gather_profiles, time_profiles
     from timingkit.formats.atomic_file import refuse_output_over_inputs
-    from timingkit.outputs.folder_lock import lock_output
+    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
+    refuse_if_locked(args.output)
     from timingkit.cli.options import parse_flag_options
     flags = parse_flag_options(args.flag)
     sets = [ps for path in args.profiles for ps in read_profile_sets(path)]
@@ -102,7 +103,7 @@ def cmd_profile_toas(args) -> int:
 def cmd_simulate_profiles(args) -> int:
     from timingkit.formats.profile_file import (read_template_file, write_profile_file,
                                                 write_template_file)
-    from timingkit.outputs.output_set import check_output_folder, output_set
+    from timingkit.outputs.output_set import check_before_writing, output_set
     from timingkit.pipeline.inputs import (input_paths, load_context, load_model,
                                            reference_observations)
     from timingkit.predict.model_phase import PhaseContext
@@ -113,7 +114,7 @@ def cmd_simulate_profiles(args) -> int:
     # one set, never over an input: checked before the work, written after it
     inputs = [*input_paths(None, true, args.sites, args.ephemeris), args.folding_model,
               args.template]
-    check_output_folder(args.outdir, inputs)
+    check_before_writing(args.outdir, inputs)
     sites, eph, clocks = load_context(true, args.sites, args.ephemeris)
     context = PhaseContext(sites, eph, clocks, reference_observations(true, sites, eph, clocks))
     if args.folding_model:

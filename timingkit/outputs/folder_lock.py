@@ -345,4 +345,13 @@ def lock_output(target, wait: bool | None = None, poll_s: float = 0.5,
             lock.release()
 
 
+def refuse_if_locked(target) -> None:
+    """Before a command's work: an InputError when another run holds the lock of
+    ``target`` now (unless busy locks are waited for), so that a busy output is
+    refused at once rather than after the work."""
+    if not _WAIT_BY_DEFAULT.get():
+        with lock_output(target, wait=False):
+            pass
+
+
 lock_output_folder = lock_output     # the name the batch runner uses

@@ -26,7 +26,7 @@ from pathlib import Path
 from timingkit.formats.atomic_file import (own_temporary_file, refuse_output_over_inputs,  # noqa: F401
                                           writing_error)
 from timingkit.formats.errors import InputError
-from timingkit.outputs.folder_lock import lock_output
+from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
 
 MARKER = ".timingkit-output"
 WORK_PREFIX, OLD_PREFIX = ".tmp-", ".old-"
@@ -155,6 +155,15 @@ def check_output_folder(folder, inputs=()) -> Path:
             raise InputError("the output folder exists and holds files timingkit did not write; "
                              "choose a new folder (timingkit replaces only folders it wrote)",
                              path=str(final), field="outdir")
+    return final
+
+
+def check_before_writing(folder, inputs=()) -> Path:
+    """:func:`check_output_folder`, and that no other run is writing the folder now
+    (outputs.folder_lock): what a command checks before its work."""
+    final = check_output_folder(folder, inputs)
+    if not final.name.startswith(WORK_PREFIX):
+        refuse_if_locked(final)
     return final
 
 

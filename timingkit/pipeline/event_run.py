@@ -296,12 +296,13 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     from timingkit.events.photon_toas import event_toas
     from timingkit.events.template import PulseTemplate
     from timingkit.formats.toa_writer import write_toa_table
-    from timingkit.outputs.folder_lock import lock_output
+    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     if not span_days > 0:
         raise InputError(f"the chunk span must be > 0 days, found {span_days}", field="span_days")
     if not min_events >= 2:
         raise InputError(f"each chunk needs at least 2 events, found {min_events}",
                          field="min_events")
+    refuse_if_locked(toas_path)
     inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
                                energy_range=energy_range, energy_column=energy_column,
                                sites_paths=sites_paths, ephemeris=ephemeris,

@@ -13,7 +13,7 @@ import os
 
 from timingkit.fit.least_squares import FitResult, compute_residuals, fit, goodness_warnings
 from timingkit.geometry.observations import Observations
-from timingkit.outputs.output_set import check_output_folder, output_set
+from timingkit.outputs.output_set import check_before_writing, output_set
 from timingkit.outputs.report import build_report, residual_table, settings_entry, write_json
 from timingkit.pipeline.inputs import Inputs, check_color_by, load_inputs
 from timingkit.pipeline.left_out import full_tables, selection_entry
@@ -134,11 +134,12 @@ def _write_phase_plots(result: FitResult, post, report: dict, outdir: str, color
 
 
 def check_before_work(inputs: Inputs, outdir, make_plots: bool, color_by: str) -> None:
-    """Options and the output folder are checked before the fit, not after it."""
+    """Options and the output folder (and that no other run is writing it) are checked
+    before the fit, not after it."""
     if make_plots:
         check_color_by(inputs.toas, color_by)
     if outdir is not None:
-        check_output_folder(outdir, inputs.paths)
+        check_before_writing(outdir, inputs.paths)
 
 
 def fit_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=(), ephemeris=None,
