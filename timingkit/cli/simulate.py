@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from timingkit.cli.options import number_list
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 
 
 def add_parsers(sub) -> None:
@@ -59,7 +59,8 @@ def cmd_simulate(args) -> int:
     for item in args.flag:
         name, sep, values = item.partition("=")
         if not sep or not name or not values:
-            raise InputError(f"expected NAME=V1,V2, found {item!r}", field="--flag")
+            raise InputError(f"expected NAME=V1,V2, found {excerpt(item)}", field="--flag",
+                             quoted=(item,))
         flags[name] = values.split(",")
     noise = _simulated_noise(model, args)
     refuse_output_over_inputs(args.output, input_paths(None, model, args.sites, args.ephemeris))

@@ -23,6 +23,12 @@ def excerpt(text, limit: int = MAX_EXCERPT_CHARS) -> str:
     return repr(text + ("..." if cut else ""))
 
 
+def excerpt_value(value, limit: int = MAX_EXCERPT_CHARS) -> str:
+    """:func:`excerpt` of a value read from a file: a string as it is, anything else
+    (a number, a list of a JSON or FITS file) as Python shows it."""
+    return excerpt(value if isinstance(value, str) else repr(value), limit)
+
+
 def cap(text: str, limit: int = MAX_MESSAGE_CHARS) -> str:
     """``text`` cut to ``limit`` characters (a note says how much was left out)."""
     if len(text) <= limit:

@@ -26,7 +26,7 @@ import re
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.event_list import EventList, pick_energy_column
 from timingkit.formats.ogip_time import SECONDS_PER_DAY, read_time_keywords
 from timingkit.numerics.ddmath import two_prod
@@ -88,8 +88,9 @@ def read_fits_events(path: str) -> EventList:
         raise InputError(f"the events table {label} has no rows", path=path, field="TIME")
     column = hdu.columns[time_name]
     if column.format.upper().lstrip("0123456789") not in ("D", "E", "J", "K", "I"):
-        raise InputError(f"TIME column of {label} has format {column.format!r}; expected a "
-                         "number (D)", path=path, field="TIME")
+        raise InputError(f"TIME column of {label} has format {excerpt(column.format)}; "
+                         "expected a number (D)", path=path, field="TIME",
+                         quoted=(str(column.format),))
     raw = hdu.data.view(np.ndarray)
     if column.bscale not in (None, 1) or column.bzero not in (None, 0):
         seconds = np.asarray(hdu.data.field(time_name), dtype=np.float64)

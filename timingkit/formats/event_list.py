@@ -22,7 +22,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.textfile import is_fits_file
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.numerics import ddmath
@@ -95,8 +95,9 @@ class EventList:
                 if key not in self.columns and self.reader is not None:
                     self.columns[key] = self.reader(key)
                 return self.columns[key]
-        raise InputError(f"no column {name!r}; the event list has: "
-                         f"{', '.join(self.column_names())}", path=self.path, field=name)
+        raise InputError(f"no column {excerpt(name)}; the event list has: "
+                         f"{', '.join(self.column_names())}", path=self.path, field=name,
+                         quoted=(name,))
 
     def column_names(self) -> list[str]:
         if self.table is not None:
@@ -139,8 +140,9 @@ def pick_energy_column(names, wanted: str | None, path) -> str | None:
     lower = {n.lower(): n for n in names}
     if wanted is not None:
         if wanted.lower() not in lower:
-            raise InputError(f"no column {wanted!r} for the energy selection; the event list "
-                             f"has: {', '.join(names)}", path=path, field="energy_column")
+            raise InputError(f"no column {excerpt(wanted)} for the energy selection; the event "
+                             f"list has: {', '.join(names)}", path=path, field="energy_column",
+                             quoted=(wanted,))
         return lower[wanted.lower()]
     for candidate in ENERGY_COLUMNS:
         for low, name in lower.items():

@@ -20,7 +20,7 @@ import re
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.event_list import EventList, pick_energy_column
 from timingkit.formats.mjd_text import parse_mjd_column
 from timingkit.formats.textfile import read_text_file
@@ -93,8 +93,8 @@ def _scale(given, stated, path) -> str:
                          "comment or give --scale", path=path, field="scale")
     value, line = (given, None) if given is not None else stated["scale"]
     if value.lower() not in SCALES:
-        raise InputError(f"unknown time scale {value!r}; legal: {', '.join(SCALES)}",
-                         path=path, line=line, field="scale")
+        raise InputError(f"unknown time scale {excerpt(value)}; legal: {', '.join(SCALES)}",
+                         path=path, line=line, field="scale", quoted=(value,))
     return value.lower()
 
 

@@ -30,7 +30,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt_value
 from timingkit.numerics import ddmath
 
 SECONDS_PER_DAY = 86400.0
@@ -96,11 +96,12 @@ def _number(value, name: str, hdu: str, path) -> float:
     try:
         number = float(value)
     except (TypeError, ValueError):
-        raise InputError(f"keyword {name} in HDU {hdu} must be a number, found {value!r}",
-                         path=path, field=name) from None
+        raise InputError(f"keyword {name} in HDU {hdu} must be a number, found "
+                         f"{excerpt_value(value)}", path=path, field=name,
+                         quoted=(str(value),)) from None
     if not math.isfinite(number):
-        raise InputError(f"keyword {name} in HDU {hdu} must be finite, found {value!r}",
-                         path=path, field=name)
+        raise InputError(f"keyword {name} in HDU {hdu} must be finite, found "
+                         f"{excerpt_value(value)}", path=path, field=name, quoted=(str(value),))
     return number
 
 
@@ -124,7 +125,8 @@ def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
         day = _number(mjdrefi, "MJDREFI", hdu, path)
         if day != round(day):
             raise InputError(f"keyword MJDREFI in HDU {hdu} must be a whole number, found "
-                             f"{mjdrefi!r}", path=path, field="MJDREFI")
+                             f"{excerpt_value(mjdrefi)}", path=path, field="MJDREFI",
+                             quoted=(str(mjdrefi),))
         if mjdreff is None:
             raise InputError(f"keyword MJDREFF missing in HDU {hdu} (MJDREFI is given; the "
                              "reference MJD is MJDREFI + MJDREFF)", path=path, field="MJDREFF")
@@ -145,8 +147,9 @@ def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
                          "UTC)", path=path, field="TIMESYS")
     scale = TIME_SYSTEMS.get(_text(system).upper())
     if scale is None:
-        raise InputError(f"keyword TIMESYS = {system!r} in HDU {hdu} is not supported; legal: "
-                         f"{', '.join(TIME_SYSTEMS)}", path=path, field="TIMESYS")
+        raise InputError(f"keyword TIMESYS = {excerpt_value(system)} in HDU {hdu} is not "
+                         f"supported; legal: {', '.join(TIME_SYSTEMS)}", path=path,
+                         field="TIMESYS", quoted=(str(system),))
     unit_text = get("TIMEUNIT")
     if unit_text is None:
         defaulted.append("TIMEUNIT = 's'")
@@ -154,8 +157,9 @@ def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
     else:
         unit_s = TIME_UNITS.get(_text(unit_text).lower())
         if unit_s is None:
-            raise InputError(f"keyword TIMEUNIT = {unit_text!r} in HDU {hdu} is not supported; "
-                             "legal: 's', 'd'", path=path, field="TIMEUNIT")
+            raise InputError(f"keyword TIMEUNIT = {excerpt_value(unit_text)} in HDU {hdu} is "
+                             "not supported; legal: 's', 'd'", path=path, field="TIMEUNIT",
+                             quoted=(str(unit_text),))
     timezero = _timezero(get, hdu, path, defaulted) * unit_s
     pixel, time_bin = _time_bin(get, hdu, path, defaulted)
     ref_text = get("TIMEREF")
@@ -165,11 +169,13 @@ def read_time_keywords(header, hdu: str, path, primary=None) -> TimeKeywords:
     else:
         timeref = TIME_REFERENCES.get(_text(ref_text).upper())
         if timeref is None:
-            raise InputError(f"keyword TIMEREF = {ref_text!r} in HDU {hdu} is not supported; "
-                             "legal: LOCAL, GEOCENTRIC, SOLARSYSTEM", path=path, field="TIMEREF")
+            raise InputError(f"keyword TIMEREF = {excerpt_value(ref_text)} in HDU {hdu} is not "
+                             "supported; legal: LOCAL, GEOCENTRIC, SOLARSYSTEM", path=path,
+                             field="TIMEREF", quoted=(str(ref_text),))
     if timeref == "solarsystem" and scale != "tdb":
         raise InputError(f"TIMEREF = SOLARSYSTEM needs TIMESYS = TDB in HDU {hdu}, found "
-                         f"{system!r}", path=path, field="TIMESYS")
+                         f"{excerpt_value(system)}", path=path, field="TIMESYS",
+                         quoted=(str(system),))
     clock = get("CLOCKAPP")
     return TimeKeywords(hdu=hdu, reference_day=int(day), mjdref_frac=float(frac),
                         timezero_s=float(timezero), unit_s=float(unit_s), scale=scale,
@@ -186,15 +192,17 @@ def _time_bin(get, hdu: str, path, defaulted: list) -> tuple[float, float | None
     if pixel_value is not None:
         pixel = _number(pixel_value, "TIMEPIXR", hdu, path)
         if not 0.0 <= pixel <= 1.0:
-            raise InputError(f"keyword TIMEPIXR = {pixel_value!r} in HDU {hdu} must lie in "
-                             "[0, 1] (where within its time bin TIME lies: 0 the start, 0.5 "
-                             "the centre, 1 the end)", path=path, field="TIMEPIXR")
+            raise InputError(f"keyword TIMEPIXR = {excerpt_value(pixel_value)} in HDU {hdu} "
+                             "must lie in [0, 1] (where within its time bin TIME lies: 0 the "
+                             "start, 0.5 the centre, 1 the end)", path=path, field="TIMEPIXR",
+                             quoted=(str(pixel_value),))
     if width_value is None:
         return pixel, None
     width = _number(width_value, "TIMEDEL", hdu, path)
     if width < 0:
-        raise InputError(f"keyword TIMEDEL = {width_value!r} in HDU {hdu} must be >= 0 (the "
-                         "width of a time bin, in TIMEUNIT)", path=path, field="TIMEDEL")
+        raise InputError(f"keyword TIMEDEL = {excerpt_value(width_value)} in HDU {hdu} must be "
+                         ">= 0 (the width of a time bin, in TIMEUNIT)", path=path,
+                         field="TIMEDEL", quoted=(str(width_value),))
     if pixel_value is None:
         defaulted.append("TIMEPIXR = 0.5")
     return pixel, width

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt, excerpt_value
 from timingkit.formats.mjd_text import parse_mjd_column
 from timingkit.formats.textfile import is_fits_file, read_text_file
 from timingkit.formats.toa_table import SPLIT_RE
@@ -109,8 +109,8 @@ def _read_text(path: str) -> OrbitTable:
         raise InputError("the time scale is not stated: add a '# scale: tt' comment (tt, utc "
                          "or tdb)", path=path, field="scale")
     if scale[0] not in SCALES:
-        raise InputError(f"unknown time scale {scale[0]!r}; legal: {', '.join(SCALES)}",
-                         path=path, line=scale[1], field="scale")
+        raise InputError(f"unknown time scale {excerpt(scale[0])}; legal: {', '.join(SCALES)}",
+                         path=path, line=scale[1], field="scale", quoted=(scale[0],))
     if header is None or not rows:
         raise InputError("no orbit rows (expected a header 'mjd x_m y_m z_m' and rows)",
                          path=path)
@@ -132,11 +132,11 @@ def _read_text(path: str) -> OrbitTable:
             try:
                 out[i] = float(value)
             except ValueError:
-                raise InputError(f"expected a number, found {value!r}", path=path,
-                                 line=lines[i], field=name) from None
+                raise InputError(f"expected a number, found {excerpt(value)}", path=path,
+                                 line=lines[i], field=name, quoted=(value,)) from None
             if not np.isfinite(out[i]):
-                raise InputError(f"expected a finite number, found {value!r}", path=path,
-                                 line=lines[i], field=name)
+                raise InputError(f"expected a finite number, found {excerpt(value)}", path=path,
+                                 line=lines[i], field=name, quoted=(value,))
         return out
 
     day, frac = parse_mjd_column(columns[names.index("mjd")], path, lines)
@@ -176,8 +176,9 @@ def _read_fits(path: str) -> OrbitTable:
             col = hdu.columns[lookup[name]]
             unit = (col.unit or "").strip().lower()
             if unit not in UNIT_SCALE:
-                raise InputError(f"unit {col.unit!r} of column {name} in {label} is not "
-                                 f"supported; use {units} or k{units}", path=path, field=name)
+                raise InputError(f"unit {excerpt_value(col.unit)} of column {name} in {label} "
+                                 f"is not supported; use {units} or k{units}", path=path,
+                                 field=name, quoted=(str(col.unit),))
             return np.asarray(hdu.data.field(lookup[name]), dtype=float) * UNIT_SCALE[unit]
 
         if "TIME" in lookup:

@@ -29,7 +29,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt, excerpt_value
 from timingkit.formats.mjd_text import parse_mjd_strings
 from timingkit.formats.model_file import atomic_write_text
 from timingkit.formats.textfile import read_text_file
@@ -153,12 +153,13 @@ def parse_predictor_text(text: str, path: str | None = None) -> PredictorData:
         raise InputError(f"not a phase-predictor file (expected \"format\": \"{FORMAT_NAME}\")",
                          path=path, field="format")
     if doc.get("version") != FORMAT_VERSION:
-        raise InputError(f"version {doc.get('version')!r} is not supported (this timingkit "
-                         f"reads version {FORMAT_VERSION})", path=path, field="version")
+        raise InputError(f"version {excerpt_value(doc.get('version'))} is not supported (this "
+                         f"timingkit reads version {FORMAT_VERSION})", path=path,
+                         field="version", quoted=(str(doc.get("version")),))
     unknown = [k for k in doc if k not in HEADER_KEYS]
     if unknown:
-        raise InputError(f"unknown key {unknown[0]!r}; legal: {', '.join(HEADER_KEYS)}",
-                         path=path, field=unknown[0])
+        raise InputError(f"unknown key {excerpt(unknown[0])}; legal: {', '.join(HEADER_KEYS)}",
+                         path=path, field=unknown[0], quoted=(unknown[0],))
     for key in ("site", "freq_mhz", "segments"):
         if key not in doc:
             raise InputError("missing required key", path=path, field=key)
@@ -166,8 +167,9 @@ def parse_predictor_text(text: str, path: str | None = None) -> PredictorData:
     if freq == "inf":
         freq = float("inf")
     if isinstance(freq, bool) or not isinstance(freq, (int, float)) or not freq > 0:
-        raise InputError(f"expected a frequency in MHz > 0 or \"inf\", found {freq!r}",
-                         path=path, field="freq_mhz")
+        raise InputError("expected a frequency in MHz > 0 or \"inf\", found "
+                         f"{excerpt_value(freq)}", path=path, field="freq_mhz",
+                         quoted=(str(freq),))
     segments = doc["segments"]
     if not isinstance(segments, list) or not segments:
         raise InputError("expected a non-empty list of segments", path=path, field="segments")
@@ -232,7 +234,8 @@ def _number(doc: dict, key: str, path) -> float:
     if value is None:
         return float("nan")
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise InputError(f"expected a number, found {value!r}", path=path, field=key)
+        raise InputError(f"expected a number, found {excerpt_value(value)}", path=path,
+                         field=key, quoted=(str(value),))
     return float(value)
 
 
@@ -259,8 +262,8 @@ def _check_segment(seg, i: int, path, line) -> dict:
                              field=f"{where}.{key}", quoted=exc.quoted) from None
     if seg["seconds_per_day"] not in (86399, 86400, 86401):
         raise InputError(f"expected 86400 (or 86401/86399 on a leap-second day), found "
-                         f"{seg['seconds_per_day']!r}", path=path, line=line,
-                         field=f"{where}.seconds_per_day")
+                         f"{excerpt_value(seg['seconds_per_day'])}", path=path, line=line,
+                         field=f"{where}.seconds_per_day", quoted=(str(seg["seconds_per_day"]),))
     if isinstance(seg["phase_integer"], bool) or not isinstance(seg["phase_integer"], int):
         raise InputError("expected an integer number of cycles", path=path, line=line,
                          field=f"{where}.phase_integer")
@@ -269,8 +272,9 @@ def _check_segment(seg, i: int, path, line) -> dict:
                          field=f"{where}.phase_integer")
     frac = seg["phase_fraction"]
     if isinstance(frac, bool) or not isinstance(frac, (int, float)) or not -1 < frac < 1:
-        raise InputError(f"expected a fraction of a cycle (-1 < f < 1), found {frac!r}",
-                         path=path, line=line, field=f"{where}.phase_fraction")
+        raise InputError("expected a fraction of a cycle (-1 < f < 1), found "
+                         f"{excerpt_value(frac)}", path=path, line=line,
+                         field=f"{where}.phase_fraction", quoted=(str(frac),))
     coeffs = seg["coefficients"]
     if (not isinstance(coeffs, list) or not coeffs
             or any(isinstance(c, bool) or not isinstance(c, (int, float)) for c in coeffs)):

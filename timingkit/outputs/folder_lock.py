@@ -108,8 +108,9 @@ def _windows_process_running(pid: int) -> bool:   # pragma: no cover (Windows on
 def _holder_text(token: str) -> str:
     command = " ".join(os.path.basename(a) if i == 0 else a for i, a in enumerate(sys.argv))
     command = "".join(c if c.isprintable() else "?" for c in command)[:200]
-    return (f"pid {os.getpid()} on {socket.gethostname()}, started "
-            f"{time.strftime('%Y-%m-%d %H:%M:%S UTC', time.gmtime())}, command: {command}\nlock {token}\n")
+    started = time.strftime("%Y-%m-%d %H:%M:%S UTC", time.gmtime())
+    return (f"pid {os.getpid()} on {socket.gethostname()}, started {started}, "
+            f"command: {command}\nlock {token}\n")
 
 
 def _parse_holder(text: str):
