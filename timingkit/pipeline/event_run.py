@@ -25,6 +25,7 @@ from timingkit.geometry.shapiro_bodies import shapiro_planets
 from timingkit.geometry.sites import SiteTable
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
+from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
 from timingkit.pipeline.inputs import load_context, load_model, reference_observations
 
 # Time bins wider than this share of the spin period: warn. A bin of width w
@@ -230,6 +231,7 @@ def fold_event_files(events_path, model_path, outdir, *, site=None, orbit=None, 
                          field="harmonics")
     if not 2 <= bins <= 4096:
         raise InputError(f"the number of bins must lie in 2..4096, found {bins}", field="bins")
+    refuse_if_locked(outdir)                 # a busy folder: refused before the work
     inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
                                energy_range=energy_range, energy_column=energy_column,
                                sites_paths=sites_paths, ephemeris=ephemeris,
@@ -296,7 +298,6 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     from timingkit.events.photon_toas import event_toas
     from timingkit.events.template import PulseTemplate
     from timingkit.formats.toa_writer import write_toa_table
-    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     if not span_days > 0:
         raise InputError(f"the chunk span must be > 0 days, found {span_days}", field="span_days")
     if not min_events >= 2:
