@@ -9,7 +9,6 @@ import errno
 import json
 import os
 import signal
-import socket
 import subprocess
 import sys
 import threading
@@ -58,7 +57,7 @@ def _left_lock(target, pid: int, host: str | None = None) -> Path:
     """A lock file as a run killed with SIGKILL leaves it."""
     path = lock_path(target)
     path.parent.mkdir(parents=True, exist_ok=True)
-    path.write_text(f"pid {pid} on {host or socket.gethostname()}, started 2026-01-02 03:04:05 "
+    path.write_text(f"pid {pid} on {host or folder_lock._host()}, started 2026-01-02 03:04:05 "
                     "UTC, command: timingkit fit a.toas a.toml\nlock 0123456789abcdef\n")
     return path
 
@@ -72,7 +71,7 @@ def test_a_fit_on_a_locked_folder_exits_2_naming_the_holder(tmp_path, scheme, ca
         assert _fit(outdir) == 2
         assert main(["residuals", TOAS, MODEL, "-o", str(outdir)]) == 2
     err = capsys.readouterr().err
-    assert f"in use by pid {os.getpid()} on {socket.gethostname()}" in err
+    assert f"in use by pid {os.getpid()} on {folder_lock._host()}" in err
     assert "--wait" in err and str(outdir) in err and "Traceback" not in err
     assert {p.name: p.read_bytes() for p in outdir.iterdir()} == before    # untouched
     assert not lock_path(outdir).exists()                                 # released
@@ -178,6 +177,29 @@ def test_the_lock_is_released_when_the_holder_is_stopped_by_a_signal(tmp_path, s
     assert not lock_path(outdir).exists()           # removed on the way out
     with lock_output(outdir):
         pass
+
+
+def test_runs_queued_on_one_lock_never_overlap(tmp_path, scheme):
+    """Three processes add 1 to a counter 15 times each, read-sleep-write under the lock
+    with waiting: a lock that let two in at once (say, one holding a removed file) loses
+    updates."""
+    counter = tmp_path / "counter.txt"
+    counter.write_text("0")
+    code = ("import sys, time\n"
+            "from pathlib import Path\n"
+            "from timingkit.outputs.folder_lock import lock_output\n"
+            "counter = Path(sys.argv[1])\n"
+            "for _ in range(15):\n"
+            "    with lock_output(sys.argv[2], wait=True, poll_s=0.002):\n"
+            "        value = int(counter.read_text())\n"
+            "        time.sleep(0.002)\n"
+            "        counter.write_text(str(value + 1))\n")
+    children = [subprocess.Popen([sys.executable, "-c", code, str(counter), str(tmp_path / "o")],
+                                 stderr=subprocess.PIPE, text=True) for _ in range(3)]
+    for child in children:
+        assert child.wait(120) == 0, child.stderr.read()
+    assert int(counter.read_text()) == 45
+    assert not lock_path(tmp_path / "o").exists()
 
 
 def test_a_batch_and_a_fit_on_one_folder_exclude_each_other(tmp_path, scheme, capsys):

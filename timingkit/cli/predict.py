@@ -70,13 +70,13 @@ def cmd_predict(args) -> int:
         from timingkit.outputs.folder_lock import refuse_if_locked
         refuse_output_over_inputs(args.output, [args.model, *([args.windows] if args.windows
                                                                else [])])
-        refuse_if_locked(args.output)
+        refuse_if_locked(args.output, field="--output")
     predictor = build_from_files(args)
     data = predictor.data
     if args.output:
         from timingkit.formats.predictor_file import write_predictor_file
         from timingkit.outputs.folder_lock import lock_output
-        with lock_output(args.output):
+        with lock_output(args.output, field="--output"):
             write_predictor_file(data, args.output)
         print(f"wrote {len(predictor)} segments (degree {int(data.degrees.min())}-"
               f"{int(data.degrees.max())}) covering MJD {predictor.start_text} to "

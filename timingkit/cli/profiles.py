@@ -74,7 +74,7 @@ def cmd_profile_toas(args) -> int:
     from timingkit.formats.atomic_file import refuse_output_over_inputs
     from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
-    refuse_if_locked(args.output)
+    refuse_if_locked(args.output, field="--output")
     from timingkit.cli.options import parse_flag_options
     flags = parse_flag_options(args.flag)
     sets = [ps for path in args.profiles for ps in read_profile_sets(path)]
@@ -87,7 +87,7 @@ def cmd_profile_toas(args) -> int:
         template = read_template_file(args.template)
         template_path = None
     result = time_profiles(timed, resample(template.profile, bins), args.min_snr, flags)
-    with lock_output(args.output):
+    with lock_output(args.output, field="--output"):
         if template_path:
             write_template_file(template, template_path)
         write_toa_table(result.toas, args.output)

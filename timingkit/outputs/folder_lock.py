@@ -105,11 +105,17 @@ def _windows_process_running(pid: int) -> bool:   # pragma: no cover (Windows on
         kernel32.CloseHandle(handle)
 
 
+def _host() -> str:
+    """This host's name as lock files write it (characters outside A-Z a-z 0-9 . _ -
+    become _)."""
+    return re.sub(r"[^A-Za-z0-9._-]", "_", socket.gethostname())[:255] or "unnamed-host"
+
+
 def _holder_text(token: str) -> str:
     command = " ".join(os.path.basename(a) if i == 0 else a for i, a in enumerate(sys.argv))
     command = "".join(c if c.isprintable() else "?" for c in command)[:200]
     started = time.strftime("%Y-%m-%d %H:%M:%S UTC", time.gmtime())
-    return (f"pid {os.getpid()} on {socket.gethostname()}, started {started}, "
+    return (f"pid {os.getpid()} on {_host()}, started {started}, "
             f"command: {command}\nlock {token}\n")
 
 
@@ -134,7 +140,7 @@ def _describe(text: str) -> str:
 def _left_over(text: str) -> bool:
     """Whether lock-file text names a holder that is no longer running on this host."""
     parsed = _parse_holder(text)
-    return (parsed is not None and parsed[1] == socket.gethostname()
+    return (parsed is not None and parsed[1] == _host()
             and not process_running(parsed[0]))
 
 
@@ -291,21 +297,22 @@ def _scheme(requested: str | None) -> str:
 _UNSUPPORTED = {errno.ENOLCK, errno.EOPNOTSUPP, errno.ENOTSUP, errno.EINVAL, errno.ENOSYS}
 
 
-def _acquire(lock, target: Path, path: Path, wait: bool, poll_s: float):
+def _acquire(lock, target: Path, path: Path, wait: bool, poll_s: float, field: str):
     announced = False
     while True:
         try:
             if lock.acquire():
                 return lock
+            time.sleep(0.01)                          # the file changed meanwhile: again
             continue
         except _Busy as busy:
             holder = _describe(busy.text)
             if not wait:
                 remedy = (f" (if that run has ended, remove {busy.lock_file})"
                           if busy.lock_file else "")
-                raise InputError(f"the output {target} is in use by {holder}{remedy}; wait for "
-                                 "it to finish, or run with --wait to queue behind it",
-                                 path=str(target), field="outdir") from None
+                raise InputError(f"this output is in use by {holder}{remedy}; wait for it to "
+                                 "finish, or run with --wait to queue behind it",
+                                 path=str(target), field=field) from None
             if not announced:
                 print(f"timingkit: waiting for the output {target}, in use by {holder}",
                       file=sys.stderr, flush=True)
@@ -315,19 +322,19 @@ def _acquire(lock, target: Path, path: Path, wait: bool, poll_s: float):
                 lock = _ExclusiveFile(path, target)   # a file system without flock
                 continue
             raise InputError(f"cannot create the lock file of the output ({exc.strerror})",
-                             path=str(path), field="outdir") from None
+                             path=str(path), field=field) from None
         time.sleep(poll_s)
 
 
 @contextlib.contextmanager
 def lock_output(target, wait: bool | None = None, poll_s: float = 0.5,
-                scheme: str | None = None):
+                scheme: str | None = None, field: str = "outdir"):
     """Hold the lock of the output ``target`` (a folder or a file; its parent folder
     is created if needed) for the block. ``wait``: wait for another holder instead
     of refusing (default: the CLI's --wait, see :func:`waiting_for_output_locks`).
     ``scheme``: ``system-lock`` or ``exclusive-file`` (default: the environment
     variable TIMINGKIT_OUTPUT_LOCK, else system-lock where fcntl exists).
-    A busy lock is an InputError naming the holder (field ``outdir``)."""
+    A busy lock is an InputError naming ``target``, ``field`` and the holder."""
     target = Path(os.path.abspath(os.path.expanduser(os.fspath(target))))
     wait = _WAIT_BY_DEFAULT.get() if wait is None else wait
     chosen = _scheme(scheme)
@@ -336,22 +343,22 @@ def lock_output(target, wait: bool | None = None, poll_s: float = 0.5,
         path = lock_path(target)
     except OSError as exc:
         raise InputError(f"cannot create the folder of the output ({exc.strerror})",
-                         path=str(target.parent), field="outdir") from None
+                         path=str(target.parent), field=field) from None
     kind = _SystemLock if chosen == SYSTEM_LOCK else _ExclusiveFile
     with terminate_on_signals():
-        lock = _acquire(kind(path, target), target, path, wait, poll_s)
+        lock = _acquire(kind(path, target), target, path, wait, poll_s, field)
         try:
             yield path
         finally:
             lock.release()
 
 
-def refuse_if_locked(target) -> None:
+def refuse_if_locked(target, field: str = "outdir") -> None:
     """Before a command's work: an InputError when another run holds the lock of
     ``target`` now (unless busy locks are waited for), so that a busy output is
     refused at once rather than after the work."""
     if not _WAIT_BY_DEFAULT.get():
-        with lock_output(target, wait=False):
+        with lock_output(target, wait=False, field=field):
             pass
 
 

@@ -303,7 +303,7 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     if not min_events >= 2:
         raise InputError(f"each chunk needs at least 2 events, found {min_events}",
                          field="min_events")
-    refuse_if_locked(toas_path)
+    refuse_if_locked(toas_path, field="output")
     inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
                                energy_range=energy_range, energy_column=energy_column,
                                sites_paths=sites_paths, ephemeris=ephemeris,
@@ -315,7 +315,7 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     toas, facts, _ = event_toas(timing.phase, barycentric_mjd(clock, timing), span_days, shape,
                                 inputs.model, inputs.reference, inputs.ephemeris,
                                 min_events=min_events)
-    with lock_output(toas_path):
+    with lock_output(toas_path, field="output"):
         if save_template is not None:
             shape.write(save_template)
         write_toa_table(toas, toas_path)
