@@ -245,14 +245,17 @@ def test_file_outputs_are_locked_too(tmp_path, scheme, capsys):
     assert main(command) == 0 and out.is_file()
 
 
-def test_explore_locks_the_folder_it_reads_and_writes(tmp_path, scheme, capsys):
+@pytest.mark.parametrize("command, written", [("explore", "explorer.html"),
+                                               ("plot", "residuals.png")])
+def test_explore_and_plot_lock_the_folder_they_read_and_write(tmp_path, scheme, capsys,
+                                                              command, written):
     outdir = tmp_path / "out"
     assert _fit(outdir) == 0
     with lock_output(outdir):
-        assert main(["explore", str(outdir)]) == 2
+        assert main([command, str(outdir)]) == 2
     assert "in use by" in capsys.readouterr().err
-    assert not (outdir / "explorer.html").exists()
-    assert main(["explore", str(outdir), "--wait"]) == 0 and (outdir / "explorer.html").is_file()
+    assert not (outdir / written).exists()
+    assert main([command, str(outdir), "--wait"]) == 0 and (outdir / written).is_file()
 
 
 def test_a_file_system_without_flock_falls_back_to_the_exclusive_file(tmp_path, monkeypatch):

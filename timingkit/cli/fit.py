@@ -67,6 +67,7 @@ def add_parsers(sub) -> None:
     p.add_argument("outdir", help="folder written by 'fit' or 'residuals'")
     p.add_argument("--color-by", default="site")
     p.add_argument("-o", "--output", metavar="PNG", help="figure file (.png or .pdf)")
+    add_wait_option(p, "into OUTDIR")
     p.set_defaults(func=cmd_plot)
 
 
@@ -143,12 +144,20 @@ def cmd_barycentre(args) -> int:
 
 
 def cmd_plot(args) -> int:
-    from timingkit.outputs.plotting import plot_residuals
-    from timingkit.outputs.residual_table import ResidualTable
+    from timingkit.outputs.folder_lock import lock_output
     post_path = os.path.join(args.outdir, "residuals.csv")
     if not os.path.exists(post_path):
         raise InputError("no residuals.csv here: give a folder written by 'timingkit fit'",
                          path=args.outdir)
+    with lock_output(args.outdir):      # no run replaces the folder while it is read
+        out = _plot_folder(args, post_path)
+    print(f"wrote {out}")
+    return 0
+
+
+def _plot_folder(args, post_path: str) -> str:
+    from timingkit.outputs.plotting import plot_residuals
+    from timingkit.outputs.residual_table import ResidualTable
     post = ResidualTable.read_csv(post_path)
     pre_path = os.path.join(args.outdir, "prefit_residuals.csv")
     pre = ResidualTable.read_csv(pre_path) if os.path.exists(pre_path) else None
@@ -157,8 +166,7 @@ def cmd_plot(args) -> int:
     refuse_output_over_inputs(out, [post_path, pre_path, os.path.join(args.outdir, "report.json")])
     plot_residuals(post, prefit=pre, color_by=args.color_by, title=title, frequency_hz=freq,
                    glitch_epochs_mjd=_fitted_glitch_epochs(args.outdir), path=out)
-    print(f"wrote {out}")
-    return 0
+    return out
 
 
 def _fitted_glitch_epochs(outdir: str) -> list[float]:

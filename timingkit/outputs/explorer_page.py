@@ -91,14 +91,19 @@ def _epochs(outdir: str, glitches: dict | None) -> list[dict]:
     return marks
 
 
-def explorer_data(outdir: str) -> dict:
-    """The page's data from a fit's output folder (residuals.csv required;
-    prefit_residuals.csv, report.json and glitches.json when present)."""
+def _residuals_path(outdir: str) -> str:
+    """``outdir/residuals.csv``, which must be there (an InputError otherwise)."""
     post_path = os.path.join(outdir, "residuals.csv")
     if not os.path.exists(post_path):
         raise InputError("no residuals.csv here: give a folder written by 'timingkit fit', "
                          "'residuals' or 'glitches'", path=outdir)
-    post = ResidualTable.read_csv(post_path)
+    return post_path
+
+
+def explorer_data(outdir: str) -> dict:
+    """The page's data from a fit's output folder (residuals.csv required;
+    prefit_residuals.csv, report.json and glitches.json when present)."""
+    post = ResidualTable.read_csv(_residuals_path(outdir))
     pre_path = os.path.join(outdir, "prefit_residuals.csv")
     pre = ResidualTable.read_csv(pre_path) if os.path.exists(pre_path) else None
     if pre is not None and list(pre.mjd_text) != list(post.mjd_text):
@@ -229,6 +234,7 @@ def write_explorer(outdir: str, path: str | None = None) -> str:
     """Write explorer.html (default ``outdir/explorer.html``) atomically, holding the lock
     of ``outdir`` (outputs.folder_lock); returns its path."""
     path = path or os.path.join(outdir, EXPLORER_FILE)
+    _residuals_path(outdir)       # a folder that is not a fit's: refused before locking it
     with lock_output(outdir):     # no run replaces the folder while it is read and written
         text = render_explorer_html(explorer_data(outdir))
         with atomic_output(path) as handle:
