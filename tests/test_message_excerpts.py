@@ -120,3 +120,17 @@ def test_simulate_flag_option(tmp_path, capsys):
     assert status == 2 and "--flag" in err and "'api_key:SECRET-TOKEN" in err
     assert hostile not in err and "Z" * 100 not in err
     assert not (tmp_path / "sim.toas").exists()
+
+
+@pytest.mark.parametrize("flag", [HOSTILE.replace("=", ":") + "=a,b",    # a name with no '='
+                                  "backend=a," + HOSTILE.replace("=", ":"),
+                                  "backend=a," + "Z" * 5000,           # readable, but too long
+                                  "backend=a,api key " + "Z" * 900,    # short enough, a space
+                                  "api key " + "Z" * 900 + "=a,b"])
+def test_simulate_flag_names_and_values_the_table_could_not_hold(tmp_path, capsys, flag):
+    status = main(["simulate", str(SAMPLE / "demo-slow.toml"), "--start", "60000", "--end",
+                   "60010", "--count", "3", "--error-us", "1", "--site", "desert-dish",
+                   "--flag", flag, "-o", str(tmp_path / "sim.toas")])
+    err = capsys.readouterr().err
+    assert status == 2 and "Z" * 100 not in err and "Traceback" not in err
+    assert not (tmp_path / "sim.toas").exists()

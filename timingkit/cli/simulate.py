@@ -50,6 +50,7 @@ def cmd_simulate(args) -> int:
     from timingkit.model.simulate import simulate_toas
     from timingkit.formats.toa_writer import write_toa_table
     from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
+    from timingkit.formats.toa_reader import MAX_FIELD_CHARS
     model = load_model(args.model)
     if args.solar_wind_density_cm3 is not None:
         from timingkit.model.solar_wind import set_solar_wind
@@ -62,6 +63,11 @@ def cmd_simulate(args) -> int:
             raise InputError(f"expected NAME=V1,V2, found {excerpt(item)}", field="--flag",
                              quoted=(item,))
         flags[name] = values.split(",")
+        longest = max([name, *flags[name]], key=lambda text: len(text.encode("utf-8")))
+        if len(longest.encode("utf-8")) > MAX_FIELD_CHARS:     # the table could not be read
+            raise InputError(f"a flag name or value of {len(longest.encode('utf-8'))} bytes "
+                             f"({excerpt(longest)}); TOA tables take at most "
+                             f"{MAX_FIELD_CHARS}", field="--flag", quoted=(longest,))
     noise = _simulated_noise(model, args)
     refuse_output_over_inputs(args.output, input_paths(None, model, args.sites, args.ephemeris))
     toas = simulate_toas(model, args.start, args.end, args.count, args.error_us, sites, eph,

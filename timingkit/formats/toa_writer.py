@@ -7,7 +7,7 @@ import tempfile
 
 import numpy as np
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.formats.toa_table import PULSE_COLUMN, SPLIT_RE, ToaTable, check_flag_name
 
 
@@ -22,9 +22,9 @@ def _check_text_values(values: np.ndarray, name: str) -> None:
         bad |= np.strings.startswith(values, "#")
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise InputError(f"value {str(values[i])!r} (row {i}) cannot be written: text values "
-                         f"must be non-empty, without spaces or commas, and must not start "
-                         f"with '#'", field=name)
+        raise InputError(f"value {excerpt(str(values[i]))} (row {i}) cannot be written: text "
+                         "values must be non-empty, without spaces or commas, and must not "
+                         "start with '#'", field=name, quoted=(str(values[i]),))
 
 
 def _current_umask() -> int:
@@ -71,8 +71,8 @@ def write_toa_table(toas: ToaTable, path, extra_columns: dict | None = None) -> 
         columns[name] = values[column.codes]
     for name, values in (extra_columns or {}).items():
         if name in columns:
-            raise InputError(f"extra column {name!r} clashes with an existing column",
-                             path=path, field=name)
+            raise InputError(f"extra column {excerpt(name)} clashes with an existing column",
+                             path=path, field=name, quoted=(name,))
         check_flag_name(name, path)          # read back, it is a flag
         arr = np.asarray(values)
         if arr.shape != (n,):
@@ -81,7 +81,8 @@ def write_toa_table(toas: ToaTable, path, extra_columns: dict | None = None) -> 
         columns[name] = _float_text(arr) if arr.dtype.kind == "f" else arr.astype(str)
     for name, values in columns.items():
         if not name or SPLIT_RE.search(name) or name.startswith("#"):
-            raise InputError(f"column name {name!r} cannot be written", path=path)
+            raise InputError(f"column name {excerpt(name)} cannot be written", path=path,
+                             quoted=(name,))
         _check_text_values(values, name)
     names = list(columns)
     widths = [max(len(name), int(np.strings.str_len(v).max())) for name, v in columns.items()]
