@@ -37,6 +37,7 @@ import sys
 import time
 from pathlib import Path
 
+from timingkit.formats.atomic_file import writing_error
 from timingkit.formats.errors import InputError, excerpt
 from timingkit.outputs.stop_signals import terminate_on_signals
 
@@ -321,8 +322,7 @@ def _acquire(lock, target: Path, path: Path, wait: bool, poll_s: float, field: s
             if isinstance(lock, _SystemLock) and exc.errno in _UNSUPPORTED:
                 lock = _ExclusiveFile(path, target)   # a file system without flock
                 continue
-            raise InputError(f"cannot create the lock file of the output ({exc.strerror})",
-                             path=str(path), field=field) from None
+            raise writing_error(exc, target) from None   # no lock file can be made there
         time.sleep(poll_s)
 
 
@@ -342,8 +342,7 @@ def lock_output(target, wait: bool | None = None, poll_s: float = 0.5,
         target.parent.mkdir(parents=True, exist_ok=True)
         path = lock_path(target)
     except OSError as exc:
-        raise InputError(f"cannot create the folder of the output ({exc.strerror})",
-                         path=str(target.parent), field=field) from None
+        raise writing_error(exc, target) from None
     kind = _SystemLock if chosen == SYSTEM_LOCK else _ExclusiveFile
     with terminate_on_signals():
         lock = _acquire(kind(path, target), target, path, wait, poll_s, field)
