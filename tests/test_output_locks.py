@@ -294,3 +294,47 @@ def test_the_lock_names_agree_for_every_spelling_and_stay_short(tmp_path):
     long_one, other = lock_path(tmp_path / ("n" * 250)), lock_path(tmp_path / ("n" * 249 + "m"))
     assert len(long_one.name) <= folder_lock.MAX_NAME_CHARS + len(folder_lock.LOCK_PREFIX)
     assert long_one != other
+
+
+@pytest.fixture(scope="module")
+def made_inputs(tmp_path_factory):
+    """Simulated profiles and photon events (invented site and source) for the commands
+    that read them."""
+    from events_support import write_inputs
+    folder = tmp_path_factory.mktemp("inputs")
+    assert main(["simulate-profiles", MODEL, "--site", "desert-dish", "--start", "60000",
+                 "--end", "60010", "--count", "2", "--bins", "64", "--seed", "3", "-o",
+                 str(folder / "profiles")]) == 0
+    model, _ = write_inputs(folder)
+    assert main(["simulate-events", str(model), "--start", "58000", "--end", "58000.2",
+                 "--rate-per-s", "0.4", "--pulsed-fraction", "0.3", "--profile",
+                 "gauss:0.25:0.08", "--site", "dune-array", "--seed", "9", "-o",
+                 str(folder / "events.fits")]) == 0
+    return folder, model
+
+
+@pytest.mark.parametrize("command", ["simulate-profiles", "profile-toas", "events",
+                                     "event-toas"])
+def test_the_other_commands_refuse_a_locked_output_and_wait_with_wait(made_inputs, tmp_path,
+                                                                      capsys, command):
+    folder, model = made_inputs
+    out = tmp_path / "out"
+    profiles = sorted(str(p) for p in (folder / "profiles").glob("obs-*.npz"))
+    arguments = {
+        "simulate-profiles": [MODEL, "--site", "desert-dish", "--start", "60000", "--end",
+                              "60010", "--count", "2", "--bins", "64", "--seed", "4"],
+        "profile-toas": [*profiles, "--template", str(folder / "profiles" / "template.npz")],
+        "events": [str(folder / "events.fits"), str(model), "--no-plot", "--harmonics", "2"],
+        "event-toas": [str(folder / "events.fits"), str(model), "--template", "auto",
+                       "--span-days", "0.1", "--min-events", "5"],
+    }[command]
+    with lock_output(out):
+        assert main([command, *arguments, "-o", str(out)]) == 2
+    assert "in use by" in capsys.readouterr().err and not out.exists()
+    started = threading.Event()
+    holder = threading.Thread(target=_hold, args=(out, 0.5, started))
+    holder.start()
+    started.wait(10)
+    assert main([command, *arguments, "-o", str(out), "--wait"]) == 0
+    holder.join()
+    assert out.exists() and not lock_path(out).exists()
