@@ -278,10 +278,11 @@ def test_profile_toas_carry_the_flags_given(tmp_path, capsys):
     assert list(table.flags["receiver"]) == ["low"] * 3
     assert set(table.flags) == {"profile", "snr", "backend", "receiver"}
     capsys.readouterr()
-    for bad in ("snr=3", "mjd=1", "backend", "backend=a b"):
+    for bad in ("snr=3", "mjd=1", "backend", "backend=a b", "backend=" + "x" * 5000):
         target = tmp_path / "bad.toas"
         assert main(["profile-toas", *files, "--template", str(sim / "template.npz"),
                      "--flag", bad, "-o", str(target)]) == 2
         err = capsys.readouterr().err
         assert "--flag" in err and "Traceback" not in err, (bad, err)
+        assert "x" * 100 not in err                 # a long value is quoted as an excerpt
         assert not target.exists()

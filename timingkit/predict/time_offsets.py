@@ -10,7 +10,8 @@ a flag that no group uses (a likely misspelling).
 
 from __future__ import annotations
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
+from timingkit.formats.toa_reader import MAX_FIELD_CHARS
 from timingkit.formats.toa_table import check_flag_name
 from timingkit.model.base import Evaluation
 from timingkit.model.flag_groups import SITE_FLAG
@@ -32,8 +33,12 @@ def check_observation_flags(flags, field: str = "flags") -> dict[str, str]:
         except InputError as exc:
             raise InputError(exc.message, field=field) from None
         if not value or any(c.isspace() for c in value):
-            raise InputError(f"flag {name!r} needs a value without spaces (NAME=VALUE), found "
-                             f"{value!r}", field=field)
+            raise InputError(f"flag {excerpt(name)} needs a value without spaces (NAME=VALUE), "
+                             f"found {excerpt(value)}", field=field, quoted=(name, value))
+        longest = max((name, value), key=lambda text: len(text.encode("utf-8")))
+        if len(longest.encode("utf-8")) > MAX_FIELD_CHARS:    # a TOA table could not hold it
+            raise InputError(f"flag {excerpt(longest)} is longer than the {MAX_FIELD_CHARS} "
+                             "bytes a TOA-table field may hold", field=field, quoted=(longest,))
         out[name] = value
     return out
 
