@@ -1,7 +1,10 @@
 #!/usr/bin/env python
 """explorer.html for 10,000 and 100,000 TOAs: time to write it, its size, and in
 headless chromium (software WebGL: the worst case, no GPU) the time to load and
-draw it, to redraw after a zoom and to apply a box selection.
+draw it, to redraw after a zoom and to apply a box selection. Then, for 100,000
+and 1,000,000 TOAs, the CPU time to write the page with residuals.csv read
+column by column (the reader) and row by row (the reference reader kept for
+naming bad lines; what the reader was before), in the same run.
 
     python scripts/bench_explorer.py [--quick]
 
@@ -70,7 +73,53 @@ def _browser_times(path: str) -> dict | None:
             "points": status["points"], "errors": errors}
 
 
-def bench_explorer(sizes=(10_000, 100_000)) -> None:
+def _residual_folder(n: int, tmp: str) -> str:
+    """residuals.csv and prefit_residuals.csv of n invented TOAs (no fit: only
+    the files the page is written from)."""
+    import numpy as np
+    from timingkit.formats.mjd_text import format_mjd
+    from timingkit.outputs.residual_table import ResidualTable
+    rng = np.random.default_rng(3)
+    mjd = np.sort(rng.uniform(55000, 60000, n))
+    err = rng.choice([0.5, 2.0], n)
+    folder = os.path.join(tmp, f"residuals{n}")
+    os.makedirs(folder)
+    for name, scale in (("residuals.csv", 1.0), ("prefit_residuals.csv", 30.0)):
+        residual = rng.normal(0, err) * scale
+        table = ResidualTable.from_columns(
+            format_mjd(np.floor(mjd), mjd - np.floor(mjd)),
+            rng.choice(["desert-dish", "lake-array"], n), rng.choice([820.0, 1400.0], n), err,
+            residual, residual * 3e-4, np.arange(n), {"backend": rng.choice(["wide-a", "wide-b"], n)})
+        table.toa_line = np.arange(2, n + 2)
+        table.write_csv(os.path.join(folder, name))
+    return folder
+
+
+def _page_cpu_s(folder: str, row_by_row: bool) -> float:
+    from timingkit.outputs import residual_table
+    from timingkit.outputs.explorer_page import write_explorer
+    columns = residual_table._read_columns
+    if row_by_row:
+        residual_table._read_columns = lambda body, header, quoted: None
+    try:
+        start = time.process_time()
+        write_explorer(folder)
+        return time.process_time() - start
+    finally:
+        residual_table._read_columns = columns
+
+
+def bench_explorer_reading(sizes=(100_000, 1_000_000)) -> None:
+    with tempfile.TemporaryDirectory(prefix="timingkit-explorer-") as tmp:
+        for n in sizes:
+            folder = _residual_folder(n, tmp)
+            by_columns, by_rows = _page_cpu_s(folder, False), _page_cpu_s(folder, True)
+            print(f"explorer.html from residuals.csv + prefit_residuals.csv, {n:,} TOAs: "
+                  f"{by_columns:.2f} s CPU with the files read column by column, {by_rows:.2f} s "
+                  f"read row by row ({by_rows / by_columns:.1f}x)")
+
+
+def bench_explorer(sizes=(10_000, 100_000), reading_sizes=(100_000, 1_000_000)) -> None:
     from timingkit.outputs.explorer_page import write_explorer
     with tempfile.TemporaryDirectory(prefix="timingkit-explorer-") as tmp:
         for n in sizes:
@@ -87,7 +136,11 @@ def bench_explorer(sizes=(10_000, 100_000)) -> None:
                       f"({times['points']:,} points drawn), redraw after a zoom "
                       f"{times['redraw_s']:.2f} s, box selection applied in "
                       f"{times['select_s']:.2f} s; console errors: {len(times['errors'])}")
+    bench_explorer_reading(reading_sizes)
 
 
 if __name__ == "__main__":
-    bench_explorer((2_000, 10_000) if "--quick" in sys.argv else (10_000, 100_000))
+    if "--quick" in sys.argv:
+        bench_explorer((2_000, 10_000), (10_000, 100_000))
+    else:
+        bench_explorer()

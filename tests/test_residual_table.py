@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 from timingkit.formats.errors import InputError
+from timingkit.outputs import residual_table
 from timingkit.outputs.residual_table import CORE_COLUMNS, ResidualTable, read_csv
 
 # Invented demo data (invented sites), not observations.
@@ -139,9 +140,13 @@ GOOD = "58849.5,desert-dish,1400.0,1.2,0.5,1e-6,10,wide-a\n"
     ("58850,desert-dish,1400,1.0,0.5,1e-6,11.5,wide-a\n", 3, "pulse_number", "integer"),
     ("58850,,1400,1.0,0.5,1e-6,11,wide-a\n", 3, "site", "site"),
 ])
-def test_bad_value_names_file_line_field(tmp_path, bad_row, line, field, words):
+@pytest.mark.parametrize("padding", [0, 2500])
+def test_bad_value_names_file_line_field(tmp_path, bad_row, line, field, words, padding):
+    # the same message deep in a long file (read column by column until the
+    # bad cell sends it to the row-by-row reader) as near the top
     path = tmp_path / "bad.csv"
-    path.write_text(HEADER + GOOD + bad_row)
+    path.write_text(HEADER + GOOD * (1 + padding) + bad_row + GOOD * 10)
+    line += padding
     with pytest.raises(InputError) as info:
         read_csv(path)
     err = info.value
@@ -189,6 +194,11 @@ def test_duplicate_column_and_empty_and_missing_file(tmp_path):
     with pytest.raises(InputError) as info:
         read_csv(tmp_path / "nowhere.csv")
     assert "nowhere.csv" in str(info.value)
+    latin = tmp_path / "latin.csv"
+    latin.write_bytes(HEADER.encode() + "58849.5,caf\xe9-dish,1400,1,0.5,1e-6,10,a\n".encode("latin-1"))
+    with pytest.raises(InputError, match="not UTF-8 text") as info:
+        read_csv(latin)
+    assert info.value.path == str(latin)
 
 
 def test_reading_does_not_modify_input(tmp_path):
@@ -198,3 +208,64 @@ def test_reading_does_not_modify_input(tmp_path):
     table = read_csv(path)
     assert path.read_bytes() == before
     assert table.flags["backend"][0] == "wide-a"
+
+
+def test_comment_lines_before_the_header_are_skipped(tmp_path):
+    # e.g. a note that the fit did not converge; line numbers still count them
+    path = tmp_path / "r.csv"
+    path.write_text("# fit did not converge: residuals of the last iteration\n"
+                    "  # a second note\n" + HEADER + GOOD * 3)
+    table = read_csv(path)
+    assert len(table) == 3 and list(table.flags) == ["backend"]
+    path.write_text("# note\n" + HEADER + GOOD + "58850,desert-dish,1400,1.0,oops,1e-6,11,x\n")
+    with pytest.raises(InputError) as info:
+        read_csv(path)
+    assert info.value.line == 4 and info.value.field == "residual_us"
+
+
+def _by_csv_module(path):
+    """The rows as the standard library's csv module and float()/int() read them
+    (the independent reference for the column-by-column reader)."""
+    with open(path, newline="", encoding="utf-8-sig") as handle:
+        lines = [line for line in handle if not line.startswith("#")]
+    rows = [row for row in csv.reader(lines) if any(cell.strip() for cell in row)]
+    return [{k: v.strip() for k, v in zip(rows[0], row)} for row in rows[1:]]
+
+
+@pytest.mark.parametrize("quoted", [False, True])
+def test_columns_read_at_once_equal_the_csv_module(tmp_path, monkeypatch, quoted):
+    # CRLF line ends, blank and blank-looking lines, blanks around cells, an
+    # unknown toa_line, inf frequency, orbital phase, reasons; with quoted cells
+    # the csv module splits the lines, without them numpy's reader
+    reason = '"rfi, band 2"' if quoted else "rfi"
+    text = ("# a note\r\n"
+            "mjd,site,freq_mhz,err_us,residual_us,residual_phase,pulse_number,toa_line,"
+            "orbital_phase,backend,left_out\r\n"
+            "58849.000142889802083, desert-dish ,1400.0,1.2,0.5,1e-6,10,7,0.25,wide-a,\r\n"
+            "\r\n   \r\n"
+            f"58851.5,lake-array,inf,0.85, -12.345678 ,-3.7e-04,+2987654321,,0.999,wide-b,{reason}\r\n"
+            "-.5,lake-array,820,3,1234.5,0.0369,-12,9,0.0,  ,\r\n")
+    path = tmp_path / "r.csv"
+    path.write_bytes(text.encode())
+    monkeypatch.setattr(residual_table, "_read_rows", None)   # must not be needed
+    table = read_csv(path)
+    rows = _by_csv_module(path)
+    assert len(table) == len(rows) == 3
+    assert list(table.mjd_text) == [r["mjd"] for r in rows]
+    assert table.mjd.tolist() == [float(r["mjd"]) for r in rows]
+    assert list(table.site) == [r["site"] for r in rows] == ["desert-dish", "lake-array",
+                                                              "lake-array"]
+    for name in ("freq_mhz", "err_us", "residual_us", "residual_phase", "orbital_phase"):
+        assert getattr(table, name).tolist() == [float(r[name]) for r in rows]
+    assert table.pulse_number.tolist() == [int(r["pulse_number"]) for r in rows]
+    assert table.pulse_number.dtype == np.int64 and table.toa_line.tolist() == [7, 0, 9]
+    assert list(table.flags["backend"]) == ["wide-a", "wide-b", ""]
+    assert list(table.left_out) == ["", "rfi, band 2" if quoted else "rfi", ""]
+
+
+def test_unusual_but_valid_cells_are_read_row_by_row(tmp_path):
+    # Python's float() takes digit-group underscores; numpy's reader does not,
+    # so such a file is read by the row-by-row reader, to the same values
+    path = tmp_path / "r.csv"
+    path.write_text(HEADER + GOOD + "58850,desert-dish,1_400.0,1.0,0.5,1e-6,11,wide-a\n")
+    assert read_csv(path).freq_mhz.tolist() == [1400.0, 1400.0]
