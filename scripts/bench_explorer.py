@@ -67,10 +67,17 @@ def _browser_times(path: str) -> dict | None:
         start = time.perf_counter()
         page.box_between(58000.0, 58100.0)
         select = time.perf_counter() - start
+        f = page.frame()                  # hover over the middle of the plot (many TOAs)
+        page.page.mouse.move(f["left"] + 5, f["top"] + 5)
+        page.page.wait_for_timeout(200)
+        start = time.perf_counter()
+        page.page.mouse.move(f["left"] + f["width"] / 2, f["top"] + f["height"] / 2)
+        page.page.wait_for_selector("#tk-card:not([hidden])", timeout=60_000)
+        hover = time.perf_counter() - start
         errors = list(page.errors)
         page.close()
     return {"load_s": page.load_s, "redraw_s": redraw, "select_s": select,
-            "points": status["points"], "errors": errors}
+            "points": status["points"], "hover_s": hover, "errors": errors}
 
 
 def _residual_folder(n: int, tmp: str) -> str:
@@ -135,7 +142,8 @@ def bench_explorer(sizes=(10_000, 100_000), reading_sizes=(100_000, 1_000_000)) 
                 print(f"  headless chromium, software WebGL: ready in {times['load_s']:.1f} s "
                       f"({times['points']:,} points drawn), redraw after a zoom "
                       f"{times['redraw_s']:.2f} s, box selection applied in "
-                      f"{times['select_s']:.2f} s; console errors: {len(times['errors'])}")
+                      f"{times['select_s']:.2f} s, hover card (nearest of all TOAs) in "
+                      f"{times['hover_s']:.2f} s; console errors: {len(times['errors'])}")
     bench_explorer_reading(reading_sizes)
 
 

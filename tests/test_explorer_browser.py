@@ -11,6 +11,7 @@ import shutil
 
 import numpy as np
 import pytest
+from scipy.spatial import cKDTree
 
 from explorer_browser import REQUIRE_ENV, ExplorerPage, browser_problem, open_browser
 from timingkit.cli.main import main
@@ -151,7 +152,8 @@ def test_box_selection_download_refit_and_reopen(browser, msp):
         page.close()
 
 
-def test_thinned_page_selects_every_toa_under_a_box_and_a_lasso(browser, tmp_path):
+def _thinned_page(folder):
+    """explorer.html of 15,000 invented TOAs (thinned); their residual table."""
     n = THIN_ABOVE + 5_000
     rng = np.random.default_rng(7)
     mjd = np.sort(rng.uniform(58000, 60000, n))
@@ -162,8 +164,47 @@ def test_thinned_page_selects_every_toa_under_a_box_and_a_lasso(browser, tmp_pat
                                        np.full(n, 1400.0), err, residual, residual * 3e-4,
                                        np.arange(n))
     table.toa_line = np.arange(2, n + 2)
-    table.write_csv(tmp_path / "residuals.csv")
-    write_explorer(str(tmp_path))
+    table.write_csv(folder / "residuals.csv")
+    write_explorer(str(folder))
+    return table
+
+
+def test_thinned_page_hover_finds_toas_that_are_not_drawn(browser, tmp_path):
+    table = _thinned_page(tmp_path)
+    page = ExplorerPage(browser, tmp_path / "explorer.html")
+    try:
+        assert page.status()["thinned"]
+        f = page.frame()
+        # every TOA's place on the screen (y as the page holds it: float32), and
+        # the pixel distance to its nearest neighbour (scipy's k-d tree)
+        sx, sy = page.to_screen(table.mjd, table.residual_us.astype(np.float32).astype(float))
+        distance, _ = cKDTree(np.column_stack([sx, sy])).query(np.column_stack([sx, sy]), k=2)
+        drawn = set(page.plotted("x"))
+        hidden = [i for i in np.argsort(-distance[:, 1])
+                  if table.mjd[i] not in drawn and f["left"] < sx[i] < f["left"] + f["width"]
+                  and f["top"] < sy[i] < f["top"] + f["height"]]
+        # TOAs left out of the drawing but over 2 pixels from any other TOA
+        targets = [i for i in hidden if distance[i, 1] > 2.0][:3]
+        assert len(targets) == 3
+        for i in targets:
+            page.page.mouse.move(5, 5)
+            page.page.mouse.move(sx[i], sy[i], steps=3)
+            page.page.wait_for_function(
+                "t => !document.getElementById('tk-card').hidden && "
+                "document.getElementById('tk-card').innerText.includes(t)",
+                arg=table.mjd_text[i], timeout=10_000)
+            assert f"line\n{table.toa_line[i]}" in page.page.inner_text("#tk-card")
+        assert "hover shows the TOA nearest the pointer" in page.page.inner_text("#tk-foot")
+        page.page.mouse.move(5, 5)
+        page.page.wait_for_selector("#tk-card", state="hidden", timeout=10_000)
+        assert page.errors == []
+    finally:
+        page.close()
+
+
+def test_thinned_page_selects_every_toa_under_a_box_and_a_lasso(browser, tmp_path):
+    table = _thinned_page(tmp_path)
+    n = len(table)
     page = ExplorerPage(browser, tmp_path / "explorer.html")
     try:
         status = page.status()

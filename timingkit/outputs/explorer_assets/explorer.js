@@ -5,8 +5,8 @@
    Above data.thin_above TOAs the plot holds, for each CELL_PX-pixel cell of the
    view (and MARGIN of a view around it, for panning), only the TOA drawn on top
    there (the last one, as a full drawing would show it): the picture is the
-   same, the browser draws a fraction of the points. Selections always test
-   every TOA. */
+   same, the browser draws a fraction of the points. Selections and hover
+   always test every TOA. */
 (function () {
   'use strict';
   var PALETTE = ['#1f6f8b', '#d1495b', '#e8a33d', '#5a8f29', '#7d5ba6', '#2b9e9e',
@@ -18,10 +18,10 @@
                   err: 'TOA error (µs)'};
   var Y_LABELS = {us: 'residual (µs)', phase: 'residual (pulse turns)',
                   sigma: 'residual / error'};
-  var CELL_PX = 4, MARGIN = 0.25;
+  var CELL_PX = 4, MARGIN = 0.25, HOVER_PX = 5;
   var data = null, bk = null, ready = false;
   var reasons = null, origin = null, history = [];
-  var full = null, drawn = null, thinTimer = null;
+  var full = null, drawn = null, thinTimer = null, pendingHover = null;
 
   function byId(id) { return document.getElementById(id); }
 
@@ -243,12 +243,36 @@
     return list;
   }
 
+  /* The TOA nearest the pointer among all TOAs, drawn or not (thinning hides
+     some under their neighbours), and how many others lie within HOVER_PX. */
+  function nearest(x, y) {
+    var box = plotView().frame.bbox, xr = bk.plot.x_range, yr = bk.plot.y_range;
+    var kx = box.width / (xr.end - xr.start), ky = box.height / (yr.end - yr.start);
+    var best = -1, bestD2 = HOVER_PX * HOVER_PX, within = 0, fx = full.x, fy = full.y;
+    for (var i = 0; i < data.n; i++) {
+      var dx = (fx[i] - x) * kx, dy = (fy[i] - y) * ky, d2 = dx * dx + dy * dy;
+      if (d2 <= HOVER_PX * HOVER_PX) {
+        within++;
+        if (d2 <= bestD2) { best = i; bestD2 = d2; }   /* ties: the later one, drawn on top */
+      }
+    }
+    return {index: best, others: Math.max(0, within - 1)};
+  }
+
+  /* Bokeh reports every pointer move; the search runs once per frame. */
   function hover(cbData) {
-    var card = byId('tk-card');
     if (!ready) return;
-    var hits = cbData.index.indices;
-    if (!hits.length) { card.hidden = true; return; }
-    var i = drawn[hits[0]], g = cbData.geometry;
+    var first = pendingHover === null;
+    pendingHover = cbData.geometry;
+    if (first) requestAnimationFrame(showCard);
+  }
+
+  function showCard() {
+    var g = pendingHover, card = byId('tk-card');
+    pendingHover = null;
+    var near = isFinite(g.sx + g.sy) ? nearest(g.x, g.y) : {index: -1};
+    if (near.index < 0) { card.hidden = true; return; }
+    var i = near.index;
     var html = '<dl>' + rows(i).map(function (r) {
       return '<dt>' + escapeHtml(r[0]) + '</dt><dd>' + escapeHtml(r[1]) + '</dd>';
     }).join('') + '</dl>';
@@ -256,7 +280,7 @@
       html += '<p class="tk-out">left out: ' + escapeHtml(reasons[i]) +
               (origin[i] === OUT_HERE ? ' (marked here)' : ' (in the fit)') + '</p>';
     }
-    if (hits.length > 1) html += '<p>' + (hits.length - 1) + ' more TOA(s) under the pointer</p>';
+    if (near.others) html += '<p>' + count(near.others) + ' more TOA(s) within ' + HOVER_PX + ' pixels</p>';
     card.innerHTML = html;
     card.hidden = false;
     var host = byId('tk-plot-host'), w = host.clientWidth, h = host.clientHeight;
@@ -396,7 +420,8 @@
       return '<p>warning: ' + escapeHtml(w) + '</p>';
     }).join('') + (data.n > data.thinAbove ? '<p>With ' + count(data.n) + ' TOAs the plot draws ' +
       'the TOA on top in each ' + CELL_PX + '-pixel cell of the view (what a full drawing ' +
-      'would show); hover finds the drawn ones, selections take every TOA inside.</p>' : '') +
+      'would show); hover shows the TOA nearest the pointer and selections take every TOA ' +
+      'inside, drawn or not.</p>' : '') +
       '<p>Values are shown to 6 significant digits; residuals.csv holds the ' +
       'exact ones. Day of year and glitch epochs are approximate to a minute (UTC and TDB).</p>';
   }
