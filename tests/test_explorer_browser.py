@@ -251,3 +251,40 @@ def _triangle_inside_and_distance(points, corners):
         t = np.clip(rel @ edge / (edge @ edge), 0, 1)
         distance = np.minimum(distance, np.hypot(*(rel - t[:, None] * edge).T))
     return inside, distance
+
+
+def test_glitch_search_page_draws_the_candidate(browser, tmp_path, sites, ephemeris):
+    # `glitches --explore` on invented TOAs with one glitch at MJD 58400.3:
+    # the fitted glitch (found by the search) is drawn as a line at its epoch,
+    # with the search's bracket, while the x axis is MJD
+    from conftest import glitch_text, young_pulsar_text
+    from timingkit.formats.toa_writer import write_toa_table
+    from timingkit.model import TimingModel
+    from timingkit.model.simulate import simulate_toas
+    start = young_pulsar_text(10.0, -1e-11)
+    toas = simulate_toas(TimingModel.from_text(start + glitch_text(58400.3, 1e-6, -1e-14)),
+                         58000, 58730, 104, 50.0, sites, ephemeris, site_names=["ssb"],
+                         freqs_mhz=[1400.0], seed=21)
+    write_toa_table(toas, str(tmp_path / "glitch.toas"))
+    (tmp_path / "start.toml").write_text(start)
+    assert main(["glitches", str(tmp_path / "glitch.toas"), str(tmp_path / "start.toml"), "-o",
+                 str(tmp_path / "out"), "--no-plot", "--null-trials", "200", "--explore"]) == 0
+    (candidate,) = json.loads((tmp_path / "out" / "glitches.json").read_text())["candidates"]
+    page = ExplorerPage(browser, tmp_path / "out" / "explorer.html")
+    try:
+        marks = "Bokeh.documents[0].all_models"
+        shown = ("(kind) => Array.from(" + marks + ").filter(m => m.type === kind && m.visible)"
+                 ".map(m => kind === 'Span' ? [m.dimension, m.location] : [m.left, m.right])")
+        spans = page.page.evaluate(shown, "Span")
+        epoch = [x for d, x in spans if d == "height"]
+        assert len(epoch) == 1 and epoch[0] == pytest.approx(candidate["epoch_mjd"], abs=1e-6)
+        assert [candidate["epoch_min_mjd"], candidate["epoch_max_mjd"]] in page.page.evaluate(
+            shown, "BoxAnnotation")
+        labels = page.page.evaluate("Array.from(" + marks + ").filter(m => m.type === 'Label' "
+                                    "&& m.visible).map(m => m.text)")
+        assert labels == ["glitch 1 (model; search candidate 1, FAP < 0.005)"]
+        page.choose("tk-x", "freq")          # epochs mean nothing against frequency
+        assert not [x for d, x in page.page.evaluate(shown, "Span") if d == "height"]
+        assert page.errors == []
+    finally:
+        page.close()

@@ -175,3 +175,25 @@ def test_a_search_whose_final_fit_did_not_converge_marks_every_output(files, tmp
                  "-o", str(ok), "--no-plot"]) == 0
     assert json.loads((ok / "glitches.json").read_text())["converged"] is True
     assert read_residual_csv(ok / "residuals.csv").converged is True
+
+
+def test_explore_writes_the_page_with_the_candidate_marked(files, tmp_path, capsys):
+    from timingkit.outputs.explorer_page import explorer_data
+    out = tmp_path / "out"
+    assert main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+                 "-o", str(out), "--no-plot", "--null-trials", "200", "--explore"]) == 0
+    assert capsys.readouterr().out.rstrip().endswith("report.json, explorer.html")
+    (c,) = json.loads((out / "glitches.json").read_text())["candidates"]
+    with open(out / "fitted.toml", "rb") as fh:
+        (fitted,) = tomllib.load(fh)["glitch"]
+    # the candidate became the fitted model's glitch: one mark at the model's
+    # epoch, with the search's bracket, which holds the simulated epoch
+    data = explorer_data(str(out))
+    (mark,) = data["epochs"]
+    assert mark["kind"] == "model" and mark["mjd"] == float(fitted["epoch_mjd"])
+    assert (mark["low"], mark["high"]) == (c["epoch_min_mjd"], c["epoch_max_mjd"])
+    assert mark["low"] <= EPOCH <= mark["high"]
+    assert mark["label"] == "glitch 1 (model; search candidate 1, FAP < 0.005)"
+    assert data["count"] == 104 and "pre_us" in data["columns"]
+    text = (out / "explorer.html").read_text(encoding="utf-8")
+    assert "search candidate 1" in text and "window.timingkitExplorer" in text

@@ -5,8 +5,9 @@ steps, uncertainties and false-alarm probabilities), ``fitted.toml`` (the
 starting model with the glitches added and everything fitted),
 ``glitch_search.png`` (residuals before the glitch terms, the local
 frequency track with the candidate epochs, the frequency-derivative track),
-and the files of ``timingkit fit`` (residuals.csv, prefit_residuals.csv,
-residuals.png, report.json with ``glitch_candidates``). :func:`glitch_files`
+with ``--explore`` ``explorer.html`` (the candidates marked), and the files
+of ``timingkit fit`` (residuals.csv, prefit_residuals.csv, residuals.png,
+report.json with ``glitch_candidates``). :func:`glitch_files`
 takes the same arguments as :func:`timingkit.pipeline.fit_run.fit_files`, so the
 batch runner can use it as its fit function.
 """
@@ -77,6 +78,9 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
                    help="clock-correction table; may be repeated")
     p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
     p.add_argument("--no-plot", action="store_true", help="skip the figures")
+    p.add_argument("--explore", action="store_true",
+                   help="also write explorer.html, the interactive residual explorer, with "
+                        "the candidates and the fitted glitches marked")
     add_selection_options(p)
     add_wait_option(p)
     p.set_defaults(func=cmd_glitches)
@@ -95,13 +99,18 @@ def cmd_glitches(args) -> int:
                           clock_paths=args.clock, make_plots=not args.no_plot,
                           color_by=args.color_by, settings=settings,
                           **selection_arguments(args))
-    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot))
+    if args.explore:
+        from timingkit.outputs.explorer_page import write_explorer
+        write_explorer(args.outdir)
+    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot,
+                       args.explore))
     if left_out_line(report):
         print(left_out_line(report))
     return converged_status(report)
 
 
-def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
+def summary_text(report: dict, glitch_path: str, plots: bool = True,
+                 explorer: bool = False) -> str:
     import json
     with open(glitch_path, encoding="utf-8") as fh:
         found = json.load(fh)
@@ -146,7 +155,7 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True) -> str:
         lines.append(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
     figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""
     lines.append(f"wrote {os.path.dirname(glitch_path) or '.'}/: {GLITCH_FILE}, fitted.toml, "
-                 f"{figures}residuals.csv, report.json")
+                 f"{figures}residuals.csv, report.json{', explorer.html' if explorer else ''}")
     return "\n".join(lines)
 
 
