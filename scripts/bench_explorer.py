@@ -96,7 +96,8 @@ def _residual_folder(n: int, tmp: str) -> str:
         table = ResidualTable.from_columns(
             format_mjd(np.floor(mjd), mjd - np.floor(mjd)),
             rng.choice(["desert-dish", "lake-array"], n), rng.choice([820.0, 1400.0], n), err,
-            residual, residual * 3e-4, np.arange(n), {"backend": rng.choice(["wide-a", "wide-b"], n)})
+            residual, residual * 3e-4, np.arange(n),
+            {"backend": rng.choice(["wide-a", "wide-b"], n)})
         table.toa_line = np.arange(2, n + 2)
         table.write_csv(os.path.join(folder, name))
     return folder

@@ -195,7 +195,8 @@ def test_duplicate_column_and_empty_and_missing_file(tmp_path):
         read_csv(tmp_path / "nowhere.csv")
     assert "nowhere.csv" in str(info.value)
     latin = tmp_path / "latin.csv"
-    latin.write_bytes(HEADER.encode() + "58849.5,caf\xe9-dish,1400,1,0.5,1e-6,10,a\n".encode("latin-1"))
+    latin.write_bytes(HEADER.encode()
+                      + "58849.5,caf\xe9-dish,1400,1,0.5,1e-6,10,a\n".encode("latin-1"))
     with pytest.raises(InputError, match="not UTF-8 text") as info:
         read_csv(latin)
     assert info.value.path == str(latin)
@@ -243,7 +244,8 @@ def test_columns_read_at_once_equal_the_csv_module(tmp_path, monkeypatch, quoted
             "orbital_phase,backend,left_out\r\n"
             "58849.000142889802083, desert-dish ,1400.0,1.2,0.5,1e-6,10,7,0.25,wide-a,\r\n"
             "\r\n   \r\n"
-            f"58851.5,lake-array,inf,0.85, -12.345678 ,-3.7e-04,+2987654321,,0.999,wide-b,{reason}\r\n"
+            "58851.5,lake-array,inf,0.85, -12.345678 ,-3.7e-04,+2987654321,,0.999,wide-b,"
+            f"{reason}\r\n"
             "-.5,lake-array,820,3,1234.5,0.0369,-12,9,0.0,  ,\r\n")
     path = tmp_path / "r.csv"
     path.write_bytes(text.encode())

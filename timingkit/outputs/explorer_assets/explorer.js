@@ -280,7 +280,9 @@
       html += '<p class="tk-out">left out: ' + escapeHtml(reasons[i]) +
               (origin[i] === OUT_HERE ? ' (marked here)' : ' (in the fit)') + '</p>';
     }
-    if (near.others) html += '<p>' + count(near.others) + ' more TOA(s) within ' + HOVER_PX + ' pixels</p>';
+    if (near.others) {
+      html += '<p>' + count(near.others) + ' more TOA(s) within ' + HOVER_PX + ' pixels</p>';
+    }
     card.innerHTML = html;
     card.hidden = false;
     var host = byId('tk-plot-host'), w = host.clientWidth, h = host.clientHeight;
