@@ -119,6 +119,7 @@ def _page_cpu_s(folder: str, row_by_row: bool) -> float:
 
 def bench_explorer_reading(sizes=(100_000, 1_000_000)) -> None:
     with tempfile.TemporaryDirectory(prefix="timingkit-explorer-") as tmp:
+        _page_cpu_s(_residual_folder(1_000, tmp), False)      # imports Bokeh: not timed
         for n in sizes:
             folder = _residual_folder(n, tmp)
             by_columns, by_rows = _page_cpu_s(folder, False), _page_cpu_s(folder, True)

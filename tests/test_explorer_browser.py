@@ -288,3 +288,29 @@ def test_glitch_search_page_draws_the_candidate(browser, tmp_path, sites, epheme
         assert page.errors == []
     finally:
         page.close()
+
+
+def test_a_flag_with_more_values_than_16_bits_hold(browser, tmp_path):
+    # a flag naming each of 70,000 observations: its codes need 32 bits, and
+    # the hover card of observation 69,000 (alone, far above the others) names it
+    n, k = 70_000, 69_000
+    rng = np.random.default_rng(3)
+    mjd = np.sort(rng.uniform(58000, 60000, n))
+    residual = rng.normal(0, 1.0, n)
+    residual[k] = 40.0
+    table = ResidualTable.from_columns(format_mjd(np.floor(mjd), mjd - np.floor(mjd)),
+                                       np.full(n, "desert-dish"), np.full(n, 1400.0),
+                                       np.ones(n), residual, residual * 3e-4, np.arange(n),
+                                       {"observation": [f"obs-{i:06d}" for i in range(n)]})
+    table.write_csv(tmp_path / "residuals.csv")
+    write_explorer(str(tmp_path))
+    page = ExplorerPage(browser, tmp_path / "explorer.html")
+    try:
+        page.page.mouse.move(5, 5)
+        page.page.mouse.move(*page.to_screen(mjd[k], 40.0), steps=3)
+        page.page.wait_for_selector("#tk-card:not([hidden])", timeout=10_000)
+        card = page.page.inner_text("#tk-card")
+        assert table.mjd_text[k] in card and "obs-069000" in card
+        assert page.errors == []
+    finally:
+        page.close()

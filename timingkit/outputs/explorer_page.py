@@ -41,9 +41,17 @@ def _b64(array, dtype) -> str:
 
 
 def _coded(values) -> dict:
-    """Category levels and one uint16 code per TOA."""
-    levels, codes = np.unique(np.asarray(values, dtype=str), return_inverse=True)
-    return {"levels": levels.tolist(), "codes": _b64(codes, "<u2")}
+    """Category levels (sorted) and one code per TOA: uint16, or uint32
+    (``"wide": true``) for more than 65,536 levels, such as a flag naming each
+    observation. A dict rather than np.unique: sorting a million strings costs
+    ten times more than looking them up."""
+    texts = np.asarray(values).tolist()
+    levels = sorted(set(texts))
+    index = {level: k for k, level in enumerate(levels)}
+    wide = len(levels) > 2**16
+    codes = np.fromiter(map(index.__getitem__, texts), dtype="<u4" if wide else "<u2",
+                        count=len(texts))
+    return {"levels": levels, "codes": _b64(codes, codes.dtype), **({"wide": True} if wide else {})}
 
 
 def _read_json(path: str) -> dict | None:

@@ -31,7 +31,9 @@
     return new Type(bytes.buffer);
   }
 
-  function coded(entry) { return {levels: entry.levels, codes: decode(entry.codes, Uint16Array)}; }
+  function coded(entry) {
+    return {levels: entry.levels, codes: decode(entry.codes, entry.wide ? Uint32Array : Uint16Array)};
+  }
 
   function dayOfYear(mjd) {
     var out = new Float64Array(mjd.length);
