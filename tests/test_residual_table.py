@@ -241,12 +241,13 @@ def test_columns_read_at_once_equal_the_csv_module(tmp_path, monkeypatch, quoted
     reason = '"rfi, band 2"' if quoted else "rfi"
     text = ("# a note\r\n"
             "mjd,site,freq_mhz,err_us,residual_us,residual_phase,pulse_number,toa_line,"
-            "orbital_phase,backend,left_out\r\n"
-            "58849.000142889802083, desert-dish ,1400.0,1.2,0.5,1e-6,10,7,0.25,wide-a,\r\n"
+            "orbital_phase,backend,left_out,fit_status\r\n"
+            "58849.000142889802083, desert-dish ,1400.0,1.2,0.5,1e-6,10,7,0.25,wide-a,,"
+            "not_converged\r\n"
             "\r\n   \r\n"
             "58851.5,lake-array,inf,0.85, -12.345678 ,-3.7e-04,+2987654321,,0.999,wide-b,"
-            f"{reason}\r\n"
-            "-.5,lake-array,820,3,1234.5,0.0369,-12,9,0.0,  ,\r\n")
+            f"{reason},not_converged\r\n"
+            "-.5,lake-array,820,3,1234.5,0.0369,-12,9,0.0,  ,,not_converged\r\n")
     path = tmp_path / "r.csv"
     path.write_bytes(text.encode())
     monkeypatch.setattr(residual_table, "_read_rows", None)   # must not be needed
@@ -263,6 +264,19 @@ def test_columns_read_at_once_equal_the_csv_module(tmp_path, monkeypatch, quoted
     assert table.pulse_number.dtype == np.int64 and table.toa_line.tolist() == [7, 0, 9]
     assert list(table.flags["backend"]) == ["wide-a", "wide-b", ""]
     assert list(table.left_out) == ["", "rfi, band 2" if quoted else "rfi", ""]
+    assert table.converged is False and "fit_status" not in table.flags
+
+
+def test_bad_fit_status_deep_in_a_file(tmp_path):
+    header = HEADER.rstrip("\n") + ",fit_status\n"
+    good = GOOD.rstrip("\n") + ",not_converged\n"
+    path = tmp_path / "r.csv"
+    path.write_text(header + good * 3000)
+    assert read_csv(path).converged is False
+    path.write_text(header + good * 3000 + GOOD.rstrip("\n") + ",converged\n" + good)
+    with pytest.raises(InputError) as info:
+        read_csv(path)
+    assert (info.value.line, info.value.field) == (3002, "fit_status")
 
 
 def test_unusual_but_valid_cells_are_read_row_by_row(tmp_path):
