@@ -64,6 +64,7 @@ def test_page_loads_offline_and_draws_one_point_per_toa(browser, msp, tmp_path):
         status = page.status()
         assert status["toas"] == status["points"] == 360 and not status["thinned"]
         assert status["leftOut"] == 0
+        assert "NOT CONVERGED" not in page.page.inner_text("#tk-facts")
         table = read_toa_table(str(msp / "demo-msp.toas"))
         mjd = table.mjd_day + table.mjd_frac
         assert np.allclose(page.plotted("x"), mjd, rtol=0, atol=1e-6)
@@ -96,6 +97,21 @@ def test_page_loads_offline_and_draws_one_point_per_toa(browser, msp, tmp_path):
         page.screenshot(tmp_path / "shot.png")
         from matplotlib.image import imread
         assert np.std(imread(tmp_path / "shot.png")[..., :3]) > 0.05   # something was drawn
+        assert page.errors == []
+    finally:
+        page.close()
+
+
+def test_page_of_a_fit_that_did_not_converge_says_so(browser, tmp_path):
+    for name in ("demo-young.toas", "demo-young.toml", "sites.toml"):
+        shutil.copy(os.path.join(SAMPLE, name), tmp_path / name)
+    assert main(["fit", str(tmp_path / "demo-young.toas"), str(tmp_path / "demo-young.toml"),
+                 "-o", str(tmp_path / "out"), "--no-plot", "--max-iterations", "1",
+                 "--explore"]) == 4
+    page = ExplorerPage(browser, tmp_path / "out" / "explorer.html")
+    try:
+        assert "fit NOT CONVERGED" in page.page.inner_text("#tk-facts")
+        assert "fit did not converge" in page.page.inner_text("#tk-foot")
         assert page.errors == []
     finally:
         page.close()

@@ -419,6 +419,7 @@
       parts.push('reduced chi-square ' + Number(s.reduced_chi2).toFixed(3));
     }
     if (s.fitted === false) parts.push('model as given (no fit)');
+    if (s.converged === false) parts.push('fit NOT CONVERGED: the residuals of its last step');
     byId('tk-facts').textContent = parts.join(' · ');
     byId('tk-foot').innerHTML = (data.warnings || []).map(function (w) {
       return '<p>warning: ' + escapeHtml(w) + '</p>';
