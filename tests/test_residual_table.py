@@ -285,3 +285,19 @@ def test_unusual_but_valid_cells_are_read_row_by_row(tmp_path):
     path = tmp_path / "r.csv"
     path.write_text(HEADER + GOOD + "58850,desert-dish,1_400.0,1.0,0.5,1e-6,11,wide-a\n")
     assert read_csv(path).freq_mhz.tolist() == [1400.0, 1400.0]
+
+
+def test_quoted_cells_are_read_as_the_csv_module_reads_them(tmp_path, monkeypatch):
+    # odd quoting on one line each (numpy's reader and the csv module agree:
+    # read at once), then a quoted cell over two lines (the row reader)
+    odd = ['"a"b', 'a"b', '"x""y"', '""']
+    path = tmp_path / "r.csv"
+    path.write_text(HEADER + "".join(GOOD.replace("wide-a", cell) for cell in odd))
+    expected = [row["backend"] for row in _by_csv_module(path)]
+    assert expected == ["ab", 'a"b', 'x"y', ""]
+    with monkeypatch.context() as patch:
+        patch.setattr(residual_table, "_read_rows", None)
+        assert list(read_csv(path).flags["backend"]) == expected
+    path.write_text(HEADER + GOOD + GOOD.replace("wide-a", '"two\nlines"') + GOOD)
+    table = read_csv(path)
+    assert list(table.flags["backend"]) == ["wide-a", "two\nlines", "wide-a"]

@@ -284,16 +284,8 @@ def _header(lines: list[str], path: str) -> tuple[list[str], int]:
 # Characters a plainly valid cell may hold (ASCII only: anything else, such as
 # other scripts' digits, goes to the row-by-row reader).
 _DECIMAL_CHARS = re.compile(r"[0-9.+\-]*")
-_INTEGER_CHARS = re.compile(r"[0-9+\-]*")
 _DIGIT_CHARS = re.compile(r"[0-9]*")
 _FLOAT_COLUMNS = ("freq_mhz", "err_us", "residual_us", "residual_phase", "orbital_phase")
-
-
-def _floats(cells: list[str]) -> np.ndarray | None:
-    try:
-        return np.fromiter(map(float, cells), dtype=float, count=len(cells))
-    except ValueError:
-        return None
 
 
 def _integers(cells: list[str]) -> np.ndarray | None:
@@ -303,54 +295,54 @@ def _integers(cells: list[str]) -> np.ndarray | None:
         return None
 
 
-def _split_by_numpy(rows: list[str], header: list[str]):
-    """Lines without quotes, each with len(header) fields, split in one pass by
-    numpy's C reader (np.loadtxt): number columns, the MJD as a float and the
+def _split_by_numpy(rows: list[str], header: list[str], quoted: bool):
+    """The lines split in one pass by numpy's C reader (np.loadtxt; quoted
+    cells too when ``quoted``): number columns, the MJD as a float and the
     pulse number parsed (it takes a subset of what Python's float() and the
-    row reader's integers take), the other columns as text (None if any cell
-    does not parse)."""
+    row reader's integers take), the other columns as text. None if a cell
+    does not parse or the lines do not give one row each."""
     kind = dict.fromkeys(_FLOAT_COLUMNS, float) | {"pulse_number": np.int64}
     types = [(f"c{j}", kind.get(name, object)) for j, name in enumerate(header)]
     try:
         cells = np.loadtxt(rows, dtype=types + [("mjd_value", float)], delimiter=",",
-                           comments=None, quotechar=None, ndmin=1,
+                           comments=None, quotechar='"' if quoted else None, ndmin=1,
                            usecols=[*range(len(header)), header.index("mjd")])
     except ValueError:
+        return None
+    if len(cells) != len(rows):
         return None
     text = {name: cells[f"c{j}"].tolist() for j, name in enumerate(header) if name not in kind}
     numbers = {name: cells[f"c{j}"] for j, name in enumerate(header) if name in kind}
     return text, numbers | {"mjd": cells["mjd_value"]}
 
 
-def _split_by_csv(rows: list[list[str]], header: list[str]):
-    """Rows split by the csv module (quoted cells): the same columns as
-    :func:`_split_by_numpy` gives, parsed by Python (None if any fails)."""
-    k = len(header)
-    cells = [cell for row in rows for cell in row]
-    text = {name: cells[j::k] for j, name in enumerate(header)}
-    pulse = list(map(str.strip, text.pop("pulse_number")))
-    numbers = {name: _floats(text.pop(name)) for name in _FLOAT_COLUMNS if name in text}
-    numbers |= {"mjd": _floats(text["mjd"]),
-                "pulse_number": _integers(pulse) if _INTEGER_CHARS.fullmatch("".join(pulse))
-                else None}
-    return None if any(v is None for v in numbers.values()) else (text, numbers)
+def _quoted_rows_agree(rows: list[str], header: list[str], text: dict, numbers: dict) -> bool:
+    """The lines holding '"', split by the csv module (as the row reader does),
+    give the fields numpy's reader gave: the same number, text and values."""
+    marked = [i for i, line in enumerate(rows) if '"' in line]
+    parsed = list(csv.reader([rows[i] for i in marked]))
+    if len(parsed) != len(marked) or any(len(row) != len(header) for row in parsed):
+        return False
+    if any("\n" in cell or "\r" in cell for row in parsed for cell in row):
+        return False                      # a quote open at the line's end: cells over lines
+    try:
+        return all(text[name][i] == cell if name in text else
+                   (int if name == "pulse_number" else float)(cell) == numbers[name][i]
+                   for i, row in zip(marked, parsed) for name, cell in zip(header, row))
+    except ValueError:
+        return False
 
 
 def _read_columns(body: list[str], header: list[str], quoted: bool) -> ResidualTable | None:
     """The table from the lines after the header, parsed column by column; None
     where a line or cell is anything but plainly valid (the caller then reads
     the rows one by one, to name the bad one). ``quoted``: the file holds '"'."""
-    k = len(header)
-    if quoted:                            # quoted cells: the csv module splits them
-        rows = [row for row in csv.reader(body) if any(cell.strip() for cell in row)]
-        split = (_split_by_csv(rows, header)
-                 if rows and all(len(row) == k for row in rows) else None)
-    else:
-        rows = [line for line in body if line.strip()]
-        split = (_split_by_numpy(rows, header)
-                 if rows and not set(map(str.count, rows, [","] * len(rows))) - {k - 1}
-                 else None)
-    if split is None:
+    rows = [line for line in body if line.strip()]
+    plain = [line for line in rows if '"' not in line] if quoted else rows
+    if not rows or set(map(str.count, plain, [","] * len(plain))) - {len(header) - 1}:
+        return None                       # a line without quotes has a wrong field count
+    split = _split_by_numpy(rows, header, quoted)
+    if split is None or (quoted and not _quoted_rows_agree(rows, header, *split)):
         return None
     text, numbers = split
     text = {name: list(map(str.strip, cells)) for name, cells in text.items()}
