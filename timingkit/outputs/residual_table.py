@@ -228,15 +228,16 @@ def _parse_float(text: str, path, line: int, name: str, *, positive: bool = Fals
 def read_csv(path) -> ResidualTable:
     """Read a ``residuals.csv`` written by :meth:`ResidualTable.write_csv`.
 
-    Lines starting with ``#`` before the header are comments and are skipped. Raises :class:`InputError`
-    naming the file, line (1-based) and column for a missing file, missing or
-    duplicate columns, wrong field counts or bad values.
+    Lines starting with ``#`` before the header are comments and are skipped.
+    Raises :class:`InputError` naming the file, line (1-based) and column for a
+    missing file, missing or duplicate columns, wrong field counts or bad values.
 
     A well-formed table is split and parsed in one pass by numpy's C reader
-    (~2 s per million rows, against ~5 s row by row); anything that pass does
-    not accept as plainly valid is read again row by row (:func:`_read_rows`,
-    the reference), which gives the same table for valid input and the error
-    naming the first bad line and column otherwise.
+    (~2 s per million rows, against ~5 s row by row; lines with quoted cells are
+    checked against the csv module); anything that pass does not accept as
+    plainly valid is read again row by row (:func:`_read_rows`, the reference),
+    which gives the same table for valid input and the error naming the first
+    bad line and column otherwise.
     """
     path = str(path)
     try:
