@@ -32,7 +32,8 @@
   }
 
   function coded(entry) {
-    return {levels: entry.levels, codes: decode(entry.codes, entry.wide ? Uint32Array : Uint16Array)};
+    var Type = entry.wide ? Uint32Array : Uint16Array;   /* wide: over 65,536 levels */
+    return {levels: entry.levels, codes: decode(entry.codes, Type)};
   }
 
   function dayOfYear(mjd) {
