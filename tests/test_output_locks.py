@@ -338,3 +338,35 @@ def test_the_other_commands_refuse_a_locked_output_and_wait_with_wait(made_input
     assert main([command, *arguments, "-o", str(out), "--wait"]) == 0
     holder.join()
     assert out.exists() and not lock_path(out).exists()
+
+
+def test_a_failed_run_leaves_no_folder_it_made_for_its_output(tmp_path, scheme):
+    """The lock makes the output's missing parent folders; a run that fails removes
+    those it made (when empty) and never a folder that was there before."""
+    existing = tmp_path / "existing"
+    existing.mkdir()
+    out = existing / "new" / "deeper" / "out"
+    with pytest.raises(RuntimeError):
+        with lock_output(out):
+            assert out.parent.is_dir()
+            raise RuntimeError("a failure after the lock was taken")
+    assert [p.name for p in tmp_path.iterdir()] == ["existing"]
+    assert list(existing.iterdir()) == []
+    with lock_output(out):                                  # a run that writes keeps them
+        out.write_text("written")
+    assert out.read_text() == "written" and not lock_path(out).exists()
+
+
+@pytest.mark.parametrize("command", [
+    ["predict", MODEL, "--site", "nowhere-site", "--start", "60000.9", "--end", "60001.0",
+     "--freq-mhz", "1400", "-o"],
+    ["profile-toas", "missing.npz", "--template", "auto", "-o"],
+    ["event-toas", "missing.fits", MODEL, "--template", "auto", "--span-days", "1", "-o"],
+    ["events", "missing.fits", MODEL, "-o"],
+])
+def test_a_command_that_fails_leaves_no_empty_output_folders(tmp_path, monkeypatch, capsys,
+                                                             command):
+    monkeypatch.chdir(tmp_path)
+    assert main([*command, str(tmp_path / "new" / "sub" / "out")]) == 2
+    assert "error" in capsys.readouterr().err
+    assert list(tmp_path.iterdir()) == []

@@ -319,6 +319,12 @@ def _acquire(lock, target: Path, path: Path, wait: bool, poll_s: float, field: s
                       file=sys.stderr, flush=True)
                 announced = True
         except OSError as exc:
+            if exc.errno == errno.ENOENT and not path.parent.exists():
+                try:                                  # removed meanwhile by a failed run
+                    path.parent.mkdir(parents=True, exist_ok=True)
+                except OSError as again:
+                    raise writing_error(again, target) from None
+                continue
             if isinstance(lock, _SystemLock) and exc.errno in _UNSUPPORTED:
                 lock = _ExclusiveFile(path, target)   # a file system without flock
                 continue
@@ -330,7 +336,8 @@ def _acquire(lock, target: Path, path: Path, wait: bool, poll_s: float, field: s
 def lock_output(target, wait: bool | None = None, poll_s: float = 0.5,
                 scheme: str | None = None, field: str = "outdir"):
     """Hold the lock of the output ``target`` (a folder or a file; its parent folder
-    is created if needed) for the block. ``wait``: wait for another holder instead
+    is created if needed, and removed again, with the parents made for it, when the
+    block leaves it empty) for the block. ``wait``: wait for another holder instead
     of refusing (default: the CLI's --wait, see :func:`waiting_for_output_locks`).
     ``scheme``: ``system-lock`` or ``exclusive-file`` (default: the environment
     variable TIMINGKIT_OUTPUT_LOCK, else system-lock where fcntl exists).
@@ -339,17 +346,41 @@ def lock_output(target, wait: bool | None = None, poll_s: float = 0.5,
     wait = _WAIT_BY_DEFAULT.get() if wait is None else wait
     chosen = _scheme(scheme)
     try:
-        target.parent.mkdir(parents=True, exist_ok=True)
+        made = _make_folders(target.parent)
         path = lock_path(target)
     except OSError as exc:
         raise writing_error(exc, target) from None
     kind = _SystemLock if chosen == SYSTEM_LOCK else _ExclusiveFile
-    with terminate_on_signals():
-        lock = _acquire(kind(path, target), target, path, wait, poll_s, field)
+    try:
+        with terminate_on_signals():
+            lock = _acquire(kind(path, target), target, path, wait, poll_s, field)
+            try:
+                yield path
+            finally:
+                lock.release()
+    finally:
+        _remove_empty_folders(made)
+
+
+def _make_folders(folder: Path) -> list[Path]:
+    """Create ``folder`` and its missing parents; the folders made, outermost first."""
+    missing = []
+    while not folder.exists() and folder.parent != folder:
+        missing.append(folder)
+        folder = folder.parent
+    for made in reversed(missing):
+        made.mkdir(exist_ok=True)
+    return missing[::-1]
+
+
+def _remove_empty_folders(made: list[Path]) -> None:
+    """Remove the folders :func:`_make_folders` made, innermost first, while they are
+    empty (a run that failed leaves no empty folders behind; one that wrote keeps them)."""
+    for folder in reversed(made):
         try:
-            yield path
-        finally:
-            lock.release()
+            folder.rmdir()
+        except OSError:
+            return
 
 
 def refuse_if_locked(target, field: str = "outdir") -> None:
