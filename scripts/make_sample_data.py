@@ -27,17 +27,17 @@ SOURCES = {
         position=MSP_POSITION, free=SPIN_AND_DM, true=MSP_TRUE, start=MSP_START,
         simulate=["--start", "58500", "--end", "60300", "--count", "360", "--error-us", "0.8",
                   "--site", "desert-dish", "--site", "lake-array",
-                  "--freq-mhz", "820", "1400", "2300", "--flag", "backend=wide-a,wide-b"]),
+                  "--freq-mhz", "820,1400,2300", "--flag", "backend=wide-a,wide-b"]),
     # a young pulsar with a large spin-down and a second derivative
     "demo-young": dict(
         position=YOUNG_POSITION, free=YOUNG_FREE, true=YOUNG_TRUE, start=YOUNG_START,
         simulate=["--start", "58800", "--end", "59200", "--count", "240", "--error-us", "25",
-                  "--site", "north-ridge", "--freq-mhz", "610", "1400"]),
+                  "--site", "north-ridge", "--freq-mhz", "610,1400"]),
     # a slow, old pulsar
     "demo-slow": dict(
         position=SLOW_POSITION, free=SPIN_AND_DM, true=SLOW_TRUE, start=SLOW_START,
         simulate=["--start", "58600", "--end", "60100", "--count", "150", "--error-us", "300",
-                  "--site", "desert-dish", "--freq-mhz", "350", "1400"]),
+                  "--site", "desert-dish", "--freq-mhz", "350,1400"]),
 }
 
 

@@ -182,8 +182,8 @@ def test_profile_commands(tmp_path, capsys):
     shutil.copytree(SAMPLE, data)
     sim = tmp_path / "sim"
     assert main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
-                 "--start", "60000", "--end", "60010", "--count", "5", "--freq-mhz", "350",
-                 "1400", "--channels", "3", "--bins", "128", "--snr", "50", "--seed", "2",
+                 "--start", "60000", "--end", "60010", "--count", "5", "--freq-mhz", "350,1400",
+                 "--channels", "3", "--bins", "128", "--snr", "50", "--seed", "2",
                  "-o", str(sim)]) == 0
     files = sorted(str(p) for p in sim.glob("obs-*.npz"))
     assert len(files) == 5 and (sim / "template.npz").exists()
@@ -222,7 +222,7 @@ def test_simulate_profiles_writes_its_outputs_as_one_set(tmp_path, capsys, monke
     def simulate(count, outdir=sim):
         return main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
                      "--start", "60000", "--end", "60010", "--count", str(count), "--bins", "64",
-                     "--freq-mhz", "350", "1400", "--seed", "3", "-o", str(outdir)])
+                     "--freq-mhz", "350,1400", "--seed", "3", "-o", str(outdir)])
 
     assert simulate(3) == 0
     assert sorted(p.name for p in sim.iterdir()) == [".timingkit-output", "obs-1.npz",

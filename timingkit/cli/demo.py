@@ -143,7 +143,8 @@ def event_loop(data: str, outdir: str) -> None:
 
 def add_parsers(sub) -> None:
     p = sub.add_parser("demo", help="fit the built-in sample sources")
-    p.add_argument("-o", "--outdir", default="timingkit-demo")
+    p.add_argument("-o", "--outdir", default="timingkit-demo",
+                   help="output folder (default timingkit-demo)")
     p.set_defaults(func=cmd_demo)
 
 

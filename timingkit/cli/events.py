@@ -57,19 +57,25 @@ def add_parsers(sub) -> None:
 
     p = sub.add_parser("simulate-events", help="simulate a photon event list (OGIP FITS)")
     p.add_argument("model", help="timing model (TOML)")
-    p.add_argument("--start", type=float, required=True, metavar="MJD")
-    p.add_argument("--end", type=float, required=True, metavar="MJD")
+    p.add_argument("--start", type=float, required=True, metavar="MJD",
+                   help="first event time (on the list's scale: UTC at a site, TT at the "
+                        "geocentre or on a spacecraft, TDB at ssb)")
+    p.add_argument("--end", type=float, required=True, metavar="MJD",
+                   help="last event time (same scale)")
     p.add_argument("--rate-per-s", type=float, required=True, metavar="R",
                    help="mean event rate (pulsed and unpulsed), per second")
-    p.add_argument("--pulsed-fraction", type=float, required=True, metavar="P")
-    p.add_argument("--profile", nargs="+", default=["gauss:0.0:0.1"],
-                   metavar="gauss:CENTRE:FWHM[:AMP]|FILE",
-                   help="pulse shape: wrapped Gaussian components (phase units) or a "
-                        "template file (default gauss:0.0:0.1)")
+    p.add_argument("--pulsed-fraction", type=float, required=True, metavar="P",
+                   help="share of the events that are pulsed (0 to 1)")
+    p.add_argument("--profile", nargs="+", default=["gauss:0.0:0.1"], metavar="SHAPE",
+                   help="pulse shape: wrapped Gaussian components gauss:CENTRE:FWHM[:AMP] "
+                        "(phase units; several may follow) or a template file (default "
+                        "gauss:0.0:0.1)")
     _observer_options(p)
-    p.add_argument("--seed", type=int, default=None)
+    p.add_argument("--seed", type=int, default=None,
+                   help="random seed (the same seed gives the same events)")
     add_context_options(p)
-    p.add_argument("-o", "--output", required=True, metavar="EVENTS.fits")
+    p.add_argument("-o", "--output", required=True, metavar="EVENTS.fits",
+                   help="event list to write (OGIP FITS)")
     p.set_defaults(func=cmd_simulate_events)
 
 

@@ -8,6 +8,7 @@ import os
 import sys
 
 from timingkit.cli.options import (
+    add_color_option,
     add_wait_option,
     EXIT_NOT_CONVERGED,
     add_free_fix_options,
@@ -29,7 +30,7 @@ def add_parsers(sub) -> None:
                    help="output folder (default: SOURCE-fit, after the model's name)")
     add_free_fix_options(p, "parameters to fit besides the model's [fit] free",
                          "parameters to hold fixed")
-    p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
+    add_color_option(p)
     p.add_argument("--no-plot", action="store_true", help="skip residuals.png")
     p.add_argument("--suggest", action="store_true",
                    help="also try adding a frequency derivative, freeing fixed binary terms and "
@@ -52,7 +53,7 @@ def add_parsers(sub) -> None:
     add_input_options(p)
     p.add_argument("-o", "--outdir", default=None,
                    help="output folder (default: SOURCE-residuals, after the model's name)")
-    p.add_argument("--color-by", default="site")
+    add_color_option(p)
     add_selection_options(p)
     add_wait_option(p)
     p.set_defaults(func=cmd_residuals)
@@ -65,7 +66,7 @@ def add_parsers(sub) -> None:
 
     p = sub.add_parser("plot", help="plot residuals from a fit output folder")
     p.add_argument("outdir", help="folder written by 'fit' or 'residuals'")
-    p.add_argument("--color-by", default="site")
+    add_color_option(p)
     p.add_argument("-o", "--output", metavar="PNG", help="figure file (.png or .pdf)")
     add_wait_option(p, "into OUTDIR")
     p.set_defaults(func=cmd_plot)

@@ -18,6 +18,7 @@ import argparse
 import os
 
 from timingkit.cli.options import (
+    add_color_option,
     add_wait_option,
     add_free_fix_options,
     add_selection_options,
@@ -76,7 +77,7 @@ def add_parsers(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--ephemeris", metavar="BSP", help="JPL SPK ephemeris file")
     p.add_argument("--clock", action="append", default=[], metavar="FILE",
                    help="clock-correction table; may be repeated")
-    p.add_argument("--color-by", default="site", help="colour residuals by site, backend, freq")
+    add_color_option(p)
     p.add_argument("--no-plot", action="store_true", help="skip the figures")
     p.add_argument("--explore", action="store_true",
                    help="also write explorer.html, the interactive residual explorer, with "

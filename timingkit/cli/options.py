@@ -50,6 +50,14 @@ def add_context_options(p: argparse.ArgumentParser) -> None:
                    help="clock-correction table; may be repeated")
 
 
+def add_color_option(p: argparse.ArgumentParser) -> None:
+    """--color-by: the TOA-table column that colours the residual figures."""
+    p.add_argument("--color-by", default="site", metavar="COLUMN",
+                   help="colour the residuals by this column of the TOA table: site, freq "
+                        "(one colour per observing band) or a flag such as backend "
+                        "(default site)")
+
+
 def add_wait_option(p: argparse.ArgumentParser, what: str = "the output") -> None:
     """--wait: queue behind another run that holds the output's lock (outputs.folder_lock)."""
     p.add_argument("--wait", action="store_true",

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import sys
 
-from timingkit.cli.options import add_wait_option, parse_flag_options
+from timingkit.cli.options import add_context_options, add_wait_option, parse_flag_options
 from timingkit.formats.errors import InputError
 
 
@@ -29,9 +29,7 @@ def add_parsers(sub) -> None:
                    help="Chebyshev degree per segment (default: chosen for the accuracy)")
     p.add_argument("--accuracy-cycles", type=float, default=1e-9, metavar="A",
                    help="largest phase error allowed, cycles (default 1e-9)")
-    p.add_argument("--sites", action="append", default=[], metavar="FILE")
-    p.add_argument("--ephemeris", metavar="BSP")
-    p.add_argument("--clock", action="append", default=[], metavar="FILE")
+    add_context_options(p)
     p.add_argument("--table", action="store_true",
                    help="print one line per segment: apparent frequency and period, phase "
                         "at the start")

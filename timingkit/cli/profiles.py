@@ -6,7 +6,8 @@ from __future__ import annotations
 import os
 import sys
 
-from timingkit.cli.options import add_wait_option
+from timingkit.cli.options import add_wait_option, number_list
+from timingkit.formats.errors import InputError
 
 
 def add_parsers(sub) -> None:
@@ -26,7 +27,7 @@ def add_parsers(sub) -> None:
     p.add_argument("--flag", action="append", default=[], metavar="NAME=VALUE",
                    help="a flag put on every TOA (repeatable), e.g. --flag backend=wide-b so "
                         "the model's [[time_offset]] groups take them")
-    p.add_argument("-o", "--output", required=True, metavar="TOAS")
+    p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
     add_wait_option(p, "the TOA table")
     p.set_defaults(func=cmd_profile_toas)
 
@@ -39,28 +40,41 @@ def add_parsers(sub) -> None:
     s.add_argument("--folding-frequency-offset-hz", type=float, default=None, metavar="DF",
                    help="spin-frequency error of the folding model (default: 0.05 cycles "
                         "over the span)")
-    s.add_argument("--folding-dm-offset", type=float, default=0.0, metavar="DDM",
+    s.add_argument("--folding-dm-offset", type=float, default=None, metavar="DDM",
                    help="DM error of the folding model, pc cm^-3 (default 0)")
-    s.add_argument("--site", required=True, metavar="NAME")
-    s.add_argument("--start", type=float, required=True, metavar="MJD")
-    s.add_argument("--end", type=float, required=True, metavar="MJD")
+    s.add_argument("--site", required=True, metavar="NAME", help="observing site")
+    s.add_argument("--start", type=float, required=True, metavar="MJD",
+                   help="first observation (UTC at the site)")
+    s.add_argument("--end", type=float, required=True, metavar="MJD",
+                   help="last observation (UTC at the site)")
     s.add_argument("--count", type=int, required=True, metavar="N", help="observations")
-    s.add_argument("--freq-mhz", type=float, nargs="+", default=[1400.0], metavar="F",
-                   help="centre frequencies, used in turn (default 1400)")
-    s.add_argument("--channels", type=int, default=1, metavar="C")
-    s.add_argument("--bandwidth-mhz", type=float, default=100.0, metavar="B")
-    s.add_argument("--subints", type=int, default=1, metavar="S")
-    s.add_argument("--duration-s", type=float, default=600.0, metavar="T")
-    s.add_argument("--bins", type=int, default=1024, metavar="N")
+    s.add_argument("--freq-mhz", action="extend", type=number_list(float), default=None,
+                   metavar="F[,F...]", help="centre frequencies, MHz, used in turn: a comma "
+                                            "list and/or repeated (default 1400)")
+    s.add_argument("--channels", type=int, default=1, metavar="C",
+                   help="frequency channels per observation (default 1)")
+    s.add_argument("--bandwidth-mhz", type=float, default=100.0, metavar="B",
+                   help="bandwidth the channels span, MHz (default 100)")
+    s.add_argument("--subints", type=int, default=1, metavar="S",
+                   help="sub-integrations per observation (default 1)")
+    s.add_argument("--duration-s", type=float, default=600.0, metavar="T",
+                   help="length of each observation, s (default 600)")
+    s.add_argument("--bins", type=int, default=1024, metavar="N",
+                   help="phase bins per profile (default 1024)")
     s.add_argument("--snr", type=float, default=100.0, metavar="S",
                    help="S/N of each whole observation (default 100)")
     s.add_argument("--template", metavar="FILE", help="template (default: built-in, invented)")
-    s.add_argument("--seed", type=int, default=None)
-    s.add_argument("--sites", action="append", default=[], metavar="FILE")
-    s.add_argument("--ephemeris", metavar="BSP")
+    s.add_argument("--seed", type=int, default=None,
+                   help="random seed (the same seed gives the same profiles)")
+    s.add_argument("--sites", action="append", default=[], metavar="FILE",
+                   help="extra site file (TOML); may be repeated")
+    s.add_argument("--ephemeris", metavar="BSP",
+                   help="JPL SPK ephemeris file (default: the model's settings, else built-in "
+                        "DE421)")
     s.add_argument("--profile-format", choices=("npz", "fits"), default="npz",
                    help="file format of the profiles and template written (default npz)")
-    s.add_argument("-o", "--outdir", required=True, metavar="DIR")
+    s.add_argument("-o", "--outdir", required=True, metavar="DIR",
+                   help="output folder (obs-N files and the template; written as one set)")
     add_wait_option(s)
     s.set_defaults(func=cmd_simulate_profiles)
 
@@ -110,6 +124,7 @@ def cmd_simulate_profiles(args) -> int:
     from timingkit.profiles.simulate import ProfileSimulation, simulate_profiles
     from timingkit.profiles.templates import builtin_template, resample
     from timingkit.formats.profile_file import Template
+    _check_folding_options(args)
     true = load_model(args.model)
     # one set, never over an input: checked before the work, written after it
     inputs = [*input_paths(None, true, args.sites, args.ephemeris), args.folding_model,
@@ -125,14 +140,14 @@ def cmd_simulate_profiles(args) -> int:
         if offset is None:
             offset = 0.05 / max((args.end - args.start) * 86400.0, 1.0)
         folding.parameter("spin.frequency_hz").add(offset)
-        folding.parameter("dispersion.dm").add(args.folding_dm_offset)
+        folding.parameter("dispersion.dm").add(args.folding_dm_offset or 0.0)
     if args.template:
         template = read_template_file(args.template)
         template = Template(resample(template.profile, args.bins), template.components)
     else:
         template = builtin_template(args.bins)
     sim = ProfileSimulation(site=args.site, start_mjd=args.start, end_mjd=args.end,
-                            count=args.count, centre_freqs_mhz=tuple(args.freq_mhz),
+                            count=args.count, centre_freqs_mhz=tuple(args.freq_mhz or [1400.0]),
                             channels=args.channels, bandwidth_mhz=args.bandwidth_mhz,
                             subints=args.subints, duration_s=args.duration_s, bins=args.bins,
                             snr=args.snr, seed=args.seed)
@@ -145,3 +160,13 @@ def cmd_simulate_profiles(args) -> int:
     print(f"wrote {len(sets)} profile files (.{suffix}, {args.subints} sub-integration(s) x "
           f"{args.channels} channel(s) x {args.bins} bins) and template.{suffix} to {args.outdir}")
     return 0
+
+
+def _check_folding_options(args) -> None:
+    """The offsets change MODEL into the folding model; a --folding-model is used as given."""
+    for option, value in (("--folding-frequency-offset-hz", args.folding_frequency_offset_hz),
+                          ("--folding-dm-offset", args.folding_dm_offset)):
+        if args.folding_model and value is not None:
+            raise InputError(f"{option} offsets MODEL to make the folding model; with "
+                             "--folding-model that model is used as it is: give one or the "
+                             "other", field=option)

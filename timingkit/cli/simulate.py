@@ -9,18 +9,25 @@ from timingkit.formats.errors import InputError, excerpt
 def add_parsers(sub) -> None:
     p = sub.add_parser("simulate", help="simulate TOAs that a model predicts")
     p.add_argument("model", help="timing model (TOML)")
-    p.add_argument("--start", type=float, required=True, metavar="MJD")
-    p.add_argument("--end", type=float, required=True, metavar="MJD")
-    p.add_argument("--count", type=int, required=True, metavar="N")
-    p.add_argument("--error-us", type=float, required=True, metavar="E")
+    p.add_argument("--start", type=float, required=True, metavar="MJD",
+                   help="first TOA's day (UTC at the site)")
+    p.add_argument("--end", type=float, required=True, metavar="MJD",
+                   help="last TOA's day (UTC at the site)")
+    p.add_argument("--count", type=int, required=True, metavar="N", help="number of TOAs")
+    p.add_argument("--error-us", type=float, required=True, metavar="E",
+                   help="stated 1-sigma error of every TOA, µs")
     p.add_argument("--site", action="append", required=True, metavar="S",
                    help="site name; repeat to alternate sites")
     p.add_argument("--freq-mhz", action="extend", type=number_list(float), default=None,
                    metavar="F[,F...]", help="observing frequencies to cycle through, MHz: a "
                                             "comma list and/or repeated (default 1400)")
-    p.add_argument("--seed", type=int, default=None)
-    p.add_argument("--sites", action="append", default=[], metavar="FILE")
-    p.add_argument("--ephemeris", metavar="BSP")
+    p.add_argument("--seed", type=int, default=None,
+                   help="random seed (the same seed gives the same TOAs)")
+    p.add_argument("--sites", action="append", default=[], metavar="FILE",
+                   help="extra site file (TOML); may be repeated")
+    p.add_argument("--ephemeris", metavar="BSP",
+                   help="JPL SPK ephemeris file (default: the model's settings, else built-in "
+                        "DE421)")
     p.add_argument("--flag", action="append", default=[], metavar="NAME=V1,V2",
                    help="add a flag column cycling through values, e.g. backend=wide-a,wide-b")
     p.add_argument("--no-noise", action="store_true", help="exact TOAs, no added noise")
@@ -32,7 +39,8 @@ def add_parsers(sub) -> None:
     p.add_argument("--red-amplitude-log10", type=float, default=None, metavar="A",
                    help="inject power-law red noise with this log10 amplitude (replaces the "
                         "model's [red_noise]); needs --red-spectral-index")
-    p.add_argument("--red-spectral-index", type=float, default=None, metavar="GAMMA")
+    p.add_argument("--red-spectral-index", type=float, default=None, metavar="GAMMA",
+                   help="spectral index of the injected red noise (power ~ f^-GAMMA)")
     p.add_argument("--red-frequencies", type=int, default=30, metavar="N",
                    help="Fourier frequencies of the injected red noise (default 30)")
     p.add_argument("--red-corner-per-yr", type=float, default=0.0, metavar="F",
@@ -40,7 +48,7 @@ def add_parsers(sub) -> None:
     p.add_argument("--solar-wind-density-cm3", type=float, default=None, metavar="N0",
                    help="inject a solar wind of this electron density at 1 au, cm^-3 (replaces "
                         "the model's [solar_wind]; 0 = none)")
-    p.add_argument("-o", "--output", required=True, metavar="TOAS")
+    p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
     p.set_defaults(func=cmd_simulate)
 
 
