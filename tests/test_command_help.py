@@ -81,3 +81,16 @@ def test_the_sample_data_script_gives_simulate_arguments_it_accepts(tmp_path):
         args = parser.parse_args(["simulate", f"{name}.true.toml", *spec["simulate"],
                                   "-o", str(tmp_path / f"{name}.toas")])
         assert args.model == f"{name}.true.toml" and len(args.freq_mhz) >= 2
+
+
+@pytest.mark.parametrize("command", ["fit", "residuals"])
+def test_the_closing_line_names_every_file_written(tmp_path, capsys, command):
+    out = tmp_path / "out"
+    assert main([command, str(SAMPLE / "demo-msp.toas"), str(SAMPLE / "demo-msp.toml"), "-o",
+                 str(out)]) == 0
+    last = capsys.readouterr().out.strip().splitlines()[-1]
+    written = sorted(p.name for p in out.iterdir() if not p.name.startswith("."))
+    if command == "fit":
+        assert "residuals_frequency.png" in written and "prefit_residuals.csv" in written
+    assert "report.json" in written and "residuals.csv" in written
+    assert last == f"wrote {out}/: {', '.join(written)}"

@@ -18,6 +18,7 @@ from timingkit.cli.options import (
     left_out_line,
     progress_enabled,
     selection_arguments,
+    wrote_folder_line,
 )
 from timingkit.formats.errors import InputError
 from timingkit.formats.atomic_file import refuse_output_over_inputs
@@ -106,14 +107,10 @@ def cmd_fit(args) -> int:
     print(summary_text(report))
     if left_out_line(report):
         print(left_out_line(report))
-    spectrum = "" if args.no_plot or "red_noise" not in report.get("noise", {}) else \
-        "power_spectrum.png, "
-    explorer = ""
     if args.explore:
         from timingkit.outputs.explorer_page import write_explorer
-        explorer = ", " + os.path.basename(write_explorer(args.outdir))
-    print(f"\nwrote {args.outdir}/: fitted.toml, residuals.csv, "
-          f"{'' if args.no_plot else 'residuals.png, '}{spectrum}report.json{explorer}")
+        write_explorer(args.outdir)
+    print("\n" + wrote_folder_line(args.outdir))
     return converged_status(report)
 
 
@@ -129,7 +126,7 @@ def cmd_residuals(args) -> int:
     from timingkit.fit.least_squares import LOUD_WARNINGS
     for w in stats["warnings"]:
         print(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
-    print(f"wrote {args.outdir}/: residuals.csv, residuals.png, report.json")
+    print(wrote_folder_line(args.outdir))
     return 0
 
 

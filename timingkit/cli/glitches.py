@@ -26,9 +26,10 @@ from timingkit.cli.options import (
     left_out_line,
     number_list,
     selection_arguments,
+    wrote_folder_line,
 )
 from timingkit.glitch.results import DEFAULT_MIN_SIGNIFICANCE, DEFAULT_NULL_TRIALS, GlitchSearchSettings
-from timingkit.pipeline.glitch_run import FIGURE_FILE, GLITCH_FILE, glitch_files
+from timingkit.pipeline.glitch_run import GLITCH_FILE, glitch_files
 
 
 def _mjd(text: str) -> str:
@@ -103,15 +104,14 @@ def cmd_glitches(args) -> int:
     if args.explore:
         from timingkit.outputs.explorer_page import write_explorer
         write_explorer(args.outdir)
-    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE), not args.no_plot,
-                       args.explore))
+    print(summary_text(report, os.path.join(args.outdir, GLITCH_FILE)))
     if left_out_line(report):
         print(left_out_line(report))
+    print(wrote_folder_line(args.outdir))
     return converged_status(report)
 
 
-def summary_text(report: dict, glitch_path: str, plots: bool = True,
-                 explorer: bool = False) -> str:
+def summary_text(report: dict, glitch_path: str) -> str:
     import json
     with open(glitch_path, encoding="utf-8") as fh:
         found = json.load(fh)
@@ -154,9 +154,6 @@ def summary_text(report: dict, glitch_path: str, plots: bool = True,
     from timingkit.fit.least_squares import LOUD_WARNINGS
     for w in report.get("warnings", []):
         lines.append(f"{'WARNING' if w.startswith(LOUD_WARNINGS) else 'warning'}: {w}")
-    figures = f"{FIGURE_FILE}, residuals.png, " if plots else ""
-    lines.append(f"wrote {os.path.dirname(glitch_path) or '.'}/: {GLITCH_FILE}, fitted.toml, "
-                 f"{figures}residuals.csv, report.json{', explorer.html' if explorer else ''}")
     return "\n".join(lines)
 
 

@@ -65,6 +65,14 @@ def add_wait_option(p: argparse.ArgumentParser, what: str = "the output") -> Non
                         "instead of refusing (exit 2)")
 
 
+def wrote_folder_line(outdir: str) -> str:
+    """``wrote OUTDIR/: NAME, ...``: every file the folder now holds (hidden ones, such
+    as the output marker, left out), so the line never lists less than was written."""
+    import os
+    names = sorted(name for name in os.listdir(outdir) if not name.startswith("."))
+    return f"wrote {outdir.rstrip(os.sep) or os.sep}/: {', '.join(names)}"
+
+
 EXIT_NOT_CONVERGED = 4     # outputs written, every one marked as not converged
 
 
