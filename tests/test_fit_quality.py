@@ -78,11 +78,13 @@ def test_a_fit_that_does_not_converge_exits_4_and_marks_every_output(tmp_path, c
     assert main(["fit", toas, model, "--max-iterations", "1", "-o", str(out)]) == 4
     text = capsys.readouterr().out
     assert "(NOT CONVERGED)" in text.splitlines()[0]
-    assert "WARNING: fit did not converge" in text
+    assert "WARNING: fit did not converge in 1 iteration (" in text
+    assert "1 iterations" not in text and "1 iteration (NOT CONVERGED)" in text
     report = json.loads((out / "report.json").read_text())
     assert report["converged"] is False
     assert any(w.startswith("fit did not converge") for w in report["warnings"])
-    assert (out / "fitted.toml").read_text().startswith("# NOT CONVERGED")
+    assert (out / "fitted.toml").read_text().startswith("# NOT CONVERGED: the fit stopped "
+                                                         "after 1 iteration with")
     # residuals.csv: a last column fit_status, not_converged in every row, read back
     with open(out / "residuals.csv") as fh:
         rows = list(csv.DictReader(fh))

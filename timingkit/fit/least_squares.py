@@ -327,7 +327,8 @@ def fit(model: TimingModel, obs: Observations, free: list[str] | None = None,
         warnings.extend(estimate.warnings)
     err_s = solver.err_s
     if not converged:
-        warnings.append(f"{NOT_CONVERGED_WARNING} in {max_iterations} iterations (parameter "
+        warnings.append(f"{NOT_CONVERGED_WARNING} in {max_iterations} iteration"
+                        f"{'' if max_iterations == 1 else 's'} (parameter "
                         f"changes still above {tolerance_sigma:g} sigma): the values written are "
                         "not a solution; improve the starting model, fit fewer parameters or "
                         "a shorter span first")

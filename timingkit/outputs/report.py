@@ -230,7 +230,7 @@ def summary_text(report: dict) -> str:
     split = f" ({timing} timing, {len(free) - timing} noise)" if timing != len(free) else ""
     lines = [f"source {report['source']}: {report['toas']} TOAs, "
              f"{len(free)} free parameter{'' if len(free) == 1 else 's'}{split}, "
-             f"{report['iterations']} iterations"
+             f"{report['iterations']} iteration{'' if report['iterations'] == 1 else 's'}"
              + ("" if report["converged"] else " (NOT CONVERGED)")]
     for w in report["warnings"]:
         if w.startswith(LOUD_WARNINGS):

@@ -24,7 +24,8 @@ NOT_CONVERGED_MARK = "NOT CONVERGED"
 
 def _fitted_comment(report: dict) -> str:
     mark = "" if report["converged"] else (
-        f"{NOT_CONVERGED_MARK}: the fit stopped after {report['iterations']} iterations with "
+        f"{NOT_CONVERGED_MARK}: the fit stopped after {report['iterations']} iteration"
+        f"{'' if report['iterations'] == 1 else 's'} with "
         "parameters still moving; these values are not a solution\n")
     return mark + (f"fitted by timingkit {report['timingkit_version']}: {report['toas']} TOAs, "
             f"reduced chi2 {report['reduced_chi2']:.3f}, weighted rms "
