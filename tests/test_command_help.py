@@ -94,3 +94,15 @@ def test_the_closing_line_names_every_file_written(tmp_path, capsys, command):
         assert "residuals_frequency.png" in written and "prefit_residuals.csv" in written
     assert "report.json" in written and "residuals.csv" in written
     assert last == f"wrote {out}/: {', '.join(written)}"
+
+
+def test_plot_names_its_option_and_quotes_a_bad_colour_column_briefly(tmp_path, capsys):
+    out = tmp_path / "out"
+    assert main(["fit", str(SAMPLE / "demo-slow.toas"), str(SAMPLE / "demo-slow.toml"), "-o",
+                 str(out), "--no-plot"]) == 0
+    capsys.readouterr()
+    assert main(["plot", str(out), "--color-by", "receiver" * 50]) == 2
+    err = capsys.readouterr().err
+    assert "field '--color-by'" in err and "choose one of site, freq" in err
+    assert "receiver" * 5 not in err and "Traceback" not in err
+    assert not (out / "residuals.png").exists()

@@ -92,7 +92,7 @@ OPTION_OF_ARGUMENT = {"free": "--free", "flags": "--flag", "fix": "--fix", "wind
                       "template": "--template", "profile": "--profile",
                       "energy_range": "--energy-range", "energy_column": "--energy-column",
                       "orbit": "--orbit", "harmonics": "--harmonics", "bins": "--bins",
-                      "min_events": "--min-events"}
+                      "min_events": "--min-events", "color_by": "--color-by"}
 
 
 def name_options(exc) -> None:

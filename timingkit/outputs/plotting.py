@@ -23,7 +23,7 @@ import numpy as np
 from matplotlib import colormaps
 from matplotlib.lines import Line2D
 
-from timingkit.formats.errors import InputError
+from timingkit.formats.errors import InputError, excerpt
 from timingkit.outputs.figure_basics import (add_footnotes, add_key_entry, finish, new_figure,
                                              power_of_ten_unit, save_figure, set_key, time_unit)
 from timingkit.outputs.residual_table import ResidualTable
@@ -123,8 +123,9 @@ def _color_style(tables: list[ResidualTable], color_by: str) -> dict:
     for table in tables[1:]:
         legal = [c for c in legal if c in color_choices(table)]
     if color_by not in legal:
-        raise InputError(f"unknown color_by {color_by!r}; choose one of: {', '.join(legal)}",
-                         field="color_by")
+        raise InputError(f"cannot colour by {excerpt(color_by, 30)}: the residuals have no "
+                         f"such column; choose one of {', '.join(legal)}", field="color_by",
+                         quoted=(color_by,))
     if color_by == "freq":
         _, categories = frequency_bands(np.concatenate([t.freq_mhz for t in tables]))
         title = "observing band"
