@@ -172,3 +172,16 @@ def test_planet_list_is_honoured_and_checked(site_events, tmp_path, capsys):
     err = capsys.readouterr().err
     assert "settings.shapiro_delay_planets" in err and "internal error" not in err
     assert not (tmp_path / "bad").exists()
+
+
+def test_events_default_output_folder_is_named_after_the_source(site_events, tmp_path,
+                                                                monkeypatch, capsys):
+    """Like fit, residuals and glitches (README: OUTDIR defaults to SOURCE-COMMAND)."""
+    _, model, events = site_events
+    monkeypatch.chdir(tmp_path)
+    assert main(["events", str(events), str(model), "--harmonics", "2", "--no-plot"]) == 0
+    name = next(line for line in model.read_text().splitlines() if line.startswith("name"))
+    folder = tmp_path / (name.split("=")[1].strip().strip('"') + "-events")
+    assert sorted(p.name for p in tmp_path.iterdir()) == [folder.name]
+    assert (folder / "events_report.json").is_file()
+    assert f"wrote {folder.name}/" in capsys.readouterr().out

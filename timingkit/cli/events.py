@@ -35,7 +35,8 @@ def add_parsers(sub) -> None:
                         "1..20)")
     p.add_argument("--bins", type=int, default=32, metavar="B",
                    help="phase bins of the profile (default 32)")
-    p.add_argument("-o", "--outdir", default="timingkit-events", help="output folder")
+    p.add_argument("-o", "--outdir", default=None,
+                   help="output folder (default: SOURCE-events, after the model's name)")
     p.add_argument("--no-plot", action="store_true", help="skip profile.png")
     add_wait_option(p)
     p.set_defaults(func=cmd_events)
@@ -95,6 +96,8 @@ def _fap_text(entry: dict) -> str:
 def cmd_events(args) -> int:
     from timingkit.outputs.numbers import format_value
     from timingkit.pipeline.event_run import fold_event_files
+    from timingkit.cli.fit import default_outdir
+    default_outdir(args, "events", args.events)
     report = fold_event_files(args.events, args.model, args.outdir, harmonics=args.harmonics,
                               bins=args.bins, make_plot=not args.no_plot, **_common(args))
     h, pf, peak = report["h_test"], report["pulsed_fraction"], report["peak_phase"]

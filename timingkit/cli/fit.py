@@ -73,15 +73,16 @@ def add_parsers(sub) -> None:
     p.set_defaults(func=cmd_plot)
 
 
-def default_outdir(args, command: str) -> str:
-    """``-o`` as given, else SOURCE-COMMAND after the model's name (or the TOA file)."""
+def default_outdir(args, command: str, fallback: str | None = None) -> str:
+    """``-o`` as given, else SOURCE-COMMAND after the model's name (or the name of
+    ``fallback``, default the TOA file)."""
     if args.outdir is not None:
         return args.outdir
     from timingkit.formats.model_file import read_model_document
     from timingkit.outputs.output_set import default_output_folder
     name = read_model_document(args.model).data.get("name")
-    args.outdir = default_output_folder(name if isinstance(name, str) else None, args.toas,
-                                        command)
+    args.outdir = default_output_folder(name if isinstance(name, str) else None,
+                                        fallback or args.toas, command)
     return args.outdir
 
 

@@ -103,8 +103,8 @@ class SiteTable:
         site = self._by_label.get(str(name).strip().lower())
         if site is None:
             raise InputError(f"unknown site {excerpt(name)}; known sites: {self._known()}. "
-                             "Add sites with a site file (settings.sites in the model, or the sites "
-                             "option).",
+                             "Add sites with a site file (settings.sites in the model, or --sites; "
+                             "sites_paths= from Python).",
                              field="site", quoted=(name,))
         return site
 
