@@ -370,3 +370,31 @@ def test_a_command_that_fails_leaves_no_empty_output_folders(tmp_path, monkeypat
     assert main([*command, str(tmp_path / "new" / "sub" / "out")]) == 2
     assert "error" in capsys.readouterr().err
     assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("command", ["simulate", "convert", "barycentre", "simulate-events"])
+def test_the_remaining_file_commands_lock_their_file_and_wait_with_wait(made_inputs, tmp_path,
+                                                                        capsys, command):
+    """simulate, convert, barycentre -o and simulate-events hold their file's lock too."""
+    _, model = made_inputs
+    out = tmp_path / "out.file"
+    arguments = {
+        "simulate": [MODEL, "--start", "60000", "--end", "60010", "--count", "3",
+                     "--error-us", "1", "--site", "desert-dish", "--seed", "1"],
+        "convert": [MODEL, "--frame", "ecliptic"],
+        "barycentre": [TOAS, MODEL],
+        "simulate-events": [str(model), "--start", "58000", "--end", "58000.01",
+                            "--rate-per-s", "0.4", "--pulsed-fraction", "0.3", "--site",
+                            "dune-array", "--seed", "9"],
+    }[command]
+    with lock_output(out):
+        assert main([command, *arguments, "-o", str(out)]) == 2
+    assert "in use by" in capsys.readouterr().err and not out.exists()
+    started = threading.Event()
+    holder = threading.Thread(target=_hold, args=(out, 0.5, started))
+    holder.start()
+    started.wait(10)
+    assert main([command, *arguments, "-o", str(out), "--wait"]) == 0
+    holder.join()
+    assert out.is_file() and not lock_path(out).exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out.file"]

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import os
 
+from timingkit.cli.options import add_wait_option
 from timingkit.formats.errors import InputError
 from timingkit.model.astrometry import FRAMES
 from timingkit.model.binary import MODELS
@@ -20,6 +21,7 @@ def add_parsers(sub) -> None:
     p.add_argument("--frame", choices=FRAMES, help="position frame of the output")
     p.add_argument("--binary-model", choices=MODELS, help="binary model of the output")
     p.add_argument("-o", "--output", required=True, metavar="TOML", help="output model file")
+    add_wait_option(p, "the model file")
     p.set_defaults(func=cmd_convert)
 
 
@@ -28,13 +30,17 @@ def cmd_convert(args) -> int:
     if not args.frame and not args.binary_model:
         raise InputError("nothing to do: give --frame and/or --binary-model", field="convert")
     from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
+    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     refuse_output_over_inputs(args.output, [args.model])
+    refuse_if_locked(args.output, field="--output")
     model = TimingModel.from_file(args.model)
     new = convert_model(model, args.frame, args.binary_model)
-    try:
-        new.write(args.output, comment=f"converted by timingkit from {os.path.basename(args.model)}")
-    except OSError as exc:
-        raise writing_error(exc, args.output) from None
+    comment = f"converted by timingkit from {os.path.basename(args.model)}"
+    with lock_output(args.output, field="--output"):
+        try:
+            new.write(args.output, comment=comment)
+        except OSError as exc:
+            raise writing_error(exc, args.output) from None
     print(f"wrote {args.output} (position frame {new.astrometry.frame}"
           + (f", binary model {args.binary_model}" if args.binary_model else "") + ")")
     for comp in new.extra:

@@ -77,6 +77,7 @@ def add_parsers(sub) -> None:
     add_context_options(p)
     p.add_argument("-o", "--output", required=True, metavar="EVENTS.fits",
                    help="event list to write (OGIP FITS)")
+    add_wait_option(p, "the event list")
     p.set_defaults(func=cmd_simulate_events)
 
 

@@ -63,6 +63,7 @@ def add_parsers(sub) -> None:
                        help="per-TOA time scales and delays as CSV")
     add_input_options(p)
     p.add_argument("-o", "--output", metavar="CSV", help="output CSV (default: standard output)")
+    add_wait_option(p, "the CSV file")
     p.set_defaults(func=cmd_barycentre)
 
     p = sub.add_parser("plot", help="plot residuals from a fit output folder")

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from timingkit.cli.options import number_list
+from timingkit.cli.options import add_wait_option, number_list
 from timingkit.formats.errors import InputError, excerpt
 
 
@@ -49,6 +49,7 @@ def add_parsers(sub) -> None:
                    help="inject a solar wind of this electron density at 1 au, cm^-3 (replaces "
                         "the model's [solar_wind]; 0 = none)")
     p.add_argument("-o", "--output", required=True, metavar="TOAS", help="TOA table to write")
+    add_wait_option(p, "the TOA table")
     p.set_defaults(func=cmd_simulate)
 
 
@@ -59,6 +60,7 @@ def cmd_simulate(args) -> int:
     from timingkit.formats.toa_writer import write_toa_table
     from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
     from timingkit.formats.toa_reader import MAX_FIELD_CHARS
+    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     model = load_model(args.model)
     if args.solar_wind_density_cm3 is not None:
         from timingkit.model.solar_wind import set_solar_wind
@@ -78,15 +80,17 @@ def cmd_simulate(args) -> int:
                              f"{MAX_FIELD_CHARS}", field="--flag", quoted=(longest,))
     noise = _simulated_noise(model, args)
     refuse_output_over_inputs(args.output, input_paths(None, model, args.sites, args.ephemeris))
+    refuse_if_locked(args.output, field="--output")
     toas = simulate_toas(model, args.start, args.end, args.count, args.error_us, sites, eph,
                          site_names=args.site, freqs_mhz=args.freq_mhz or [1400.0], seed=args.seed,
                          clocks=clocks, flags=flags, add_noise=not args.no_noise,
                          reference=reference_observations(model, sites, eph, clocks),
                          noise=noise)
-    try:
-        write_toa_table(toas, args.output)
-    except OSError as exc:
-        raise writing_error(exc, args.output) from None
+    with lock_output(args.output, field="--output"):
+        try:
+            write_toa_table(toas, args.output)
+        except OSError as exc:
+            raise writing_error(exc, args.output) from None
     print(f"wrote {len(toas)} TOAs to {args.output}")
     if len(toas) < args.count:
         print(f"left out {args.count - len(toas)} requested TOAs whose line of sight crosses the "

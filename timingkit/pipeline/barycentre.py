@@ -31,8 +31,10 @@ def barycentre_files(toas_path, model_path, csv_path=None, *, sites_paths=(), ep
     """Write the barycentring table to ``csv_path`` (or return it as text)."""
     inputs = load_inputs(toas_path, model_path, sites_paths=sites_paths, ephemeris=ephemeris,
                          clock_paths=clock_paths)
+    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     if csv_path is not None:
         refuse_output_over_inputs(csv_path, inputs.paths)
+        refuse_if_locked(csv_path, field="output")
     rows = barycentre_rows(inputs)
     obs = inputs.obs
     # whole columns at once (timingkit.formats.csv_columns); delays in s with 12 decimals
@@ -48,8 +50,9 @@ def barycentre_files(toas_path, model_path, csv_path=None, *, sites_paths=(), ep
                csv_columns.split_mjd(bary.day, bary.frac, 15)]
     text = csv_columns.csv_bytes(BARYCENTRE_COLUMNS, columns).decode("utf-8")
     if csv_path is not None:
-        try:
-            atomic_write_text(csv_path, text)
-        except OSError as exc:
-            raise writing_error(exc, csv_path) from None
+        with lock_output(csv_path, field="output"):
+            try:
+                atomic_write_text(csv_path, text)
+            except OSError as exc:
+                raise writing_error(exc, csv_path) from None
     return text

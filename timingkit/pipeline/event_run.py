@@ -352,6 +352,7 @@ def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, p
     from timingkit.formats.event_fits import write_simulated_events
     from timingkit.formats.ogip_time import time_keyword_cards
     from timingkit.outputs.residual_table import atomic_output
+    refuse_if_locked(output, field="output")
     model = load_model(model_path)
     sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     observer, timeref = simulation_observer(site, orbit, sites)
@@ -373,7 +374,7 @@ def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, p
                   ("OBSGEO-X", float(xyz[0]), "[m] geocentric ITRS"),
                   ("OBSGEO-Y", float(xyz[1]), "[m] geocentric ITRS"),
                   ("OBSGEO-Z", float(xyz[2]), "[m] geocentric ITRS")]
-    with atomic_output(output, binary=True) as handle:
+    with lock_output(output, field="output"), atomic_output(output, binary=True) as handle:
         write_simulated_events(handle, sim.seconds, [("ENERGY", sim.energy_kev, "keV")],
                                time_keyword_cards(sim.reference_day, 0.0, sim.scale, timeref),
                                sim.gti_s, cards)
