@@ -217,7 +217,16 @@ def test_headers_are_human_with_units_and_uncertainties_shown():
     assert "_uncertainty" not in head                 # folded into the value's cell
     # value rounded to two significant digits of its uncertainty (0.0034 -> 4 decimals)
     assert ">56.7012 ± 0.0034<" in text
-    assert ">18.47316290417 ± 0.00000000012<" in text
+    assert ">18.47316290417 ± 1.2e-10<" in text
+    # tiny values and uncertainties take an exponent, as in the terminal summary, never a
+    # run of twenty zeros (outputs.numbers.format_value)
+    row.update(frequency_derivative="-8.214205038237418566294172e-16",
+               frequency_derivative_uncertainty=1.9e-20, period_derivative=5.0896268e-21,
+               period_derivative_uncertainty=1.2e-25)
+    text = render_overview_html([row], PAGE_COLUMNS, headers=COLUMN_HEADERS,
+                                uncertainties=PAGE_UNCERTAINTIES)
+    assert ">-8.21421e-16 ± 1.9e-20<" in text and ">5.08963e-21 ± 1.2e-25<" in text
+    assert "0.0000000000" not in text
 
 
 def test_every_figure_of_a_source_is_on_the_page(tmp_path):

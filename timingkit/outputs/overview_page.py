@@ -129,22 +129,19 @@ def _display(value: Any, column: str) -> tuple[str, str, bool]:
 
 def _with_uncertainty(shown: str, value: Any, sigma: Any) -> str:
     """``value ± sigma`` with the value rounded to the digits the uncertainty supports
-    (two significant digits of sigma; decimal strings are rounded exactly); the value
+    (two significant digits of sigma; decimal strings are rounded exactly; tiny and
+    huge numbers with an exponent, as the terminal summary prints them); the value
     alone when there is no uncertainty."""
     from decimal import Decimal, InvalidOperation
+    from timingkit.outputs.numbers import format_value
     error = _number(sigma)
     if _number(value) is None or error is None or not (math.isfinite(error) and error > 0):
         return shown
-    exponent = math.floor(math.log10(error)) - 1          # last digit of two of sigma
     try:
-        exact = Decimal(str(value))
+        Decimal(str(value))
     except InvalidOperation:
         return shown
-    step = Decimal(1).scaleb(exponent)
-    rounded_value = exact.quantize(step) if exponent < 0 else (exact / step).quantize(1) * step
-    rounded_error = Decimal(repr(error)).quantize(step) if exponent < 0 else \
-        (Decimal(repr(error)) / step).quantize(1) * step
-    return f"{rounded_value:f} ± {rounded_error:f}"
+    return format_value(value if isinstance(value, str) else float(value), error)
 
 
 def _table(rows: Sequence[Mapping[str, Any]], columns: Sequence[str],
