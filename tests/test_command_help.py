@@ -106,3 +106,23 @@ def test_plot_names_its_option_and_quotes_a_bad_colour_column_briefly(tmp_path, 
     assert "field '--color-by'" in err and "choose one of site, freq" in err
     assert "receiver" * 5 not in err and "Traceback" not in err
     assert not (out / "residuals.png").exists()
+
+
+@pytest.mark.parametrize("command, name", [("explore", "page.html"), ("plot", "figure.png")])
+def test_explore_and_plot_write_into_a_new_folder_and_never_over_their_inputs(
+        tmp_path, capsys, command, name):
+    out = tmp_path / "out"
+    assert main(["fit", str(SAMPLE / "demo-slow.toas"), str(SAMPLE / "demo-slow.toml"), "-o",
+                 str(out), "--no-plot"]) == 0
+    target = tmp_path / "pages" / "sub" / name
+    assert main([command, str(out), "-o", str(target)]) == 0 and target.is_file()
+    report = (out / "report.json").read_bytes()
+    assert main([command, str(out), "-o", str(out / "report.json")]) == 2
+    assert (out / "report.json").read_bytes() == report
+    blocked = tmp_path / "a-file"
+    blocked.write_text("not a folder")
+    capsys.readouterr()
+    assert main([command, str(out), "-o", str(blocked / name)]) == 2   # exit 2, not 1
+    err = capsys.readouterr().err
+    assert "cannot write the output" in err and "internal error" not in err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a-file", "out", "pages"]

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import os
 
-from timingkit.cli.options import add_wait_option
+from timingkit.cli.options import add_wait_option, writing_output_file
 from timingkit.formats.errors import InputError
 from timingkit.model.astrometry import FRAMES
 from timingkit.model.binary import MODELS
@@ -29,18 +29,15 @@ def cmd_convert(args) -> int:
     from timingkit.model.timing_model import TimingModel
     if not args.frame and not args.binary_model:
         raise InputError("nothing to do: give --frame and/or --binary-model", field="convert")
-    from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
-    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
+    from timingkit.formats.atomic_file import refuse_output_over_inputs
+    from timingkit.outputs.folder_lock import refuse_if_locked
     refuse_output_over_inputs(args.output, [args.model])
     refuse_if_locked(args.output, field="--output")
     model = TimingModel.from_file(args.model)
     new = convert_model(model, args.frame, args.binary_model)
     comment = f"converted by timingkit from {os.path.basename(args.model)}"
-    with lock_output(args.output, field="--output"):
-        try:
-            new.write(args.output, comment=comment)
-        except OSError as exc:
-            raise writing_error(exc, args.output) from None
+    with writing_output_file(args.output):
+        new.write(args.output, comment=comment)
     print(f"wrote {args.output} (position frame {new.astrometry.frame}"
           + (f", binary model {args.binary_model}" if args.binary_model else "") + ")")
     for comp in new.extra:

@@ -3,7 +3,12 @@ from a fit's output folder."""
 
 from __future__ import annotations
 
-from timingkit.cli.options import add_wait_option
+from timingkit.cli.options import add_wait_option, writing_output_file
+
+
+# what the page is made from (outputs.explorer_page), never written over by -o
+READ_FILES = ("residuals.csv", "prefit_residuals.csv", "report.json", "glitches.json",
+              "fitted.toml")
 
 
 def add_parsers(sub) -> None:
@@ -22,7 +27,16 @@ def add_parsers(sub) -> None:
 
 
 def cmd_explore(args) -> int:
+    import contextlib
+    import os
+    from timingkit.formats.atomic_file import refuse_output_over_inputs
     from timingkit.outputs.explorer_page import write_explorer
-    path = write_explorer(args.outdir, args.output)
+    if args.output is not None:            # never over the files the page is made from
+        refuse_output_over_inputs(args.output, [os.path.join(args.outdir, name) for name in
+                                                READ_FILES])
+    elsewhere = args.output is not None and os.path.dirname(os.path.abspath(args.output)) != \
+        os.path.abspath(args.outdir)
+    with writing_output_file(args.output) if elsewhere else contextlib.nullcontext():
+        path = write_explorer(args.outdir, args.output)
     print(f"wrote {path}: open it in a browser (it needs no network)")
     return 0

@@ -3,6 +3,7 @@ against its model."""
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sys
@@ -19,6 +20,7 @@ from timingkit.cli.options import (
     progress_enabled,
     selection_arguments,
     wrote_folder_line,
+    writing_output_file,
 )
 from timingkit.formats.errors import InputError
 from timingkit.formats.atomic_file import refuse_output_over_inputs
@@ -149,8 +151,11 @@ def cmd_plot(args) -> int:
     if not os.path.exists(post_path):
         raise InputError("no residuals.csv here: give a folder written by 'timingkit fit'",
                          path=args.outdir)
+    elsewhere = args.output is not None and os.path.dirname(os.path.abspath(args.output)) != \
+        os.path.abspath(args.outdir)
     with lock_output(args.outdir):      # no run replaces the folder while it is read
-        out = _plot_folder(args, post_path)
+        with writing_output_file(args.output) if elsewhere else contextlib.nullcontext():
+            out = _plot_folder(args, post_path)
     print(f"wrote {out}")
     return 0
 

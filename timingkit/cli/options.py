@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 
 from timingkit.formats.errors import InputError, excerpt
 
@@ -71,6 +72,20 @@ def wrote_folder_line(outdir: str) -> str:
     import os
     names = sorted(name for name in os.listdir(outdir) if not name.startswith("."))
     return f"wrote {outdir.rstrip(os.sep) or os.sep}/: {', '.join(names)}"
+
+
+@contextlib.contextmanager
+def writing_output_file(path: str, field: str = "--output"):
+    """For the block that writes the output file ``path``: hold its lock (its folder is
+    made if missing, and removed again if left empty), and make a failure to write it
+    (missing permission, full disk) the usual 'cannot write the output' InputError."""
+    from timingkit.formats.atomic_file import writing_error
+    from timingkit.outputs.folder_lock import lock_output
+    with lock_output(path, field=field):
+        try:
+            yield
+        except OSError as exc:
+            raise writing_error(exc, path) from None
 
 
 EXIT_NOT_CONVERGED = 4     # outputs written, every one marked as not converged

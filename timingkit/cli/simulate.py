@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from timingkit.cli.options import add_wait_option, number_list
+from timingkit.cli.options import add_wait_option, number_list, writing_output_file
 from timingkit.formats.errors import InputError, excerpt
 
 
@@ -58,9 +58,9 @@ def cmd_simulate(args) -> int:
                                            reference_observations)
     from timingkit.model.simulate import simulate_toas
     from timingkit.formats.toa_writer import write_toa_table
-    from timingkit.formats.atomic_file import refuse_output_over_inputs, writing_error
+    from timingkit.formats.atomic_file import refuse_output_over_inputs
     from timingkit.formats.toa_reader import MAX_FIELD_CHARS
-    from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
+    from timingkit.outputs.folder_lock import refuse_if_locked
     model = load_model(args.model)
     if args.solar_wind_density_cm3 is not None:
         from timingkit.model.solar_wind import set_solar_wind
@@ -86,11 +86,8 @@ def cmd_simulate(args) -> int:
                          clocks=clocks, flags=flags, add_noise=not args.no_noise,
                          reference=reference_observations(model, sites, eph, clocks),
                          noise=noise)
-    with lock_output(args.output, field="--output"):
-        try:
-            write_toa_table(toas, args.output)
-        except OSError as exc:
-            raise writing_error(exc, args.output) from None
+    with writing_output_file(args.output):
+        write_toa_table(toas, args.output)
     print(f"wrote {len(toas)} TOAs to {args.output}")
     if len(toas) < args.count:
         print(f"left out {args.count - len(toas)} requested TOAs whose line of sight crosses the "
