@@ -46,6 +46,21 @@ def _hold(target, seconds, started: threading.Event):
         time.sleep(seconds)
 
 
+def _refused_while_locked_then_waits(command: list, out: Path, capsys) -> None:
+    """``command`` writing ``out`` exits 2 while another run holds the lock, and with
+    --wait succeeds once the holder has finished."""
+    with lock_output(out):
+        assert main(command) == 2
+    assert "in use by" in capsys.readouterr().err and not out.exists()
+    started = threading.Event()
+    holder = threading.Thread(target=_hold, args=(out, 0.5, started))
+    holder.start()
+    started.wait(10)
+    assert main([*command, "--wait"]) == 0
+    holder.join()
+    assert out.exists() and not lock_path(out).exists()
+
+
 def _dead_pid() -> int:
     """The pid of a process that has just ended (so no process runs under it)."""
     child = subprocess.Popen([sys.executable, "-c", "pass"])
@@ -328,16 +343,7 @@ def test_the_other_commands_refuse_a_locked_output_and_wait_with_wait(made_input
         "event-toas": [str(folder / "events.fits"), str(model), "--template", "auto",
                        "--span-days", "0.1", "--min-events", "5"],
     }[command]
-    with lock_output(out):
-        assert main([command, *arguments, "-o", str(out)]) == 2
-    assert "in use by" in capsys.readouterr().err and not out.exists()
-    started = threading.Event()
-    holder = threading.Thread(target=_hold, args=(out, 0.5, started))
-    holder.start()
-    started.wait(10)
-    assert main([command, *arguments, "-o", str(out), "--wait"]) == 0
-    holder.join()
-    assert out.exists() and not lock_path(out).exists()
+    _refused_while_locked_then_waits([command, *arguments, "-o", str(out)], out, capsys)
 
 
 def test_a_failed_run_leaves_no_folder_it_made_for_its_output(tmp_path, scheme):
@@ -387,14 +393,6 @@ def test_the_remaining_file_commands_lock_their_file_and_wait_with_wait(made_inp
                             "--rate-per-s", "0.4", "--pulsed-fraction", "0.3", "--site",
                             "dune-array", "--seed", "9"],
     }[command]
-    with lock_output(out):
-        assert main([command, *arguments, "-o", str(out)]) == 2
-    assert "in use by" in capsys.readouterr().err and not out.exists()
-    started = threading.Event()
-    holder = threading.Thread(target=_hold, args=(out, 0.5, started))
-    holder.start()
-    started.wait(10)
-    assert main([command, *arguments, "-o", str(out), "--wait"]) == 0
-    holder.join()
-    assert out.is_file() and not lock_path(out).exists()
+    _refused_while_locked_then_waits([command, *arguments, "-o", str(out)], out, capsys)
+    assert out.is_file()
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out.file"]

@@ -43,12 +43,17 @@ def add_input_options(p: argparse.ArgumentParser) -> None:
 
 def add_context_options(p: argparse.ArgumentParser) -> None:
     """--sites, --ephemeris and --clock: files a model may need besides its settings."""
+    add_sites_and_ephemeris_options(p)
+    p.add_argument("--clock", action="append", default=[], metavar="FILE",
+                   help="clock-correction table; may be repeated")
+
+
+def add_sites_and_ephemeris_options(p: argparse.ArgumentParser) -> None:
+    """--sites and --ephemeris (the simulations, which apply no clock corrections)."""
     p.add_argument("--sites", action="append", default=[], metavar="FILE",
                    help="extra site file (TOML); may be repeated")
     p.add_argument("--ephemeris", metavar="BSP",
                    help="JPL SPK ephemeris file (default: the model's settings, else built-in DE421)")
-    p.add_argument("--clock", action="append", default=[], metavar="FILE",
-                   help="clock-correction table; may be repeated")
 
 
 def add_color_option(p: argparse.ArgumentParser) -> None:

@@ -6,7 +6,7 @@ from __future__ import annotations
 import os
 import sys
 
-from timingkit.cli.options import add_wait_option, number_list
+from timingkit.cli.options import add_sites_and_ephemeris_options, add_wait_option, number_list
 from timingkit.formats.errors import InputError
 
 
@@ -51,26 +51,19 @@ def add_parsers(sub) -> None:
     s.add_argument("--freq-mhz", action="extend", type=number_list(float), default=None,
                    metavar="F[,F...]", help="centre frequencies, MHz, used in turn: a comma "
                                             "list and/or repeated (default 1400)")
-    s.add_argument("--channels", type=int, default=1, metavar="C",
-                   help="frequency channels per observation (default 1)")
-    s.add_argument("--bandwidth-mhz", type=float, default=100.0, metavar="B",
-                   help="bandwidth the channels span, MHz (default 100)")
-    s.add_argument("--subints", type=int, default=1, metavar="S",
-                   help="sub-integrations per observation (default 1)")
-    s.add_argument("--duration-s", type=float, default=600.0, metavar="T",
-                   help="length of each observation, s (default 600)")
-    s.add_argument("--bins", type=int, default=1024, metavar="N",
-                   help="phase bins per profile (default 1024)")
-    s.add_argument("--snr", type=float, default=100.0, metavar="S",
-                   help="S/N of each whole observation (default 100)")
+    for option, kind, default, metavar, what in (
+            ("--channels", int, 1, "C", "frequency channels per observation"),
+            ("--bandwidth-mhz", float, 100.0, "B", "bandwidth the channels span, MHz"),
+            ("--subints", int, 1, "S", "sub-integrations per observation"),
+            ("--duration-s", float, 600.0, "T", "length of each observation, s"),
+            ("--bins", int, 1024, "N", "phase bins per profile"),
+            ("--snr", float, 100.0, "S", "S/N of each whole observation")):
+        s.add_argument(option, type=kind, default=default, metavar=metavar,
+                       help=f"{what} (default {default:g})")
     s.add_argument("--template", metavar="FILE", help="template (default: built-in, invented)")
     s.add_argument("--seed", type=int, default=None,
                    help="random seed (the same seed gives the same profiles)")
-    s.add_argument("--sites", action="append", default=[], metavar="FILE",
-                   help="extra site file (TOML); may be repeated")
-    s.add_argument("--ephemeris", metavar="BSP",
-                   help="JPL SPK ephemeris file (default: the model's settings, else built-in "
-                        "DE421)")
+    add_sites_and_ephemeris_options(s)
     s.add_argument("--profile-format", choices=("npz", "fits"), default="npz",
                    help="file format of the profiles and template written (default npz)")
     s.add_argument("-o", "--outdir", required=True, metavar="DIR",

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from timingkit.cli.options import add_wait_option, number_list, writing_output_file
+from timingkit.cli.options import (add_sites_and_ephemeris_options, add_wait_option, number_list,
+                                   writing_output_file)
 from timingkit.formats.errors import InputError, excerpt
 
 
@@ -23,11 +24,7 @@ def add_parsers(sub) -> None:
                                             "comma list and/or repeated (default 1400)")
     p.add_argument("--seed", type=int, default=None,
                    help="random seed (the same seed gives the same TOAs)")
-    p.add_argument("--sites", action="append", default=[], metavar="FILE",
-                   help="extra site file (TOML); may be repeated")
-    p.add_argument("--ephemeris", metavar="BSP",
-                   help="JPL SPK ephemeris file (default: the model's settings, else built-in "
-                        "DE421)")
+    add_sites_and_ephemeris_options(p)
     p.add_argument("--flag", action="append", default=[], metavar="NAME=V1,V2",
                    help="add a flag column cycling through values, e.g. backend=wide-a,wide-b")
     p.add_argument("--no-noise", action="store_true", help="exact TOAs, no added noise")
