@@ -185,3 +185,21 @@ def test_events_default_output_folder_is_named_after_the_source(site_events, tmp
     assert sorted(p.name for p in tmp_path.iterdir()) == [folder.name]
     assert (folder / "events_report.json").is_file()
     assert f"wrote {folder.name}/" in capsys.readouterr().out
+
+
+def test_no_event_command_writes_over_one_of_its_inputs(site_events, tmp_path, capsys):
+    """Inputs are never changed: -o (or --save-template) naming the event list, the
+    model or its site file is refused before any work."""
+    folder, model, events = site_events
+    before = {path: _sha(path) for path in (events, model, folder / "sites.toml")}
+    toas = ["event-toas", str(events), str(model), "--template", "auto", "--span-days", "0.1"]
+    for command in ([*toas, "-o", str(events)],
+                    [*toas, "-o", str(folder / "sites.toml")],
+                    [*toas, "--save-template", str(model), "-o", str(tmp_path / "t.toas")],
+                    ["simulate-events", str(model), "--start", "58000", "--end", "58000.01",
+                     "--rate-per-s", "0.4", "--pulsed-fraction", "0.3", "--site",
+                     "dune-array", "-o", str(model)]):
+        assert main(command) == 2, command
+        assert "is an input of this command" in capsys.readouterr().err
+    assert {path: _sha(path) for path in before} == before
+    assert list(tmp_path.iterdir()) == []

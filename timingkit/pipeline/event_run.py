@@ -26,7 +26,8 @@ from timingkit.geometry.sites import SiteTable
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
-from timingkit.pipeline.inputs import load_context, load_model, reference_observations
+from timingkit.pipeline.inputs import (input_paths, load_context, load_model,
+                                       reference_observations)
 
 # Time bins wider than this share of the spin period: warn. A bin of width w
 # convolves the profile with a box, multiplying harmonic k by sinc(k w f): at
@@ -303,11 +304,16 @@ def event_toa_files(events_path, model_path, toas_path, *, template="auto", span
     if not min_events >= 2:
         raise InputError(f"each chunk needs at least 2 events, found {min_events}",
                          field="min_events")
+    read = [events_path, model_path, orbit, None if template == "auto" else template,
+            *sites_paths, *clock_paths, ephemeris]
+    _refuse_outputs_over_inputs([toas_path, save_template], read)
     refuse_if_locked(toas_path, field="output")
     inputs = load_event_inputs(events_path, model_path, site=site, orbit=orbit, scale=scale,
                                energy_range=energy_range, energy_column=energy_column,
                                sites_paths=sites_paths, ephemeris=ephemeris,
                                clock_paths=clock_paths)
+    _refuse_outputs_over_inputs([toas_path, save_template],      # and the files it names
+                                [*read, *input_paths(None, inputs.model)])
     shape = None if template == "auto" else PulseTemplate.from_file(template)
     clock, timing = time_selected(inputs)
     if shape is None:
@@ -354,6 +360,8 @@ def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, p
     from timingkit.outputs.residual_table import atomic_output
     refuse_if_locked(output, field="output")
     model = load_model(model_path)
+    _refuse_outputs_over_inputs([output], [*input_paths(None, model, sites_paths, ephemeris,
+                                                        clock_paths), orbit, *profile])
     sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     observer, timeref = simulation_observer(site, orbit, sites)
     observer.clocks = list(clocks)
@@ -381,3 +389,12 @@ def simulate_event_file(model_path, output, *, start_mjd, end_mjd, rate_per_s, p
     return {"events": len(sim.seconds), "pulsed": int(sim.pulsed.sum()),
             "observer": observer.label, "time_scale": sim.scale.upper(),
             "timeref": timeref.upper()}
+
+
+def _refuse_outputs_over_inputs(outputs, inputs) -> None:
+    """An InputError when an output file is one of the inputs (inputs are never
+    changed) or two outputs are one file."""
+    from timingkit.formats.atomic_file import refuse_output_over_inputs
+    outputs = [path for path in outputs if path is not None]
+    for i, path in enumerate(outputs):
+        refuse_output_over_inputs(path, [*inputs, *outputs[:i]])
