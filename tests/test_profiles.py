@@ -286,3 +286,24 @@ def test_profile_toas_carry_the_flags_given(tmp_path, capsys):
         assert "--flag" in err and "Traceback" not in err, (bad, err)
         assert "x" * 100 not in err                 # a long value is quoted as an excerpt
         assert not target.exists()
+
+
+def test_profile_toas_never_writes_its_template_over_an_input(tmp_path, capsys):
+    data = tmp_path / "data"
+    shutil.copytree(SAMPLE, data)
+    sim = tmp_path / "sim"
+    assert main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
+                 "--start", "60000", "--end", "60010", "--count", "2", "--bins", "64",
+                 "--seed", "5", "-o", str(sim)]) == 0
+    files = sorted(str(p) for p in sim.glob("obs-*.npz"))
+    before = {path: open(path, "rb").read() for path in files}
+    out = str(tmp_path / "prof.toas")
+    capsys.readouterr()
+    assert main(["profile-toas", *files, "--template", "auto", "--write-template", files[0],
+                 "-o", out]) == 2
+    assert "is an input of this command" in capsys.readouterr().err
+    assert main(["profile-toas", *files, "--template", str(sim / "template.npz"),
+                 "--write-template", str(tmp_path / "t.npz"), "-o", out]) == 2
+    assert "--write-template" in capsys.readouterr().err
+    assert {path: open(path, "rb").read() for path in files} == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["data", "sim"]

@@ -81,6 +81,13 @@ def cmd_profile_toas(args) -> int:
     from timingkit.formats.atomic_file import refuse_output_over_inputs
     from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
     refuse_output_over_inputs(args.output, [*args.profiles, args.template, args.write_template])
+    template_path = None
+    if args.template == "auto":
+        template_path = args.write_template or os.path.splitext(args.output)[0] + ".template.npz"
+        refuse_output_over_inputs(template_path, [*args.profiles, args.output])
+    elif args.write_template:
+        raise InputError("--write-template writes the template --template auto builds; with a "
+                         "template file there is none to write", field="--write-template")
     refuse_if_locked(args.output, field="--output")
     from timingkit.cli.options import parse_flag_options
     flags = parse_flag_options(args.flag)
@@ -89,10 +96,8 @@ def cmd_profile_toas(args) -> int:
     bins = timed.profiles.shape[1]
     if args.template == "auto":
         template = auto_template(list(timed.profiles), bins)
-        template_path = args.write_template or os.path.splitext(args.output)[0] + ".template.npz"
     else:
         template = read_template_file(args.template)
-        template_path = None
     result = time_profiles(timed, resample(template.profile, bins), args.min_snr, flags)
     with lock_output(args.output, field="--output"):
         if template_path:
