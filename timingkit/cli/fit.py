@@ -36,9 +36,10 @@ def add_parsers(sub) -> None:
     add_color_option(p)
     p.add_argument("--no-plot", action="store_true", help="skip residuals.png")
     p.add_argument("--suggest", action="store_true",
-                   help="also try adding a frequency derivative, freeing fixed binary terms and "
-                        "glitches at --glitch-candidate epochs; list those the data support "
-                        "(F-test, delta AIC/BIC)")
+                   help="also try, one at a time, the next spin-frequency and DM derivatives, "
+                        "the fixed astrometric and binary terms and glitches at "
+                        "--glitch-candidate epochs; list those the data support (F-test, "
+                        "delta AIC/BIC)")
     p.add_argument("--suggest-level", type=float, default=0.01, metavar="P",
                    help="F-test probability below which an addition is supported (default 0.01)")
     p.add_argument("--max-iterations", type=int, default=20, metavar="N",
