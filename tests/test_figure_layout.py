@@ -128,3 +128,48 @@ def test_ppdot_labels_do_not_overlap():
     area = ax.get_window_extent(renderer)
     assert all(area.x0 <= b.x0 and b.x1 <= area.x1 and area.y0 <= b.y0 and b.y1 <= area.y1
                for b in boxes[:len(labels)])
+
+
+def _event_report():
+    """A small events_report as timingkit events writes it (two long footnotes)."""
+    centres = (np.arange(16) + 0.5) / 16
+    return {"source": "demo", "events": 1000,
+            "profile": {"bins": 16, "counts": list(60 + 40 * np.exp(-((centres - 0.3) / 0.05) ** 2)),
+                        "phase_bin_centres": list(centres), "unpulsed_level_counts_per_bin": 60.0,
+                        "unpulsed_level_uncertainty": 2.0, "smooth_harmonics": 3},
+            "pulsed_fraction": {"value": 0.2, "uncertainty": 0.02,
+                                "off_pulse_window": [[0.6, 0.9]]},
+            "h_test": {"value": 50.0, "harmonics": 3, "false_alarm_probability": 1e-5,
+                       "false_alarm_probability_upper_limit": True},
+            "settings": {"observer": {"observer": "site obsgeo"}, "ephemeris": "builtin DE421",
+                         "clock": "no observatory clock corrections applied " * 3},
+            "cautions": ["a caution long enough to wrap onto a second line " * 4], "warnings": []}
+
+
+@pytest.mark.parametrize("kind", ["frequency", "events"])
+def test_the_key_sits_between_the_axes_and_the_footnotes(kind):
+    """Footnotes (infinite-frequency TOAs, an event list's observer and cautions) and the
+    colour key share the bottom edge: neither may cover the other nor the x label."""
+    from timingkit.outputs.profile_figure import plot_event_profile
+    if kind == "frequency":
+        table = make_table(n=40)
+        freq = np.array(table.freq_mhz, dtype=float)
+        freq[:5] = np.inf
+        table = ResidualTable.from_columns(list(table.mjd_text), table.site, freq, table.err_us,
+                                           table.residual_us, table.residual_phase,
+                                           table.pulse_number, {})
+        figure = plotting.plot_residuals_vs_frequency(table)
+    else:
+        figure = plot_event_profile(_event_report())
+    figure.canvas.draw()
+    renderer = figure.canvas.get_renderer()
+    [legend] = figure.legends
+    key = legend.get_window_extent(renderer)
+    notes = [text.get_window_extent(renderer) for text in figure.texts if text.get_text()]
+    ax = figure.axes[0]
+    label = ax.xaxis.label.get_window_extent(renderer)
+    ticks = [t.get_window_extent(renderer) for t in ax.get_xticklabels() if t.get_text()]
+    assert notes
+    for box in notes + [label, *ticks, ax.get_window_extent(renderer)]:
+        assert not key.overlaps(box), (key, box)
+    assert all(key.y0 > note.y1 for note in notes)              # the key above the notes

@@ -70,6 +70,9 @@ def add_footnotes(figure: Figure, notes, fontsize: float = 6.5) -> None:
         y += line_height * (text.count("\n") + 1) + 0.004
     gap = y + 6.0 / 72.0 / figure.get_figheight()         # 6 pt between notes and the rest
     figure.get_layout_engine().set(rect=(0.0, gap, 1.0, 1.0 - gap))
+    figure._timingkit_key_bottom = gap                     # the key goes above the notes
+    if getattr(figure, "_timingkit_key", None):
+        _draw_key(figure)
 
 
 def time_unit(values_us) -> tuple[float, str]:
@@ -117,8 +120,20 @@ def _draw_key(figure: Figure) -> None:
         return
     handles, labels = zip(*entries)
     columns = min(len(labels), 5)
-    figure.legend(handles, labels, title=title, loc="outside lower center", ncols=columns,
-                  fontsize=8, title_fontsize=8, frameon=False)
+    style = dict(ncols=columns, fontsize=8, title_fontsize=8, frameon=False)
+    bottom = getattr(figure, "_timingkit_key_bottom", None)
+    if bottom is None:                       # the layout makes room for it at the bottom
+        figure.legend(handles, labels, title=title, loc="outside lower center", **style)
+        return
+    # above the footnotes (add_footnotes), which the layout does not see: the key is
+    # anchored on them, and the axes keep out of both
+    legend = figure.legend(handles, labels, title=title, loc="lower center",
+                           bbox_to_anchor=(0.5, bottom), bbox_transform=figure.transFigure,
+                           **style)
+    legend.set_in_layout(False)
+    height = legend.get_window_extent(figure.canvas.get_renderer()).height / figure.bbox.height
+    top = bottom + height + 4.0 / 72.0 / figure.get_figheight()
+    figure.get_layout_engine().set(rect=(0.0, top, 1.0, 1.0 - top))
 
 
 # --------------------------------------------------------------------------- overlaps

@@ -3,14 +3,16 @@
 Counts per phase bin with Poisson (sqrt N) error bars, the Fourier series
 with the H-test's harmonics, the unpulsed level with its 1-sigma band, and
 the off-pulse window it was measured in (shaded), drawn on an Agg figure
-(timingkit.outputs.plotting: no pyplot).
+(timingkit.outputs.plotting: no pyplot); the key sits below the axes, as on every
+figure, so it hides no peak.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from timingkit.outputs.figure_basics import add_footnotes as _add_footnotes, finish as _finish, new_figure
+from timingkit.outputs.figure_basics import (add_footnotes as _add_footnotes, finish as _finish,
+                                             new_figure, set_key)
 
 
 def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path=None,
@@ -53,7 +55,7 @@ def plot_event_profile(report: dict, smooth_phase=None, smooth_counts=None, path
     ax.set_title(f"{report['source']}: {report['events']:,} events; H = {h['value']:.1f} "
                  f"({_harmonics(h['harmonics'])}, {fap_text}); pulsed fraction "
                  f"{pf['value']:.3f} ± {pf['uncertainty']:.3f}", fontsize=9.5)
-    ax.legend(fontsize=7.5, loc="upper right", framealpha=0.9)
+    set_key(figure, list(zip(*ax.get_legend_handles_labels())))   # below: hides no peak
     settings = report["settings"]
     notes = [(f"observer: {settings['observer']['observer']}; ephemeris: "
               f"{settings['ephemeris']}; clock: {settings['clock']}", "0.3", "settings")]
