@@ -182,7 +182,8 @@ def test_explore_writes_the_page_with_the_candidate_marked(files, tmp_path, caps
     out = tmp_path / "out"
     assert main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
                  "-o", str(out), "--no-plot", "--null-trials", "200", "--explore"]) == 0
-    assert capsys.readouterr().out.rstrip().endswith("report.json, explorer.html")
+    last = capsys.readouterr().out.rstrip().splitlines()[-1]     # every file written
+    assert last.startswith(f"wrote {out}/: ") and "explorer.html" in last.split(": ")[1]
     (c,) = json.loads((out / "glitches.json").read_text())["candidates"]
     with open(out / "fitted.toml", "rb") as fh:
         (fitted,) = tomllib.load(fh)["glitch"]
