@@ -72,7 +72,8 @@ def test_overestimated_errors_are_flagged():
     assert any(w.startswith("poor fit") and "overestimated" in w for w in result.warnings)
 
 
-def test_a_fit_that_does_not_converge_exits_4_and_marks_every_output(tmp_path, capsys):
+def test_a_fit_that_does_not_converge_exits_4_and_marks_every_output(tmp_path, capsys,
+                                                                   monkeypatch):
     toas, model = sample("demo-young")
     out = tmp_path / "out"
     assert main(["fit", toas, model, "--max-iterations", "1", "-o", str(out)]) == 4
@@ -91,6 +92,14 @@ def test_a_fit_that_does_not_converge_exits_4_and_marks_every_output(tmp_path, c
     assert rows and {r["fit_status"] for r in rows} == {"not_converged"}
     assert list(rows[0])[-1] == "fit_status"
     assert read_residual_csv(out / "residuals.csv").converged is False
+    # `timingkit plot` of the folder keeps the mark in the figure's title
+    import timingkit.outputs.plotting as plotting
+    titles = []
+    real_plot = plotting.plot_residuals
+    monkeypatch.setattr(plotting, "plot_residuals",
+                        lambda *a, **k: titles.append(k["title"]) or real_plot(*a, **k))
+    assert main(["plot", str(out), "-o", str(tmp_path / "again.png")]) == 0
+    assert titles == [f"{report['source']}: {report['toas']} TOAs (NOT CONVERGED)"]
     # converged: status 0 and no mark
     assert main(["fit", toas, model, "--no-plot", "-o", str(tmp_path / "ok")]) == 0
     assert "NOT CONVERGED" not in (tmp_path / "ok" / "fitted.toml").read_text()

@@ -187,8 +187,9 @@ def _fitted_glitch_epochs(outdir: str) -> list[float]:
 
 
 def _report_title_and_frequency(report_path: str):
-    """(source name, spin frequency in Hz) from a fit's report.json, or Nones
-    when there is none; a corrupt report is bad input."""
+    """(figure title, spin frequency in Hz) from a fit's report.json, or Nones when
+    there is none: the title the fit gave the figure (source, TOAs, a fit that did not
+    converge marked); a corrupt report is bad input."""
     if not os.path.exists(report_path):
         return None, None
     from timingkit.formats.textfile import read_text_file
@@ -205,4 +206,11 @@ def _report_title_and_frequency(report_path: str):
         freq = float(report["parameters"]["spin.frequency_hz"]["value"])
     except (KeyError, TypeError, ValueError):
         freq = None
-    return (title if isinstance(title, str) else None), freq
+    if not isinstance(title, str):
+        return None, freq
+    if isinstance(report.get("toas"), int):                 # the title the fit gave it
+        title += f": {report['toas']} TOAs"
+    if report.get("converged") is False:
+        from timingkit.pipeline.fit_run import NOT_CONVERGED_MARK
+        title += f" ({NOT_CONVERGED_MARK})"
+    return title, freq
