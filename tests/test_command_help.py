@@ -126,3 +126,15 @@ def test_explore_and_plot_write_into_a_new_folder_and_never_over_their_inputs(
     err = capsys.readouterr().err
     assert "cannot write the output" in err and "internal error" not in err
     assert sorted(p.name for p in tmp_path.iterdir()) == ["a-file", "out", "pages"]
+
+
+def test_convert_never_writes_over_a_file_the_model_names(tmp_path, capsys):
+    import shutil
+    for name in ("demo-slow.toml", "sites.toml"):
+        shutil.copy(SAMPLE / name, tmp_path / name)
+    sites = (tmp_path / "sites.toml").read_bytes()
+    assert main(["convert", str(tmp_path / "demo-slow.toml"), "--frame", "ecliptic", "-o",
+                 str(tmp_path / "sites.toml")]) == 2
+    assert "is an input of this command" in capsys.readouterr().err
+    assert (tmp_path / "sites.toml").read_bytes() == sites
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["demo-slow.toml", "sites.toml"]

@@ -34,6 +34,8 @@ def cmd_convert(args) -> int:
     refuse_output_over_inputs(args.output, [args.model])
     refuse_if_locked(args.output, field="--output")
     model = TimingModel.from_file(args.model)
+    from timingkit.pipeline.inputs import input_paths
+    refuse_output_over_inputs(args.output, input_paths(None, model))   # nor a file it names
     new = convert_model(model, args.frame, args.binary_model)
     comment = f"converted by timingkit from {os.path.basename(args.model)}"
     with writing_output_file(args.output):
