@@ -138,3 +138,15 @@ def test_convert_never_writes_over_a_file_the_model_names(tmp_path, capsys):
     assert "is an input of this command" in capsys.readouterr().err
     assert (tmp_path / "sites.toml").read_bytes() == sites
     assert sorted(p.name for p in tmp_path.iterdir()) == ["demo-slow.toml", "sites.toml"]
+
+
+def test_predict_never_writes_over_a_file_the_model_names(tmp_path, capsys):
+    import shutil
+    for name in ("demo-slow.toml", "sites.toml"):
+        shutil.copy(SAMPLE / name, tmp_path / name)
+    sites = (tmp_path / "sites.toml").read_bytes()
+    assert main(["predict", str(tmp_path / "demo-slow.toml"), "--site", "desert-dish",
+                 "--start", "60000.9", "--end", "60001.0", "--freq-mhz", "1400", "-o",
+                 str(tmp_path / "sites.toml")]) == 2
+    assert "is an input of this command" in capsys.readouterr().err
+    assert (tmp_path / "sites.toml").read_bytes() == sites

@@ -66,8 +66,10 @@ def cmd_predict(args) -> int:
     if args.output:
         from timingkit.formats.atomic_file import refuse_output_over_inputs
         from timingkit.outputs.folder_lock import refuse_if_locked
-        refuse_output_over_inputs(args.output, [args.model, *([args.windows] if args.windows
-                                                               else [])])
+        from timingkit.pipeline.inputs import input_paths, load_model
+        refuse_output_over_inputs(args.output, [args.model, args.windows])
+        refuse_output_over_inputs(args.output, [    # nor a file the model names
+            *input_paths(None, load_model(args.model), args.sites, args.ephemeris, args.clock)])
         refuse_if_locked(args.output, field="--output")
     predictor = build_from_files(args)
     data = predictor.data
