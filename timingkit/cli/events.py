@@ -3,7 +3,10 @@ from X-ray and gamma-ray observers."""
 
 from __future__ import annotations
 
-from timingkit.cli.options import add_context_options, add_wait_option
+from timingkit.cli.options import add_context_options, add_wait_option, comma_list
+
+
+DEFAULT_PROFILE = ["gauss:0.0:0.1"]
 
 
 def _observer_options(p) -> None:
@@ -67,10 +70,12 @@ def add_parsers(sub) -> None:
                    help="mean event rate (pulsed and unpulsed), per second")
     p.add_argument("--pulsed-fraction", type=float, required=True, metavar="P",
                    help="share of the events that are pulsed (0 to 1)")
-    p.add_argument("--profile", nargs="+", default=["gauss:0.0:0.1"], metavar="SHAPE",
+    p.add_argument("--profile", action="extend", type=comma_list, default=None,
+                   metavar="SHAPE[,SHAPE...]",
                    help="pulse shape: wrapped Gaussian components gauss:CENTRE:FWHM[:AMP] "
-                        "(phase units; several may follow) or a template file (default "
-                        "gauss:0.0:0.1)")
+                        "(phase units; several as a comma list and/or repeated, e.g. "
+                        "--profile gauss:0.1:0.05,gauss:0.6:0.2) or one template file "
+                        "(default gauss:0.0:0.1)")
     _observer_options(p)
     p.add_argument("--seed", type=int, default=None,
                    help="random seed (the same seed gives the same events)")
@@ -151,9 +156,9 @@ def cmd_simulate_events(args) -> int:
     from timingkit.pipeline.event_run import simulate_event_file
     facts = simulate_event_file(args.model, args.output, start_mjd=args.start, end_mjd=args.end,
                                 rate_per_s=args.rate_per_s, pulsed_fraction=args.pulsed_fraction,
-                                profile=args.profile, site=args.site, orbit=args.orbit,
-                                seed=args.seed, sites_paths=args.sites, ephemeris=args.ephemeris,
-                                clock_paths=args.clock)
+                                profile=args.profile or DEFAULT_PROFILE, site=args.site,
+                                orbit=args.orbit, seed=args.seed, sites_paths=args.sites,
+                                ephemeris=args.ephemeris, clock_paths=args.clock)
     print(f"wrote {facts['events']:,} events ({facts['pulsed']:,} pulsed) to {args.output}; "
           f"observer {facts['observer']}, TIMESYS {facts['time_scale']}, TIMEREF "
           f"{facts['timeref']}")

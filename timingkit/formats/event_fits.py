@@ -10,7 +10,8 @@ come from the first HDU named ``GTI`` or ``STDGTI`` (columns ``START`` and
 table's); they select on the TIME values as written, while the events are
 timed at the centres of their time bins (``TIMEDEL``, ``TIMEPIXR``).
 ``OBSGEO-X/Y/Z`` (geocentric ITRS metres; Rots et al. 2015, A&A 574, A36, the
-FITS time standard) give a ground observer's position when present. The file
+FITS time standard) give a ground observer's position when present; the names
+in ``OBSERVAT`` and ``TELESCOP`` are kept for matching it to a site. The file
 is opened read-only and memory-mapped: it is never changed and the TIME column
 is read without copying the other columns.
 
@@ -123,6 +124,10 @@ def read_fits_events(path: str) -> EventList:
         bin_centre_shift_s=keys.bin_centre_shift_s, time_bin_s=keys.time_bin_s,
         time_pixel_reference=keys.time_pixel_reference, utc_elapsed_seconds=True)
     events.observer_itrf_m = _observer_position(hdu.header, primary, label, path)
+    events.observatory_names = [(keyword, str(header[keyword]).strip())
+                                for header in (hdu.header, primary)
+                                for keyword in ("OBSERVAT", "TELESCOP")
+                                if str(header.get(keyword, "")).strip()]
     observatory = hdu.header.get("OBSERVAT", hdu.header.get("TELESCOP"))
     if observatory is not None:
         events.keywords["OBSERVAT"] = str(observatory)

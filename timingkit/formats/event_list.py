@@ -41,7 +41,9 @@ class EventList:
     ``bary_shift_s``: (reference - MJDREF) in seconds, so that a barycentric
     time ``t`` (seconds from the reference) is ``t + bary_shift_s`` seconds
     from MJDREF read as a TDB date; ``site``: the site named by the file;
-    ``observer_itrf_m``: OBSGEO-X/Y/Z when given; ``notes``: facts for the
+    ``observer_itrf_m``: OBSGEO-X/Y/Z when given; ``observatory_names``:
+    [(keyword, value)] of OBSERVAT and TELESCOP, the events table's before the
+    primary header's; ``notes``: facts for the
     report (keywords defaulted, clock state); ``bin_centre_shift_s``: (hi, lo)
     seconds from a TIME stamp to its bin's centre, ``time_bin_s`` the bin width
     (TIMEDEL, s; None when not given), ``time_pixel_reference`` TIMEPIXR.
@@ -67,6 +69,7 @@ class EventList:
     gti_hdu: object = None
     site: str | None = None
     observer_itrf_m: np.ndarray | None = None
+    observatory_names: list = field(default_factory=list)
     clock_applied: bool | None = None
     energy_column: str | None = None
     energy_unit: str = ""

@@ -6,6 +6,8 @@
 - ``glitch_run``: :func:`glitch_files` (glitch search and fit, same signature as fit_files).
 - ``event_run``: :func:`fold_event_files`, :func:`event_toa_files` and
   :func:`simulate_event_file` (photon events: fold and test, event TOAs, simulated lists).
+- ``obsgeo_site``: :func:`obsgeo_observer` (an event list's OBSGEO-X/Y/Z position matched to
+  the site its OBSERVAT/TELESCOP names, within 100 m).
 - ``left_out``: :func:`choose_toas` (exclusion lists and rules) and the left-out TOAs' residuals.
 
 ::
@@ -21,7 +23,7 @@ EXPORTS = {
     "load_inputs": "inputs", "load_model": "inputs", "Inputs": "inputs", "barycentre_files":
     "barycentre", "glitch_files": "glitch_run", "fold_event_files": "event_run",
     "event_toa_files": "event_run", "simulate_event_file": "event_run",
-    "choose_toas": "left_out",
+    "choose_toas": "left_out", "obsgeo_observer": "obsgeo_site",
 }
 __getattr__, __dir__ = lazy_exports(__name__, EXPORTS)
 __all__ = list(EXPORTS)

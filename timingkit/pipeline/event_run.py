@@ -17,7 +17,6 @@ from timingkit.events.barycentre import (EventClock, EventTiming, event_clock, t
                                          valid_span)
 from timingkit.formats.errors import InputError
 from timingkit.formats.event_list import EventList, read_event_list, select_events
-from timingkit.formats.site_file import BUILTIN_SITES, Site
 from timingkit.geometry.delays import PLANET_MASSES_SOURCE
 from timingkit.geometry.ephemeris import Ephemeris
 from timingkit.geometry.observer import Observer
@@ -26,6 +25,7 @@ from timingkit.geometry.sites import SiteTable
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
+from timingkit.pipeline.obsgeo_site import obsgeo_observer
 from timingkit.pipeline.inputs import (input_paths, load_context, load_model,
                                        reference_observations)
 
@@ -53,11 +53,13 @@ class EventInputs:
     index: np.ndarray
     selection: dict
     warnings: list[str] = field(default_factory=list)
+    obsgeo_check: dict | None = None
 
 
 def resolve_observer(events: EventList, site_name: str | None, orbit_path: str | None,
-                     sites: SiteTable, clocks) -> tuple[Observer, list[str]]:
-    """Where the events were observed, from the options and the file (README)."""
+                     sites: SiteTable, clocks) -> tuple[Observer, list[str], dict | None]:
+    """Where the events were observed, from the options and the file (README), the
+    warnings, and for an OBSGEO position how it was matched to a named site."""
     from timingkit.formats.orbit_table import read_orbit_table
     from timingkit.geometry.spacecraft import SpacecraftTrajectory
     warnings: list[str] = []
@@ -68,35 +70,31 @@ def resolve_observer(events: EventList, site_name: str | None, orbit_path: str |
         if site_name is not None or orbit_path is not None:
             raise InputError("the events are already barycentric (TIMEREF = SOLARSYSTEM): no "
                              "--site or --orbit", path=events.path, field="TIMEREF")
-        return Observer("ssb", events.scale, sites=sites), warnings
+        return Observer("ssb", events.scale, sites=sites), warnings, None
     if orbit_path is not None:
         if events.timeref != "local":
             raise InputError(f"an orbit needs locally observed times; TIMEREF is "
                              f"{events.timeref.upper()}", path=events.path, field="TIMEREF")
         trajectory = SpacecraftTrajectory(read_orbit_table(orbit_path))
-        return Observer("spacecraft", events.scale, trajectory=trajectory, sites=sites), warnings
+        return Observer("spacecraft", events.scale, trajectory=trajectory, sites=sites), warnings, None
     if site_name is not None:
         site = sites.lookup(site_name)
         if events.timeref == "geocentric" and site.kind != "geocentre":
             raise InputError(f"the events are geocentric (TIMEREF = GEOCENTRIC), not at site "
                              f"{site.name}", path=events.path, field="TIMEREF")
         kind = {"earth": "earth", "geocentre": "geocentre", "ssb": "ssb"}[site.kind]
-        return Observer(kind, events.scale, site=site, sites=sites, clocks=list(clocks)), warnings
+        return Observer(kind, events.scale, site=site, sites=sites, clocks=list(clocks)), warnings, None
     if events.timeref == "geocentric":
-        return Observer("geocentre", events.scale, sites=sites), warnings
+        return Observer("geocentre", events.scale, sites=sites), warnings, None
     if events.kind == "text":
         raise InputError("the observer is not stated: add a '# site: NAME' comment (a site, "
                          "geocentre or ssb) or give --site or --orbit", path=events.path,
                          field="site")
     if events.observer_itrf_m is not None:
-        site = Site("obsgeo", "earth", events.observer_itrf_m, (),
-                    f"OBSGEO-X/Y/Z keywords of {events.path}")
-        table = SiteTable([*BUILTIN_SITES, site])
-        return Observer("earth", events.scale, site=site, sites=table, clocks=list(clocks),
-                        description="position from the file's OBSGEO-X/Y/Z keywords"), warnings
+        return obsgeo_observer(events, sites, clocks)
     warnings.append(LOW_ORBIT_WARNING)
     return Observer("geocentre", events.scale, sites=sites,
-                    description="no orbit or site given: geocentre assumed"), warnings
+                    description="no orbit or site given: geocentre assumed"), warnings, None
 
 
 def load_event_inputs(events_path, model_path, *, site=None, orbit=None, scale=None,
@@ -105,7 +103,7 @@ def load_event_inputs(events_path, model_path, *, site=None, orbit=None, scale=N
     model = load_model(model_path)
     sites, eph, clocks = load_context(model, sites_paths, ephemeris, clock_paths)
     events = read_event_list(events_path, scale=scale, site=site)
-    observer, warnings = resolve_observer(events, site, orbit, sites, clocks)
+    observer, warnings, obsgeo_check = resolve_observer(events, site, orbit, sites, clocks)
     if events.kind == "fits" and observer.kind in ("spacecraft", "geocentre") \
             and events.clock_applied is not True:
         warnings.append("the file does not say that the mission's clock correction was applied "
@@ -118,7 +116,8 @@ def load_event_inputs(events_path, model_path, *, site=None, orbit=None, scale=N
                          path=events.path)
     return EventInputs(events=events, model=model, observer=observer, ephemeris=eph,
                        reference=reference_observations(model, sites, eph, clocks),
-                       index=index, selection=selection, warnings=warnings)
+                       index=index, selection=selection, warnings=warnings,
+                       obsgeo_check=obsgeo_check)
 
 
 def time_bin_entry(events: EventList, model: TimingModel) -> dict:
@@ -202,7 +201,10 @@ def barycentric_mjd(clock: EventClock, timing: EventTiming) -> np.ndarray:
 
 def settings_entry(inputs: EventInputs, timing: EventTiming) -> dict:
     accuracy = {k: v for k, v in timing.accuracy.items() if k != "warnings"}
-    return {"observer": inputs.observer.summary(), "ephemeris": inputs.ephemeris.label,
+    observer = inputs.observer.summary()
+    if inputs.obsgeo_check is not None:
+        observer["obsgeo_check"] = inputs.obsgeo_check
+    return {"observer": observer, "ephemeris": inputs.ephemeris.label,
             "clock": clock_state(inputs), "barycentring": accuracy,
             "shapiro_delay_bodies": ["sun", *shapiro_planets(
                 inputs.model.settings["shapiro_delay_planets"], inputs.ephemeris,
