@@ -198,3 +198,44 @@ def test_explore_writes_the_page_with_the_candidate_marked(files, tmp_path, caps
     assert data["count"] == 104 and "pre_us" in data["columns"]
     text = (out / "explorer.html").read_text(encoding="utf-8")
     assert "search candidate 1" in text and "window.timingkitExplorer" in text
+
+
+def test_prefit_residuals_are_those_of_the_model_as_given(files, tmp_path, monkeypatch):
+    # the pre-fit panel and prefit_residuals.csv of a glitch run show the user's model
+    # (no glitch terms), as `timingkit residuals` of that model shows it, not the last
+    # fit's starting point (its model already carries the found glitch)
+    import timingkit.outputs.plotting as plotting
+    from timingkit.pipeline.fit_run import residual_files
+    from timingkit.pipeline.glitch_run import STARTING_LABEL
+    drawn = {}
+    real = plotting.plot_residuals
+
+    def spy(postfit, prefit=None, **kwargs):
+        drawn.update(post=postfit, pre=prefit, label=kwargs.get("prefit_label"))
+        drawn["figure"] = real(postfit, prefit=prefit, **kwargs)
+        return drawn["figure"]
+
+    monkeypatch.setattr(plotting, "plot_residuals", spy)
+    out = tmp_path / "out"
+    assert main(["glitches", str(files / "glitch.toas"), str(files / "start.toml"),
+                 "-o", str(out), "--null-trials", "200"]) == 0
+    residual_files(str(files / "glitch.toas"), str(files / "start.toml"),
+                   str(tmp_path / "as-given"), make_plots=False)
+    expected_us = read_residual_csv(str(tmp_path / "as-given" / "residuals.csv")).residual_us
+    pre = read_residual_csv(str(out / "prefit_residuals.csv"))
+    post = read_residual_csv(str(out / "residuals.csv"))
+    assert len(pre) == len(post) == len(expected_us) == 104
+    np.testing.assert_array_equal(pre.residual_us, expected_us)
+    np.testing.assert_allclose(drawn["pre"].residual_us, pre.residual_us, atol=2e-6)
+    assert drawn["label"] == STARTING_LABEL
+    top = drawn["figure"].axes[0]           # the label fits beside the statistics line
+    assert top.get_title(loc="left") == STARTING_LABEL
+    renderer = drawn["figure"].canvas.get_renderer()
+    (stats,) = [t for t in top.texts if t.get_gid() == "residual_stats"]
+    assert not top._left_title.get_window_extent(renderer).overlaps(stats.get_window_extent(renderer))
+    # a 1e-6 Hz step left unmodelled wraps the phase: pre-fit residuals far above the
+    # post-fit ones (white noise of 50 µs), so the two panels cannot be the same
+    assert pre.rms_us() > 20 * post.rms_us()
+    assert post.rms_us() < 80.0
+    report = json.loads((out / "report.json").read_text())
+    assert report["prefit_rms_us"] == pytest.approx(pre.rms_us(), rel=1e-4)

@@ -170,8 +170,11 @@ def _plot_folder(args, post_path: str) -> str:
     title, freq = _report_title_and_frequency(os.path.join(args.outdir, "report.json"))
     out = args.output or os.path.join(args.outdir, "residuals.png")
     refuse_output_over_inputs(out, [post_path, pre_path, os.path.join(args.outdir, "report.json")])
+    from timingkit.pipeline.glitch_run import GLITCH_FILE, STARTING_LABEL
+    searched = os.path.exists(os.path.join(args.outdir, GLITCH_FILE))
     plot_residuals(post, prefit=pre, color_by=args.color_by, title=title, frequency_hz=freq,
-                   glitch_epochs_mjd=_fitted_glitch_epochs(args.outdir), path=out)
+                   glitch_epochs_mjd=_fitted_glitch_epochs(args.outdir), path=out,
+                   prefit_label=STARTING_LABEL if searched else "pre-fit")
     return out
 
 

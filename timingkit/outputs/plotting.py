@@ -267,11 +267,12 @@ def _residual_figure(tables_and_titles, x_of, xlabel, color_by, title, frequency
 def plot_residuals(postfit: ResidualTable, prefit: ResidualTable | None = None,
                    color_by: str = "site", title: str | None = None,
                    frequency_hz: float | None = None, path=None, *,
-                   glitch_epochs_mjd=(), figsize=None, dpi: float = 100):
+                   glitch_epochs_mjd=(), figsize=None, dpi: float = 100,
+                   prefit_label: str = "pre-fit"):
     """Residuals against MJD with 1σ error bars.
 
-    With ``prefit``: two stacked panels (pre-fit above, post-fit below, shared
-    MJD axis). ``color_by``: 'site', 'backend', 'freq' (observing bands) or any
+    With ``prefit``: two stacked panels (pre-fit above, titled ``prefit_label``,
+    post-fit below, shared MJD axis). ``color_by``: 'site', 'backend', 'freq' (observing bands) or any
     TOA flag name; an unknown name raises InputError listing the legal ones.
     ``frequency_hz``: adds a right-hand axis in pulse cycles to every panel.
     ``glitch_epochs_mjd``: dashed vertical lines (gid ``glitch_epoch``) at the
@@ -280,7 +281,7 @@ def plot_residuals(postfit: ResidualTable, prefit: ResidualTable | None = None,
     """
     panels = [(postfit, "post-fit" if prefit is not None else None)]
     if prefit is not None:
-        panels.insert(0, (prefit, "pre-fit"))
+        panels.insert(0, (prefit, prefit_label))
     epochs = [float(e) for e in glitch_epochs_mjd]
     figure = _residual_figure(panels, lambda t: t.mjd, "MJD (days)", color_by, title,
                               frequency_hz, figsize, dpi, glitch_epochs_mjd=epochs)

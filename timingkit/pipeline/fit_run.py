@@ -77,15 +77,20 @@ def _stage_bar(progress: bool, description: str):
 
 def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir: str,
                       make_plots: bool = True, color_by: str = "site", *, selection=None,
-                      kept_obs: Observations | None = None, reference=None) -> None:
+                      kept_obs: Observations | None = None, reference=None,
+                      starting=None, prefit_label: str = "pre-fit") -> None:
     """The outputs of a fit, written into ``outdir`` (callers pass the work folder of an
     output set, so the files appear together or not at all). With ``selection`` (pipeline.left_out) the residual
     tables and figures also show the left-out TOAs, marked; ``kept_obs``: the
-    TOAs the selection kept, when the fit used only part of them (``obs``)."""
+    TOAs the selection kept, when the fit used only part of them (``obs``).
+    ``starting``: (model, ResidualSet on ``obs``) shown as the pre-fit residuals
+    (prefit_residuals.csv and the upper panel, titled ``prefit_label``) instead of
+    those of the model the last fit started from (the glitch search: the user's model)."""
     os.makedirs(outdir, exist_ok=True)
+    pre_model, pre_res = starting or (result.prefit_model, result.prefit)
     post, pre = full_tables([(residual_table(obs, result.postfit), result.model, result.postfit),
-                             (residual_table(obs, result.prefit), result.prefit_model,
-                              result.prefit)], obs, selection, kept_obs or obs, reference)
+                             (residual_table(obs, pre_res), pre_model, pre_res)],
+                            obs, selection, kept_obs or obs, reference)
     result.model.write(os.path.join(outdir, "fitted.toml"), comment=_fitted_comment(report))
     post.converged = bool(report["converged"])     # a fit_status column when it is not
     post.write_csv(os.path.join(outdir, "residuals.csv"))
@@ -94,7 +99,7 @@ def write_fit_outputs(result: FitResult, obs: Observations, report: dict, outdir
         from timingkit.outputs.plotting import plot_residuals
         red = result.noise is not None and result.noise.red_realisation_s is not None
         path = os.path.join(outdir, "residuals.png")
-        fig = plot_residuals(post, prefit=pre, color_by=color_by,
+        fig = plot_residuals(post, prefit=pre, color_by=color_by, prefit_label=prefit_label,
                              title=f"{report['source']}: {report['toas']} TOAs"
                              + ("" if report["converged"] else f" ({NOT_CONVERGED_MARK})"),
                              frequency_hz=result.model.spin.frequency.value,

@@ -6,7 +6,9 @@ starting model with the glitches added and everything fitted),
 ``glitch_search.png`` (residuals before the glitch terms, the local
 frequency track with the candidate epochs, the frequency-derivative track),
 and the files of a fit (residuals.csv, prefit_residuals.csv,
-residuals.png, report.json with ``glitch_candidates``). :func:`glitch_files`
+residuals.png, report.json with ``glitch_candidates``); the pre-fit residuals
+(prefit_residuals.csv, the upper panel of residuals.png, ``prefit_rms_us``) are
+those of the model as given, before the search added its glitch terms. :func:`glitch_files`
 takes the same arguments as :func:`timingkit.pipeline.fit_files`, so the
 batch runner can use it as its fit function.
 """
@@ -29,6 +31,20 @@ GLITCH_FILE = "glitches.json"
 
 
 FIGURE_FILE = "glitch_search.png"
+
+
+STARTING_LABEL = "pre-fit: model as given, before the search"
+
+
+def starting_residuals(model, obs, reference=None):
+    """ResidualSet of the user's model, unfitted, on ``obs`` (the TOAs the final fit
+    used), numbered as a fit of that model would number them (the table's pulse
+    column when there is one, else the model's nearest pulses): the pre-fit residuals
+    of a glitch run, not those of the last fit, whose model already has the glitches."""
+    from timingkit.fit.least_squares import compute_residuals, pulse_numbers_from_table
+    ev = model.evaluate(obs, reference)
+    return compute_residuals(model, obs, pulse_numbers_from_table(obs, ev), reference,
+                             evaluation=ev)
 
 
 def glitch_report(result: GlitchSearchResult) -> dict:
@@ -80,6 +96,8 @@ def glitch_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=
                        "fitted: " + "; ".join(result.warnings))
     report = glitch_report(result)
     report.update(selection_entry(inputs.selection))
+    starting = (inputs.model, starting_residuals(inputs.model, result.obs, inputs.reference))
+    report["prefit_rms_us"] = starting[1].rms_us()
     with output_set(outdir, inputs=inputs.paths) as work:
         write_json(os.path.join(work, GLITCH_FILE), result.to_json())
         if make_plots:
@@ -88,5 +106,6 @@ def glitch_files(toas_path, model_path, outdir, *, free=(), fix=(), sites_paths=
                                       "(frequency relative to the fitted spin-down)")
         write_fit_outputs(result.fit, result.obs, report, str(work), make_plots, color_by,
                           selection=inputs.selection, kept_obs=inputs.obs,
-                          reference=inputs.reference)
+                          reference=inputs.reference, starting=starting,
+                          prefit_label=STARTING_LABEL)
     return report
