@@ -51,6 +51,17 @@ def test_demo_runs_end_to_end_and_recovers_the_true_models(tmp_path):
     assert len((events / "events.toas").read_text().splitlines()) == 2 + 20
     line = [l for l in res.stdout.splitlines() if l.startswith("event loop")][0]
     assert abs(float(line.split("spin.frequency_hz ")[1].split()[0])) < 4
+    # each loop was written as one set: marked, no work folder left, and what the fold
+    # recorded names the folder the files are in, not the work folder they were made in
+    assert (loop / ".timingkit-output").is_file() and (events / ".timingkit-output").is_file()
+    assert not [n for n in os.listdir(out) if n.startswith((".tmp-", ".old-"))]
+    folded = json.loads((events / "folded" / "events_report.json").read_text())
+    assert folded["events_file"] == str(events / "events.fits")
+    assert folded["settings"]["observer"]["orbit_file"] == str(events / "orbit.txt")
+    from astropy.io import fits
+    with fits.open(events / "folded" / "phases.fits") as hdus:
+        history = "".join(str(h) for hdu in hdus for h in hdu.header.get("HISTORY", []))
+    assert f"orbit {events / 'orbit.txt'})" in history and ".tmp-" not in history
     for name in SOURCES:
         folder = out / name
         for f in ("fitted.toml", "residuals.csv", "residuals.png", "report.json"):
@@ -73,6 +84,42 @@ def test_demo_runs_end_to_end_and_recovers_the_true_models(tmp_path):
         for key in ("period_s", "period_derivative", "characteristic_age_yr",
                     "surface_dipole_field_gauss", "spin_down_luminosity_erg_per_s"):
             assert report["derived"][key]["value"] > 0
+
+
+def test_demo_loops_are_written_as_one_set(tmp_path):
+    from timingkit.cli.demo import run_demo, write_loop
+    from timingkit.formats.errors import InputError
+    final = tmp_path / "demo" / "profile-loop"
+
+    def failing(data, outdir, shown=None):
+        (tmp_path / "demo" / "seen").write_text(outdir)
+        open(os.path.join(outdir, "obs-01.npz"), "wb").close()
+        raise RuntimeError("disk full (simulated)")
+
+    def writing(data, outdir, shown=None):
+        open(os.path.join(outdir, "template.npz"), "wb").close()
+
+    (tmp_path / "demo").mkdir()
+    with pytest.raises(RuntimeError):             # a failure leaves nothing half-written
+        write_loop(failing, SAMPLE, str(final))
+    assert not final.exists()
+    assert (tmp_path / "demo" / "seen").read_text() != str(final)   # written elsewhere first
+    assert sorted(os.listdir(tmp_path / "demo")) == ["seen"]
+    write_loop(writing, SAMPLE, str(final))
+    (final / "stale.npz").write_bytes(b"x")
+    write_loop(writing, SAMPLE, str(final))       # a rerun replaces the whole set
+    assert sorted(os.listdir(final)) == [".timingkit-output", "template.npz"]
+    with pytest.raises(RuntimeError):             # ... and a failed rerun keeps the old one
+        write_loop(failing, SAMPLE, str(final))
+    assert sorted(os.listdir(final)) == [".timingkit-output", "template.npz"]
+    # a folder of the user's own is never written over, and is refused before the fits
+    own = tmp_path / "mine"
+    (own / "event-loop").mkdir(parents=True)
+    (own / "event-loop" / "notes.txt").write_text("mine")
+    with pytest.raises(InputError, match="files timingkit did not write"):
+        run_demo(str(own))
+    assert sorted(os.listdir(own)) == ["event-loop"]
+    assert os.listdir(own / "event-loop") == ["notes.txt"]
 
 
 def test_fit_residuals_plot_derive_barycentre_simulate(data, tmp_path, capsys):

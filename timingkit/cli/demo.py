@@ -1,6 +1,8 @@
 """``timingkit demo``: fit the three invented sample sources end to end, then show
 the loop predictor -> folded profiles -> TOAs -> fit on invented data, and the
-same for photon events (simulated events -> fold and test -> event TOAs -> fit)."""
+same for photon events (simulated events -> fold and test -> event TOAs -> fit).
+Each of the five folders of OUTDIR is written as one set (timingkit.outputs.output_set):
+complete or not there, replaced by a rerun, never written over a user's own folder."""
 
 from __future__ import annotations
 
@@ -20,6 +22,7 @@ def sample_data_dir() -> str:
 def run_demo(outdir: str) -> int:
     from tqdm import tqdm
 
+    from timingkit.outputs.output_set import check_before_writing
     from timingkit.pipeline.fit_run import fit_files
     from timingkit.outputs.report import summary_text
 
@@ -28,6 +31,9 @@ def run_demo(outdir: str) -> int:
     if missing:
         raise InputError(f"sample data missing for {', '.join(missing)} "
                          "(regenerate with scripts/make_sample_data.py)", path=data)
+    loops = {"profile-loop": profile_loop, "event-loop": event_loop}
+    for name in SAMPLE_SOURCES + tuple(loops):     # refused before minutes of work, not after
+        check_before_writing(os.path.join(outdir, name))
     print("timingkit demo: fitting three invented pulsars observed at invented sites\n")
     reports = []
     for name in tqdm(SAMPLE_SOURCES, desc="fitting", unit="source", disable=None, leave=False):
@@ -38,10 +44,18 @@ def run_demo(outdir: str) -> int:
         print(summary_text(rep))
         print(f"  -> {os.path.join(outdir, name)}/ (fitted.toml, residuals.csv, residuals.png, "
               "report.json)\n")
-    profile_loop(data, os.path.join(outdir, "profile-loop"))
-    event_loop(data, os.path.join(outdir, "event-loop"))
+    for name, loop in loops.items():
+        write_loop(loop, data, os.path.join(outdir, name))
     print(f"demo done: reports and plots are in {os.path.abspath(outdir)}")
     return 0
+
+
+def write_loop(loop, data: str, final: str) -> None:
+    """Run ``loop`` (:func:`profile_loop`, :func:`event_loop`) into the work folder of an
+    output set that becomes ``final`` once the loop has finished (timingkit.outputs.output_set)."""
+    from timingkit.outputs.output_set import output_set
+    with output_set(final, purpose=f"timingkit demo: {os.path.basename(final)}") as work:
+        loop(data, str(work), shown=final)
 
 
 LOOP_SOURCE = "demo-msp"
@@ -49,10 +63,12 @@ LOOP_SITE = "desert-dish"
 LOOP_FREE = ("spin.frequency_hz", "dispersion.dm")
 
 
-def profile_loop(data: str, outdir: str) -> None:
+def profile_loop(data: str, outdir: str, shown: str | None = None) -> None:
     """Both ends of an observation on invented data: a predictor from a slightly
     wrong model folds simulated observations of the sample MSP; their profiles
-    give TOAs (auto template); a fit from the wrong model recovers the true one."""
+    give TOAs (auto template); a fit from the wrong model recovers the true one.
+    Writes into ``outdir``; ``shown``: the folder named in the printed lines
+    (the final one, when ``outdir`` is the work folder of an output set)."""
     from timingkit.fit.least_squares import fit
     from timingkit.formats.profile_file import write_profile_file, write_template_file
     from timingkit.formats.toa_writer import write_toa_table
@@ -93,17 +109,18 @@ def profile_loop(data: str, outdir: str) -> None:
         off = ((p.value - q.value) + (p.value_lo - q.value_lo)) / p.uncertainty
         start = ((w.value - q.value) + (w.value_lo - q.value_lo)) / p.uncertainty
         print(f"  {name}: {start:+.0f} sigma from the truth before, {off:+.1f} sigma after")
-    print(f"  -> {outdir}/ (obs-*.npz, template.npz, profile.toas)\n")
+    print(f"  -> {shown or outdir}/ (obs-*.npz, template.npz, profile.toas)\n")
 
 
 EVENT_SOURCE = "demo-young"
 
 
-def event_loop(data: str, outdir: str) -> None:
+def event_loop(data: str, outdir: str, shown: str | None = None) -> None:
     """Photon events on invented data: two days of events of the sample young
     pulsar seen from an invented spacecraft in a 550 km orbit, folded and
     tested (``timingkit events``), timed in 0.1-day chunks with a model off by
-    5e-8 Hz (``event-toas``) and fitted back."""
+    5e-8 Hz (``event-toas``) and fitted back. ``outdir``, ``shown``: as for
+    :func:`profile_loop`."""
     from timingkit.events.simulate import circular_orbit
     from timingkit.formats.orbit_table import write_orbit_text
     from timingkit.pipeline.event_run import event_toa_files, fold_event_files, simulate_event_file
@@ -138,7 +155,41 @@ def event_loop(data: str, outdir: str) -> None:
           f"pulsed fraction {pf['value']:.3f} ± {pf['uncertainty']:.3f} -> {facts['toas']} event "
           f"TOAs from a model off by 5e-8 Hz (median error {facts['median_err_us']:.0f} µs) -> "
           f"fit: spin.frequency_hz {off:+.1f} sigma from the truth")
-    print(f"  -> {outdir}/ (events.fits, orbit.txt, folded/, events.toas, fit/)\n")
+    if shown is not None:
+        _name_final_folder(os.path.join(outdir, "folded"), outdir, shown)
+    print(f"  -> {shown or outdir}/ (events.fits, orbit.txt, folded/, events.toas, fit/)\n")
+
+
+FITS_CARD_TEXT = 72       # characters of text per HISTORY card (FITS standard 4.0, 4.4.2.4)
+
+
+def _name_final_folder(folded: str, work: str, final: str) -> None:
+    """The fold read its inputs in the work folder ``work`` of the output set and recorded
+    their paths (``events_report.json``; the HISTORY of ``phases.fits``, which astropy
+    splits into cards of FITS_CARD_TEXT characters): name ``final``, where they will be
+    once the set is in place, instead."""
+    import json
+
+    from astropy.io import fits
+
+    from timingkit.outputs.report import write_json
+    report_path = os.path.join(folded, "events_report.json")
+    with open(report_path, encoding="utf-8") as fh:
+        text = fh.read()
+    write_json(report_path, json.loads(text.replace(json.dumps(work)[1:-1],
+                                                    json.dumps(final)[1:-1])))
+    with fits.open(os.path.join(folded, "phases.fits"), mode="update") as hdus:
+        for hdu in hdus:
+            entries, current = [], ""
+            for piece in hdu.header.get("HISTORY", []):
+                current += str(piece)
+                if len(str(piece)) < FITS_CARD_TEXT:       # the last card of an entry
+                    entries, current = entries + [current], ""
+            entries += [current] if current else []
+            if any(work in entry for entry in entries):
+                hdu.header.remove("HISTORY", remove_all=True)
+                for entry in entries:
+                    hdu.header.add_history(entry.replace(work, final))
 
 
 def add_parsers(sub) -> None:
