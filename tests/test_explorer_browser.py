@@ -296,14 +296,41 @@ def test_glitch_search_page_draws_the_candidate(browser, tmp_path, sites, epheme
         assert len(epoch) == 1 and epoch[0] == pytest.approx(candidate["epoch_mjd"], abs=1e-6)
         assert [candidate["epoch_min_mjd"], candidate["epoch_max_mjd"]] in page.page.evaluate(
             shown, "BoxAnnotation")
-        labels = page.page.evaluate("Array.from(" + marks + ").filter(m => m.type === 'Label' "
-                                    "&& m.visible).map(m => m.text)")
-        assert labels == ["glitch 1 (model; search candidate 1, FAP < 0.005)"]
+        # its label stands above the data area (covering no TOA), centred on the line, the
+        # long form on hover and in the key; after a resize it follows the line
+        for width, height in ((1200, 800), (900, 640)):
+            page.page.set_viewport_size({"width": width, "height": height})
+            page.settle()
+            page.settle()
+            (label,) = _epoch_labels(page)
+            f = page.frame()
+            assert label["text"] == "glitch 1"
+            assert label["title"].startswith("glitch 1 (model; search candidate 1, FAP < 0.005)")
+            assert label["bottom"] <= f["top"] and label["top"] >= f["top"] - 30
+            line_x, _ = page.to_screen(epoch[0], 0.0)
+            assert (label["left"] + label["right"]) / 2 == pytest.approx(line_x, abs=1.5)
+        assert "glitch 1 (model; search candidate 1, FAP < 0.005)" in page.page.inner_text(
+            "#tk-key")
+        page.page.click("button[data-tool=zoom]")   # zoomed to a part without the epoch:
+        page.box_between(58000.0, 58300.0)          # no label left over the margin
+        assert page.frame()["x"][1] < epoch[0] and _epoch_labels(page) == []
+        page.page.click("#tk-fit-view")
+        page.settle()
+        assert len(_epoch_labels(page)) == 1
         page.choose("tk-x", "freq")          # epochs mean nothing against frequency
         assert not [x for d, x in page.page.evaluate(shown, "Span") if d == "height"]
+        assert _epoch_labels(page) == []
         assert page.errors == []
     finally:
         page.close()
+
+
+def _epoch_labels(page) -> list[dict]:
+    """The epoch labels on the page: text, hover text and box in page pixels."""
+    return page.page.evaluate(
+        "Array.from(document.querySelectorAll('#tk-epoch-labels .tk-epoch-label')).map(e => {"
+        " const b = e.getBoundingClientRect(); return {text: e.textContent, title: e.title,"
+        " left: b.left, right: b.right, top: b.top, bottom: b.bottom}; })")
 
 
 def test_a_flag_with_more_values_than_16_bits_hold(browser, tmp_path):

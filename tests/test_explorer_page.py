@@ -92,13 +92,13 @@ def test_glitch_marks_come_from_the_model_and_the_search(tmp_path, fitted):
              "false_alarm_probability_upper_limit": True}]}))
     marks = explorer_data(str(tmp_path))["epochs"]
     assert marks == [
-        {"kind": "model", "mjd": 59100.25, "low": 59099.0, "high": 59101.0,
+        {"kind": "model", "mjd": 59100.25, "low": 59099.0, "high": 59101.0, "short": "glitch 1",
          "label": "glitch 1 (model; search candidate 1, FAP < 1/1000)"},
-        {"kind": "model", "mjd": 59800.5, "label": "glitch 2 (model)"},
+        {"kind": "model", "mjd": 59800.5, "short": "glitch 2", "label": "glitch 2 (model)"},
         {"kind": "candidate", "mjd": 59500.0, "low": 59490.0, "high": 59510.0,
-         "label": "search candidate 2, FAP 0.012"},
+         "short": "candidate 2", "label": "search candidate 2, FAP 0.012"},
         {"kind": "candidate", "mjd": 59600.0, "low": None, "high": None,
-         "label": "search candidate 3, FAP < 0.001"}]
+         "short": "candidate 3", "label": "search candidate 3, FAP < 0.001"}]
     assert "prefit_residuals.csv" not in os.listdir(tmp_path)
     assert "pre_us" not in explorer_data(str(tmp_path))["columns"]
 

@@ -79,8 +79,9 @@ def _model_glitch_epochs(outdir: str) -> list[float]:
 
 def _epochs(outdir: str, glitches: dict | None) -> list[dict]:
     """The model's glitch epochs and the glitch search's candidates (MJD); a
-    candidate that became a glitch of the fitted model shares its mark."""
-    marks = [{"kind": "model", "mjd": mjd, "label": f"glitch {k} (model)"}
+    candidate that became a glitch of the fitted model shares its mark. ``short``:
+    the text above the plot, ``label``: the long form, in the key below it."""
+    marks = [{"kind": "model", "mjd": mjd, "short": f"glitch {k}", "label": f"glitch {k} (model)"}
              for k, mjd in enumerate(_model_glitch_epochs(outdir), 1)]
     trials = ((glitches or {}).get("settings") or {}).get("null_trials")
     for k, c in enumerate((glitches or {}).get("candidates", []), 1):
@@ -95,7 +96,7 @@ def _epochs(outdir: str, glitches: dict | None) -> list[dict]:
                                                f"{k}{shown})")
         else:
             marks.append({"kind": "candidate", "mjd": float(c["epoch_mjd"]), **bracket,
-                          "label": f"search candidate {k}{shown}"})
+                          "short": f"candidate {k}", "label": f"search candidate {k}{shown}"})
     return marks
 
 
@@ -154,7 +155,7 @@ def _plot_document(data: dict):
     from bokeh.embed import components
     from bokeh.events import DocumentReady, RangesUpdate, SelectionGeometry
     from bokeh.models import (BoxAnnotation, BoxSelectTool, BoxZoomTool, ColumnDataSource,
-                              CustomJS, HoverTool, Label, LassoSelectTool, PanTool, Range1d,
+                              CustomJS, HoverTool, LassoSelectTool, PanTool, Range1d,
                               Span, WheelZoomTool)
     from bokeh.plotting import figure
 
@@ -163,7 +164,8 @@ def _plot_document(data: dict):
     plot = figure(output_backend="webgl", sizing_mode="stretch_both", toolbar_location=None,
                   x_range=Range1d(0, 1), y_range=Range1d(-1, 1), name="residual_plot",
                   background_fill_color="#fbfaf6", border_fill_color="#fbfaf6",
-                  outline_line_color="#c9c2b2", min_border_left=70, min_border_bottom=50)
+                  outline_line_color="#c9c2b2", min_border_left=70, min_border_bottom=50,
+                  min_border_top=22 if data["epochs"] else 10)
     plot.grid.grid_line_color = "#e6e0d4"
     for axis in (plot.xaxis[0], plot.yaxis[0]):
         axis.axis_line_color = axis.major_tick_line_color = "#8a8272"
@@ -185,17 +187,13 @@ def _plot_document(data: dict):
         colour = "#8c2d04" if mark["kind"] == "model" else "#3f007d"
         line = Span(location=mark["mjd"], dimension="height", line_color=colour, line_width=2,
                     line_dash="solid" if mark["kind"] == "model" else "dashed")
-        label = Label(x=mark["mjd"], y=8, y_units="screen", text=mark["label"], text_font_size="11px",
-                      text_color=colour, angle=1.5708, x_offset=-4, text_baseline="bottom",
-                      background_fill_color="#fbfaf6", background_fill_alpha=0.75)
         band = None
         if mark.get("low") is not None and mark.get("high") is not None:
             band = BoxAnnotation(left=mark["low"], right=mark["high"], fill_color=colour,
                                  fill_alpha=0.08, line_color=None)
             plot.add_layout(band)
         plot.add_layout(line)
-        plot.add_layout(label)
-        marks.append([line, label, band])
+        marks.append([line, band])       # the labels are the page's, above the plot (explorer.js)
     tools = {"pan": PanTool(), "zoom": BoxZoomTool(), "box": BoxSelectTool(renderers=[points]),
              "lasso": LassoSelectTool(renderers=[points]), "wheel": WheelZoomTool()}
     hover = HoverTool(renderers=[points], tooltips=None,

@@ -140,7 +140,7 @@
     bk.bars.visible = v.bars;
     bk.marks.forEach(function (m) {
       var show = v.epochs && v.x === 'mjd';
-      m[0].visible = show; m[1].visible = show; if (m[2]) m[2].visible = show;
+      m[0].visible = show; if (m[1]) m[1].visible = show;
     });
     if (refit) {
       var xr = v.x === 'orbit' ? extent(x, 0, 1) : v.x === 'doy' ? extent(x, 1, 367) : extent(x);
@@ -149,7 +149,29 @@
       bk.plot.y_range.setv({start: yr[0], end: yr[1]});
     }
     publish();
+    placeEpochLabels();
     drawKey(v);
+  }
+
+  /* The epoch labels: short texts in the margin just above the data area, where they
+     cover no TOA (a label drawn by the plot is clipped to the data area), with the long
+     form on hover and in the key. Labels of epochs outside the view are not shown. */
+  function placeEpochLabels() {
+    var layer = byId('tk-epoch-labels'), v = view(), f = frame();
+    var host = byId('tk-plot-host').getBoundingClientRect();
+    var lo = Math.min(f.x[0], f.x[1]), hi = Math.max(f.x[0], f.x[1]);
+    layer.textContent = '';
+    if (!(v.epochs && v.x === 'mjd')) return;
+    data.epochs.forEach(function (mark) {
+      if (!(mark.mjd >= lo && mark.mjd <= hi)) return;
+      var label = document.createElement('span');
+      label.className = 'tk-epoch-label tk-' + mark.kind;
+      label.textContent = mark.short;
+      label.title = mark.label + ' at MJD ' + number(mark.mjd);
+      label.style.left = (f.left - host.left + (mark.mjd - f.x[0]) / (f.x[1] - f.x[0]) * f.width) + 'px';
+      label.style.top = (f.top - host.top) + 'px';
+      layer.appendChild(label);
+    });
   }
 
   function plotView() {
@@ -201,6 +223,7 @@
   }
 
   function viewChanged() {
+    if (ready) placeEpochLabels();
     if (!ready || data.n <= data.thinAbove) return;
     clearTimeout(thinTimer);
     thinTimer = setTimeout(publish, 120);
@@ -214,6 +237,12 @@
     });
     html.push('<span class="tk-hollow" style="--ring:' + LEFT_IN_FIT + '">left out in the fit</span>');
     html.push('<span class="tk-hollow" style="--ring:' + LEFT_HERE + '">marked here</span>');
+    if (v.epochs && v.x === 'mjd') {
+      data.epochs.forEach(function (mark) {
+        html.push('<span class="tk-epoch tk-' + mark.kind + '">' + escapeHtml(mark.label) +
+                  ' at MJD ' + number(mark.mjd) + '</span>');
+      });
+    }
     key.innerHTML = html.join('');
   }
 
@@ -484,6 +513,11 @@
     redraw(true);
     ledger();
     ready = true;
+    if (window.ResizeObserver) {     /* the data area moves with the window: so do the labels */
+      new ResizeObserver(function () {
+        requestAnimationFrame(function () { requestAnimationFrame(placeEpochLabels); });
+      }).observe(byId('tk-plot-host'));
+    }
     requestAnimationFrame(noFocusRing);
     document.body.setAttribute('data-explorer', 'ready');
   }
