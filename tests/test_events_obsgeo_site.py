@@ -118,6 +118,30 @@ def test_no_observatory_name_keeps_obsgeo_quietly(inputs):
     assert not any("OBSGEO" in w or "OBSERVAT" in w for w in report["warnings"])
 
 
+def test_named_site_without_obsgeo_is_used_not_the_geocentre(inputs):
+    # a locally timed list naming a known site but giving no OBSGEO: timed at the
+    # site (position and clock table), as with --site, not at the geocentre with
+    # the low-orbit warning
+    folder, model = inputs
+    keywords = {**UTC_KEYWORDS, "OBSERVAT": "Dune"}
+    events = ogip_events(folder / "named.fits", np.linspace(10.0, 40000.0, 400), keywords,
+                         gti=[[0.0, 40010.0]])
+    outs = {}
+    for label, extra in (("named-out", []), ("given-out", ["--site", "dune-array"])):
+        out = folder / label
+        assert main(["events", str(events), str(model), *extra, "--no-plot", "-o",
+                     str(out)]) == 0
+        with fits.open(out / "phases.fits") as hdus:
+            outs[label] = (json.loads((out / "events_report.json").read_text()),
+                           np.array(hdus["EVENTS"].data["PHASE"], dtype=float))
+    report, phase = outs["named-out"]
+    observer = report["settings"]["observer"]
+    assert observer["site"] == "dune-array" and "OBSERVAT = 'Dune'" in observer["note"]
+    assert "clock.txt" in report["settings"]["clock"]
+    assert not any("geocentre" in w for w in report["warnings"])
+    assert np.array_equal(phase, outs["given-out"][1])
+
+
 def test_simulate_events_profile_comma_list_before_model(inputs, tmp_path):
     folder, model = inputs
     out = tmp_path / "two.fits"

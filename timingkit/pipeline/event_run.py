@@ -25,7 +25,7 @@ from timingkit.geometry.sites import SiteTable
 from timingkit.model.timing_model import TimingModel
 from timingkit.numerics.timearray import SECONDS_PER_DAY, SplitTime
 from timingkit.outputs.folder_lock import lock_output, refuse_if_locked
-from timingkit.pipeline.obsgeo_site import obsgeo_observer
+from timingkit.pipeline.obsgeo_site import named_site_observer, obsgeo_observer
 from timingkit.pipeline.inputs import (input_paths, load_context, load_model,
                                        reference_observations)
 
@@ -92,6 +92,9 @@ def resolve_observer(events: EventList, site_name: str | None, orbit_path: str |
                          field="site")
     if events.observer_itrf_m is not None:
         return obsgeo_observer(events, sites, clocks)
+    named = named_site_observer(events, sites, clocks)
+    if named is not None:
+        return named, warnings, None
     warnings.append(LOW_ORBIT_WARNING)
     return Observer("geocentre", events.scale, sites=sites,
                     description="no orbit or site given: geocentre assumed"), warnings, None

@@ -8,7 +8,8 @@ that site's position, the events are timed at the site: its own name, its
 site-file position and its clock tables. When they lie farther apart the
 file's OBSGEO position is kept (under the name ``obsgeo``, with no clock table)
 and a warning names both and the distance. Without a known name OBSGEO is used
-as before.
+as before. A locally timed list without OBSGEO that names a known site is
+timed at that site (:func:`named_site_observer`), not at the geocentre.
 """
 
 from __future__ import annotations
@@ -28,7 +29,7 @@ from timingkit.geometry.sites import SiteTable
 OBSGEO_TOLERANCE_M = 100.0
 
 
-def _named_site(events: EventList, sites: SiteTable):
+def named_site(events: EventList, sites: SiteTable):
     """(keyword, value, site) of the first OBSERVAT/TELESCOP value that is a known
     ground site, or None."""
     for keyword, value in events.observatory_names:
@@ -46,7 +47,7 @@ def obsgeo_observer(events: EventList, sites: SiteTable, clocks
     xyz = np.asarray(events.observer_itrf_m, dtype=float)
     check = {"obsgeo_itrf_m": [float(v) for v in xyz], "tolerance_m": OBSGEO_TOLERANCE_M,
              "named_by": None}
-    named = _named_site(events, sites)
+    named = named_site(events, sites)
     if named is not None:
         keyword, value, site = named
         distance_m = float(np.linalg.norm(np.asarray(site.geocentric_itrf_m) - xyz))
@@ -71,3 +72,17 @@ def obsgeo_observer(events: EventList, sites: SiteTable, clocks
     return Observer("earth", events.scale, site=own, sites=SiteTable([*BUILTIN_SITES, own]),
                     clocks=list(clocks),
                     description="position from the file's OBSGEO-X/Y/Z keywords"), warnings, check
+
+
+def named_site_observer(events: EventList, sites: SiteTable, clocks) -> Observer | None:
+    """For a locally timed list without OBSGEO-X/Y/Z: the known ground site that
+    OBSERVAT/TELESCOP names (its position and clock tables), or None."""
+    named = named_site(events, sites)
+    if named is None:
+        return None
+    keyword, value, site = named
+    note = (f"site {site.name}, named by {keyword} = '{value}' (the file gives no "
+            f"OBSGEO-X/Y/Z): the site's position ({site.coordinates_from or 'site file'}) "
+            "and clock tables are used")
+    return Observer("earth", events.scale, site=site, sites=sites, clocks=list(clocks),
+                    description=note)
