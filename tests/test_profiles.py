@@ -177,15 +177,22 @@ def test_the_whole_loop_recovers_the_true_model(sites, ephemeris):
             assert abs(start) > 20 * p.uncertainty        # the folding model was far off
 
 
-def test_profile_commands(tmp_path, capsys):
+def _simulated_profiles(tmp_path, end_mjd: str, count: int, options: list[str]):
+    """simulate-profiles of the sample slow source (a copy of the sample folder)
+    at desert-dish from MJD 60000; returns the copy, the output folder and the
+    profile files."""
     data = tmp_path / "data"
     shutil.copytree(SAMPLE, data)
     sim = tmp_path / "sim"
     assert main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
-                 "--start", "60000", "--end", "60010", "--count", "5", "--freq-mhz", "350,1400",
-                 "--channels", "3", "--bins", "128", "--snr", "50", "--seed", "2",
-                 "-o", str(sim)]) == 0
-    files = sorted(str(p) for p in sim.glob("obs-*.npz"))
+                 "--start", "60000", "--end", end_mjd, "--count", str(count), "--bins", "128",
+                 *options, "-o", str(sim)]) == 0
+    return data, sim, sorted(str(p) for p in sim.glob("obs-*.npz"))
+
+
+def test_profile_commands(tmp_path, capsys):
+    data, sim, files = _simulated_profiles(tmp_path, "60010", 5, [
+        "--freq-mhz", "350,1400", "--channels", "3", "--snr", "50", "--seed", "2"])
     assert len(files) == 5 and (sim / "template.npz").exists()
     out = tmp_path / "prof.toas"
     assert main(["profile-toas", *files, "--template", "auto", "-o", str(out)]) == 0
@@ -263,13 +270,7 @@ def test_profile_toas_carry_the_flags_given(tmp_path, capsys):
     # [[time_offset]] group of the model can take them; names profile-toas sets
     # itself, or the TOA table's own columns, are refused naming the option.
     from timingkit.formats.toa_reader import read_toa_table
-    data = tmp_path / "data"
-    shutil.copytree(SAMPLE, data)
-    sim = tmp_path / "sim"
-    assert main(["simulate-profiles", str(data / "demo-slow.toml"), "--site", "desert-dish",
-                 "--start", "60000", "--end", "60004", "--count", "3", "--bins", "128",
-                 "--snr", "60", "--seed", "4", "-o", str(sim)]) == 0
-    files = sorted(str(p) for p in sim.glob("obs-*.npz"))
+    _, sim, files = _simulated_profiles(tmp_path, "60004", 3, ["--snr", "60", "--seed", "4"])
     out = tmp_path / "flagged.toas"
     assert main(["profile-toas", *files, "--template", str(sim / "template.npz"),
                  "--flag", "backend=wide-b", "--flag", "receiver=low", "-o", str(out)]) == 0
