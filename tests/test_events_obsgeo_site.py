@@ -105,6 +105,10 @@ def test_named_site_too_far_keeps_obsgeo_and_warns(inputs, capsys):
     (warning,) = [w for w in report["warnings"] if "OBSGEO" in w]
     assert "OBSERVAT = 'dune'" in warning and "site dune-array" in warning
     assert "5.000 km" in warning and "--site dune-array" in warning
+    # the generic advice (a clock table in settings.clock) cannot be followed for
+    # the OBSGEO position: the warning says how a clock table can apply instead
+    (clock,) = [w for w in report["warnings"] if "no clock corrections" in w]
+    assert "settings.clock" not in clock and "--site NAME" in clock
     assert "5.000 km" in capsys.readouterr().out
 
 

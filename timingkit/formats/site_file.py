@@ -52,13 +52,15 @@ class Site:
 
     ``geocentric_itrf_m``: ITRF geocentric x, y, z in metres (zeros for the
     geocentre, None for the ssb). ``coordinates_from`` says where the coordinates come
-    from and how accurate they are.
+    from and how accurate they are. ``clock_advice``: what to do when no clock
+    table applies (empty: supply one in settings.clock).
     """
     name: str
     kind: str
     geocentric_itrf_m: np.ndarray | None
     other_names: tuple[str, ...] = ()
     coordinates_from: str = ""
+    clock_advice: str = ""
 
     def __post_init__(self):
         if self.kind not in SITE_KINDS:

@@ -121,9 +121,9 @@ def prepare_observations(toas: ToaTable, sites: SiteTable, ephemeris: Ephemeris,
             tdb_day[idx], tdb_frac[idx], offset_s[idx] = tdb.day, tdb.frac, delta
         else:
             if not any(table.applies_to(site.name) for table in clock_tables):
+                advice = site.clock_advice or "supply a clock table for it in settings.clock"
                 warnings.append(f"no clock corrections for site {site.name}: its clock is taken "
-                                "as UTC (errors of up to µs possible; supply a clock table for it "
-                                "in settings.clock)")
+                                f"as UTC (errors of up to µs possible; {advice})")
             for table in clock_tables:
                 if table.applies_to(site.name):
                     clock_s, warn = table.offset_s(given.mjd, site.name)

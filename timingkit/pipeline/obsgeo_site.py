@@ -60,7 +60,9 @@ def obsgeo_observer(events: EventList, sites: SiteTable, clocks
                     "clock tables are used")
             return Observer("earth", events.scale, site=site, sites=sites, clocks=list(clocks),
                             description=note), [], check
-    own = Site("obsgeo", "earth", xyz, (), f"OBSGEO-X/Y/Z keywords of {events.path}")
+    own = Site("obsgeo", "earth", xyz, (), f"OBSGEO-X/Y/Z keywords of {events.path}",
+               clock_advice="a clock table applies only at a named site: time the events at "
+                            "one with --site NAME")
     check["used"] = "the OBSGEO-X/Y/Z position (observer 'obsgeo', no clock table)"
     warnings = []
     if named is not None:
