@@ -10,8 +10,8 @@ from timingkit.physics import binary as dbin
 from timingkit.physics.binary_report import extra_report_sections
 
 DISTANCE_KPC, DISTANCE_ERR_KPC = 1.2, 0.05
-PB_DAYS = 0.38
-PBDOT, PBDOT_ERR = -2.0e-14, 1.0e-16
+ORBITAL_PERIOD_DAYS = 0.38
+ORBITAL_PERIOD_DERIVATIVE, ORBITAL_PERIOD_DERIVATIVE_ERR = -2.0e-14, 1.0e-16
 PM_RA, PM_DEC = 3.0, -4.0                       # mas/yr: 5 mas/yr in all
 
 
@@ -40,11 +40,11 @@ epoch_mjd = "59200"
 frequency_hz = "250.0"
 [binary]
 model = "low_eccentricity"
-orbital_period_days = {PB_DAYS}
+orbital_period_days = {ORBITAL_PERIOD_DAYS}
 projected_semi_major_axis_lt_s = 1.1
 ascending_node_epoch_mjd = "59200.1"
-orbital_period_derivative = {PBDOT}
-uncertainty = {{ orbital_period_derivative = {PBDOT_ERR} }}
+orbital_period_derivative = {ORBITAL_PERIOD_DERIVATIVE}
+uncertainty = {{ orbital_period_derivative = {ORBITAL_PERIOD_DERIVATIVE_ERR} }}
 """)
 
 
@@ -59,8 +59,8 @@ def test_intrinsic_orbital_period_derivative_error_is_joint():
     rng = np.random.default_rng(2024)
     n = 40000
     d = rng.normal(DISTANCE_KPC, DISTANCE_ERR_KPC, n)
-    observed = rng.normal(PBDOT, PBDOT_ERR, n)
-    pb = (PB_DAYS * u.day).to(u.s)
+    observed = rng.normal(ORBITAL_PERIOD_DERIVATIVE, ORBITAL_PERIOD_DERIVATIVE_ERR, n)
+    pb = (ORBITAL_PERIOD_DAYS * u.day).to(u.s)
     mu = (np.hypot(PM_RA, PM_DEC) * u.mas / u.yr).to(u.rad / u.s).value / u.s
     # Shklovskii (1970): Pb mu^2 d / c, in astropy units
     shk = (pb * mu ** 2 * (d * u.kpc) / const.c).decompose().value
@@ -71,7 +71,7 @@ def test_intrinsic_orbital_period_derivative_error_is_joint():
     # adding the two terms' errors in quadrature would be far off here
     shk_err = q["orbital_period_derivative_shklovskii"]["uncertainty"]
     gal_err = q["orbital_period_derivative_galactic"]["uncertainty"]
-    quadrature = np.sqrt(shk_err ** 2 + gal_err ** 2 + PBDOT_ERR ** 2)
+    quadrature = np.sqrt(shk_err ** 2 + gal_err ** 2 + ORBITAL_PERIOD_DERIVATIVE_ERR ** 2)
     assert quadrature / simulated > 1.5
 
 

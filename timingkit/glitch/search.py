@@ -173,6 +173,23 @@ def _settle(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse, 
     return res, pulse
 
 
+def _fit_without_if_no_worse(res: FitResult, acc: AcceptedGlitch, obs, reference, pulse,
+                             settings):
+    """(fit, pulses, statistic, dof) without ``acc`` when that fit converges and is
+    not worse by the search threshold (likelihood ratio, chi-square with the
+    glitch's free parameters as degrees of freedom), else None; the statistic is
+    recorded on ``acc`` either way."""
+    trial = fit_without(res, acc.epoch, obs, reference, pulse, settings)
+    if trial is None:
+        return None
+    fitted, _, statistic, dof = trial
+    acc.fit_statistic, acc.fit_dof = statistic, dof
+    if not fitted.converged or statistic >= scipy.stats.chi2.isf(
+            settings.false_alarm_threshold, dof):
+        return None
+    return trial
+
+
 def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, reference, pulse,
                           settings, warnings):
     """Forced glitches (connection lost before the other glitches' decaying terms
@@ -189,16 +206,11 @@ def _drop_unneeded_forced(res: FitResult, found: list[AcceptedGlitch], obs, refe
         step, err = g.frequency_step.value, g.frequency_step.uncertainty
         if not err or abs(step) > FORCED_STEP_Z * err:
             continue
-        trial = fit_without(res, acc.epoch, obs, reference, pulse, settings)
+        trial = _fit_without_if_no_worse(res, acc, obs, reference, pulse, settings)
         if trial is None:
             continue
-        fitted, new_pulse, statistic, dof = trial
-        acc.fit_statistic, acc.fit_dof = statistic, dof
-        if not fitted.converged or statistic >= scipy.stats.chi2.isf(
-                settings.false_alarm_threshold, dof):
-            continue
         found.remove(acc)
-        res, pulse = fitted, new_pulse
+        res, pulse = trial[0], trial[1]
     if not any(a.forced for a in found) and LOST_CONNECTION_WARNING in warnings:
         warnings[:] = [w for w in warnings if w != LOST_CONNECTION_WARNING]
         warnings.append("phase connection was lost in a gap before the decaying terms of the "
@@ -220,14 +232,10 @@ def _drop_insignificant(res: FitResult, found: list[AcceptedGlitch], obs, refere
     for acc in sorted([a for a in found if not (a.forced or a.known or a.steps_checked)
                        and a.epoch is not None], key=lambda a: a.epoch):
         acc.steps_checked = True
-        trial = fit_without(res, acc.epoch, obs, reference, pulse, settings)
+        trial = _fit_without_if_no_worse(res, acc, obs, reference, pulse, settings)
         if trial is None:
             continue
         fitted, new_pulse, statistic, dof = trial
-        acc.fit_statistic, acc.fit_dof = statistic, dof
-        if not fitted.converged or statistic >= scipy.stats.chi2.isf(
-                settings.false_alarm_threshold, dof):
-            continue
         found.remove(acc)
         dropped += 1
         gain = (f"improve the fit by only {statistic:.1f} in chi-square for {dof} parameters"
